@@ -1,0 +1,1 @@
+"""geosim command line (installed as the geosim_cli package)."""

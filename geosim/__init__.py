@@ -1,0 +1,54 @@
+"""geosim: geostatistical conditional simulation from borehole data to uncertainty maps.
+
+The public API is re-exported here and loaded on first use, so ``import geosim``
+stays fast and compiles nothing.
+
+Examples
+--------
+>>> import geosim
+>>> geosim.CAUTION.startswith("CAUTION")
+True
+"""
+from __future__ import annotations
+
+import importlib
+from importlib.metadata import PackageNotFoundError, version as _dist_version
+
+from .cautions import CAUTION
+from .errors import GeosimError, GeosimWarning, InputError, NotPositiveDefiniteError, SpecError
+
+try:
+    __version__ = _dist_version("geosim")
+except PackageNotFoundError:  # running from a source tree that is not installed
+    __version__ = "0+unknown"
+
+# public name -> module that defines it; add new public names here
+_LAZY = {
+    "Grid": "geosim.grid",
+    "Anisotropy": "geosim.variogram",
+    "Model": "geosim.variogram",
+    "Structure": "geosim.variogram",
+    "Nugget": "geosim.variogram",
+    "Spherical": "geosim.variogram",
+    "Exponential": "geosim.variogram",
+    "Gaussian": "geosim.variogram",
+    "Cubic": "geosim.variogram",
+    "Matern": "geosim.variogram",
+    "cholesky": "geosim.linalg",
+}
+
+__all__ = ["CAUTION", "GeosimError", "GeosimWarning", "InputError", "NotPositiveDefiniteError",
+           "SpecError", "__version__", *_LAZY]
+
+
+def __getattr__(name: str):
+    module = _LAZY.get(name)
+    if module is None:
+        raise AttributeError(f"module 'geosim' has no attribute {name!r}")
+    value = getattr(importlib.import_module(module), name)
+    globals()[name] = value
+    return value
+
+
+def __dir__():
+    return sorted(set(globals()) | set(_LAZY))

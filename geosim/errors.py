@@ -1,0 +1,93 @@
+"""Exceptions raised by geosim.
+
+The library never prints and never exits; it raises one of these with a message
+that says what was expected, what was found and how to fix it.
+"""
+from __future__ import annotations
+
+from collections.abc import Sequence
+
+
+class GeosimError(Exception):
+    """Base class of every error geosim raises on purpose."""
+
+
+class GeosimWarning(UserWarning):
+    """Something geosim changed or chose for the user (merged duplicates, a picked CRS)."""
+
+
+class InputError(GeosimError, ValueError):
+    """Bad user input: a file, a row, a field, and what would fix it.
+
+    Examples
+    --------
+    >>> str(InputError("value 'abc' is not a number", file="assays.csv", row=12,
+    ...                field="au_gpt", fix="correct the cell or leave it empty"))
+    "assays.csv, row 12, field 'au_gpt': value 'abc' is not a number; fix: correct the cell or leave it empty"
+    """
+
+    def __init__(self, message: str, *, file: str | None = None, row: int | None = None,
+                 field: str | None = None, fix: str | None = None):
+        self.message = message
+        self.file = None if file is None else str(file)
+        self.row = row
+        self.field = field
+        self.fix = fix
+        super().__init__(str(self))
+
+    def __str__(self) -> str:
+        where = []
+        if self.file is not None:
+            where.append(self.file)
+        if self.row is not None:
+            where.append(f"row {self.row}")
+        if self.field is not None:
+            where.append(f"field '{self.field}'")
+        text = (", ".join(where) + ": " if where else "") + self.message
+        if self.fix:
+            text += f"; fix: {self.fix}"
+        return text
+
+
+class SpecError(InputError):
+    """A run spec with one or more problems, each with its key path and the expected form."""
+
+    def __init__(self, file: str, problems: Sequence[str]):
+        self.problems = list(problems)
+        super().__init__(
+            f"{len(self.problems)} problem(s) in the run spec: " + "; ".join(self.problems),
+            file=file,
+        )
+
+
+class NotPositiveDefiniteError(GeosimError, ArithmeticError):
+    """A covariance matrix that Cholesky cannot factor (a pivot <= 0).
+
+    Parameters
+    ----------
+    pivot : int
+        Index of the first pivot that was not positive.
+    value : float
+        The value found at that pivot.
+    ids : sequence, optional
+        Identifiers of the samples or nodes involved, for the message.
+    context : str, optional
+        Where the system came from (kriging at node ..., exact engine, ...).
+    """
+
+    def __init__(self, pivot: int, value: float, ids: Sequence | None = None,
+                 context: str | None = None):
+        self.pivot = int(pivot)
+        self.value = float(value)
+        self.ids = list(ids) if ids is not None else []
+        self.context = context
+        msg = (f"covariance matrix is not positive definite: pivot {self.pivot} is "
+               f"{self.value:.3g} (must be > 0)")
+        if context:
+            msg = f"{context}: {msg}"
+        if self.ids:
+            msg += f"; samples involved: {', '.join(map(str, self.ids[:10]))}"
+        msg += (". Likely causes: coincident or nearly coincident samples, a model "
+                "without nugget at very small spacing, or an invalid covariance model. "
+                "Merge duplicates, add a small nugget, or enable regularization.")
+        super().__init__(msg)

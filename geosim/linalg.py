@@ -1,0 +1,142 @@
+"""Compiled Cholesky factorization and triangular solves for small dense systems.
+
+Every local kriging and simulation system in geosim is a symmetric covariance
+matrix factored as ``A = L L^T``.  The kernels here are written for C-ordered
+(row-major) arrays and are compiled lazily by numba the first time they run
+(``cache=True`` keeps the machine code between sessions); importing this module
+compiles nothing.
+
+The factorization is right-looking and touches the lower triangle only: at step
+``k`` the pivot becomes ``l_kk = sqrt(a_kk)``, the column below it is divided by
+``l_kk`` and copied into a contiguous work vector, and the trailing lower triangle
+is updated row by row with ``a_ij -= l_ik l_jk`` so that the innermost loop runs
+along a row in memory.  The factorization exists only while every pivot stays
+positive; the kernel reports the first pivot that is not, and the Python wrapper
+turns that into :class:`geosim.errors.NotPositiveDefiniteError`.
+"""
+from __future__ import annotations
+
+import math
+
+import numpy as np
+from numba import njit
+
+from .errors import NotPositiveDefiniteError
+
+
+@njit(cache=True, nogil=True)
+def chol_inplace(a, n, work, tol):
+    """Factor the leading ``n x n`` block of ``a`` in place (lower triangle).
+
+    Parameters
+    ----------
+    a : float64[:, ::1]
+        Symmetric matrix; only the lower triangle is read.  On success the lower
+        triangle holds ``L``; the strict upper triangle is left untouched.
+    n : int
+        Order of the system (``a`` may be larger, as a reusable buffer).
+    work : float64[::1]
+        Scratch vector of length >= n.
+    tol : float
+        A pivot ``<= tol`` stops the factorization (use 0.0 for the strict test).
+
+    Returns
+    -------
+    int
+        -1 on success, otherwise the index of the first pivot that was ``<= tol``
+        (its value is left in ``a[k, k]``).
+    """
+    for k in range(n):
+        pivot = a[k, k]
+        if not (pivot > tol):  # also catches NaN
+            return k
+        lkk = math.sqrt(pivot)
+        a[k, k] = lkk
+        inv = 1.0 / lkk
+        for i in range(k + 1, n):
+            v = a[i, k] * inv
+            a[i, k] = v
+            work[i] = v
+        for i in range(k + 1, n):
+            wi = work[i]
+            row = a[i]
+            for j in range(k + 1, i + 1):
+                row[j] -= wi * work[j]
+    return -1
+
+
+@njit(cache=True, nogil=True)
+def forward_inplace(l, n, b):
+    """Solve ``L y = b`` in place (``b`` becomes ``y``); ``L`` is lower triangular."""
+    for i in range(n):
+        s = b[i]
+        row = l[i]
+        for j in range(i):
+            s -= row[j] * b[j]
+        b[i] = s / row[i]
+
+
+@njit(cache=True, nogil=True)
+def backward_t_inplace(l, n, b):
+    """Solve ``L^T x = b`` in place, reading ``L`` by rows (column sweep)."""
+    for i in range(n - 1, -1, -1):
+        b[i] = b[i] / l[i, i]
+        bi = b[i]
+        row = l[i]
+        for j in range(i):
+            b[j] -= row[j] * bi
+
+
+def cholesky(a: np.ndarray, *, tol: float = 0.0, ids=None, context: str | None = None) -> np.ndarray:
+    """Lower Cholesky factor of a symmetric positive definite matrix.
+
+    Parameters
+    ----------
+    a : (n, n) array_like
+        Symmetric matrix; only its lower triangle is used.
+    tol : float, default 0.0
+        Pivots ``<= tol`` are treated as failure.
+    ids : sequence, optional
+        Labels of the rows (sample ids), used in the error message.
+    context : str, optional
+        Where the matrix came from, used in the error message.
+
+    Returns
+    -------
+    (n, n) ndarray
+        ``L`` with zeros above the diagonal, so that ``L @ L.T == a``.
+
+    Raises
+    ------
+    NotPositiveDefiniteError
+        If a pivot is not positive.
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> import geosim.linalg
+    >>> geosim.linalg.cholesky(np.array([[4.0, 2.0], [2.0, 5.0]]))
+    array([[2., 0.],
+           [1., 2.]])
+    """
+    work_a = np.array(a, dtype=np.float64, order="C", copy=True)
+    if work_a.ndim != 2 or work_a.shape[0] != work_a.shape[1]:
+        raise ValueError(f"expected a square matrix, got shape {work_a.shape}")
+    n = work_a.shape[0]
+    k = chol_inplace(work_a, n, np.empty(n), float(tol))
+    if k >= 0:
+        involved = None
+        if ids is not None:
+            involved = [ids[k]]
+        raise NotPositiveDefiniteError(k, work_a[k, k], involved, context)
+    return np.tril(work_a)
+
+
+def solve_spd(l: np.ndarray, b: np.ndarray) -> np.ndarray:
+    """Solve ``A x = b`` given the lower factor ``L`` of ``A`` (``b`` a vector)."""
+    x = np.array(b, dtype=np.float64, copy=True)
+    n = l.shape[0]
+    lc = np.ascontiguousarray(l, dtype=np.float64)
+    forward_inplace(lc, n, x)
+    backward_t_inplace(lc, n, x)
+    return x

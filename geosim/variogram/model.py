@@ -1,0 +1,188 @@
+"""Nested covariance models: a sum of structures, each with its own anisotropy."""
+from __future__ import annotations
+
+from collections.abc import Iterable, Sequence
+
+import numpy as np
+
+from .anisotropy import Anisotropy
+from .structures import BUILTIN_STRUCTURES, MATERN, TABULATED, Structure
+
+_TABLE_POINTS = 4097
+
+
+class Model:
+    """A nested covariance model ``C(h) = sum_j sill_j * rho_j(|M_j h|)``.
+
+    Parameters
+    ----------
+    structures : sequence of Structure
+        The nested structures (a nugget is a structure like any other).
+
+    Examples
+    --------
+    >>> import geosim
+    >>> from geosim.variogram import Model, Nugget, Spherical, Anisotropy
+    >>> m = Nugget(0.1) + Spherical(0.9, Anisotropy((100.0, 50.0, 100.0), azimuth=45.0))
+    >>> round(float(m.semivariance([[0.0, 100.0]])[0]), 6) < 1.0
+    True
+    >>> m.sill
+    1.0
+    """
+
+    def __init__(self, structures: Iterable[Structure]):
+        self.structures: tuple[Structure, ...] = tuple(structures)
+        for s in self.structures:
+            if not isinstance(s, Structure):
+                raise TypeError(f"expected Structure instances, got {type(s).__name__}")
+        if not self.structures:
+            raise ValueError("a model needs at least one structure")
+
+    # composition -----------------------------------------------------------
+    def __add__(self, other) -> Model:
+        if isinstance(other, Structure):
+            return Model(self.structures + (other,))
+        if isinstance(other, Model):
+            return Model(self.structures + other.structures)
+        return NotImplemented
+
+    __radd__ = __add__
+
+    def __eq__(self, other) -> bool:
+        return isinstance(other, Model) and self.structures == other.structures
+
+    def __hash__(self):
+        return hash(self.structures)
+
+    def __len__(self) -> int:
+        return len(self.structures)
+
+    def __iter__(self):
+        return iter(self.structures)
+
+    # values ------------------------------------------------------------------
+    @property
+    def sill(self) -> float:
+        """Total sill: the covariance at zero lag."""
+        return float(sum(s.sill for s in self.structures))
+
+    @property
+    def nugget(self) -> float:
+        return float(sum(s.sill for s in self.structures if s.kind == "nugget"))
+
+    @property
+    def max_range(self) -> float:
+        """Largest range of any non-nugget structure (metres)."""
+        ranges = [max(s.anisotropy.ranges) for s in self.structures if s.kind != "nugget"]
+        return float(max(ranges)) if ranges else 0.0
+
+    def covariance(self, h) -> np.ndarray:
+        """Covariance at lag vectors ``h`` of shape (..., d)."""
+        h = np.asarray(h, dtype=float)
+        return sum(s.covariance(h) for s in self.structures)
+
+    def semivariance(self, h) -> np.ndarray:
+        """Semivariance ``gamma(h) = C(0) - C(h)`` at lag vectors of shape (..., d)."""
+        return self.sill - self.covariance(h)
+
+    def cov_matrix(self, a, b=None, *, chunk: int = 2048) -> np.ndarray:
+        """Covariances between point sets ``a`` (n, d) and ``b`` (m, d), shape (n, m)."""
+        a = np.atleast_2d(np.asarray(a, dtype=float))
+        b = a if b is None else np.atleast_2d(np.asarray(b, dtype=float))
+        if a.shape[1] != b.shape[1]:
+            raise ValueError(f"point sets differ in dimension: {a.shape[1]} and {b.shape[1]}")
+        out = np.empty((a.shape[0], b.shape[0]))
+        for start in range(0, a.shape[0], chunk):
+            block = a[start:start + chunk]
+            out[start:start + chunk] = self.covariance(block[:, None, :] - b[None, :, :])
+        return out
+
+    # compiled form -----------------------------------------------------------
+    def compiled(self) -> tuple:
+        """Arrays for the compiled kernels in :mod:`geosim.variogram.compiled`.
+
+        Returns ``(codes, sills, mats, params, tables, steps)``: structure codes
+        (int64[m]), sills (float64[m]), reduced-distance matrices (float64[m, 3, 3]),
+        shape parameters (float64[m]), correlation tables (float64[m, T]) and
+        their steps in reduced distance (float64[m]).  Structures without a
+        closed compiled form (Matern, plugin structures with only a numpy form)
+        are tabulated on ``0 <= r <= r_max`` and interpolated linearly.
+        """
+        m = len(self.structures)
+        codes = np.empty(m, dtype=np.int64)
+        sills = np.empty(m)
+        mats = np.empty((m, 3, 3))
+        params = np.empty(m)
+        need_table = [s.code == MATERN or s.code < 0 or s.code >= 100 for s in self.structures]
+        tables = np.zeros((m, _TABLE_POINTS if any(need_table) else 1))
+        steps = np.ones(m)
+        for j, s in enumerate(self.structures):
+            codes[j] = TABULATED if need_table[j] else s.code
+            sills[j] = s.sill
+            mats[j] = s.anisotropy.matrix()
+            params[j] = s.param
+            if need_table[j]:
+                r_max = _table_extent(s)
+                r = np.linspace(0.0, r_max, _TABLE_POINTS)
+                tables[j] = s.correlation(r)
+                tables[j, -1] = 0.0 if tables[j, -1] < 1e-6 else tables[j, -1]
+                steps[j] = r_max / (_TABLE_POINTS - 1)
+        return (codes, sills, np.ascontiguousarray(mats), params, tables, steps)
+
+    # text and dictionaries ---------------------------------------------------
+    def to_dicts(self) -> list[dict]:
+        out = []
+        for s in self.structures:
+            d = {"kind": s.kind, "sill": s.sill}
+            if s.kind != "nugget":
+                a = s.anisotropy
+                d.update(ranges=list(a.ranges), azimuth=a.azimuth, dip=a.dip, rake=a.rake)
+            if s.param_name:
+                d[s.param_name] = s.param
+            out.append(d)
+        return out
+
+    @classmethod
+    def from_dicts(cls, items: Sequence[dict], registry: dict | None = None) -> Model:
+        registry = registry or BUILTIN_STRUCTURES
+        structures = []
+        for i, d in enumerate(items):
+            d = dict(d)
+            kind = d.pop("kind", None)
+            if kind not in registry:
+                raise ValueError(f"structure {i + 1}: unknown kind {kind!r}; known: {', '.join(sorted(registry))}")
+            cls_ = registry[kind]
+            kwargs = {"sill": float(d.pop("sill"))}
+            if kind != "nugget":
+                kwargs["anisotropy"] = Anisotropy(tuple(d.pop("ranges")), float(d.pop("azimuth", 0.0)),
+                                                  float(d.pop("dip", 0.0)), float(d.pop("rake", 0.0)))
+            if cls_.param_name and cls_.param_name in d:
+                kwargs["param"] = float(d.pop(cls_.param_name))
+            if d:
+                raise ValueError(f"structure {i + 1} ({kind}): unexpected keys {sorted(d)}")
+            structures.append(cls_(**kwargs))
+        return cls(structures)
+
+    def __str__(self) -> str:
+        lines = []
+        for i, d in enumerate(self.to_dicts()):
+            parts = [f"{d['kind']} sill={d['sill']:.6g}"]
+            if "ranges" in d:
+                parts.append("ranges=(" + ", ".join(f"{r:.6g}" for r in d["ranges"]) + ")")
+                parts.append(f"azimuth={d['azimuth']:.6g} dip={d['dip']:.6g} rake={d['rake']:.6g}")
+            for k, v in d.items():
+                if k not in ("kind", "sill", "ranges", "azimuth", "dip", "rake"):
+                    parts.append(f"{k}={v:.6g}")
+            lines.append(("  " if i == 0 else "+ ") + " ".join(parts))
+        return "\n".join(lines)
+
+    def __repr__(self) -> str:
+        return f"Model({list(self.structures)!r})"
+
+
+def _table_extent(s: Structure) -> float:
+    """Reduced distance past which the correlation is negligible (< 1e-6), capped."""
+    r = np.linspace(0.0, 50.0, 5001)
+    rho = np.abs(s.correlation(r))
+    beyond = np.nonzero(rho < 1e-6)[0]
+    return float(max(r[beyond[0]], 1.0)) if beyond.size else 50.0
