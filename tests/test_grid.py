@@ -14,8 +14,8 @@ def test_node_centres_follow_the_north_up_convention():
     assert xy[2, 3].tolist() == [1035.0, 2010.0]
     t = g.transform
     # the raster transform maps pixel centres (col + 0.5, row + 0.5) to the same node centres
-    assert (t * (0.5, 0.5)) == (1005.0, 2050.0)
-    assert (t * (3.5, 2.5)) == (1035.0, 2010.0)
+    assert (t @ (0.5, 0.5)) == (1005.0, 2050.0)
+    assert (t @ (3.5, 2.5)) == (1035.0, 2010.0)
 
 
 def test_three_d_levels_start_at_the_bottom():
