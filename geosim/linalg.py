@@ -87,8 +87,18 @@ def backward_t_inplace(l, n, b):
             b[j] -= row[j] * bi
 
 
+# Above this order a whole matrix goes to LAPACK (scipy): its blocked factorization
+# beats the compiled loop once the matrix no longer fits in cache (measured in
+# tests/benchmarks/bench_kriging.py; common practice, no source).
+LAPACK_ORDER = 128
+
+
 def cholesky(a: np.ndarray, *, tol: float = 0.0, ids=None, context: str | None = None) -> np.ndarray:
     """Lower Cholesky factor of a symmetric positive definite matrix.
+
+    Small matrices are factored by the compiled :func:`chol_inplace`; matrices of
+    order >= :data:`LAPACK_ORDER` by LAPACK ``dpotrf`` through scipy.  Both read
+    the lower triangle only and fail the same way.
 
     Parameters
     ----------
@@ -109,7 +119,8 @@ def cholesky(a: np.ndarray, *, tol: float = 0.0, ids=None, context: str | None =
     Raises
     ------
     NotPositiveDefiniteError
-        If a pivot is not positive.
+        If a pivot is not positive (or not above ``tol``).  The error names the
+        failing pivot, its value and, when ``ids`` is given, the row's label.
 
     Examples
     --------
@@ -123,6 +134,11 @@ def cholesky(a: np.ndarray, *, tol: float = 0.0, ids=None, context: str | None =
     if work_a.ndim != 2 or work_a.shape[0] != work_a.shape[1]:
         raise ValueError(f"expected a square matrix, got shape {work_a.shape}")
     n = work_a.shape[0]
+    if n >= LAPACK_ORDER:
+        factor = _lapack_lower(work_a, float(tol))
+        if factor is not None:
+            return factor
+        # failed: the compiled loop below finds the same pivot and its value for the message
     k = chol_inplace(work_a, n, np.empty(n), float(tol))
     if k >= 0:
         involved = None
@@ -130,6 +146,18 @@ def cholesky(a: np.ndarray, *, tol: float = 0.0, ids=None, context: str | None =
             involved = [ids[k]]
         raise NotPositiveDefiniteError(k, work_a[k, k], involved, context)
     return np.tril(work_a)
+
+
+def _lapack_lower(a: np.ndarray, tol: float) -> np.ndarray | None:
+    """LAPACK lower factor of ``a`` (not modified), or None if any pivot is ``<= tol``."""
+    from scipy.linalg import lapack
+
+    factor, info = lapack.dpotrf(a, lower=1, clean=1, overwrite_a=0)
+    if info != 0:
+        return None
+    if tol > 0.0 and not np.all(np.diag(factor) ** 2 > tol):
+        return None
+    return factor
 
 
 def solve_spd(l: np.ndarray, b: np.ndarray) -> np.ndarray:
