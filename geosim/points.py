@@ -1,0 +1,262 @@
+"""Point samples: the :class:`PointSet` every later step works on, and CSV point intake.
+
+A point CSV has one sample per row: coordinate columns, one or more value
+columns and optionally a hole (or well) identifier.  :func:`read_points` checks
+every cell, reprojects geographic coordinates to metres (see :mod:`geosim.crs`)
+and merges coincident samples, recording what it did in ``PointSet.notes``.
+"""
+from __future__ import annotations
+
+import os
+import warnings
+from collections.abc import Sequence
+from dataclasses import dataclass, field, replace
+
+import numpy as np
+from pyproj import CRS
+
+from .crs import CrsLike, to_projected
+from .errors import GeosimWarning, InputError
+from .tables import read_table
+
+
+@dataclass(frozen=True, repr=False)
+class PointSet:
+    """Samples at points: coordinates in metres, values, and where they came from.
+
+    Parameters
+    ----------
+    coords : (n, d) float64 ndarray
+        ``(x, y[, z])`` = (east, north[, up]) in metres of ``crs``.
+    values : (n, k) float64 ndarray
+        One column per variable.  Composites may hold NaN where a variable was not
+        assayed over the composite; :meth:`complete` drops those rows.
+    names : tuple of str
+        The ``k`` variable names.
+    crs : pyproj.CRS or None
+        CRS of ``coords``; None for a local grid in metres.
+    hole_ids : (n,) str ndarray or None
+        Hole or well of each sample.
+    attributes : dict of str to (n,) ndarray
+        Per-sample extras; composites carry ``length`` (sampled length, m),
+        ``depth`` (mid-point depth along the hole, m), ``from`` and ``to``.
+    source : tuple of str
+        Input paths.
+    notes : tuple of str
+        What intake chose or changed, in order.
+
+    Examples
+    --------
+    >>> import numpy, geosim
+    >>> p = geosim.PointSet(numpy.array([[0.0, 0.0], [10.0, 0.0]]), numpy.array([[1.0], [3.0]]), ("cu",))
+    >>> len(p), p.ndim, p.column().tolist()
+    (2, 2, [1.0, 3.0])
+    """
+
+    coords: np.ndarray
+    values: np.ndarray
+    names: tuple[str, ...]
+    crs: CRS | None = None
+    hole_ids: np.ndarray | None = None
+    attributes: dict = field(default_factory=dict)
+    source: tuple[str, ...] = ()
+    notes: tuple[str, ...] = ()
+
+    def __post_init__(self):
+        coords = np.array(self.coords, dtype=np.float64, ndmin=2)
+        if coords.ndim != 2 or coords.shape[1] not in (2, 3):
+            raise ValueError(f"coords must be (n, 2) or (n, 3), got shape {np.shape(self.coords)}")
+        n = coords.shape[0]
+        values = np.asarray(self.values, dtype=np.float64)
+        if values.ndim == 1:
+            values = values[:, None]
+        if values.ndim != 2 or values.shape[0] != n:
+            raise ValueError(f"values must be (n, k) with n = {n}, got shape {np.shape(self.values)}")
+        names = (self.names,) if isinstance(self.names, str) else tuple(str(s) for s in self.names)
+        if len(names) != values.shape[1] or len(set(names)) != len(names):
+            raise ValueError(f"need {values.shape[1]} distinct value names, got {names}")
+        if not np.isfinite(coords).all():
+            raise ValueError("coords must be finite")
+        hole_ids = None
+        if self.hole_ids is not None:
+            hole_ids = np.asarray(self.hole_ids).astype(str)
+            if hole_ids.shape != (n,):
+                raise ValueError(f"hole_ids must be ({n},), got shape {hole_ids.shape}")
+        attributes = {}
+        for key, arr in dict(self.attributes).items():
+            arr = np.asarray(arr)
+            if arr.shape != (n,):
+                raise ValueError(f"attribute {key!r} must be ({n},), got shape {arr.shape}")
+            attributes[str(key)] = arr
+        object.__setattr__(self, "coords", coords)
+        object.__setattr__(self, "values", values)
+        object.__setattr__(self, "names", names)
+        object.__setattr__(self, "hole_ids", hole_ids)
+        object.__setattr__(self, "attributes", attributes)
+        object.__setattr__(self, "source", tuple(str(s) for s in self.source))
+        object.__setattr__(self, "notes", tuple(str(s) for s in self.notes))
+
+    def __len__(self) -> int:
+        return self.coords.shape[0]
+
+    def __repr__(self) -> str:
+        crs = "None" if self.crs is None else self.crs.to_string()
+        holes = "" if self.hole_ids is None else f", holes={len(np.unique(self.hole_ids))}"
+        return f"PointSet(n={len(self)}, d={self.ndim}, names={self.names}, crs={crs}{holes})"
+
+    @property
+    def ndim(self) -> int:
+        """2 or 3: the number of coordinate columns."""
+        return self.coords.shape[1]
+
+    def column(self, name: str | None = None) -> np.ndarray:
+        """One value column as an (n,) array; ``name`` may be omitted when there is only one."""
+        if name is None:
+            if len(self.names) != 1:
+                raise KeyError(f"this point set has {len(self.names)} value columns "
+                               f"({', '.join(self.names)}); name one")
+            return self.values[:, 0]
+        try:
+            return self.values[:, self.names.index(name)]
+        except ValueError:
+            raise KeyError(f"no value column {name!r}; columns: {', '.join(self.names)}") from None
+
+    def take(self, index) -> PointSet:
+        """The samples selected by an integer index or a boolean mask, with everything else kept."""
+        idx = np.asarray(index)
+        return replace(self, coords=self.coords[idx], values=self.values[idx],
+                       hole_ids=None if self.hole_ids is None else self.hole_ids[idx],
+                       attributes={k: v[idx] for k, v in self.attributes.items()})
+
+    def complete(self, name: str | None = None) -> PointSet:
+        """The samples where ``name`` (or, if None, every value column) is not NaN."""
+        vals = self.values if name is None else self.column(name)[:, None]
+        keep = np.isfinite(vals).all(axis=1)
+        return self if keep.all() else self.take(keep)
+
+    def with_note(self, note: str) -> PointSet:
+        """A copy with one more note."""
+        return replace(self, notes=self.notes + (note,))
+
+
+def read_points(path: str | os.PathLike, *, x: str, y: str, z: str | None = None,
+                values: str | Sequence[str], hole: str | None = None, crs: CrsLike | None,
+                target_crs: CrsLike | None = None, duplicates: str = "average",
+                tolerance: float = 1e-3) -> PointSet:
+    """Read point samples from a CSV file.
+
+    Parameters
+    ----------
+    path : path-like
+        The CSV file (comma, semicolon or tab separated; header in the first row).
+    x, y : str
+        Column names of the coordinates; for a geographic CRS, ``x`` is the
+        longitude and ``y`` the latitude column.
+    z : str, optional
+        Column of elevations (metres, up positive).
+    values : str or sequence of str
+        Value column(s).  Every cell must hold a finite number.
+    hole : str, optional
+        Column of hole or well identifiers.
+    crs : CRS-like or None
+        CRS of the coordinates (EPSG code, WKT or PROJ text).  None declares a local
+        grid already in metres.
+    target_crs : CRS-like, optional
+        Projected CRS in metres to work in.  Geographic input without it goes to
+        the UTM zone of the data centroid (reported in ``notes`` and by a warning).
+    duplicates : {"average", "error"}
+        What to do with samples at the same position (within ``tolerance`` metres
+        after reprojection): average them (with a :class:`GeosimWarning` and a note)
+        or raise :class:`InputError` naming the rows.  Coincident samples make the
+        kriging covariance singular, so they are never kept as they are.
+    tolerance : float
+        Distance in metres below which two samples count as coincident.
+
+    Returns
+    -------
+    PointSet
+
+    Raises
+    ------
+    InputError
+        Naming file, row and column: missing or misspelt columns (with suggestions),
+        empty or non-numeric cells, ``nan``/``inf`` written in a cell, unreadable
+        CRS text, coordinates that are not degrees under a geographic CRS.
+    """
+    if duplicates not in ("average", "error"):
+        raise ValueError(f"duplicates must be 'average' or 'error', got {duplicates!r}")
+    names = (values,) if isinstance(values, str) else tuple(values)
+    if not names:
+        raise ValueError("name at least one value column")
+    table = read_table(path, what="point table")
+    cols = [table.numbers(x, role="x coordinate"), table.numbers(y, role="y coordinate")]
+    if z is not None:
+        cols.append(table.numbers(z, role="z coordinate"))
+    vals = np.column_stack([table.numbers(v, role="value") for v in names])
+    ids = None if hole is None else table.text(hole, role="hole id")
+    coords, out_crs, note = to_projected(np.column_stack(cols), crs, target_crs, file=table.path)
+    notes = [] if note is None else [note]
+    points = PointSet(coords, vals, tuple(table.header[table.index(v)] for v in names), out_crs, ids,
+                      {}, (table.path,), tuple(notes))
+    return merge_coincident(points, tolerance=tolerance, mode=duplicates, lines=np.array(table.lines),
+                            file=table.path)
+
+
+def merge_coincident(points: PointSet, *, tolerance: float = 1e-3, mode: str = "average",
+                     lines: np.ndarray | None = None, file: str | None = None) -> PointSet:
+    """Merge samples closer than ``tolerance`` metres by averaging them.
+
+    Groups are the connected components of the "closer than tolerance" relation.
+    Values and numeric attributes are averaged (NaN ignored); the first sample's
+    hole id is kept.  A :class:`GeosimWarning` and a note report how many samples
+    were merged.  With ``mode="error"`` the first coincident pair raises
+    :class:`InputError` naming both rows (``lines`` gives the file row of each
+    sample; default the sample index + 1).
+    """
+    from scipy.sparse import coo_matrix
+    from scipy.sparse.csgraph import connected_components
+    from scipy.spatial import cKDTree
+
+    n = len(points)
+    pairs = cKDTree(points.coords).query_pairs(r=tolerance, output_type="ndarray") if n > 1 \
+        else np.empty((0, 2), dtype=int)
+    if len(pairs) == 0:
+        return points
+    rows = np.arange(1, n + 1) if lines is None else np.asarray(lines)
+    if mode == "error":
+        i, j = sorted(pairs[0])
+        raise InputError(f"samples in rows {rows[i]} and {rows[j]} are at the same position "
+                         f"(within {tolerance} m)", file=file, row=int(rows[j]),
+                         fix="remove or average one of them, or read with duplicates='average'")
+    graph = coo_matrix((np.ones(len(pairs)), (pairs[:, 0], pairs[:, 1])), shape=(n, n))
+    n_groups, label = connected_components(graph, directed=False)
+    # keep groups in order of their first sample so output order follows the file
+    first = np.full(n_groups, n)
+    np.minimum.at(first, label, np.arange(n))
+    order = np.argsort(first, kind="stable")
+    relabel = np.empty(n_groups, dtype=int)
+    relabel[order] = np.arange(n_groups)
+    label = relabel[label]
+    counts = np.bincount(label, minlength=n_groups)
+
+    def average(a: np.ndarray) -> np.ndarray:
+        a = a.reshape(n, -1)
+        ok = np.isfinite(a)
+        sums = np.zeros((n_groups, a.shape[1]))
+        hits = np.zeros((n_groups, a.shape[1]))
+        np.add.at(sums, label, np.where(ok, a, 0.0))
+        np.add.at(hits, label, ok)
+        with np.errstate(invalid="ignore", divide="ignore"):
+            return sums / hits
+
+    keep = np.sort(first)
+    attributes = {k: (average(v.astype(float))[:, 0] if np.issubdtype(v.dtype, np.number) else v[keep])
+                  for k, v in points.attributes.items()}
+    merged = int(n - n_groups)
+    example = [int(r) for r in rows[label == label[pairs[0][0]]][:3]]
+    note = (f"merged {merged + int((counts > 1).sum())} coincident samples into "
+            f"{int((counts > 1).sum())} (averaged; e.g. rows {', '.join(map(str, example))})")
+    warnings.warn(note + (f" in {file}" if file else ""), GeosimWarning, stacklevel=3)
+    return replace(points, coords=average(points.coords), values=average(points.values),
+                   hole_ids=None if points.hole_ids is None else points.hole_ids[keep],
+                   attributes=attributes, notes=points.notes + (note,))
