@@ -1,0 +1,363 @@
+"""Make geosim's two invented sample fields from known models, with a fixed seed.
+
+Both scenarios are invented: the place names are fictitious and the coordinates
+were put in open sea on purpose, so that nobody mistakes them for a real deposit
+or aquifer.  Each field is an exact unconditional Gaussian simulation *at the
+sample locations*: the covariance matrix of all sample points under the true
+model, its lower Cholesky factor ``L`` (LAPACK, through scipy), and ``y = L z``
+for a vector ``z`` of independent standard normal numbers.  ``y`` is in
+normal-score units (mean 0, variance = total sill = 1) and is turned into grades
+or conductivities by a log-normal marginal.  Because that marginal is monotone,
+a normal-score transform of the published values gives back ``y`` up to the
+rounding of the CSV files, so variogram fitting on the data should recover the
+true model within sampling error.
+
+Run from the repository root to remake the committed files (they are
+overwritten with identical content)::
+
+    python sample_fields/make_sample_fields.py
+
+or write a fresh copy elsewhere with ``--out FOLDER``.
+"""
+from __future__ import annotations
+
+import argparse
+import csv
+import io
+import json
+import math
+import re
+from pathlib import Path
+
+import numpy as np
+import scipy.linalg
+import shapely
+from pyproj import Transformer
+from shapely.geometry import MultiPoint, Polygon, mapping
+from shapely.geometry.polygon import orient
+
+from geosim.io.atomic import atomic_output
+from geosim.variogram import Anisotropy, Exponential, Model, Nugget, Spherical
+
+SEED = 20261202
+HERE = Path(__file__).resolve().parent
+
+# ---------------------------------------------------------------------------
+# The true models and marginals (the READMEs quote them; tests check that they agree)
+# ---------------------------------------------------------------------------
+
+ORE_NAME = "Quenbarrow Ridge copper prospect"
+ORE_EPSG = 32750  # WGS 84 / UTM zone 50S
+ORE_MODEL = Nugget(0.15) + Spherical(0.85, Anisotropy((180.0, 90.0, 40.0), azimuth=60.0))
+# copper % = exp(mu + sigma * y): mean exp(mu + sigma^2 / 2) = 0.6 %, median exp(mu) ~ 0.44 %
+ORE_SIGMA = 0.8
+ORE_MU = math.log(0.6) - ORE_SIGMA**2 / 2.0
+
+AQUIFER_NAME = "Lirravel Valley alluvial aquifer"
+AQUIFER_EPSG = 32725  # WGS 84 / UTM zone 25S, the zone of the wells' lon/lat centroid
+AQUIFER_MODEL = Nugget(0.1) + Exponential(0.9, Anisotropy((1500.0, 300.0), azimuth=30.0))
+# log10(K in m/s) = mean + std * y
+AQUIFER_LOG10_MEAN = -4.0
+AQUIFER_LOG10_STD = 0.8
+
+
+def _rng(stream: int) -> np.random.Generator:
+    """Independent random stream ``stream`` of the fixed seed."""
+    return np.random.default_rng(np.random.SeedSequence(SEED, spawn_key=(stream,)))
+
+
+def gaussian_at(points: np.ndarray, model: Model, rng: np.random.Generator) -> np.ndarray:
+    """Exact unconditional simulation of ``model`` at ``points``: ``L z`` with ``C = L L^T``."""
+    cov = model.cov_matrix(points)
+    lower = scipy.linalg.cholesky(cov, lower=True, overwrite_a=True, check_finite=False)
+    return lower @ rng.standard_normal(points.shape[0])
+
+
+# ---------------------------------------------------------------------------
+# Minimum-curvature desurvey (kept here so the script does not depend on geosim.drillholes)
+# ---------------------------------------------------------------------------
+
+def direction(azimuth: np.ndarray, dip: np.ndarray) -> np.ndarray:
+    """Unit vectors (east, north, up) of azimuth (clockwise from north) and dip (negative down)."""
+    a, d = np.radians(azimuth), np.radians(dip)
+    return np.stack([np.cos(d) * np.sin(a), np.cos(d) * np.cos(a), np.sin(d)], axis=-1)
+
+
+def _slerp(t1: np.ndarray, t2: np.ndarray, f: float) -> np.ndarray:
+    """Direction a fraction ``f`` of the way along the great circle from ``t1`` to ``t2``."""
+    beta = math.acos(min(1.0, max(-1.0, float(t1 @ t2))))
+    if beta < 1e-9:
+        return t1.copy()
+    return (math.sin((1 - f) * beta) * t1 + math.sin(f * beta) * t2) / math.sin(beta)
+
+
+def _arc_step(t1: np.ndarray, t2: np.ndarray, length: float) -> np.ndarray:
+    """Displacement along a circular arc of ``length`` from direction ``t1`` to ``t2``."""
+    beta = math.acos(min(1.0, max(-1.0, float(t1 @ t2))))
+    ratio = 1.0 if beta < 1e-9 else 2.0 / beta * math.tan(beta / 2.0)
+    return 0.5 * length * ratio * (t1 + t2)
+
+
+def desurvey(collar: np.ndarray, stations: np.ndarray, depths: np.ndarray) -> np.ndarray:
+    """Positions at ``depths`` along a hole by minimum curvature.
+
+    Parameters
+    ----------
+    collar : (3,) array
+        Collar (x, y, z).
+    stations : (m, 3) array
+        Survey rows ``(depth, azimuth, dip)`` sorted by depth; ``m = 0`` means vertical.
+    depths : (n,) array
+        Down-hole depths to locate.
+
+    The first station's direction holds from the collar down to it, the last one's
+    below it; between stations the hole is a circular arc, so a point inside an
+    interval is reached by an arc to the interpolated (slerped) direction.
+    """
+    if len(stations) == 0:
+        stations = np.array([[0.0, 0.0, -90.0]])
+    sd = stations[:, 0]
+    dirs = direction(stations[:, 1], stations[:, 2])
+    # station positions
+    pos = np.empty((len(sd), 3))
+    pos[0] = collar + sd[0] * dirs[0]
+    for k in range(1, len(sd)):
+        pos[k] = pos[k - 1] + _arc_step(dirs[k - 1], dirs[k], sd[k] - sd[k - 1])
+    out = np.empty((len(depths), 3))
+    for i, d in enumerate(depths):
+        k = int(np.searchsorted(sd, d, side="right")) - 1
+        if k < 0:
+            out[i] = collar + d * dirs[0]
+        elif k == len(sd) - 1:
+            out[i] = pos[k] + (d - sd[k]) * dirs[k]
+        else:
+            f = (d - sd[k]) / (sd[k + 1] - sd[k])
+            t = _slerp(dirs[k], dirs[k + 1], f)
+            out[i] = pos[k] + _arc_step(dirs[k], t, d - sd[k])
+    return out
+
+
+# ---------------------------------------------------------------------------
+# Writing
+# ---------------------------------------------------------------------------
+
+def _write_text(path: Path, text: str) -> None:
+    with atomic_output(path, overwrite=True) as tmp:
+        tmp.write_text(text, encoding="utf-8", newline="")
+
+
+def _write_csv(path: Path, header: list[str], rows: list[list]) -> None:
+    buf = io.StringIO()
+    w = csv.writer(buf, lineterminator="\n")
+    w.writerow(header)
+    w.writerows(rows)
+    _write_text(path, buf.getvalue())
+
+
+def _write_json(path: Path, obj) -> None:
+    text = json.dumps(obj, indent=1)
+    # one coordinate pair per line keeps the files short and their diffs readable
+    text = re.sub(r"\[\s+(-?[\d.e+-]+),\s+(-?[\d.e+-]+)\s+\]", r"[\1, \2]", text)
+    _write_text(path, text + "\n")
+
+
+def _domain_feature_collection(poly_projected: Polygon, epsg: int, name: str) -> dict:
+    """RFC 7946 FeatureCollection of one polygon: lon/lat, counter-clockwise exterior."""
+    to_lonlat = Transformer.from_crs(epsg, 4326, always_xy=True)
+    ll = shapely.transform(poly_projected, lambda xy: np.column_stack(to_lonlat.transform(xy[:, 0], xy[:, 1])))
+    ll = orient(shapely.set_precision(ll, 1e-7), sign=1.0)  # ~1 cm grid; RFC 7946 ring order
+    geometry = mapping(ll)
+    return {"type": "FeatureCollection",
+            "features": [{"type": "Feature",
+                          "properties": {"name": name, "note": "invented outline for testing; not a real place"},
+                          "geometry": geometry}]}
+
+
+def _true_model_record(model: Model, marginal: dict, crs: str, how: str) -> dict:
+    return {"model": model.to_dicts(), "model_text": str(model), "units": "normal scores",
+            "marginal": marginal, "crs": crs, "seed": SEED, "how": how}
+
+
+# ---------------------------------------------------------------------------
+# (a) ore prospect
+# ---------------------------------------------------------------------------
+
+def make_ore_prospect(out: Path) -> None:
+    rng = _rng(1)
+    out.mkdir(parents=True, exist_ok=True)
+    centre = np.array([455000.0, 5460000.0])
+    strike = np.radians(60.0)
+    along = np.array([math.sin(strike), math.cos(strike)])          # azimuth 60
+    across = np.array([math.sin(strike + math.pi / 2), math.cos(strike + math.pi / 2)])  # azimuth 150
+
+    # 8 drill lines across strike, 5 holes per line, two dropped and two infill holes
+    sites = [(line, pos) for line in range(8) for pos in range(5)]
+    for drop in sorted(rng.choice(len(sites), 2, replace=False), reverse=True):
+        sites.pop(int(drop))
+    sites += [(3.5, 2.0), (4.5, 2.5)]
+    holes = []
+    for n, (line, pos) in enumerate(sites):
+        u = (line - 3.5) * 55.0 + rng.uniform(-8, 8)
+        v = (pos - 2.0) * 45.0 + rng.uniform(-8, 8)
+        xy = centre + u * along + v * across
+        z = 340.0 + 12.0 * math.sin(u / 90.0) + 0.04 * v + rng.uniform(-1.5, 1.5)
+        holes.append({"id": f"QR{n + 1:03d}", "xyz": np.array([xy[0], xy[1], z]),
+                      "depth": round(float(rng.uniform(120, 250)), 1)})
+    holes = [{**h, "xyz": np.round(h["xyz"], 2)} for h in holes]
+
+    # 24 inclined holes towards about azimuth 330 (across strike) that flatten and turn gently;
+    # of the 16 vertical holes, 2 have a single survey row, the rest none
+    order = rng.permutation(len(holes))
+    inclined, vertical_rows = set(order[:24].tolist()), set(order[24:26].tolist())
+    survey_rows = []
+    for k, h in enumerate(holes):
+        if k in inclined:
+            az0, dip0 = rng.uniform(322, 338), rng.uniform(-75, -55)
+            daz, ddip = rng.uniform(1.0, 4.0), rng.uniform(1.0, 3.0)  # degrees per 100 m
+            depths = np.append(np.arange(0.0, h["depth"], 30.0), h["depth"])
+            rows = [[round(float(d), 1), round(float((az0 + daz * d / 100) % 360), 2),
+                     round(float(dip0 + ddip * d / 100), 2)] for d in depths]
+        elif k in vertical_rows:
+            rows = [[0.0, 0.0, -90.0]]
+        else:
+            rows = []
+        h["stations"] = np.array(rows, dtype=float).reshape(-1, 3)
+        survey_rows += [[h["id"], *r] for r in rows]
+
+    # assay intervals, in decimetres so that from/to stay exact: unsampled cover, then 1-2 m
+    # runs, with one unsampled gap (core loss) in six holes
+    gap_holes = set(rng.choice(len(holes), 6, replace=False).tolist())
+    intervals = []  # (hole index, from, to)
+    for k, h in enumerate(holes):
+        end = int(round(h["depth"] * 10))
+        top = int(rng.integers(40, 121))
+        gap = None
+        if k in gap_holes:
+            g0 = int(rng.integers(top + 200, end - 300))
+            gap = (g0, g0 + int(rng.integers(30, 121)))
+        while top + 10 <= end:
+            if gap and gap[0] <= top < gap[1]:
+                top = gap[1]
+                continue
+            length = int(rng.choice([10, 15, 20], p=[0.5, 0.2, 0.3]))
+            bottom = min(top + length, end)
+            intervals.append((k, top / 10, bottom / 10))
+            top = bottom
+
+    mids = np.empty((len(intervals), 3))
+    for k, h in enumerate(holes):
+        idx = [i for i, iv in enumerate(intervals) if iv[0] == k]
+        depths = np.array([(intervals[i][1] + intervals[i][2]) / 2 for i in idx])
+        mids[idx] = desurvey(h["xyz"], h["stations"], depths)
+
+    y = gaussian_at(mids, ORE_MODEL, _rng(2))
+    cu = np.exp(ORE_MU + ORE_SIGMA * y)
+
+    _write_csv(out / "collars.csv", ["hole_id", "x", "y", "z", "depth"],
+               [[h["id"], f"{h['xyz'][0]:.2f}", f"{h['xyz'][1]:.2f}", f"{h['xyz'][2]:.2f}", f"{h['depth']:.1f}"]
+                for h in holes])
+    _write_csv(out / "surveys.csv", ["hole_id", "depth", "azimuth", "dip"],
+               [[r[0], f"{r[1]:.1f}", f"{r[2]:.2f}", f"{r[3]:.2f}"] for r in survey_rows])
+    _write_csv(out / "assays.csv", ["hole_id", "from", "to", "cu_pct"],
+               [[holes[k]["id"], f"{a:.1f}", f"{b:.1f}", f"{c:.3f}"] for (k, a, b), c in zip(intervals, cu)])
+
+    # outline: collars and the surface projection of every hole trace, with a 40 m margin
+    trace = np.vstack([desurvey(h["xyz"], h["stations"], np.linspace(0, h["depth"], 6)) for h in holes])
+    outline = MultiPoint(trace[:, :2]).convex_hull.buffer(40.0, quad_segs=4).simplify(2.0)
+    outline = shapely.segmentize(outline, 25.0)
+    _write_json(out / "domain.geojson", _domain_feature_collection(outline, ORE_EPSG, ORE_NAME))
+    _write_json(out / "true_model.json", _true_model_record(
+        ORE_MODEL, {"kind": "lognormal", "variable": "cu_pct", "mu": ORE_MU, "sigma": ORE_SIGMA,
+                    "formula": "cu_pct = exp(mu + sigma * y)"},
+        f"EPSG:{ORE_EPSG}", "exact Gaussian simulation at assay interval mid-points (minimum curvature)"))
+
+
+# ---------------------------------------------------------------------------
+# (b) alluvial aquifer
+# ---------------------------------------------------------------------------
+
+def _valley_frame(centre: np.ndarray):
+    a = math.radians(30.0)
+    along = np.array([math.sin(a), math.cos(a)])        # azimuth 30, down the valley
+    across = np.array([math.cos(a), -math.sin(a)])      # azimuth 120
+
+    def axis(u):  # meandering valley and channel axis, offset across the valley (m)
+        return 300.0 * np.sin(2 * np.pi * u / 6000.0)
+
+    def half_width(u):
+        return 1200.0 + 250.0 * np.sin(2 * np.pi * u / 5000.0 + 0.7)
+
+    def to_xy(u, v):
+        return centre + np.multiply.outer(u, along) + np.multiply.outer(v, across)
+
+    return axis, half_width, to_xy
+
+
+def make_alluvial_aquifer(out: Path) -> None:
+    rng = _rng(3)
+    out.mkdir(parents=True, exist_ok=True)
+    centre = np.array([482500.0, 5716000.0])  # UTM 25S, near lon -33.2, lat -38.7 (open sea)
+    axis, half_width, to_xy = _valley_frame(centre)
+    u_edge = np.arange(-3500.0, 3500.1, 100.0)
+    left = to_xy(u_edge, axis(u_edge) + half_width(u_edge))
+    right = to_xy(u_edge[::-1], axis(u_edge[::-1]) - half_width(u_edge[::-1]))
+    valley = Polygon(np.vstack([left, right]))
+
+    # 30 wells in three well fields on the channel, 15 more along the channel, 35 anywhere
+    # on the valley floor; at least 30 m apart
+    wells: list[np.ndarray] = []
+
+    def add(u, v):
+        p = to_xy(np.array(u), np.array(v))
+        if valley.contains(shapely.Point(p)) and all(np.hypot(*(p - q)) >= 30.0 for q in wells):
+            wells.append(p)
+            return True
+        return False
+
+    for u_field in (-1800.0, 200.0, 2100.0):
+        placed = 0
+        while placed < 10:
+            placed += add(u_field + rng.normal(0, 120), axis(u_field) + rng.normal(0, 80))
+    while len(wells) < 45:
+        u = rng.uniform(-3300, 3300)
+        add(u, axis(u) + rng.normal(0, 120))
+    while len(wells) < 80:
+        u = rng.uniform(-3400, 3400)
+        add(u, axis(u) + rng.uniform(-1, 1) * half_width(u))
+    xy = np.array(wells)
+
+    y = gaussian_at(xy, AQUIFER_MODEL, _rng(4))
+    k = 10.0 ** (AQUIFER_LOG10_MEAN + AQUIFER_LOG10_STD * y)
+
+    to_lonlat = Transformer.from_crs(AQUIFER_EPSG, 4326, always_xy=True)
+    lon, lat = to_lonlat.transform(xy[:, 0], xy[:, 1])
+    zone = int((np.mean(lon) + 180.0) // 6.0) + 1
+    if zone != AQUIFER_EPSG - 32700 or np.mean(lat) >= 0:
+        raise RuntimeError(f"wells' centroid lies in UTM zone {zone}, not in EPSG:{AQUIFER_EPSG}")
+    _write_csv(out / "wells.csv", ["well_id", "lon", "lat", "k_ms"],
+               [[f"LV{i + 1:02d}", f"{a:.7f}", f"{b:.7f}", f"{c:.3e}"] for i, (a, b, c) in enumerate(zip(lon, lat, k))])
+    _write_json(out / "domain.geojson", _domain_feature_collection(valley, AQUIFER_EPSG, AQUIFER_NAME))
+    _write_json(out / "true_model.json", _true_model_record(
+        AQUIFER_MODEL, {"kind": "lognormal", "variable": "k_ms", "log10_mean": AQUIFER_LOG10_MEAN,
+                        "log10_std": AQUIFER_LOG10_STD, "formula": "k_ms = 10 ** (log10_mean + log10_std * y)"},
+        f"EPSG:{AQUIFER_EPSG}", "exact Gaussian simulation at the wells in UTM, then lon/lat with pyproj"))
+
+
+def make_all(out: Path = HERE) -> None:
+    """Write both scenarios into ``out/ore_prospect`` and ``out/alluvial_aquifer``."""
+    out = Path(out)
+    make_ore_prospect(out / "ore_prospect")
+    make_alluvial_aquifer(out / "alluvial_aquifer")
+
+
+def main(argv=None) -> None:
+    parser = argparse.ArgumentParser(description=__doc__.split("\n\n")[0])
+    parser.add_argument("--out", type=Path, default=HERE,
+                        help="folder to write the scenarios into (default: beside this script)")
+    args = parser.parse_args(argv)
+    make_all(args.out)
+    print(f"wrote the sample fields into {args.out}")
+
+
+if __name__ == "__main__":
+    main()
