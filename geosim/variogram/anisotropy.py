@@ -17,6 +17,10 @@ Convention (geosim's own, stated once here and tested):
 A lag vector ``h`` has reduced length ``r = |M h|`` with
 ``M = diag(1/major, 1/minor, 1/vertical) @ R`` where the rows of ``R`` are the
 unit major, minor and third axes.  ``r = 1`` at the range in every direction.
+
+The ratio form of the same thing (``Anisotropy.from_ratios``) gives the major
+range and the minor/major and vertical/major ratios; geosim stores only the
+three ranges.  In 2-D only ``azimuth`` and the major and minor ranges matter.
 """
 from __future__ import annotations
 
@@ -32,7 +36,7 @@ def axes(azimuth: float, dip: float = 0.0, rake: float = 0.0) -> np.ndarray:
     --------
     >>> import numpy as np
     >>> from geosim.variogram.anisotropy import axes
-    >>> np.round(axes(90.0), 12)   # major axis due east, minor due south
+    >>> np.round(axes(90.0), 12) + 0.0   # major axis due east, minor due south
     array([[ 1.,  0.,  0.],
            [ 0., -1.,  0.],
            [ 0.,  0.,  1.]])
@@ -72,14 +76,54 @@ class Anisotropy:
         if r.size != 3 or not np.all(np.isfinite(r)) or np.any(r <= 0):
             raise ValueError(f"ranges must be 1 to 3 positive numbers, got {self.ranges!r}")
         object.__setattr__(self, "ranges", tuple(float(x) for x in r))
+        for name in ("azimuth", "dip", "rake"):
+            v = getattr(self, name)
+            if not np.isfinite(v):
+                raise ValueError(f"{name} must be a finite angle in degrees, got {v!r}")
+            object.__setattr__(self, name, float(v))
 
     @classmethod
     def isotropic(cls, range_: float) -> Anisotropy:
+        """The same range in every direction."""
         return cls((range_, range_, range_))
+
+    @classmethod
+    def from_ratios(cls, major: float, ratio_minor: float = 1.0, ratio_vertical: float = 1.0,
+                    azimuth: float = 0.0, dip: float = 0.0, rake: float = 0.0) -> Anisotropy:
+        """Anisotropy from the major range and the minor/major and vertical/major ratios.
+
+        Examples
+        --------
+        >>> from geosim.variogram import Anisotropy
+        >>> Anisotropy.from_ratios(200.0, 0.5, 0.1, azimuth=30.0).ranges
+        (200.0, 100.0, 20.0)
+        """
+        for name, v in (("ratio_minor", ratio_minor), ("ratio_vertical", ratio_vertical)):
+            if not (np.isfinite(v) and v > 0):
+                raise ValueError(f"{name} must be a positive number, got {v!r}")
+        return cls((major, major * ratio_minor, major * ratio_vertical), azimuth, dip, rake)
 
     @property
     def major(self) -> float:
         return self.ranges[0]
+
+    @property
+    def minor(self) -> float:
+        return self.ranges[1]
+
+    @property
+    def vertical(self) -> float:
+        return self.ranges[2]
+
+    @property
+    def ratio_minor(self) -> float:
+        """Minor range divided by major range."""
+        return self.ranges[1] / self.ranges[0]
+
+    @property
+    def ratio_vertical(self) -> float:
+        """Vertical (third-axis) range divided by major range."""
+        return self.ranges[2] / self.ranges[0]
 
     @property
     def is_isotropic(self) -> bool:

@@ -90,7 +90,8 @@ class Nugget(Structure):
     code = NUGGET
 
     def correlation(self, r):
-        return (np.asarray(r, dtype=float) <= 1e-12).astype(float)
+        # the same "same place" threshold as the compiled kernel (1 nm)
+        return (np.asarray(r, dtype=float) <= 1e-9).astype(float)
 
 
 @dataclass(frozen=True)

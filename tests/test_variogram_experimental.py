@@ -1,0 +1,193 @@
+"""Experimental variograms against a brute-force double loop and hand-worked cases."""
+import math
+
+import numpy as np
+import pytest
+
+from geosim.errors import InputError
+from geosim.variogram import (Direction, directional_variograms, downhole_variogram,
+                              experimental_variogram, variogram_map)
+
+
+def brute_force(coords, values, lag, nlags, lag_tol, direction=None, robust=False, holes=None):
+    """Plain double loop written straight from the definitions in the module docstring."""
+    c = np.zeros((len(values), 3))
+    c[:, :coords.shape[1]] = coords
+    counts = np.zeros(nlags)
+    dist = np.zeros(nlags)
+    acc = np.zeros(nlags)
+    if direction is not None:
+        az, dip = math.radians(direction.azimuth), math.radians(direction.dip)
+        u = np.array([math.sin(az) * math.cos(dip), math.cos(az) * math.cos(dip), -math.sin(dip)])
+        v = np.array([math.cos(az), -math.sin(az), 0.0])
+        w = np.cross(v, u)
+    for i in range(len(values)):
+        for j in range(i + 1, len(values)):
+            if np.isnan(values[i]) or np.isnan(values[j]):
+                continue
+            if holes is not None and holes[i] != holes[j]:
+                continue
+            h = c[j] - c[i]
+            d = math.sqrt(h @ h)
+            if d < 1e-9:
+                continue
+            if direction is not None:
+                a, b, cc = abs(h @ u), abs(h @ v), abs(h @ w)
+                if direction.azimuth_tol < 90 and math.degrees(math.atan2(b, a)) > direction.azimuth_tol:
+                    continue
+                if coords.shape[1] == 3 and direction.dip_tol < 90 and \
+                        math.degrees(math.atan2(cc, a)) > direction.dip_tol:
+                    continue
+                if b > direction.bandwidth_h or cc > direction.bandwidth_v:
+                    continue
+            for k in range(nlags):
+                centre = k * lag
+                if centre - lag_tol <= d < centre + lag_tol:
+                    counts[k] += 1
+                    dist[k] += d
+                    diff = values[j] - values[i]
+                    acc[k] += math.sqrt(abs(diff)) if robust else 0.5 * diff * diff
+    with np.errstate(invalid="ignore", divide="ignore"):
+        mean = acc / counts
+        gamma = mean**4 / (2 * (0.457 + 0.494 / counts)) if robust else mean
+        return counts, dist / counts, gamma
+
+
+@pytest.fixture(scope="module")
+def data3d():
+    rng = np.random.default_rng(42)
+    coords = rng.uniform(0, 100, (70, 3)) * [1.0, 1.0, 0.3]
+    values = rng.lognormal(size=70)
+    values[[3, 17]] = np.nan
+    return coords, values
+
+
+@pytest.mark.parametrize("direction", [
+    None,
+    Direction(30.0, 0.0, azimuth_tol=20.0, dip_tol=15.0),
+    Direction(120.0, 25.0, azimuth_tol=30.0, dip_tol=10.0, bandwidth_h=15.0, bandwidth_v=5.0),
+    Direction(0.0, 90.0, azimuth_tol=90.0, dip_tol=30.0),
+])
+@pytest.mark.parametrize("robust", [False, True])
+@pytest.mark.parametrize("lag_tol", [None, 9.0])
+def test_matches_brute_force_3d(data3d, direction, robust, lag_tol):
+    coords, values = data3d
+    ev = experimental_variogram(coords, values, lag=10.0, nlags=8, lag_tol=lag_tol, direction=direction,
+                                estimator="cressie-hawkins" if robust else "matheron")
+    n, lags, gamma = brute_force(coords, values, 10.0, 8, 5.0 if lag_tol is None else lag_tol,
+                                 direction, robust)
+    assert n.sum() > 0
+    np.testing.assert_array_equal(ev.npairs, n)
+    np.testing.assert_allclose(ev.lags, lags, rtol=1e-12, equal_nan=True)
+    np.testing.assert_allclose(ev.gamma, gamma, rtol=1e-12, equal_nan=True)
+    assert ev.nsamples == 68
+
+
+def test_directions_in_one_pass_match_single_calls_2d():
+    rng = np.random.default_rng(3)
+    xy = rng.uniform(0, 200, (150, 2))
+    z = np.sin(xy[:, 0] / 40) + rng.normal(scale=0.2, size=150)
+    dirs = [None, Direction(0.0), Direction(45.0, azimuth_tol=10.0, bandwidth_h=20.0), Direction(90.0)]
+    many = directional_variograms(xy, z, dirs, lag=15.0, nlags=10)
+    for d, ev in zip(dirs, many):
+        n, lags, gamma = brute_force(xy, z, 15.0, 10, 7.5, d)
+        np.testing.assert_array_equal(ev.npairs, n)
+        np.testing.assert_allclose(ev.gamma, gamma, rtol=1e-12, equal_nan=True)
+        one = experimental_variogram(xy, z, lag=15.0, nlags=10, direction=d)
+        np.testing.assert_array_equal(one.gamma, ev.gamma)
+    # pairs along the x-trend vary more east-west than north-south at short lags
+    assert many[3].gamma[2] > many[1].gamma[2]
+    assert many[0].dim == 2 and many[0].kind == "omnidirectional" and many[1].kind == "directional"
+
+
+def test_downhole_matches_brute_force_and_axis():
+    rng = np.random.default_rng(5)
+    holes, pts = [], []
+    for h in range(6):
+        top = rng.uniform(0, 300, 2)
+        depth = np.arange(0, 40.0, 2.0)
+        # holes plunging 60 degrees towards azimuth 135
+        az, dip = math.radians(135), math.radians(60)
+        pts.append(np.column_stack([top[0] + depth * math.cos(dip) * math.sin(az),
+                                    top[1] + depth * math.cos(dip) * math.cos(az),
+                                    100 - depth * math.sin(dip)]))
+        holes += [f"DH{h}"] * len(depth)
+    xyz = np.vstack(pts)
+    z = rng.normal(size=len(xyz))
+    ev = downhole_variogram(xyz, z, holes, lag=2.0, nlags=6)
+    n, _, gamma = brute_force(xyz, z, 2.0, 6, 1.0, holes=np.array(holes))
+    np.testing.assert_array_equal(ev.npairs, n)
+    np.testing.assert_allclose(ev.gamma, gamma, rtol=1e-12, equal_nan=True)
+    assert ev.kind == "downhole"
+    assert ev.direction.azimuth == pytest.approx(135.0, abs=1e-6)
+    assert ev.direction.dip == pytest.approx(60.0, abs=1e-6)
+
+
+def test_hand_worked_line():
+    # z = x on a line with unit spacing: gamma(k) = k^2 / 2 for the pairs k apart
+    x = np.arange(6.0)
+    ev = experimental_variogram(np.column_stack([x, 0 * x]), x, lag=2.0, nlags=3, lag_tol=0.5)
+    # bins [-0.5, 0.5), [1.5, 2.5), [3.5, 4.5) hold the lags 2 and 4 only
+    assert ev.npairs.tolist() == [0, 4, 2]
+    np.testing.assert_allclose(ev.gamma[1:], [2.0, 8.0])
+    ev = experimental_variogram(np.column_stack([x, 0 * x]), x, lag=1.0, nlags=4)
+    assert ev.npairs.tolist() == [0, 5, 4, 3]
+    np.testing.assert_allclose(ev.gamma[1:], [0.5, 2.0, 4.5])
+    np.testing.assert_allclose(ev.lags[1:], [1.0, 2.0, 3.0])
+    assert np.isnan(ev.gamma[0]) and np.isnan(ev.lags[0])
+
+
+def test_nan_values_are_ignored_like_missing_rows():
+    rng = np.random.default_rng(9)
+    xy = rng.uniform(0, 50, (80, 2))
+    z = rng.normal(size=80)
+    z_nan = z.copy()
+    z_nan[::7] = np.nan
+    keep = np.isfinite(z_nan)
+    a = experimental_variogram(xy, z_nan, lag=5.0, nlags=6)
+    b = experimental_variogram(xy[keep], z[keep], lag=5.0, nlags=6)
+    np.testing.assert_array_equal(a.npairs, b.npairs)
+    np.testing.assert_array_equal(a.gamma, b.gamma)
+
+
+def test_variogram_map_matches_brute_force():
+    rng = np.random.default_rng(11)
+    xy = rng.uniform(0, 60, (60, 2))
+    z = rng.normal(size=60)
+    cell, nc = 8.0, 3
+    vm = variogram_map(xy, z, cell=cell, ncells=nc, min_pairs=1)
+    n = np.zeros((2 * nc + 1,) * 2)
+    g = np.zeros_like(n)
+    for i in range(60):
+        for j in range(60):
+            if i == j:
+                continue
+            h = xy[j] - xy[i]
+            col, row = np.floor(h / cell + 0.5).astype(int)
+            if abs(col) <= nc and abs(row) <= nc:
+                n[row + nc, col + nc] += 1
+                g[row + nc, col + nc] += 0.5 * (z[j] - z[i]) ** 2
+    np.testing.assert_array_equal(vm.npairs, n)
+    with np.errstate(invalid="ignore"):
+        np.testing.assert_allclose(vm.gamma, np.where(n > 0, g / n, np.nan), rtol=1e-12, equal_nan=True)
+    np.testing.assert_array_equal(vm.gamma, vm.gamma[::-1, ::-1])
+    assert vm.dx[nc] == 0.0 and vm.dy[-1] == nc * cell
+
+
+def test_bad_input_is_named():
+    with pytest.raises(InputError, match="coords"):
+        experimental_variogram(np.array([[0.0, np.nan], [1.0, 1.0]]), [1.0, 2.0], lag=1.0, nlags=2)
+    with pytest.raises(InputError, match="values"):
+        experimental_variogram(np.zeros((3, 2)), [1.0, 2.0], lag=1.0, nlags=2)
+    with pytest.raises(ValueError, match="estimator"):
+        experimental_variogram(np.zeros((3, 2)), [1.0, 2.0, 3.0], lag=1.0, nlags=2, estimator="median")
+    with pytest.raises(ValueError, match="dip"):
+        experimental_variogram(np.zeros((3, 2)), [1.0, 2.0, 3.0], lag=1.0, nlags=2,
+                               direction=Direction(0.0, 30.0))
+
+
+def test_progress_reports_every_chunk():
+    calls = []
+    xy = np.random.default_rng(0).uniform(size=(5000, 2))
+    experimental_variogram(xy, xy[:, 0], lag=0.01, nlags=3, progress=lambda d, t, w: calls.append((d, t)))
+    assert calls[-1] == (5000, 5000) and len(calls) == 3
