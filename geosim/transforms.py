@@ -1,0 +1,412 @@
+"""Transforms between data values and the scale the Gaussian models work on.
+
+Every transform has ``fit(values, weights=None) -> self``, ``transform(values)``,
+``inverse(scores)``, ``describe() -> str`` and ``to_dict()``; :func:`transform_from_dict`
+rebuilds one from its dictionary (as stored in a run report).
+
+Normal score transform
+----------------------
+Data ``v`` sorted ascending with declustering weights ``w`` normalized to sum 1
+get the plotting positions
+
+    p_i = (w_1 + ... + w_i) - w_i / 2,
+
+the cumulative weight up to and including ``i`` minus half its own weight (with
+equal weights ``p_i = (i - 1/2) / n``, the midpoint or Hazen position), and the
+scores ``y_i = Phi^-1(p_i)``, ``Phi`` the standard normal distribution function.
+
+*Ties* (equal values) must get distinct scores so the transformed data are not
+lumped; they are ordered by a random permutation drawn from ``seed`` (default) or
+by their order in the input, so the result is reproducible either way.  New values
+equal to a tied data value map to the weighted mean score of the tie.
+
+Between the smallest and the largest datum the back-transform interpolates
+linearly between the points ``(y_i, v_i)``.  Outside, with ``P = Phi(y)``,
+``p_1``, ``p_n`` the first and last plotting positions and ``v_1``, ``v_n`` the
+extreme data:
+
+* lower ``"linear"``:  ``v = lo + (v_1 - lo) * P / p_1`` (``lo`` = ``lower``)
+* lower ``"power"``:   ``v = lo + (v_1 - lo) * (P / p_1) ** (1 / omega)``
+* upper ``"linear"``:  ``v = v_n + (hi - v_n) * (P - p_n) / (1 - p_n)`` (``hi`` = ``upper``)
+* upper ``"power"``:   ``v = v_n + (hi - v_n) * ((P - p_n) / (1 - p_n)) ** (1 / omega)``
+* upper ``"hyperbolic"``: ``1 - F(v) = (1 - p_n) (v_n / v) ** omega`` for ``v > v_n``, i.e.
+  ``v = v_n * ((1 - p_n) / (1 - P)) ** (1 / omega)``, unbounded, for positively
+  skewed grades; ``omega >= 1``, larger is a thinner tail, and the tail has a
+  finite mean only for ``omega > 1`` (default 1.5).
+
+The linear tails are the power tails with ``omega = 1``.  These are the tail
+models of Deutsch and Journel (1998), GSLIB: Geostatistical Software Library and
+User's Guide, 2nd ed., Oxford University Press, chapter V, tail extrapolation
+(from memory, section not checked; the formulas above are the ones implemented).  The forward transform of values outside
+the data range inverts the same tail model, so ``inverse(transform(v)) == v``.
+"""
+from __future__ import annotations
+
+from collections.abc import Mapping
+
+import numpy as np
+
+from .errors import InputError
+
+_TINY = 1e-12  # probabilities are kept in [_TINY, 1 - _TINY] so scores stay finite
+
+
+def _ndtr(y):
+    from scipy.special import ndtr
+    return ndtr(y)
+
+
+def _ndtri(p):
+    from scipy.special import ndtri
+    return ndtri(p)
+
+
+def _as_values(values, what: str = "values") -> np.ndarray:
+    v = np.asarray(values, dtype=np.float64)
+    if v.ndim != 1:
+        raise ValueError(f"{what} must be one-dimensional, got shape {v.shape}")
+    return v
+
+
+def _first_nonfinite(v: np.ndarray, what: str, name: str | None) -> None:
+    bad = ~np.isfinite(v)
+    if bad.any():
+        i = int(np.argmax(bad))
+        raise InputError(f"{what} {i + 1} is {v[i]}", field=name,
+                         fix="remove samples without a value before transforming")
+
+
+class IdentityTransform:
+    """Leaves values unchanged (for data already roughly Gaussian).
+
+    Examples
+    --------
+    >>> import geosim
+    >>> geosim.IdentityTransform().fit([1.0, 2.0]).inverse([3.0]).tolist()
+    [3.0]
+    """
+
+    kind = "identity"
+
+    def fit(self, values, weights=None) -> IdentityTransform:
+        return self
+
+    def transform(self, values) -> np.ndarray:
+        return np.asarray(values, dtype=np.float64)
+
+    def inverse(self, scores) -> np.ndarray:
+        return np.asarray(scores, dtype=np.float64)
+
+    def describe(self) -> str:
+        return "identity (values used as they are)"
+
+    def to_dict(self) -> dict:
+        return {"kind": self.kind}
+
+
+class LogTransform:
+    """Logarithm ``log_base(v + offset)``, for hydraulic conductivity and other log-normal variables.
+
+    Parameters
+    ----------
+    base : float
+        10 (default, the usual scale for conductivity) or ``numpy.e``.
+    offset : float
+        Added before taking the log; 0 unless zeros are meaningful.
+    name : str, optional
+        Variable name, used in error messages.
+
+    Raises
+    ------
+    InputError
+        From ``fit``/``transform`` when a value plus offset is not positive, naming
+        the sample (1-based index) and the variable.
+
+    Examples
+    --------
+    >>> import geosim
+    >>> t = geosim.LogTransform().fit([1e-5, 1e-3])
+    >>> t.transform([1e-4]).round(6).tolist(), float(t.inverse([-4.0])[0])
+    ([-4.0], 0.0001)
+    """
+
+    kind = "log"
+
+    def __init__(self, base: float = 10.0, offset: float = 0.0, name: str | None = None):
+        if not base > 1.0:
+            raise ValueError(f"log base must be > 1, got {base}")
+        self.base = float(base)
+        self.offset = float(offset)
+        self.name = name
+
+    def fit(self, values, weights=None) -> LogTransform:
+        self.transform(values)
+        return self
+
+    def transform(self, values) -> np.ndarray:
+        v = np.asarray(values, dtype=np.float64) + self.offset
+        bad = ~(v > 0.0)
+        if bad.any():
+            i = int(np.argmax(bad.ravel()))
+            raw = np.ravel(values)[i]
+            raise InputError(f"sample {i + 1} has value {raw}, which has no logarithm"
+                             + (f" (offset {self.offset})" if self.offset else ""), field=self.name,
+                             fix="correct or remove non-positive values (a value below detection is "
+                                 "usually entered as half the detection limit), or use another transform")
+        return np.log(v) / np.log(self.base)
+
+    def inverse(self, scores) -> np.ndarray:
+        return np.power(self.base, np.asarray(scores, dtype=np.float64)) - self.offset
+
+    def describe(self) -> str:
+        off = f" + {self.offset:g}" if self.offset else ""
+        if self.base == 10.0:
+            return f"log10(value{off})"
+        if np.isclose(self.base, np.e):
+            return f"ln(value{off})"
+        return f"log base {self.base:g} of (value{off})"
+
+    def to_dict(self) -> dict:
+        return {"kind": self.kind, "base": self.base, "offset": self.offset, "name": self.name}
+
+
+class NormalScoreTransform:
+    """Transform to standard normal scores by matching quantiles, with tail models.
+
+    See the module docstring for the plotting positions, the tie rule and the
+    tail formulas.
+
+    Parameters
+    ----------
+    lower, upper : float, optional
+        Bounds of the linear/power tails.  Default: the data minimum and maximum
+        extended by 10 % of the data range, and ``lower`` not below 0 when every
+        datum is >= 0.
+    lower_tail : {"linear", "power"}
+    upper_tail : {"linear", "power", "hyperbolic"}
+    lower_omega, upper_omega : float
+        Exponents of the power and hyperbolic tails (``>= 1`` for hyperbolic).
+    ties : {"random", "order"}
+        How equal values are ordered before scores are assigned.
+    seed : int
+        Seed of the random tie order.
+    name : str, optional
+        Variable name, for messages and :meth:`describe`.
+
+    Attributes
+    ----------
+    values_ : (n,) ndarray
+        The data, sorted (ties in their broken order).
+    scores_ : (n,) ndarray
+        Normal score of each sorted datum.
+    probabilities_ : (n,) ndarray
+        Plotting position of each sorted datum.
+    data_scores_ : (n,) ndarray
+        Normal score of each datum in input order (ties distinct).
+    lower_, upper_ : float
+        Tail bounds in use.
+
+    Examples
+    --------
+    >>> import numpy, geosim
+    >>> t = geosim.NormalScoreTransform().fit([3.0, 1.0, 2.0, 4.0])
+    >>> t.data_scores_.round(4).tolist()   # Phi^-1 of 0.625, 0.125, 0.375, 0.875
+    [0.3186, -1.1503, -0.3186, 1.1503]
+    >>> t.inverse(t.transform([2.5])).round(6).tolist()
+    [2.5]
+    """
+
+    kind = "normal_score"
+
+    def __init__(self, *, lower: float | None = None, upper: float | None = None,
+                 lower_tail: str = "linear", upper_tail: str = "linear", lower_omega: float = 1.0,
+                 upper_omega: float = 1.5, ties: str = "random", seed: int = 0, name: str | None = None):
+        if lower_tail not in ("linear", "power"):
+            raise ValueError(f"lower_tail must be 'linear' or 'power', got {lower_tail!r}")
+        if upper_tail not in ("linear", "power", "hyperbolic"):
+            raise ValueError(f"upper_tail must be 'linear', 'power' or 'hyperbolic', got {upper_tail!r}")
+        if not lower_omega > 0 or not upper_omega > 0:
+            raise ValueError("tail exponents must be positive")
+        if upper_tail == "hyperbolic" and upper_omega < 1.0:
+            raise ValueError(f"the hyperbolic tail needs upper_omega >= 1, got {upper_omega}")
+        if ties not in ("random", "order"):
+            raise ValueError(f"ties must be 'random' or 'order', got {ties!r}")
+        self.lower, self.upper = lower, upper
+        self.lower_tail, self.upper_tail = lower_tail, upper_tail
+        self.lower_omega, self.upper_omega = float(lower_omega), float(upper_omega)
+        self.ties, self.seed, self.name = ties, int(seed), name
+
+    # fitting -----------------------------------------------------------------
+    def fit(self, values, weights=None) -> NormalScoreTransform:
+        """Build the score table from data and optional declustering weights."""
+        v = _as_values(values)
+        _first_nonfinite(v, "value", self.name)
+        n = len(v)
+        if n < 2:
+            raise InputError(f"a normal score transform needs at least 2 values, got {n}", field=self.name)
+        if weights is None:
+            w = np.full(n, 1.0 / n)
+        else:
+            w = _as_values(weights, "weights")
+            if w.shape != v.shape:
+                raise ValueError(f"weights must match values: {w.shape} vs {v.shape}")
+            if not (np.isfinite(w).all() and (w >= 0).all() and w.sum() > 0):
+                raise ValueError("weights must be finite, non-negative and not all zero")
+            w = w / w.sum()
+        if self.ties == "random":
+            key = np.random.default_rng(self.seed).permutation(n)
+            order = np.lexsort((key, v))
+        else:
+            order = np.argsort(v, kind="stable")
+        vs, ws = v[order], w[order]
+        p = np.cumsum(ws) - 0.5 * ws
+        p = np.clip(p, _TINY, 1.0 - _TINY)
+        y = _ndtri(p)
+        data_scores = np.empty(n)
+        data_scores[order] = y
+        lo, hi = self._bounds(vs)
+        if self.upper_tail == "hyperbolic" and not vs[-1] > 0:
+            raise InputError("the hyperbolic upper tail needs a positive largest value", field=self.name,
+                             fix="use upper_tail='linear' or 'power'")
+        self.values_, self.scores_, self.probabilities_, self.weights_ = vs, y, p, ws
+        self.data_scores_ = data_scores
+        self.lower_, self.upper_ = lo, hi
+        self._table()
+        return self
+
+    def _bounds(self, vs: np.ndarray) -> tuple[float, float]:
+        span = vs[-1] - vs[0]
+        pad = 0.1 * span if span > 0 else 0.1 * max(abs(vs[0]), 1.0)
+        lo = vs[0] - pad if self.lower is None else float(self.lower)
+        if self.lower is None and vs[0] >= 0:
+            lo = max(lo, 0.0)
+        hi = vs[-1] + pad if self.upper is None else float(self.upper)
+        if lo > vs[0]:
+            raise InputError(f"lower bound {lo} is above the smallest value {vs[0]}", field=self.name,
+                             fix="set lower at or below the data minimum")
+        if self.upper_tail != "hyperbolic" and hi < vs[-1]:
+            raise InputError(f"upper bound {hi} is below the largest value {vs[-1]}", field=self.name,
+                             fix="set upper at or above the data maximum")
+        return float(lo), float(hi)
+
+    def _table(self) -> None:
+        # unique values with the weighted mean score of each tie: the forward lookup table
+        uv, start = np.unique(self.values_, return_index=True)
+        sums = np.add.reduceat(self.scores_ * self.weights_, start)
+        self._uv, self._uy = uv, sums / np.add.reduceat(self.weights_, start)
+
+    def _check_fitted(self) -> None:
+        if not hasattr(self, "values_"):
+            raise RuntimeError("fit the transform before using it")
+
+    # mapping -----------------------------------------------------------------
+    def transform(self, values) -> np.ndarray:
+        """Normal scores of values (data or new values); NaN stays NaN."""
+        self._check_fitted()
+        v = np.asarray(values, dtype=np.float64)
+        shape, v = v.shape, v.ravel()
+        out = np.interp(v, self._uv, self._uy)
+        v1, vn = self.values_[0], self.values_[-1]
+        p1, pn = self.probabilities_[0], self.probabilities_[-1]
+        with np.errstate(invalid="ignore", divide="ignore"):
+            low = v < v1
+            if low.any():
+                frac = np.clip((v[low] - self.lower_) / (v1 - self.lower_), 0.0, 1.0) if v1 > self.lower_ \
+                    else np.zeros(low.sum())
+                om = self.lower_omega if self.lower_tail == "power" else 1.0
+                out[low] = _ndtri(np.clip(p1 * frac ** om, _TINY, p1))
+            high = v > vn
+            if high.any():
+                if self.upper_tail == "hyperbolic":
+                    q = (1.0 - pn) * (vn / v[high]) ** self.upper_omega
+                else:
+                    om = self.upper_omega if self.upper_tail == "power" else 1.0
+                    frac = np.clip((v[high] - vn) / (self.upper_ - vn), 0.0, 1.0) if self.upper_ > vn \
+                        else np.ones(high.sum())
+                    q = (1.0 - pn) * (1.0 - frac ** om)
+                out[high] = -_ndtri(np.clip(q, _TINY, 1.0 - pn))
+        out[np.isnan(v)] = np.nan
+        return out.reshape(shape)
+
+    def inverse(self, scores) -> np.ndarray:
+        """Values of normal scores: linear interpolation inside the data, tail models outside."""
+        self._check_fitted()
+        y = np.asarray(scores, dtype=np.float64)
+        shape, y = y.shape, y.ravel()
+        out = np.interp(y, self.scores_, self.values_)
+        v1, vn = self.values_[0], self.values_[-1]
+        p1, pn = self.probabilities_[0], self.probabilities_[-1]
+        low = y < self.scores_[0]
+        if low.any():
+            frac = _ndtr(y[low]) / p1
+            om = self.lower_omega if self.lower_tail == "power" else 1.0
+            out[low] = self.lower_ + (v1 - self.lower_) * frac ** (1.0 / om)
+        high = y > self.scores_[-1]
+        if high.any():
+            q = _ndtr(-y[high])  # 1 - Phi(y) without cancellation in the far tail
+            if self.upper_tail == "hyperbolic":
+                out[high] = vn * ((1.0 - pn) / np.maximum(q, 1e-300)) ** (1.0 / self.upper_omega)
+            else:
+                om = self.upper_omega if self.upper_tail == "power" else 1.0
+                frac = np.clip(1.0 - q / (1.0 - pn), 0.0, 1.0)
+                out[high] = vn + (self.upper_ - vn) * frac ** (1.0 / om)
+        out[np.isnan(y)] = np.nan
+        return out.reshape(shape)
+
+    def fit_transform(self, values, weights=None) -> np.ndarray:
+        """Fit, then return the scores of the data in input order (ties distinct)."""
+        return self.fit(values, weights).data_scores_.copy()
+
+    # reporting ---------------------------------------------------------------
+    def describe(self) -> str:
+        self._check_fitted()
+        lower = (f"lower tail {self.lower_tail} to {self.lower_:g}"
+                 + (f" (omega {self.lower_omega:g})" if self.lower_tail == "power" else ""))
+        if self.upper_tail == "hyperbolic":
+            upper = f"upper tail hyperbolic (omega {self.upper_omega:g})"
+        else:
+            upper = (f"upper tail {self.upper_tail} to {self.upper_:g}"
+                     + (f" (omega {self.upper_omega:g})" if self.upper_tail == "power" else ""))
+        weighted = "declustering weights" if not np.allclose(self.weights_, self.weights_[0]) else "equal weights"
+        who = f" of {self.name}" if self.name else ""
+        return (f"normal score transform{who}: {len(self.values_)} values ({weighted}), data range "
+                f"{self.values_[0]:g} to {self.values_[-1]:g}; {lower}; {upper}; ties ordered "
+                + ("at random (seed %d)" % self.seed if self.ties == "random" else "by input order"))
+
+    def to_dict(self) -> dict:
+        self._check_fitted()
+        return {"kind": self.kind, "name": self.name,
+                "lower_tail": self.lower_tail, "upper_tail": self.upper_tail,
+                "lower_omega": self.lower_omega, "upper_omega": self.upper_omega,
+                "lower": self.lower_, "upper": self.upper_, "ties": self.ties, "seed": self.seed,
+                "values": self.values_.tolist(), "weights": self.weights_.tolist()}
+
+    @classmethod
+    def from_dict(cls, d: Mapping) -> NormalScoreTransform:
+        t = cls(lower=d["lower"], upper=d["upper"], lower_tail=d["lower_tail"], upper_tail=d["upper_tail"],
+                lower_omega=d["lower_omega"], upper_omega=d["upper_omega"], ties="order",
+                seed=d.get("seed", 0), name=d.get("name"))
+        # the stored values are already in their broken-tie order, so "order" reproduces the table
+        t.fit(d["values"], d["weights"])
+        t.ties = d.get("ties", "random")
+        return t
+
+
+def transform_from_dict(d: Mapping):
+    """Rebuild a transform from its :meth:`to_dict` form.
+
+    Examples
+    --------
+    >>> import geosim
+    >>> t = geosim.transform_from_dict(geosim.LogTransform(base=10).to_dict())
+    >>> t.describe()
+    'log10(value)'
+    """
+    kind = d.get("kind")
+    if kind == "identity":
+        return IdentityTransform()
+    if kind == "log":
+        return LogTransform(base=d.get("base", 10.0), offset=d.get("offset", 0.0), name=d.get("name"))
+    if kind == "normal_score":
+        return NormalScoreTransform.from_dict(d)
+    raise ValueError(f"unknown transform kind {kind!r}; expected 'identity', 'log' or 'normal_score'")
