@@ -1,0 +1,400 @@
+"""GeoTIFF output in Cloud-Optimized layout, and the realization writer sink.
+
+Every raster geosim writes is float32, tiled, DEFLATE-compressed with the
+floating-point predictor (TIFF predictor 3), with overviews (average
+resampling), nodata NaN outside the domain, the grid's CRS and geotransform,
+a description and a unit for every band, and the provenance tags of
+:func:`geosim.io.report.provenance`.  Files are first written as a tiled
+GeoTIFF beside the target, then copied with GDAL's COG driver into the atomic
+temporary file of :func:`geosim.io.atomic.atomic_output`, so a reader never sees
+a half-written file.
+
+Tiles are 256 x 256 cells, or 128 x 128 when the grid's longer side is under
+512 cells (GDAL's COG driver asks for at least 128).  Overviews halve the
+resolution until the image fits in one tile, so a grid that fits in a single
+tile has none.
+
+3-D grids are written as one file per level, named with ``_z`` and the level
+number (level 0 lowest), e.g. ``r0007_z000.tif``; each level file carries the
+tags ``level``, ``z_bottom`` and ``z_top`` (metres).
+
+Realization writer layout (see :class:`RealizationWriter`)::
+
+    <folder>/realizations/r0000.tif ...   one single-band file per realization
+    <folder>/realizations.tif             all realizations, band i+1 = realization i
+    <folder>/summary.tif                  mean, std, P10, P50, P90, P(>cutoff)...
+    <folder>/decision_figures.csv         figures per realization and cut-off
+    <folder>/decision_spread.csv          P10/P50/P90 of each figure
+"""
+from __future__ import annotations
+
+import contextlib
+import os
+import secrets
+from collections.abc import Callable, Iterator, Mapping, Sequence
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+
+from ..errors import InputError
+from .atomic import atomic_output, check_writable
+from .report import file_sha256
+
+__all__ = ["tile_size", "level_grid", "write_raster", "write_bands", "open_checked", "verify_realization",
+           "assemble_realizations", "RealizationWriter", "read_realization"]
+
+_COG_OPTIONS = {"COMPRESS": "DEFLATE", "PREDICTOR": "YES", "OVERVIEW_RESAMPLING": "AVERAGE",
+                "BIGTIFF": "IF_SAFER"}
+
+
+def tile_size(grid) -> int:
+    """Tile side in cells: 256, or 128 when the grid's longer side is under 512 cells."""
+    return 256 if max(grid.nx, grid.ny) >= 512 else 128
+
+
+def level_grid(grid, k: int):
+    """The 2-D grid of level ``k`` of a 3-D grid (its mask is that level's)."""
+    from ..grid import Grid
+    if grid.ndim == 2:
+        return grid
+    return Grid(grid.xmin, grid.ymin, grid.cell[:2], grid.shape[1:], grid.crs, mask=grid.mask[k])
+
+
+def _level_tags(grid, k: int) -> dict[str, str]:
+    if grid.ndim == 2:
+        return {}
+    bottom = grid.zmin + k * grid.cell[2]
+    return {"level": str(k), "z_bottom": f"{bottom:.6g}", "z_top": f"{bottom + grid.cell[2]:.6g}"}
+
+
+def _crs(grid):
+    return None if grid.crs is None else grid.crs.to_wkt()
+
+
+def _windows(grid, size: int) -> Callable[[], Iterator]:
+    def gen():
+        from rasterio.windows import Window
+        for r0 in range(0, grid.ny, size):
+            for c0 in range(0, grid.nx, size):
+                yield Window(c0, r0, min(size, grid.nx - c0), min(size, grid.ny - r0))
+    return gen
+
+
+def write_bands(out_path: str | os.PathLike, grid, n_bands: int, windows: Callable[[], Iterator],
+                compute: Callable[[Any], np.ndarray], *, descriptions: Sequence[tuple[str, str] | str],
+                tags: Mapping[str, str] | None = None, overwrite: bool = False,
+                progress: Callable[[int, int, str], None] | None = None, what: str = "raster") -> Path:
+    """Write a multiband COG window by window; the low-level writer behind the others.
+
+    Parameters
+    ----------
+    out_path : path
+    grid : geosim.Grid
+        2-D grid (one level).
+    n_bands : int
+    windows : callable
+        Returns an iterator of rasterio ``Window`` objects covering the grid.
+    compute : callable
+        ``compute(window) -> array (n_bands, window.height, window.width)``.
+    descriptions : sequence
+        Per band, ``(description, unit)`` or a description alone.
+    tags : mapping, optional
+        Dataset tags (provenance).
+    overwrite : bool
+    progress : callable, optional
+        ``progress(done, total, what)`` after each window.
+    what : str
+        Label passed to ``progress``.
+    """
+    import rasterio
+    import rasterio.shutil
+
+    if grid.ndim != 2:
+        raise ValueError("write_bands writes one 2-D level; use level_grid() for 3-D grids")
+    if len(descriptions) != n_bands:
+        raise ValueError(f"{len(descriptions)} band descriptions for {n_bands} bands")
+    out_path = check_writable(out_path, overwrite)
+    block = tile_size(grid)
+    profile = dict(driver="GTiff", width=grid.nx, height=grid.ny, count=n_bands, dtype="float32",
+                   crs=_crs(grid), transform=grid.transform, nodata=np.nan, tiled=True,
+                   blockxsize=block, blockysize=block, compress="deflate", predictor=3,
+                   interleave="band", bigtiff="if_safer")
+    total = sum(1 for _ in windows())
+    stage = out_path.with_name(f".{out_path.name}.{secrets.token_hex(4)}.stage.tif")
+    with atomic_output(out_path, overwrite) as final, rasterio.Env(GDAL_PAM_ENABLED="NO"):
+        try:
+            with rasterio.open(stage, "w", **profile) as dst:
+                for done, w in enumerate(windows(), start=1):
+                    data = np.asarray(compute(w), dtype=np.float32)
+                    if data.shape != (n_bands, w.height, w.width):
+                        raise ValueError(f"computed window has shape {data.shape}, expected "
+                                         f"{(n_bands, w.height, w.width)}")
+                    dst.write(data, window=w)
+                    if progress is not None:
+                        progress(done, total, what)
+                units = []
+                for b, d in enumerate(descriptions, start=1):
+                    text, unit = (d, "") if isinstance(d, str) else d
+                    dst.set_band_description(b, text)
+                    units.append(unit)
+                    if unit:
+                        dst.update_tags(b, units=unit)
+                dst.units = tuple(units)
+                if tags:
+                    dst.update_tags(**{k: str(v) for k, v in tags.items()})
+            # the tiled stage feeds GDAL's COG driver, which adds overviews and orders the file
+            rasterio.shutil.copy(stage, final, driver="COG", BLOCKSIZE=block, **_COG_OPTIONS)
+        finally:
+            stage.unlink(missing_ok=True)
+    return out_path
+
+
+def write_raster(path: str | os.PathLike, data: np.ndarray, grid, *,
+                 descriptions: Sequence[tuple[str, str] | str], tags: Mapping[str, str] | None = None,
+                 overwrite: bool = False) -> list[Path]:
+    """Write an in-memory array as COG file(s).
+
+    ``data`` has ``grid.shape`` (one band) or ``(n_bands, *grid.shape)``.  For
+    a 3-D grid one file per level is written (``<stem>_z000<suffix>``, ...);
+    the list of written paths is returned.
+
+    Examples
+    --------
+    >>> import pathlib, tempfile, numpy as np, rasterio, geosim
+    >>> from geosim.io.geotiff import write_raster
+    >>> from pyproj import CRS
+    >>> g = geosim.Grid(500000.0, 6000000.0, (10.0, 10.0), (200, 300), crs=CRS.from_epsg(32633))
+    >>> p = pathlib.Path(tempfile.mkdtemp()) / "ones.tif"
+    >>> _ = write_raster(p, np.ones(g.shape), g, descriptions=[("ones", "m")])
+    >>> with rasterio.open(p) as src:
+    ...     src.descriptions, src.profile["tiled"], src.overviews(1)
+    (('ones',), True, [2, 4])
+    """
+    a = np.asarray(data, dtype=np.float32)
+    if a.shape == grid.shape:
+        a = a[None]
+    if a.shape[1:] != grid.shape:
+        raise ValueError(f"data of shape {a.shape} does not fit grid shape {grid.shape}")
+    path = Path(path)
+    out = []
+    for k, target in enumerate(level_paths(path, grid)):
+        g2 = level_grid(grid, k)
+        level = a if grid.ndim == 2 else a[:, k]
+        level = np.where(g2.mask, level, np.nan).astype(np.float32)
+        t = {**(tags or {}), **_level_tags(grid, k)}
+        out.append(write_bands(target, g2, level.shape[0], _windows(g2, tile_size(g2)),
+                               lambda w, lv=level: lv[:, w.row_off:w.row_off + w.height,
+                                                      w.col_off:w.col_off + w.width],
+                               descriptions=descriptions, tags=t, overwrite=overwrite))
+    return out
+
+
+def level_paths(path: str | os.PathLike, grid) -> list[Path]:
+    """The file(s) a raster of ``grid`` occupies: ``path`` itself, or one per level for 3-D."""
+    path = Path(path)
+    if grid.ndim == 2:
+        return [path]
+    return [path.with_name(f"{path.stem}_z{k:03d}{path.suffix}") for k in range(grid.nz)]
+
+
+@contextlib.contextmanager
+def open_checked(path: str | os.PathLike, grid):
+    """Open a raster for reading and check it has the 2-D ``grid``'s size.
+
+    Raises :class:`~geosim.errors.InputError` naming the file when it is
+    missing, unreadable or of another size.
+    """
+    import rasterio
+    from rasterio.errors import RasterioIOError
+
+    try:
+        src = rasterio.open(path)
+    except RasterioIOError as err:
+        raise InputError(f"cannot open the raster: {err}", file=str(path),
+                         fix="check the path, or re-run the realizations that wrote it") from err
+    with src:
+        if (src.height, src.width) != (grid.ny, grid.nx):
+            raise InputError(f"raster is {src.height} x {src.width} cells, the grid {grid.ny} x {grid.nx}",
+                             file=str(path), fix="use files written for this grid")
+        yield src
+
+
+def verify_realization(path: str | os.PathLike, expected_sha256: str) -> bool:
+    """True when ``path`` exists and its SHA-256 is ``expected_sha256``.
+
+    Used to keep completed realizations when a run is resumed.
+    """
+    path = Path(path)
+    return path.is_file() and file_sha256(path) == expected_sha256.lower()
+
+
+def read_realization(paths: Sequence[str | os.PathLike], grid, band: int = 1) -> np.ndarray:
+    """Read one realization back as an array of ``grid.shape`` (level files for 3-D)."""
+    levels = []
+    for k, p in enumerate(paths):
+        with open_checked(p, level_grid(grid, k)) as src:
+            levels.append(src.read(band).astype(np.float64))
+    return levels[0] if grid.ndim == 2 else np.stack(levels)
+
+
+def assemble_realizations(paths: Sequence[str | os.PathLike], grid, out_path: str | os.PathLike, *,
+                          units: str = "", tags: Mapping[str, str] | None = None,
+                          indices: Sequence[int] | None = None, overwrite: bool = False,
+                          progress: Callable[[int, int, str], None] | None = None) -> Path:
+    """Stack single-band realization files of one 2-D level into one multiband COG.
+
+    Band ``b`` holds ``paths[b - 1]`` and is described "realization i" with
+    ``i`` from ``indices`` (default 0, 1, ...).  Memory is one window of every
+    band (``tile_size(grid)**2 x len(paths)`` values).
+    """
+    indices = list(range(len(paths))) if indices is None else list(indices)
+    u = f" ({units})" if units else ""
+    descriptions = [(f"realization {i}{u}", units) for i in indices]
+    size = tile_size(grid)
+
+    def compute(w):
+        out = np.empty((len(paths), w.height, w.width), dtype=np.float32)
+        for b, p in enumerate(paths):
+            with open_checked(p, grid) as src:
+                out[b] = src.read(1, window=w)
+        return out
+
+    return write_bands(out_path, grid, len(paths), _windows(grid, size), compute, descriptions=descriptions,
+                       tags=tags, overwrite=overwrite, progress=progress, what="realizations")
+
+
+class RealizationWriter:
+    """Picklable sink that writes each realization in the worker, and assembles at the end.
+
+    Parameters
+    ----------
+    folder : path
+        Output folder (created if missing).  Per-realization files go to
+        ``folder/realizations/``.
+    grid : geosim.Grid
+    tags : mapping
+        Provenance tags (:func:`geosim.io.report.provenance`).
+    units : str
+        Units of the written values.
+    back_transform : callable, optional
+        Applied in the worker to the active values of each field (normal scores
+        to data units), e.g. a fitted transform's ``inverse``.
+    figures : callable, optional
+        ``figures(field) -> dict`` of decision figures for one realization in
+        data units, e.g. ``functools.partial(geosim.summaries.grade_tonnage,
+        grid=grid, cutoffs=[0.5, 1.0], density=2.7)``.
+    measure : callable, optional
+        ``measure(normal_scores, values) -> dict`` of per-realization validation
+        statistics (see :class:`geosim.validation.RunChecks`).
+    overwrite : bool
+        Replace existing outputs.
+
+    Notes
+    -----
+    ``writer(index, field)`` returns a record ``{"index", "files", "sha256",
+    "figures", "checks"}`` (``files`` relative to ``folder``).  ``finish``
+    takes the records of all realizations.
+    """
+
+    def __init__(self, folder: str | os.PathLike, grid, *, tags: Mapping[str, str] | None = None,
+                 units: str = "", back_transform: Callable[[np.ndarray], np.ndarray] | None = None,
+                 figures: Callable[[np.ndarray], dict] | None = None,
+                 measure: Callable[[np.ndarray, np.ndarray], dict] | None = None, overwrite: bool = False):
+        self.folder = Path(folder)
+        self.grid = grid
+        self.tags = dict(tags or {})
+        self.units = units
+        self.back_transform = back_transform
+        self.figures = figures
+        self.measure = measure
+        self.overwrite = overwrite
+
+    def realization_paths(self, index: int) -> list[Path]:
+        """The per-realization file(s) of realization ``index``."""
+        return level_paths(self.folder / "realizations" / f"r{index:04d}.tif", self.grid)
+
+    def __call__(self, index: int, field: np.ndarray) -> dict:
+        scores = np.asarray(field, dtype=np.float64)
+        if scores.shape != self.grid.shape:
+            raise ValueError(f"realization {index} has shape {scores.shape}, the grid {self.grid.shape}")
+        values = scores.copy()
+        if self.back_transform is not None:
+            inside = ~np.isnan(scores)
+            values[inside] = self.back_transform(scores[inside])
+        (self.folder / "realizations").mkdir(parents=True, exist_ok=True)
+        target = self.realization_paths(index)[0] if self.grid.ndim == 2 else \
+            self.folder / "realizations" / f"r{index:04d}.tif"
+        u = f" ({self.units})" if self.units else ""
+        written = write_raster(target, values, self.grid, descriptions=[(f"realization {index}{u}", self.units)],
+                               tags={**self.tags, "realization": str(index)}, overwrite=self.overwrite)
+        return {"index": int(index),
+                "files": [str(p.relative_to(self.folder)) for p in written],
+                "sha256": [file_sha256(p) for p in written],
+                "figures": None if self.figures is None else self.figures(values),
+                "checks": None if self.measure is None else self.measure(scores, values)}
+
+    def finish(self, records: Sequence[Mapping], *, cutoffs: Sequence[float] = (),
+               stack: bool = True, keep_realization_files: bool = True,
+               progress: Callable[[int, int, str], None] | None = None) -> dict[str, list[str]]:
+        """Assemble the multiband realization COG(s), the summary raster(s) and decision CSVs.
+
+        Parameters
+        ----------
+        records : sequence of dict
+            What ``writer(index, field)`` returned, for every realization.
+        cutoffs : sequence of float
+            Exceedance-probability cut-offs for the summary raster.
+        stack : bool
+            Write ``realizations.tif`` (per level for 3-D) with one band per realization.
+        keep_realization_files : bool
+            Keep ``realizations/r*.tif`` after assembly (they let a resumed run
+            skip finished realizations and are single-band COGs themselves);
+            False removes them once everything else is written.
+        progress : callable, optional
+
+        Returns
+        -------
+        dict
+            Output kind -> list of paths written.
+        """
+        from ..summaries import decision_rows, decision_spread, summarize_realizations, write_decision_csv
+
+        records = sorted(records, key=lambda r: r["index"])
+        if not records:
+            raise ValueError("no realization records to assemble")
+        for r in records:
+            for f, sha in zip(r["files"], r["sha256"]):
+                if not verify_realization(self.folder / f, sha):
+                    raise InputError("realization file is missing or changed since it was written",
+                                     file=str(self.folder / f), fix="re-run that realization")
+        indices = [r["index"] for r in records]
+        out: dict[str, list[str]] = {"realization_files": [f for r in records for f in r["files"]]}
+        if stack:
+            out["realizations"] = []
+        out["summary"] = []
+        for k in range(self.grid.nz if self.grid.ndim == 3 else 1):
+            g2 = level_grid(self.grid, k)
+            files = [self.folder / r["files"][k] for r in records]
+            level_tags = {**self.tags, **_level_tags(self.grid, k)}
+            if stack:
+                target = level_paths(self.folder / "realizations.tif", self.grid)[k]
+                assemble_realizations(files, g2, target, units=self.units, tags=level_tags, indices=indices,
+                                      overwrite=self.overwrite, progress=progress)
+                out["realizations"].append(str(target))
+            target = level_paths(self.folder / "summary.tif", self.grid)[k]
+            summarize_realizations(files, g2, cutoffs, target, units=self.units, tags=level_tags,
+                                   overwrite=self.overwrite, progress=progress)
+            out["summary"].append(str(target))
+        figures = [r["figures"] for r in records]
+        if all(f is not None for f in figures):
+            rows = decision_rows(figures, indices)
+            p1 = write_decision_csv(self.folder / "decision_figures.csv", rows, self.overwrite)
+            p2 = write_decision_csv(self.folder / "decision_spread.csv", decision_spread(figures), self.overwrite)
+            out["decision"] = [str(p1), str(p2)]
+        if not keep_realization_files:
+            for f in out.pop("realization_files"):
+                (self.folder / f).unlink()
+            with contextlib.suppress(OSError):
+                (self.folder / "realizations").rmdir()
+        return out

@@ -1,0 +1,375 @@
+"""Ensemble statistics and decision figures.
+
+Ensemble statistics (per grid node, across realizations)
+--------------------------------------------------------
+* ``mean``: arithmetic mean of the realizations.
+* ``std``: standard deviation with divisor ``n`` (the spread of the ensemble
+  itself, ``numpy.std(..., ddof=0)``).
+* ``P10``, ``P50``, ``P90``: quantiles by numpy's default ``"linear"`` method,
+  definition 7 of Hyndman and Fan (1996, "Sample quantiles in statistical
+  packages", The American Statistician 50(4), 361-365): with the ``n`` values
+  sorted, ``P_p`` sits at position ``(n - 1) p / 100`` (0-based) with linear
+  interpolation between neighbours.  P10 is thus the value below which 10 % of
+  the realizations fall.
+* ``P(>c)`` for each cut-off ``c``: the fraction of realizations *strictly
+  above* ``c``.
+
+Nodes outside the domain (NaN in every realization) stay NaN.
+
+:func:`summarize_ensemble` does this on an in-memory stack; the streaming twin
+:func:`summarize_realizations` reads per-realization GeoTIFFs window by window,
+so memory is bounded by window size x number of realizations.
+
+Decision figures (per realization)
+----------------------------------
+* :func:`grade_tonnage`: tonnage, mean grade and metal *at or above* each
+  cut-off (``grade >= cutoff``, the usual reading of a cut-off grade).
+* :func:`fraction_above` / :func:`fraction_below`: the fraction of the domain's
+  cells strictly above / below each threshold (e.g. hydraulic conductivity).
+
+:func:`decision_spread` gives P10/P50/P90 of each figure across realizations
+(same quantile definition) and :func:`write_decision_csv` writes the tables.
+"""
+from __future__ import annotations
+
+import csv
+import io
+import os
+from collections.abc import Callable, Mapping, Sequence
+from pathlib import Path
+
+import numpy as np
+
+from .cautions import CAUTION
+from .errors import InputError
+from .io.atomic import atomic_output
+
+__all__ = ["QUANTILE_METHOD", "SUMMARY_PERCENTILES", "summary_band_names", "summary_band_descriptions",
+           "summarize_ensemble", "summarize_realizations", "grade_tonnage", "fraction_above",
+           "fraction_below", "decision_rows", "decision_spread", "write_decision_csv"]
+
+QUANTILE_METHOD = "linear"  # numpy's default; Hyndman and Fan (1996) definition 7
+SUMMARY_PERCENTILES = (10.0, 50.0, 90.0)
+
+
+def _fmt(c: float) -> str:
+    return f"{c:g}"
+
+
+def summary_band_names(cutoffs: Sequence[float] = ()) -> list[str]:
+    """Short names of the summary bands, in band order.
+
+    Examples
+    --------
+    >>> import geosim.summaries
+    >>> geosim.summaries.summary_band_names([0.5, 1.0])
+    ['mean', 'std', 'P10', 'P50', 'P90', 'P(>0.5)', 'P(>1)']
+    """
+    return (["mean", "std"] + [f"P{p:g}" for p in SUMMARY_PERCENTILES]
+            + [f"P(>{_fmt(c)})" for c in cutoffs])
+
+
+def summary_band_descriptions(cutoffs: Sequence[float] = (), units: str = "") -> list[tuple[str, str]]:
+    """``(description, unit)`` of each summary band, for GIS band descriptions."""
+    u = f" ({units})" if units else ""
+    out = [(f"mean of realizations{u}", units),
+           (f"standard deviation of realizations{u}", units)]
+    out += [(f"P{p:g}: {p:g}% of realizations fall below{u}", units) for p in SUMMARY_PERCENTILES]
+    out += [(f"probability above {_fmt(c)}{(' ' + units) if units else ''} (fraction 0-1)", "fraction")
+            for c in cutoffs]
+    return out
+
+
+def _stack_stats(stack: np.ndarray, cutoffs: Sequence[float]) -> np.ndarray:
+    """Summary bands of a stack ``(n_real, ...)``; returns ``(n_bands, ...)`` float64."""
+    stack = np.asarray(stack, dtype=np.float64)
+    shape = stack.shape[1:]
+    out = np.full((5 + len(cutoffs),) + shape, np.nan)
+    valid = ~np.isnan(stack)
+    inside = valid.all(axis=0)
+    if (valid.any(axis=0) != inside).any():
+        raise ValueError("some nodes are NaN in some realizations but not in others; every realization "
+                         "must share the domain mask")
+    if not inside.any():
+        return out
+    vals = stack[:, inside]
+    out[0][inside] = vals.mean(axis=0)
+    out[1][inside] = vals.std(axis=0)
+    out[2:5, inside] = np.percentile(vals, SUMMARY_PERCENTILES, axis=0, method=QUANTILE_METHOD)
+    for k, c in enumerate(cutoffs):
+        out[5 + k][inside] = (vals > c).mean(axis=0)
+    return out
+
+
+def summarize_ensemble(fields: np.ndarray | Sequence[np.ndarray],
+                       cutoffs: Sequence[float] = ()) -> dict[str, np.ndarray]:
+    """Ensemble statistics of realizations held in memory.
+
+    Parameters
+    ----------
+    fields : array ``(n_real, *grid.shape)`` or sequence of arrays
+        Realizations in data units, NaN outside the domain.
+    cutoffs : sequence of float
+        Values for the exceedance probabilities.
+
+    Returns
+    -------
+    dict
+        ``{band name: array of grid.shape}`` in :func:`summary_band_names` order.
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> import geosim.summaries
+    >>> s = geosim.summaries.summarize_ensemble(np.arange(11.0).reshape(11, 1, 1), [4.5])
+    >>> float(s["P10"][0, 0]), float(s["P(>4.5)"][0, 0])
+    (1.0, 0.5454545454545454)
+    """
+    stack = np.asarray(fields if isinstance(fields, np.ndarray) else np.stack(list(fields)), dtype=float)
+    if stack.ndim < 2 or stack.shape[0] < 1:
+        raise ValueError(f"need a stack (n_realizations, ...) with at least one realization, got {stack.shape}")
+    bands = _stack_stats(stack, cutoffs)
+    return dict(zip(summary_band_names(cutoffs), bands))
+
+
+def summarize_realizations(paths: Sequence[str | os.PathLike], grid, cutoffs: Sequence[float],
+                           out_path: str | os.PathLike, units: str = "",
+                           tags: Mapping[str, str] | None = None, window: int | None = None,
+                           overwrite: bool = False,
+                           progress: Callable[[int, int, str], None] | None = None) -> Path:
+    """Stream single-band realization GeoTIFFs into a summary GeoTIFF (COG layout).
+
+    Reads all ``paths`` one window at a time (memory is about
+    ``window**2 x len(paths)`` values), computes the bands of
+    :func:`summarize_ensemble` and writes them, described and with units, to
+    ``out_path`` atomically.
+
+    Parameters
+    ----------
+    paths : sequence of path
+        One single-band GeoTIFF per realization, all on ``grid`` (2-D; for a
+        3-D grid call once per level with that level's files and 2-D grid).
+    grid : geosim.Grid
+        2-D grid of the files (checked against each file's size).
+    cutoffs : sequence of float
+    out_path : path
+    units : str
+        Units of the realization values.
+    tags : mapping, optional
+        Provenance tags (see :func:`geosim.io.report.provenance`).
+    window : int, optional
+        Window side in cells; defaults to the files' tile size.
+    overwrite : bool
+    progress : callable, optional
+        ``progress(done, total, "summary")`` after each window.
+    """
+    from .io.geotiff import open_checked, write_bands
+
+    if len(paths) < 1:
+        raise ValueError("no realization files to summarize")
+    if grid.ndim != 2:
+        raise ValueError("summarize_realizations works on one 2-D level; call it per level of a 3-D grid")
+    with open_checked(paths[0], grid) as first:
+        block = first.block_shapes[0][0] if first.profile.get("tiled") else 256
+    win = int(window or block)
+    n_bands = 5 + len(cutoffs)
+    names = summary_band_descriptions(cutoffs, units)
+
+    def windows():
+        from rasterio.windows import Window
+        for r0 in range(0, grid.ny, win):
+            for c0 in range(0, grid.nx, win):
+                yield Window(c0, r0, min(win, grid.nx - c0), min(win, grid.ny - r0))
+
+    def compute(w):
+        stack = np.empty((len(paths), w.height, w.width), dtype=np.float32)
+        for i, p in enumerate(paths):
+            with open_checked(p, grid) as src:
+                stack[i] = src.read(1, window=w)
+        return _stack_stats(stack, cutoffs)
+
+    return write_bands(out_path, grid, n_bands, windows, compute, descriptions=names, tags=tags,
+                       overwrite=overwrite, progress=progress, what="summary")
+
+
+# ---------------------------------------------------------------------------------------------
+# decision figures
+
+def _cell_volume(grid, thickness) -> np.ndarray | float:
+    if grid.ndim == 3:
+        if thickness is not None:
+            raise InputError("a 3-D grid has its own level thickness (dz); do not give a thickness",
+                             field="thickness", fix="leave thickness out for 3-D grids")
+        return grid.cell[0] * grid.cell[1] * grid.cell[2]
+    if thickness is None:
+        raise InputError("a 2-D grid needs a thickness (metres) to turn cell areas into volumes",
+                         field="thickness", fix="give thickness= the mining or aquifer thickness in metres")
+    t = np.asarray(thickness, dtype=float)
+    if t.ndim and t.shape != grid.shape:
+        raise InputError(f"thickness array has shape {t.shape}, the grid {grid.shape}", field="thickness",
+                         fix="give one thickness or an array of the grid's shape")
+    return grid.cell[0] * grid.cell[1] * t
+
+
+def _field(field, grid) -> np.ndarray:
+    f = np.asarray(field, dtype=float)
+    if f.shape != grid.shape:
+        raise ValueError(f"field has shape {f.shape}, the grid {grid.shape}")
+    return np.where(grid.mask, f, np.nan)
+
+
+def grade_tonnage(field: np.ndarray, grid, cutoffs: Sequence[float], density: float | np.ndarray,
+                  thickness: float | np.ndarray | None = None) -> dict[str, np.ndarray]:
+    """Tonnage, mean grade and metal at or above each cut-off, for one realization.
+
+    Parameters
+    ----------
+    field : array of ``grid.shape``
+        Grades, NaN outside the domain.
+    grid : geosim.Grid
+        Cell volume is ``dx*dy*dz`` (3-D) or ``dx*dy*thickness`` (2-D).
+    cutoffs : sequence of float
+        Cut-off grades; a cell counts when ``grade >= cutoff``.
+    density : float or array of ``grid.shape``
+        Dry bulk density in t/m^3.
+    thickness : float or array of ``grid.shape``, 2-D grids only
+        Thickness in metres.
+
+    Returns
+    -------
+    dict of arrays (one value per cut-off)
+        ``cutoff``; ``tonnage`` (t); ``mean_grade`` (tonnage-weighted, grade
+        units; NaN where nothing is above); ``metal`` = tonnage x mean grade
+        (grade units x t: grams for g/t; divide by 100 for % grades).
+
+    Examples
+    --------
+    >>> import numpy as np, geosim
+    >>> g = geosim.Grid(0.0, 0.0, (10.0, 10.0), (1, 2))
+    >>> gt = geosim.summaries.grade_tonnage(np.array([[1.0, 3.0]]), g, [0.0, 2.0], density=2.5, thickness=2.0)
+    >>> gt["tonnage"].tolist(), gt["mean_grade"].tolist(), gt["metal"].tolist()
+    ([1000.0, 500.0], [2.0, 3.0], [2000.0, 1500.0])
+    """
+    f = _field(field, grid)
+    tonnes = _cell_volume(grid, thickness) * np.asarray(density, dtype=float)
+    tonnes = np.broadcast_to(tonnes, grid.shape)
+    inside = ~np.isnan(f)
+    cut = np.asarray(cutoffs, dtype=float).ravel()
+    tonnage = np.empty(cut.size)
+    metal = np.empty(cut.size)
+    fv, tv = f[inside], tonnes[inside]
+    for k, c in enumerate(cut):
+        above = fv >= c
+        tonnage[k] = tv[above].sum()
+        metal[k] = (tv[above] * fv[above]).sum()
+    with np.errstate(invalid="ignore", divide="ignore"):
+        mean_grade = np.where(tonnage > 0, metal / np.where(tonnage > 0, tonnage, 1.0), np.nan)
+    return {"cutoff": cut, "tonnage": tonnage, "mean_grade": mean_grade, "metal": metal}
+
+
+def _fractions(field, grid, thresholds, above: bool) -> dict[str, np.ndarray]:
+    f = _field(field, grid)
+    v = f[~np.isnan(f)]
+    t = np.asarray(thresholds, dtype=float).ravel()
+    if v.size == 0:
+        frac = np.full(t.size, np.nan)
+    else:
+        frac = np.array([np.count_nonzero(v > c if above else v < c) / v.size for c in t])
+    cell = float(np.prod(grid.cell))
+    key = "fraction_above" if above else "fraction_below"
+    size = "volume" if grid.ndim == 3 else "area"
+    return {"threshold": t, key: frac, size: frac * v.size * cell}
+
+
+def fraction_above(field: np.ndarray, grid, thresholds: Sequence[float]) -> dict[str, np.ndarray]:
+    """Fraction of the domain's cells strictly above each threshold, for one realization.
+
+    Returns ``threshold``, ``fraction_above`` (0-1) and ``area`` (m^2, 2-D) or
+    ``volume`` (m^3, 3-D) of those cells.
+
+    Examples
+    --------
+    >>> import numpy as np, geosim
+    >>> g = geosim.Grid(0.0, 0.0, (10.0, 10.0), (2, 2))
+    >>> geosim.summaries.fraction_above(np.array([[1e-5, 1e-4], [1e-6, np.nan]]), g, [5e-6])["fraction_above"]
+    array([0.66666667])
+    """
+    return _fractions(field, grid, thresholds, above=True)
+
+
+def fraction_below(field: np.ndarray, grid, thresholds: Sequence[float]) -> dict[str, np.ndarray]:
+    """Fraction of the domain's cells strictly below each threshold; see :func:`fraction_above`."""
+    return _fractions(field, grid, thresholds, above=False)
+
+
+def decision_rows(figures: Sequence[Mapping[str, np.ndarray]],
+                  indices: Sequence[int] | None = None) -> list[dict]:
+    """One row per realization and cut-off from a list of per-realization figures.
+
+    ``figures[j]`` is the dict returned by :func:`grade_tonnage` or
+    :func:`fraction_above` / :func:`fraction_below` for realization
+    ``indices[j]`` (default ``j``).
+    """
+    rows = []
+    indices = range(len(figures)) if indices is None else indices
+    for i, figs in zip(indices, figures):
+        key, *quantities = list(figs)
+        for k, c in enumerate(np.asarray(figs[key]).ravel()):
+            row = {"realization": int(i), key: float(c)}
+            row.update({q: float(np.asarray(figs[q]).ravel()[k]) for q in quantities})
+            rows.append(row)
+    return rows
+
+
+def decision_spread(figures: Sequence[Mapping[str, np.ndarray]]) -> list[dict]:
+    """P10, P50, P90 and mean of each decision figure across realizations.
+
+    Quantiles use :data:`QUANTILE_METHOD` over the realizations; realizations
+    where a figure is NaN (e.g. mean grade with nothing above cut-off) are left
+    out of that figure's statistics, and ``n`` says how many remained.
+
+    Examples
+    --------
+    >>> import numpy as np, geosim
+    >>> figs = [{"cutoff": np.array([1.0]), "tonnage": np.array([float(t)])} for t in range(11)]
+    >>> geosim.summaries.decision_spread(figs)[0]
+    {'cutoff': 1.0, 'figure': 'tonnage', 'n': 11, 'mean': 5.0, 'P10': 1.0, 'P50': 5.0, 'P90': 9.0}
+    """
+    if not figures:
+        return []
+    key, *quantities = list(figures[0])
+    levels = np.asarray(figures[0][key], dtype=float).ravel()
+    out = []
+    for k, c in enumerate(levels):
+        for q in quantities:
+            v = np.array([float(np.asarray(f[q]).ravel()[k]) for f in figures])
+            v = v[~np.isnan(v)]
+            row = {key: float(c), "figure": q, "n": int(v.size)}
+            if v.size:
+                row["mean"] = float(v.mean())
+                row.update({f"P{p:g}": float(x) for p, x in zip(
+                    SUMMARY_PERCENTILES, np.percentile(v, SUMMARY_PERCENTILES, method=QUANTILE_METHOD))})
+            else:
+                row.update({"mean": float("nan"), **{f"P{p:g}": float("nan") for p in SUMMARY_PERCENTILES}})
+            out.append(row)
+    return out
+
+
+def write_decision_csv(path: str | os.PathLike, rows: Sequence[Mapping], overwrite: bool = False) -> Path:
+    """Write rows (from :func:`decision_rows` or :func:`decision_spread`) as CSV, atomically.
+
+    The first line is a ``#`` comment carrying the caution (read with
+    ``comment="#"`` in pandas, or skip one line); then a header and the rows.
+    """
+    if not rows:
+        raise ValueError("no rows to write")
+    header = list(rows[0])
+    buf = io.StringIO()
+    buf.write("# " + CAUTION + "\n")
+    w = csv.DictWriter(buf, fieldnames=header, lineterminator="\n")
+    w.writeheader()
+    for r in rows:
+        w.writerow({k: (f"{v:.10g}" if isinstance(v, float) else v) for k, v in r.items()})
+    with atomic_output(path, overwrite) as tmp:
+        tmp.write_text(buf.getvalue(), encoding="utf-8")
+    return Path(path)
