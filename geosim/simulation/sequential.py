@@ -1,0 +1,309 @@
+"""Sequential Gaussian simulation on a grid, in normal-score space.
+
+Each realization visits the active nodes along a random path (coarse multi-grid levels
+first).  At every node the conditioning set is the original data near it (at their
+true locations, found once per run through a static k-d tree) and the previously
+simulated nodes found by scanning a template of offsets sorted by anisotropic
+distance.  Simple kriging with mean 0 (or ordinary kriging) of that set gives the
+mean and variance of the local Gaussian conditional distribution, from which the node
+value is drawn.  The whole per-node loop is one compiled numba kernel; the local
+covariance matrix is factored by :func:`geosim.linalg.chol_inplace` and both the
+weights and the variance come from the one factor:
+
+* simple kriging: ``y = L^-1 c``, ``v = L^-1 z``; mean ``y.v``, variance ``C(0) - y.y``;
+* ordinary kriging adds, with ``u = L^-1 1``, ``mu = (1 - u.y) / u.u``:
+  mean ``y.v + mu u.v``, variance ``C(0) - y.y + (1 - u.y)^2 / u.u``.
+
+The second form is the ordinary kriging system solved by elimination of the Lagrange
+multiplier (e.g. Chiles and Delfiner 2012, Geostatistics: Modeling Spatial
+Uncertainty, 2nd ed., section 3.4, from memory).
+
+Reference for the algorithm: Deutsch and Journel 1998, GSLIB (2nd ed.), section V.2.3
+on sequential Gaussian simulation (the method, not the program).
+"""
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+
+import numpy as np
+from numba import njit
+
+from ..errors import InputError, NotPositiveDefiniteError
+from ..linalg import chol_inplace, forward_inplace
+from ..search import Neighbourhood
+from ..variogram.compiled import cov_lag
+from .paths import covariance_table, grid_axes, node_template, offset_lags, path_levels, random_path, \
+    search_anisotropy
+from .validate import check_inputs, coincident_nodes, data_labels
+
+
+@dataclass(frozen=True)
+class SequentialPlan:
+    """Everything a sequential realization needs; built once by :meth:`SequentialEngine.prepare`."""
+
+    grid: object
+    cm: tuple
+    sill: float
+    active_flat: np.ndarray      # (N,) int64 flat grid index of each active node
+    free: np.ndarray             # (F,) int64 active positions simulated along the path
+    levels: np.ndarray           # (F,) int8 multi-grid level of each of them
+    fixed_flat: np.ndarray       # flat indices of nodes on a datum: they take its score
+    fixed_data: np.ndarray       # the data ids of those nodes
+    offsets: np.ndarray          # (T, 3) int64 template offsets (dk, di, dj)
+    lags: np.ndarray             # (T, 3) float64 their lag vectors in metres
+    table: np.ndarray            # node covariance table, or an empty (1, 1, 1) array
+    centre: np.ndarray           # (3,) int64 index of the zero offset in ``table``
+    use_table: bool
+    origin: np.ndarray           # first node centre (x, y, z)
+    step: np.ndarray             # (dx, -dy, dz)
+    shape3: tuple
+    data_coords: np.ndarray      # (n, 3)
+    data_scores: np.ndarray      # (n,)
+    data_neighbours: np.ndarray  # (N, k) int32 data ids per active node, -1 padded
+    data_labels: tuple
+    max_nodes: int
+    ordinary: bool
+    tol: float
+
+
+class SequentialEngine:
+    """Sequential Gaussian simulation (the default engine).
+
+    Options accepted by :meth:`prepare` besides the common ones:
+
+    ``multigrid`` : int or None
+        Number of coarse levels visited first (None: automatic, up to 3; 0: plain
+        random path).
+    ``max_template`` : int
+        Most template offsets scanned for simulated neighbours (default 20,000).
+    ``sample_ids`` : sequence
+        Labels of the data rows for error messages (default: row numbers from 1).
+    ``pivot_tol`` : float
+        A Cholesky pivot ``<= pivot_tol * sill`` counts as failure (default 1e-10).
+
+    ``neighbourhood.min_samples`` does not apply: simulation draws every node, with or
+    without data nearby.
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> import geosim
+    >>> from geosim.simulation.sequential import SequentialEngine
+    >>> grid = geosim.Grid(0.0, 0.0, (10.0, 10.0), (8, 8))
+    >>> model = geosim.Spherical(1.0, geosim.Anisotropy.isotropic(40.0)) + geosim.Nugget(0.0)
+    >>> engine = SequentialEngine()
+    >>> plan = engine.prepare(np.array([[35.0, 45.0]]), np.array([1.2]), model, grid,
+    ...                       neighbourhood=geosim.search.Neighbourhood(max_samples=8, max_nodes=12))
+    >>> field = engine.realize(plan, np.random.default_rng(0))
+    >>> field.shape, round(float(field[3, 3]), 6)
+    ((8, 8), 1.2)
+    """
+
+    name = "sequential"
+
+    def prepare(self, data_coords, data_scores, model, grid, *, neighbourhood: Neighbourhood | None = None,
+                kriging: str = "simple", multigrid: int | None = None, max_template: int = 20_000,
+                sample_ids=None, pivot_tol: float = 1e-10) -> SequentialPlan:
+        """Build the search template, covariance table and data neighbour lists."""
+        coords3, scores, nb, ordinary = check_inputs(data_coords, data_scores, model, grid, neighbourhood,
+                                                     kriging)
+        if nb.sectors or nb.max_per_sector is not None or nb.max_per_hole is not None:
+            raise InputError("the sequential engine does not apply search sectors or per-hole limits",
+                             field="neighbourhood",
+                             fix="set sectors=0, max_per_sector=None and max_per_hole=None")
+        shape3, origin, step = grid_axes(grid)
+        search = search_anisotropy(model, nb, grid)
+        offsets = node_template(grid, search, limit=int(max_template)) if nb.max_nodes > 0 else \
+            np.zeros((0, 3), dtype=np.int64)
+        cm = model.compiled()
+        table, centre = covariance_table(cm, offsets, step)
+        active_flat = np.flatnonzero(grid.mask.ravel()).astype(np.int64)
+        node_xyz = _active_xyz(active_flat, shape3, origin, step)
+        neighbours = _data_neighbours(coords3, node_xyz, search.matrix(), nb.max_samples)
+        fixed_pos, fixed_data = coincident_nodes(coords3, node_xyz, min(grid.cell))
+        free = np.setdiff1d(np.arange(active_flat.shape[0]), fixed_pos)
+        return SequentialPlan(
+            grid=grid, cm=cm, sill=model.sill, active_flat=active_flat, free=free,
+            levels=path_levels(grid, offsets, multigrid)[free], fixed_flat=active_flat[fixed_pos],
+            fixed_data=fixed_data, offsets=offsets,
+            lags=np.ascontiguousarray(offset_lags(offsets, step)),
+            table=table if table is not None else np.zeros((1, 1, 1)), centre=centre,
+            use_table=table is not None, origin=origin, step=step, shape3=shape3,
+            data_coords=coords3, data_scores=scores, data_neighbours=neighbours,
+            data_labels=data_labels(sample_ids, len(scores)), max_nodes=int(nb.max_nodes),
+            ordinary=ordinary, tol=float(pivot_tol) * model.sill)
+
+    def realize(self, plan: SequentialPlan, rng: np.random.Generator) -> np.ndarray:
+        """One realization: normal scores of ``grid.shape``, NaN outside the mask."""
+        path = plan.free[random_path(plan.levels, rng)]
+        normals = rng.standard_normal(path.shape[0])
+        field = np.full(int(np.prod(plan.shape3)), np.nan)
+        kmax = plan.data_neighbours.shape[1] + plan.max_nodes
+        ids = np.zeros(max(kmax, 1), dtype=np.int64)
+        fail = np.zeros(4, dtype=np.int64)
+        a = np.zeros((max(kmax, 1), max(kmax, 1)))
+        status = _sgs_kernel(field, plan.active_flat, path, normals, np.array(plan.shape3, dtype=np.int64),
+                             plan.origin, plan.step, plan.offsets, plan.lags, plan.table, plan.centre, plan.use_table,
+                             plan.data_coords, plan.data_scores, plan.data_neighbours, plan.cm,
+                             plan.max_nodes, plan.ordinary, plan.tol, a, ids, fail)
+        if status >= 0:
+            raise _pivot_error(plan, path, a, ids, fail)
+        # nodes on a datum stay out of the node search (the datum itself is found) and take its score
+        field[plan.fixed_flat] = plan.data_scores[plan.fixed_data]
+        return field.reshape(plan.grid.shape)
+
+
+def _active_xyz(active_flat, shape3, origin, step) -> np.ndarray:
+    k, i, j = np.unravel_index(active_flat, shape3)
+    return np.column_stack([origin[0] + j * step[0], origin[1] + i * step[1], origin[2] + k * step[2]])
+
+
+def _data_neighbours(coords3: np.ndarray, node_xyz: np.ndarray, matrix: np.ndarray, k: int,
+                     block: int = 200_000) -> np.ndarray:
+    """Up to ``k`` nearest data inside the search ellipsoid of each node, -1 padded."""
+    n = coords3.shape[0]
+    kq = min(int(k), n)
+    out = np.full((node_xyz.shape[0], kq), -1, dtype=np.int32)
+    if kq == 0:
+        return out
+    from scipy.spatial import cKDTree
+    tree = cKDTree(coords3 @ matrix.T)
+    for start in range(0, node_xyz.shape[0], block):
+        pts = node_xyz[start:start + block] @ matrix.T
+        _, idx = tree.query(pts, k=kq, distance_upper_bound=1.0 + 1e-9, workers=1)
+        idx = np.asarray(idx).reshape(pts.shape[0], kq)
+        out[start:start + block] = np.where(idx < n, idx, -1)
+    return out
+
+
+@njit(cache=True, nogil=True)
+def _sgs_kernel(field, active_flat, path, normals, shape3, origin, step, offsets, lags, table, centre,
+                use_table, dcoords, dscores, dnbr, cm, max_nodes, ordinary, tol, a, ids, fail):
+    """Simulate every node of ``path`` into ``field`` (flat, NaN = not yet simulated).
+
+    Returns -1, or the path position where a local covariance matrix failed to factor
+    (then ``fail = [position, pivot, n_data, n_total]`` and ``ids`` holds the data ids
+    followed by the template indices of the node neighbours).
+    """
+    nz, ny, nx = shape3[0], shape3[1], shape3[2]
+    nt = offsets.shape[0]
+    kd = dnbr.shape[1]
+    kmax = a.shape[0]
+    c0 = cov_lag(cm, 0.0, 0.0, 0.0)
+    rhs = np.empty(kmax)
+    zv = np.empty(kmax)
+    uv = np.empty(kmax)
+    work = np.empty(kmax)
+    rel = np.empty((kmax, 3))  # conditioning points relative to the node being simulated
+    for p in range(path.shape[0]):
+        pos = path[p]
+        flat = active_flat[pos]
+        k = flat // (ny * nx)
+        rem = flat - k * ny * nx
+        i = rem // nx
+        j = rem - i * nx
+        x = origin[0] + j * step[0]
+        y = origin[1] + i * step[1]
+        z = origin[2] + k * step[2]
+        m = 0
+        for q in range(kd):
+            d = dnbr[pos, q]
+            if d < 0:
+                break
+            ids[m] = d
+            zv[m] = dscores[d]
+            rel[m, 0] = dcoords[d, 0] - x
+            rel[m, 1] = dcoords[d, 1] - y
+            rel[m, 2] = dcoords[d, 2] - z
+            m += 1
+        nd = m
+        if max_nodes > 0:
+            for t in range(nt):
+                kk = k + offsets[t, 0]
+                ii = i + offsets[t, 1]
+                jj = j + offsets[t, 2]
+                if kk < 0 or kk >= nz or ii < 0 or ii >= ny or jj < 0 or jj >= nx:
+                    continue
+                v = field[(kk * ny + ii) * nx + jj]
+                if v == v:
+                    ids[m] = t
+                    zv[m] = v
+                    rel[m, 0] = lags[t, 0]
+                    rel[m, 1] = lags[t, 1]
+                    rel[m, 2] = lags[t, 2]
+                    m += 1
+                    if m - nd == max_nodes:
+                        break
+        for r in range(m):
+            row = a[r]
+            if r >= nd and use_table:
+                tr = ids[r]
+                rhs[r] = table[centre[0] + offsets[tr, 0], centre[1] + offsets[tr, 1], centre[2] + offsets[tr, 2]]
+                for s in range(nd):
+                    row[s] = cov_lag(cm, rel[r, 0] - rel[s, 0], rel[r, 1] - rel[s, 1], rel[r, 2] - rel[s, 2])
+                for s in range(nd, r + 1):
+                    ts = ids[s]
+                    row[s] = table[centre[0] + offsets[tr, 0] - offsets[ts, 0],
+                                   centre[1] + offsets[tr, 1] - offsets[ts, 1],
+                                   centre[2] + offsets[tr, 2] - offsets[ts, 2]]
+            else:
+                rhs[r] = cov_lag(cm, rel[r, 0], rel[r, 1], rel[r, 2])
+                for s in range(r + 1):
+                    row[s] = cov_lag(cm, rel[r, 0] - rel[s, 0], rel[r, 1] - rel[s, 1], rel[r, 2] - rel[s, 2])
+        mean = 0.0
+        var = c0
+        if m > 0:
+            bad = chol_inplace(a, m, work, tol)
+            if bad >= 0:
+                fail[0] = p
+                fail[1] = bad
+                fail[2] = nd
+                fail[3] = m
+                return p
+            forward_inplace(a, m, rhs)
+            forward_inplace(a, m, zv)
+            yy = 0.0
+            for r in range(m):
+                mean += rhs[r] * zv[r]
+                yy += rhs[r] * rhs[r]
+            var = c0 - yy
+            if ordinary:
+                for r in range(m):
+                    uv[r] = 1.0
+                forward_inplace(a, m, uv)
+                uu = 0.0
+                uy = 0.0
+                uz = 0.0
+                for r in range(m):
+                    uu += uv[r] * uv[r]
+                    uy += uv[r] * rhs[r]
+                    uz += uv[r] * zv[r]
+                mu = (1.0 - uy) / uu
+                mean += mu * uz
+                var += (1.0 - uy) * (1.0 - uy) / uu
+        if var < 0.0:
+            var = 0.0
+        field[flat] = mean + math.sqrt(var) * normals[p]
+    return -1
+
+
+def _pivot_error(plan: SequentialPlan, path: np.ndarray, a: np.ndarray, ids: np.ndarray,
+                 fail: np.ndarray) -> NotPositiveDefiniteError:
+    """The error for a local matrix that failed to factor, naming the node and the samples."""
+    p, pivot, nd, m = (int(v) for v in fail)
+    flat = int(plan.active_flat[path[p]])
+    index = np.unravel_index(flat, plan.grid.shape)
+    xyz = _active_xyz(np.array([flat]), plan.shape3, plan.origin, plan.step)[0][:plan.grid.ndim]
+    labels = []
+    for r in range(m):
+        if r < nd:
+            labels.append(f"sample {plan.data_labels[int(ids[r])]}")
+        else:
+            off = plan.offsets[int(ids[r])]
+            labels.append(f"simulated node at offset {tuple(int(o) for o in off)}")
+    order = [pivot] + [r for r in range(pivot)]
+    where = ", ".join(f"{v:.2f}" for v in xyz)
+    return NotPositiveDefiniteError(pivot, float(a[pivot, pivot]), [labels[r] for r in order],
+                                    f"sequential engine, local system of grid node {tuple(int(v) for v in index)} "
+                                    f"at ({where})")

@@ -1,0 +1,70 @@
+"""Input checks shared by the simulation engines: one clear error per problem."""
+from __future__ import annotations
+
+import numpy as np
+
+from ..errors import InputError
+from ..search import Neighbourhood
+
+KRIGING = ("simple", "ordinary")
+
+
+def check_inputs(data_coords, data_scores, model, grid, neighbourhood, kriging):
+    """Validate engine inputs; return ``(coords (n, 3), scores (n,), neighbourhood, ordinary)``."""
+    if kriging not in KRIGING:
+        raise InputError(f"unknown kriging type {kriging!r}", field="kriging",
+                         fix=f"use one of: {', '.join(KRIGING)}")
+    nb = Neighbourhood() if neighbourhood is None else neighbourhood
+    if not isinstance(nb, Neighbourhood):
+        raise InputError(f"expected a geosim.search.Neighbourhood, got {type(nb).__name__}",
+                         field="neighbourhood", fix="build one with geosim.search.Neighbourhood(...)")
+    coords = np.asarray(data_coords, dtype=np.float64)
+    if coords.size == 0:
+        coords = coords.reshape(0, grid.ndim)
+    scores = np.asarray(data_scores, dtype=np.float64).ravel()
+    if coords.ndim != 2 or coords.shape[1] != grid.ndim:
+        raise InputError(f"data coordinates have shape {coords.shape}, the grid is {grid.ndim}-D",
+                         field="data_coords", fix=f"pass an (n, {grid.ndim}) array of x, y"
+                         + (", z" if grid.ndim == 3 else "") + " in the grid's CRS")
+    if coords.shape[0] != scores.shape[0]:
+        raise InputError(f"{coords.shape[0]} data locations but {scores.shape[0]} scores",
+                         field="data_scores", fix="pass one normal score per data location")
+    bad = np.flatnonzero(~np.isfinite(coords).all(axis=1) | ~np.isfinite(scores))
+    if bad.size:
+        raise InputError("data location or score is missing or not finite", row=int(bad[0]) + 1,
+                         field="data_scores" if np.isfinite(coords[bad[0]]).all() else "data_coords",
+                         fix="drop or correct that sample before simulating")
+    if grid.n_active == 0:
+        raise InputError("the grid has no active node", field="grid.mask",
+                         fix="check that the domain polygon or raster overlaps the grid")
+    coords3 = np.zeros((coords.shape[0], 3))
+    coords3[:, :coords.shape[1]] = coords
+    return coords3, scores, nb, kriging == "ordinary"
+
+
+def data_labels(sample_ids, n: int) -> tuple:
+    """Labels of the data rows for error messages (row numbers from 1 by default)."""
+    if sample_ids is None:
+        return tuple(str(i + 1) for i in range(n))
+    labels = tuple(str(s) for s in sample_ids)
+    if len(labels) != n:
+        raise InputError(f"{len(labels)} sample ids for {n} data", field="sample_ids",
+                         fix="pass one id per data row")
+    return labels
+
+
+def coincident_nodes(coords3: np.ndarray, node_xyz: np.ndarray, cell: float, rel_tol: float = 1e-4):
+    """Active nodes lying on a datum (closer than ``rel_tol * cell``): ``(node positions, data ids)``.
+
+    Such a node and its datum would be two identical rows of a covariance matrix, so the
+    engines give the node the datum's score instead of simulating it.  If several data
+    share a node the first one is taken (duplicate data fail later, with their ids).
+    """
+    if coords3.shape[0] == 0:
+        empty = np.zeros(0, dtype=np.int64)
+        return empty, empty
+    from scipy.spatial import cKDTree
+    dist, idx = cKDTree(node_xyz).query(coords3, k=1, distance_upper_bound=rel_tol * cell)
+    hit = np.flatnonzero(np.isfinite(dist))
+    nodes, first = np.unique(idx[hit], return_index=True)
+    return nodes.astype(np.int64), hit[first].astype(np.int64)
