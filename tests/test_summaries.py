@@ -1,0 +1,169 @@
+"""Ensemble statistics and decision figures against numpy, scipy and hand calculations."""
+import csv
+
+import numpy as np
+import pytest
+from pyproj import CRS
+from scipy.stats.mstats import mquantiles
+
+import geosim
+from geosim.cautions import CAUTION
+from geosim.errors import InputError
+from geosim.io.geotiff import write_raster
+from geosim.summaries import (decision_rows, decision_spread, fraction_above, fraction_below, grade_tonnage,
+                              summarize_ensemble, summarize_realizations, summary_band_names,
+                              write_decision_csv)
+
+
+def _ensemble(n=9, shape=(37, 53), seed=3):
+    rng = np.random.default_rng(seed)
+    stack = rng.lognormal(0.0, 1.0, size=(n, *shape))
+    mask = np.ones(shape, bool)
+    mask[:5, :7] = False
+    mask[-3:, 20:] = False
+    stack[:, ~mask] = np.nan
+    return stack, mask
+
+
+def test_quantile_definition_is_hyndman_fan_type_7():
+    # Hyndman and Fan (1996), "Sample quantiles in statistical packages", definition 7:
+    # Q(p) = x[k] + (h - k)(x[k+1] - x[k]) with h = (n - 1) p (0-based). For 1..10 and p = 0.1:
+    # h = 0.9, Q = 1 + 0.9 * (2 - 1) = 1.9; p = 0.9: h = 8.1, Q = 9.1; p = 0.5: 5.5 (hand calculation).
+    stack = np.arange(1.0, 11.0)[::-1].reshape(10, 1, 1)
+    s = summarize_ensemble(stack)
+    assert s["P10"][0, 0] == pytest.approx(1.9)
+    assert s["P50"][0, 0] == pytest.approx(5.5)
+    assert s["P90"][0, 0] == pytest.approx(9.1)
+    # scipy's mquantiles with alphap = betap = 1 is the same definition 7 (scipy docs, "R type 7")
+    rng = np.random.default_rng(0)
+    v = rng.normal(size=23)
+    s = summarize_ensemble(v.reshape(23, 1, 1))
+    ref = mquantiles(v, prob=[0.1, 0.5, 0.9], alphap=1, betap=1)
+    np.testing.assert_allclose([s["P10"][0, 0], s["P50"][0, 0], s["P90"][0, 0]], ref, rtol=1e-12)
+
+
+def test_summary_bands_match_numpy_and_keep_the_mask():
+    stack, mask = _ensemble()
+    cut = [0.5, 1.0, 3.0]
+    s = summarize_ensemble(stack, cut)
+    assert list(s) == summary_band_names(cut)
+    v = stack[:, mask]
+    np.testing.assert_allclose(s["mean"][mask], v.mean(0), rtol=1e-12)
+    np.testing.assert_allclose(s["std"][mask], v.std(0, ddof=0), rtol=1e-12)
+    for p in (10, 50, 90):
+        np.testing.assert_allclose(s[f"P{p}"][mask], np.percentile(v, p, axis=0), rtol=1e-12)
+    for c in cut:
+        np.testing.assert_allclose(s[f"P(>{c:g})"][mask], (v > c).sum(0) / v.shape[0])
+    for band in s.values():
+        assert np.isnan(band[~mask]).all()
+
+
+def test_mask_must_be_shared_by_all_realizations():
+    stack, _ = _ensemble(n=3)
+    stack[1, 10, 10] = np.nan
+    with pytest.raises(ValueError, match="domain mask"):
+        summarize_ensemble(stack)
+
+
+@pytest.mark.parametrize("window", [None, 50, 97])
+def test_streaming_summary_equals_numpy_on_the_same_ensemble(tmp_path, window):
+    # windows smaller than, not dividing, and the same as the tile size must all give the same result
+    stack, mask = _ensemble(n=7, shape=(150, 210))
+    grid = geosim.Grid(400000.0, 7100000.0, (25.0, 25.0), mask.shape, crs=CRS.from_epsg(32735), mask=mask)
+    paths = []
+    for i, f in enumerate(stack):
+        paths += write_raster(tmp_path / f"r{i}.tif", f, grid, descriptions=[f"r{i}"])
+    out = summarize_realizations(paths, grid, [1.0, 2.0], tmp_path / "summary.tif", units="g/t",
+                                 tags={"seed": "5"}, window=window)
+    import rasterio
+    with rasterio.open(out) as src:
+        got = src.read().astype(float)
+        assert src.descriptions[0] == "mean of realizations (g/t)"
+        assert src.descriptions[5].startswith("probability above 1 g/t")
+        assert src.units[:5] == ("g/t",) * 5 and src.units[5] == "fraction"
+        assert src.tags()["seed"] == "5"
+    ref = np.stack(list(summarize_ensemble(stack.astype(np.float32), [1.0, 2.0]).values()))
+    np.testing.assert_allclose(got[:, mask], ref[:, mask], rtol=2e-7)  # float32 storage of float64 statistics
+    assert np.isnan(got[:, ~mask]).all()
+
+
+def test_streaming_summary_reports_progress_and_refuses_wrong_sizes(tmp_path):
+    stack, mask = _ensemble(n=2, shape=(40, 30))
+    grid = geosim.Grid(0.0, 0.0, (5.0, 5.0), mask.shape, mask=mask)
+    paths = [write_raster(tmp_path / f"r{i}.tif", f, grid, descriptions=["r"])[0] for i, f in enumerate(stack)]
+    calls = []
+    summarize_realizations(paths, grid, [], tmp_path / "s.tif", window=16,
+                           progress=lambda d, t, w: calls.append((d, t, w)))
+    assert calls[-1] == (6, 6, "summary") and len(calls) == 6  # ceil(40/16) * ceil(30/16) windows
+    other = geosim.Grid(0.0, 0.0, (5.0, 5.0), (30, 40))
+    with pytest.raises(InputError, match="r0.tif"):
+        summarize_realizations(paths, other, [], tmp_path / "s2.tif")
+    assert not (tmp_path / "s2.tif").exists()
+
+
+def test_grade_tonnage_by_hand_2d_and_3d():
+    g2 = geosim.Grid(0.0, 0.0, (10.0, 20.0), (2, 2), mask=np.array([[True, True], [True, False]]))
+    f = np.array([[0.2, 1.5], [3.0, 99.0]])  # 99 sits outside the domain and must not count
+    gt = grade_tonnage(f, g2, [0.0, 1.0, 2.0, 5.0], density=2.5, thickness=4.0)
+    t_cell = 10 * 20 * 4 * 2.5  # 2000 t per cell
+    np.testing.assert_allclose(gt["tonnage"], [3 * t_cell, 2 * t_cell, t_cell, 0.0])
+    np.testing.assert_allclose(gt["mean_grade"][:3], [(0.2 + 1.5 + 3.0) / 3, 2.25, 3.0])
+    assert np.isnan(gt["mean_grade"][3])
+    np.testing.assert_allclose(gt["metal"], gt["tonnage"] * np.nan_to_num(gt["mean_grade"]))
+    # cut-off is inclusive: a grade equal to the cut-off counts
+    assert grade_tonnage(f, g2, [1.5], density=1.0, thickness=1.0)["tonnage"][0] == 2 * 200.0
+
+    g3 = geosim.Grid(0.0, 0.0, (5.0, 5.0, 2.0), (2, 1, 2))
+    f3 = np.array([[[1.0, 2.0]], [[3.0, 4.0]]])
+    density = np.array([[[2.0, 2.0]], [[3.0, 3.0]]])
+    gt3 = grade_tonnage(f3, g3, [2.5], density=density)
+    assert gt3["tonnage"][0] == pytest.approx(2 * 50.0 * 3.0)
+    assert gt3["mean_grade"][0] == pytest.approx(3.5)
+
+
+def test_grade_tonnage_asks_for_thickness_in_2d_only():
+    g2 = geosim.Grid(0.0, 0.0, (10.0, 10.0), (2, 2))
+    with pytest.raises(InputError, match="thickness"):
+        grade_tonnage(np.ones((2, 2)), g2, [0.5], density=2.7)
+    g3 = geosim.Grid(0.0, 0.0, (10.0, 10.0, 5.0), (2, 2, 2))
+    with pytest.raises(InputError, match="thickness"):
+        grade_tonnage(np.ones((2, 2, 2)), g3, [0.5], density=2.7, thickness=3.0)
+
+
+def test_fractions_above_and_below():
+    g = geosim.Grid(0.0, 0.0, (10.0, 10.0), (2, 3), mask=np.array([[1, 1, 1], [1, 1, 0]], bool))
+    k = np.array([[1e-7, 1e-5, 1e-4], [1e-6, 1e-6, 1.0]])
+    above = fraction_above(k, g, [1e-6, 1e-3])
+    below = fraction_below(k, g, [1e-6, 1e-3])
+    np.testing.assert_allclose(above["fraction_above"], [2 / 5, 0.0])
+    np.testing.assert_allclose(below["fraction_below"], [1 / 5, 1.0])
+    np.testing.assert_allclose(above["area"], [200.0, 0.0])
+
+
+def test_decision_spread_matches_numpy_and_skips_nan():
+    rng = np.random.default_rng(11)
+    figs = []
+    for _ in range(31):
+        t = rng.uniform(1e5, 2e5, size=2)
+        figs.append({"cutoff": np.array([0.5, 9.0]), "tonnage": t,
+                     "mean_grade": np.array([rng.uniform(1, 2), np.nan if rng.random() < 0.5 else 9.5])})
+    spread = decision_spread(figs)
+    row = next(r for r in spread if r["cutoff"] == 0.5 and r["figure"] == "tonnage")
+    t = np.array([f["tonnage"][0] for f in figs])
+    assert row["n"] == 31
+    np.testing.assert_allclose([row["P10"], row["P50"], row["P90"]], np.percentile(t, [10, 50, 90]))
+    row = next(r for r in spread if r["cutoff"] == 9.0 and r["figure"] == "mean_grade")
+    assert row["n"] == sum(not np.isnan(f["mean_grade"][1]) for f in figs)
+    rows = decision_rows(figs, indices=range(100, 131))
+    assert len(rows) == 62 and rows[0]["realization"] == 100 and rows[-1]["cutoff"] == 9.0
+
+
+def test_decision_csv_carries_the_caution_and_reads_back(tmp_path):
+    figs = [{"cutoff": np.array([1.0]), "tonnage": np.array([10.0 * i])} for i in range(5)]
+    p = write_decision_csv(tmp_path / "spread.csv", decision_spread(figs))
+    lines = p.read_text().splitlines()
+    assert lines[0] == "# " + CAUTION
+    rows = list(csv.DictReader(lines[1:]))
+    assert float(rows[0]["P50"]) == pytest.approx(20.0)
+    with pytest.raises(InputError, match="overwrite"):
+        write_decision_csv(p, decision_spread(figs))
