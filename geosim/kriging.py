@@ -1,0 +1,643 @@
+"""Simple and ordinary kriging, leave-one-out cross-validation and estimation maps.
+
+Every local system is the covariance matrix ``K`` of the selected samples,
+factored ``K = L L^T`` by the compiled :func:`geosim.linalg.chol_inplace`.  One
+factor serves the weights and the variance:
+
+* simple kriging (known mean ``m``): ``y = L^-1 c``, variance ``C(0) - y.y``,
+  weights ``L^-T y``, estimate ``m + w.(z - m)``;
+* ordinary kriging (unknown constant mean): with ``y1 = L^-1 1`` the Lagrange
+  constraint gives ``mu = (y1.y - 1) / (y1.y1)``, weights ``L^-T (y - mu y1)``
+  (they sum to one) and variance ``C(0) - y.y + (y1.y - 1)^2 / (y1.y1)``, i.e. the
+  simple-kriging variance plus the price of not knowing the mean.
+
+Selection (:func:`geosim.search.select_neighbours`), build, factor and solve run
+per node in one compiled loop.  With ``neighbourhood="global"`` every sample
+enters every system: the data covariance is factored once by LAPACK and all
+targets are solved together (level-3 BLAS).
+
+A pivot below ``PIVOT_RTOL * C(0)`` means the local covariance is numerically
+singular (coincident samples, or a model without nugget at tiny spacing); the
+error names the samples.  ``regularization=eps`` retries such a system with
+``eps * C(0)`` added to its diagonal and counts the nodes where that happened.
+"""
+from __future__ import annotations
+
+import math
+import warnings
+from collections.abc import Callable, Sequence
+from dataclasses import dataclass, field
+
+import numpy as np
+from numba import njit
+
+from .errors import GeosimWarning, InputError, NotPositiveDefiniteError
+from .linalg import backward_t_inplace, chol_inplace, forward_inplace
+from .search import DataSearch, Neighbourhood, as_xyz, exclusion_arrays, select_neighbours
+from .variogram.compiled import cov_lag
+
+# a conditional variance (Cholesky pivot) below this fraction of the sill is
+# treated as singular: rounding noise, not information (common practice, no source)
+PIVOT_RTOL = 1e-10
+
+Progress = Callable[[int, int, str], None]
+
+__all__ = ["KrigingResult", "CrossValidationResult", "krige", "krige_grid", "cross_validate",
+           "PIVOT_RTOL"]
+
+
+@dataclass(frozen=True)
+class KrigingResult:
+    """Estimates at a set of targets.
+
+    Attributes
+    ----------
+    estimate, variance : (m,) ndarray
+        Kriged value and kriging variance; NaN where fewer than
+        ``min_samples`` samples were found.
+    n_used : (m,) int64 ndarray
+        Samples in each local system.
+    method : str
+        ``"simple"`` or ``"ordinary"``.
+    mean : float
+        The known mean (simple kriging); NaN for ordinary kriging.
+    n_regularized : int
+        Targets whose system was singular and got ``regularization`` on its
+        diagonal (0 when no regularization was needed).
+    weights, neighbours : (m, k) ndarray or None
+        With ``return_weights=True``: the kriging weights and the sample index
+        of each weight (padded with 0 and -1).
+    """
+
+    estimate: np.ndarray
+    variance: np.ndarray
+    n_used: np.ndarray
+    method: str
+    mean: float
+    n_regularized: int = 0
+    weights: np.ndarray | None = field(default=None, repr=False)
+    neighbours: np.ndarray | None = field(default=None, repr=False)
+
+    @property
+    def std(self) -> np.ndarray:
+        """Kriging standard deviation."""
+        return np.sqrt(self.variance)
+
+
+def _as_model(model):
+    """Accept a single structure where a model is expected."""
+    from .variogram import Model, Structure
+
+    if isinstance(model, Structure):
+        return Model([model])
+    if not isinstance(model, Model):
+        raise TypeError(f"expected a geosim Model or Structure, got {type(model).__name__}")
+    return model
+
+
+def _check_method(method: str) -> bool:
+    if method not in ("simple", "ordinary"):
+        raise ValueError(f"method must be 'simple' or 'ordinary', got {method!r}")
+    return method == "ordinary"
+
+
+def _check_data(coords, values, what: str = "data") -> tuple[np.ndarray, np.ndarray]:
+    xyz = as_xyz(coords, f"{what} coordinates")
+    z = np.ascontiguousarray(values, dtype=np.float64).reshape(-1)
+    if z.shape[0] != xyz.shape[0]:
+        raise InputError(f"{xyz.shape[0]} coordinates but {z.shape[0]} values", field="values",
+                         fix="give one value per sample")
+    for arr, name in ((xyz, "coordinates"), (z, "values")):
+        bad = ~np.isfinite(arr if arr.ndim == 1 else arr.sum(axis=1))
+        if bad.any():
+            row = int(np.argmax(bad))
+            raise InputError(f"sample {row} has a missing or non-finite value in its {name}",
+                             row=row, field=name, fix="drop or correct the sample before kriging")
+    return xyz, z
+
+
+def _sample_labels(n: int, sample_ids, hole_ids) -> Callable[[int], str]:
+    if sample_ids is not None:
+        ids = list(sample_ids)
+        return lambda i: str(ids[i])
+    if hole_ids is not None:
+        holes = np.asarray(hole_ids)
+        return lambda i: f"sample {i} (hole {holes[i]})"
+    return lambda i: f"sample {i}"
+
+
+def krige(data_coords, data_values, targets, model, *, method: str = "simple", mean: float = 0.0,
+          neighbourhood: Neighbourhood | str = Neighbourhood(), hole_ids=None, sample_ids=None,
+          regularization: float | None = None, return_weights: bool = False,
+          progress: Progress | None = None) -> KrigingResult:
+    """Simple or ordinary kriging at arbitrary points.
+
+    Parameters
+    ----------
+    data_coords : (n, d) array_like
+        Sample coordinates, d in {2, 3}, metres of a projected CRS.
+    data_values : (n,) array_like
+        Sample values (for simulation, normal scores).
+    targets : (m, d) array_like
+        Points to estimate.
+    model : geosim.variogram.Model
+        Covariance model.
+    method : {"simple", "ordinary"}
+        Simple kriging uses the known ``mean``; ordinary kriging filters an
+        unknown constant mean (weights sum to one).
+    mean : float
+        Known mean for simple kriging.
+    neighbourhood : Neighbourhood or "global"
+        Local search; ``"global"`` puts every sample in one system factored once.
+    hole_ids : (n,) array_like, optional
+        Drillhole of each sample (per-hole limit; named in errors).
+    sample_ids : (n,) sequence, optional
+        Labels for error messages (default: row numbers, with the hole).
+    regularization : float, optional
+        If a system cannot be factored, retry it with ``regularization * C(0)``
+        added to its diagonal; the count is in ``n_regularized`` and a
+        :class:`~geosim.errors.GeosimWarning` is issued.
+    return_weights : bool
+        Keep the weights and their sample indices (memory ``m * max_samples``).
+    progress : callable, optional
+        ``progress(done, total, "kriging nodes")`` after each block.
+
+    Returns
+    -------
+    KrigingResult
+
+    Raises
+    ------
+    NotPositiveDefiniteError
+        A local covariance matrix is singular and no (or too small a)
+        regularization was given; the message names the samples.
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> import geosim
+    >>> from geosim.kriging import krige
+    >>> model = geosim.Spherical(1.0, geosim.Anisotropy((100.0, 100.0)))
+    >>> pts = np.array([[0.0, 0.0], [50.0, 0.0], [0.0, 50.0]])
+    >>> r = krige(pts, [1.0, 2.0, 3.0], [[50.0, 0.0], [500.0, 500.0]], model, method="ordinary")
+    >>> np.round(r.estimate, 6).tolist(), np.round(r.variance[0], 6)
+    ([2.0, nan], 0.0)
+    """
+    ordinary = _check_method(method)
+    model = _as_model(model)
+    xyz, z = _check_data(data_coords, data_values)
+    txyz = as_xyz(targets, "targets")
+    if np.asarray(data_coords).shape[-1] != np.asarray(targets).reshape(-1, np.asarray(
+            targets).shape[-1]).shape[-1]:
+        raise ValueError("data and targets must have the same number of coordinates (2-D or 3-D)")
+    labels = _sample_labels(xyz.shape[0], sample_ids, hole_ids)
+    if isinstance(neighbourhood, str):
+        if neighbourhood != "global":
+            raise ValueError(f"neighbourhood must be a Neighbourhood or 'global', got {neighbourhood!r}")
+        res = _krige_global(xyz, z, txyz, model, ordinary, float(mean), regularization, labels,
+                            return_weights, progress)
+    else:
+        search = DataSearch(xyz[:, :np.asarray(data_coords).shape[-1]], neighbourhood, model, hole_ids)
+        res = _krige_local(search, z, txyz, model, ordinary, float(mean), regularization, labels,
+                           return_weights, progress, None, None)
+    if res.n_regularized:
+        warnings.warn(f"kriging: {res.n_regularized} local system(s) were singular and were "
+                      f"regularized with {regularization:g} x sill on the diagonal", GeosimWarning,
+                      stacklevel=2)
+    return res
+
+
+def _krige_local(search: DataSearch, z, txyz, model, ordinary, mean, regularization, labels,
+                 return_weights, progress, excl_index, excl_hole) -> KrigingResult:
+    nb = search.neighbourhood
+    m = txyz.shape[0]
+    tframe = search.to_frame(txyz)
+    excl_i, excl_h = exclusion_arrays(m, excl_index, excl_hole)
+    cm = model.compiled()
+    c0 = float(model.sill)
+    est = np.full(m, np.nan)
+    var = np.full(m, np.nan)
+    n_used = np.zeros(m, dtype=np.int64)
+    n_reg = np.zeros(m, dtype=np.int64)
+    k = nb.max_samples
+    wts = np.zeros((m if return_weights else 0, k))
+    nbr = np.full((m if return_weights else 0, k), -1, dtype=np.int64)
+    fail_info = np.zeros(2)
+    fail_nbr = np.full(k, -1, dtype=np.int64)
+    reg = 0.0 if regularization is None else float(regularization)
+    if reg < 0:
+        raise ValueError(f"regularization must be >= 0, got {regularization}")
+    tol = PIVOT_RTOL * c0
+
+    def step(rows, cand):
+        more = np.zeros(rows.shape[0], dtype=np.bool_)
+        failed = _krige_rows(rows, cand, search.xyz, search.frame, z, search.holes, txyz, tframe, excl_i,
+                             excl_h, cm, ordinary, mean, c0, k, nb.min_samples, nb.sectors,
+                             nb.sector_limit, nb.hole_limit, tol, reg, est, var, n_used, n_reg, more,
+                             wts, nbr, fail_info, fail_nbr)
+        if failed >= 0:
+            _raise_singular(int(rows[failed]), txyz, search.xyz, fail_nbr, int(fail_info[0]),
+                            fail_info[1], labels, model, reg)
+        return more
+
+    search.run(tframe, step, exclusions=excl_index is not None or excl_hole is not None,
+               progress=progress, what="kriging nodes")
+    return KrigingResult(est, var, n_used, "ordinary" if ordinary else "simple",
+                         math.nan if ordinary else mean, int(n_reg.sum()),
+                         wts if return_weights else None, nbr if return_weights else None)
+
+
+def _raise_singular(target, txyz, xyz, sel, pivot, value, labels, model, reg, context=None):
+    sel = [int(s) for s in sel if s >= 0]
+    bad = sel[pivot]
+    # the samples closest to the failing one are the likely duplicates
+    others = sorted(sel[:pivot], key=lambda s: float(np.linalg.norm(xyz[s] - xyz[bad])))
+    close = others[:1]
+    ids = [labels(bad)] + [labels(s) for s in close]
+    if context is None:
+        where = ", ".join(f"{v:.3f}" for v in txyz[target])
+        context = f"kriging at target {target} ({where})"
+    detail = ""
+    if close:
+        gap = float(np.linalg.norm(xyz[close[0]] - xyz[bad]))
+        detail = f"; {labels(bad)} is {gap:.3g} m from {labels(close[0])}"
+        if model.nugget == 0.0:
+            detail += " and the model has no nugget"
+    if reg > 0:
+        detail += f"; regularization {reg:g} x sill was not enough"
+    raise NotPositiveDefiniteError(pivot, value, ids, context + detail)
+
+
+@njit(cache=True, nogil=True)
+def _krige_rows(rows, cand, xyz, frame, z, holes, txyz, tframe, excl_index, excl_hole, cm, ordinary,
+                mean, c0, max_samples, min_samples, sectors, sector_limit, hole_limit, tol, reg, est, var,
+                n_used, n_reg, more, wts, nbr, fail_info, fail_nbr):
+    """Select, build, factor and solve for each target in ``rows``; -1 or the failing row position."""
+    k = max_samples
+    a = np.empty((k, k))
+    work = np.empty(k)
+    c = np.empty(k)
+    y1 = np.empty(k)
+    sel = np.empty(k, dtype=np.int64)
+    sector_count = np.zeros(8, dtype=np.int64)
+    hole_buf = np.zeros(k, dtype=np.int64)
+    hole_count = np.zeros(k, dtype=np.int64)
+    keep = wts.shape[0] > 0
+    for i in range(rows.shape[0]):
+        r = rows[i]
+        count, need = select_neighbours(cand[i], frame, holes, tframe[r, 0], tframe[r, 1],
+                                        tframe[r, 2], excl_index[r], excl_hole[r], k, sectors,
+                                        sector_limit, hole_limit, sel, sector_count, hole_buf, hole_count)
+        more[i] = need
+        if need:
+            continue
+        n_used[r] = count
+        if count < min_samples or count == 0:
+            if count == 0 and min_samples == 0 and not ordinary:
+                est[r] = mean
+                var[r] = c0
+            else:
+                est[r] = np.nan
+                var[r] = np.nan
+            continue
+        tx = txyz[r, 0]
+        ty = txyz[r, 1]
+        tz = txyz[r, 2]
+        for attempt in range(2):
+            for p in range(count):
+                ip = sel[p]
+                c[p] = cov_lag(cm, tx - xyz[ip, 0], ty - xyz[ip, 1], tz - xyz[ip, 2])
+                for q in range(p):
+                    iq = sel[q]
+                    a[p, q] = cov_lag(cm, xyz[ip, 0] - xyz[iq, 0], xyz[ip, 1] - xyz[iq, 1],
+                                      xyz[ip, 2] - xyz[iq, 2])
+                a[p, p] = c0 * (1.0 + reg) if attempt == 1 else c0
+            piv = chol_inplace(a, count, work, tol)
+            if piv < 0:
+                if attempt == 1:
+                    n_reg[r] = 1
+                break
+            if attempt == 1 or reg <= 0.0:
+                fail_info[0] = piv
+                fail_info[1] = a[piv, piv]
+                for p in range(count):
+                    fail_nbr[p] = sel[p]
+                for p in range(count, k):
+                    fail_nbr[p] = -1
+                return i
+        forward_inplace(a, count, c)
+        ycyc = 0.0
+        for p in range(count):
+            ycyc += c[p] * c[p]
+        if ordinary:
+            for p in range(count):
+                y1[p] = 1.0
+            forward_inplace(a, count, y1)
+            s11 = 0.0
+            s1c = 0.0
+            for p in range(count):
+                s11 += y1[p] * y1[p]
+                s1c += y1[p] * c[p]
+            mu = (s1c - 1.0) / s11
+            v = c0 - ycyc + (s1c - 1.0) * (s1c - 1.0) / s11
+            for p in range(count):
+                c[p] -= mu * y1[p]
+        else:
+            v = c0 - ycyc
+        backward_t_inplace(a, count, c)
+        e = 0.0
+        if ordinary:
+            for p in range(count):
+                e += c[p] * z[sel[p]]
+        else:
+            for p in range(count):
+                e += c[p] * (z[sel[p]] - mean)
+            e += mean
+        est[r] = e
+        var[r] = v if v > 0.0 else 0.0
+        if keep:
+            for p in range(count):
+                wts[r, p] = c[p]
+                nbr[r, p] = sel[p]
+            for p in range(count, k):
+                wts[r, p] = 0.0
+                nbr[r, p] = -1
+    return -1
+
+
+def _factor_global(xyz, model, regularization, labels):
+    """Lower factor of the full data covariance (LAPACK for large n); True if regularized."""
+    from .linalg import cholesky
+
+    c0 = float(model.sill)
+    cov = model.cov_matrix(xyz)
+    tol = PIVOT_RTOL * c0
+    for attempt in range(2):
+        try:
+            return cholesky(cov, tol=tol), attempt == 1
+        except NotPositiveDefiniteError as err:
+            if attempt == 1 or not regularization:
+                _raise_singular(0, None, xyz, np.arange(xyz.shape[0]), err.pivot, err.value, labels,
+                                model, regularization or 0.0, context="kriging with every sample "
+                                "(global neighbourhood)")
+            cov[np.diag_indices_from(cov)] += float(regularization) * c0
+    raise AssertionError("unreachable")
+
+
+def _krige_global(xyz, z, txyz, model, ordinary, mean, regularization, labels, return_weights,
+                  progress) -> KrigingResult:
+    from scipy.linalg import solve_triangular
+
+    n, m = xyz.shape[0], txyz.shape[0]
+    c0 = float(model.sill)
+    if n == 0:
+        raise InputError("no samples to krige from", field="values", fix="give at least one sample")
+    factor, regularized = _factor_global(xyz, model, regularization, labels)
+    yz = solve_triangular(factor, z if ordinary else z - mean, lower=True)
+    y1 = solve_triangular(factor, np.ones(n), lower=True)
+    s11 = float(y1 @ y1)
+    est, var = np.empty(m), np.empty(m)
+    wts = np.empty((m, n)) if return_weights else None
+    block = max(1, (1 << 21) // n)
+    for start in range(0, m, block):
+        stop = min(m, start + block)
+        yc = solve_triangular(factor, model.cov_matrix(xyz, txyz[start:stop]), lower=True)
+        v = c0 - np.einsum("ij,ij->j", yc, yc)
+        if ordinary:
+            s1c = y1 @ yc
+            mu = (s1c - 1.0) / s11
+            est[start:stop] = yc.T @ yz - mu * float(y1 @ yz)
+            v += (s1c - 1.0) ** 2 / s11
+            yc -= y1[:, None] * mu[None, :]
+        else:
+            est[start:stop] = mean + yc.T @ yz
+        var[start:stop] = np.maximum(v, 0.0)
+        if return_weights:
+            wts[start:stop] = solve_triangular(factor, yc, lower=True, trans="T").T
+        if progress is not None:
+            progress(stop, m, "kriging nodes")
+    nbr = np.broadcast_to(np.arange(n, dtype=np.int64), (m, n)).copy() if return_weights else None
+    return KrigingResult(est, var, np.full(m, n, dtype=np.int64), "ordinary" if ordinary else "simple",
+                         math.nan if ordinary else mean, m if regularized else 0, wts, nbr)
+
+
+def krige_grid(data_coords, data_values, grid, model, *, domain=None, method: str = "simple",
+               mean: float = 0.0, neighbourhood: Neighbourhood | str = Neighbourhood(), hole_ids=None,
+               sample_ids=None, regularization: float | None = None,
+               progress: Progress | None = None) -> tuple[np.ndarray, np.ndarray]:
+    """Kriging estimate and variance at the active nodes of a grid.
+
+    Parameters
+    ----------
+    data_coords, data_values, model, method, mean, neighbourhood, hole_ids, sample_ids, \
+regularization, progress
+        As for :func:`krige`.
+    grid : geosim.grid.Grid
+        Nodes to estimate; nodes outside ``grid.mask`` are left NaN.
+    domain : shapely (multi)polygon, optional
+        Further clips the grid (node centres inside the polygon are kept).
+
+    Returns
+    -------
+    estimate, variance : ndarray of ``grid.shape``
+        NaN outside the domain and where too few samples were found, ready for
+        the raster writer (float, NaN as nodata).
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> import geosim
+    >>> from geosim.kriging import krige_grid
+    >>> g = geosim.Grid(0.0, 0.0, (10.0, 10.0), (4, 5))
+    >>> model = geosim.Exponential(1.0, geosim.Anisotropy((60.0, 60.0)))
+    >>> est, var = krige_grid([[25.0, 15.0]], [2.0], g, model, mean=1.0)
+    >>> est.shape, bool(np.all(var <= 1.0))
+    ((4, 5), True)
+    """
+    if domain is not None:
+        grid = grid.clip_to_polygon(domain)
+    coords = grid.coords()
+    if np.asarray(data_coords).shape[-1] != grid.ndim:
+        raise ValueError(f"data are {np.asarray(data_coords).shape[-1]}-D but the grid is {grid.ndim}-D")
+    res = krige(data_coords, data_values, coords, model, method=method, mean=mean,
+                neighbourhood=neighbourhood, hole_ids=hole_ids, sample_ids=sample_ids,
+                regularization=regularization, progress=progress)
+    est = np.full(grid.shape, np.nan)
+    var = np.full(grid.shape, np.nan)
+    est[grid.mask] = res.estimate
+    var[grid.mask] = res.variance
+    return est, var
+
+
+@dataclass(frozen=True)
+class CrossValidationResult:
+    """Leave-one-out cross-validation of a model and a neighbourhood.
+
+    ``error = estimate - value`` (positive: the kriging over-estimates), and
+    ``standardized_error = error / kriging std``.  For a model and neighbourhood
+    that suit the data, the mean error is near 0 and the mean standardized
+    squared error near 1 (it exceeds 1 when the kriging variance is too small).
+
+    Attributes
+    ----------
+    coords : (n, d) ndarray
+    values, estimate, variance : (n,) ndarray
+        NaN estimate/variance where too few other samples were found.
+    n_used : (n,) int64 ndarray
+    sample_ids : list of str
+    method : str
+    leave_out : str
+        ``"sample"`` or ``"hole"`` (every sample of the same hole left out).
+    """
+
+    coords: np.ndarray
+    values: np.ndarray
+    estimate: np.ndarray
+    variance: np.ndarray
+    n_used: np.ndarray
+    sample_ids: list
+    method: str
+    leave_out: str = "sample"
+    model_text: str = ""
+
+    @property
+    def error(self) -> np.ndarray:
+        return self.estimate - self.values
+
+    @property
+    def standardized_error(self) -> np.ndarray:
+        with np.errstate(divide="ignore", invalid="ignore"):
+            return np.where(self.variance > 0, self.error / np.sqrt(self.variance), np.nan)
+
+    @property
+    def mean_error(self) -> float:
+        return _nanmean(self.error)
+
+    @property
+    def rmse(self) -> float:
+        return math.sqrt(_nanmean(self.error ** 2))
+
+    @property
+    def mean_standardized_squared_error(self) -> float:
+        return _nanmean(self.standardized_error ** 2)
+
+    def summary(self) -> dict:
+        """Summary statistics over the samples that got an estimate."""
+        ok = np.isfinite(self.estimate)
+        corr = (float(np.corrcoef(self.values[ok], self.estimate[ok])[0, 1])
+                if ok.sum() > 2 and np.std(self.estimate[ok]) > 0 else math.nan)
+        return {
+            "samples": int(self.values.shape[0]),
+            "estimated": int(ok.sum()),
+            "mean_error": self.mean_error,
+            "rmse": self.rmse,
+            "mean_standardized_error": _nanmean(self.standardized_error),
+            "mean_standardized_squared_error": self.mean_standardized_squared_error,
+            "correlation": corr,
+        }
+
+
+def _nanmean(a: np.ndarray) -> float:
+    a = a[np.isfinite(a)]
+    return float(a.mean()) if a.size else math.nan
+
+
+def cross_validate(data_coords, data_values, model, *, method: str = "ordinary", mean: float = 0.0,
+                   neighbourhood: Neighbourhood | str = Neighbourhood(), hole_ids=None,
+                   sample_ids: Sequence | None = None, leave_out: str = "sample",
+                   regularization: float | None = None,
+                   progress: Progress | None = None) -> CrossValidationResult:
+    """Leave-one-out cross-validation: krige each sample from the others.
+
+    Parameters
+    ----------
+    data_coords, data_values, model, method, mean, neighbourhood, hole_ids, regularization, progress
+        As for :func:`krige`.
+    sample_ids : sequence, optional
+        Labels for the table (default: ``hole#row`` or the row number).
+    leave_out : {"sample", "hole"}
+        Leave out the sample alone, or every sample of its drillhole (needs
+        ``hole_ids``; more honest for composites along a hole).
+
+    Returns
+    -------
+    CrossValidationResult
+
+    Notes
+    -----
+    With ``neighbourhood="global"`` no system is refactored: with ``B`` the
+    inverse of the (ordinary: bordered) data covariance matrix and ``r = B z``,
+    the left-out errors are ``-(B_GG)^-1 r_G`` and their covariance
+    ``(B_GG)^-1`` for each left-out group ``G`` (Dubrule, 1983, Cross validation
+    of kriging in a unique neighborhood, Mathematical Geology 15(6), 687-699).
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> import geosim
+    >>> from geosim.kriging import cross_validate
+    >>> rng = np.random.default_rng(0)
+    >>> xy = rng.uniform(0, 100, size=(30, 2))
+    >>> model = geosim.Nugget(0.2) + geosim.Spherical(0.8, geosim.Anisotropy((60.0, 60.0)))
+    >>> cv = cross_validate(xy, rng.normal(size=30), model)
+    >>> cv.error.shape, sorted(cv.summary())[:2]
+    ((30,), ['correlation', 'estimated'])
+    """
+    ordinary = _check_method(method)
+    if leave_out not in ("sample", "hole"):
+        raise ValueError(f"leave_out must be 'sample' or 'hole', got {leave_out!r}")
+    if leave_out == "hole" and hole_ids is None:
+        raise ValueError("leave_out='hole' needs hole_ids")
+    model = _as_model(model)
+    d = np.asarray(data_coords).shape[-1]
+    xyz, z = _check_data(data_coords, data_values)
+    n = xyz.shape[0]
+    labels = _sample_labels(n, sample_ids, hole_ids)
+    if isinstance(neighbourhood, str):
+        if neighbourhood != "global":
+            raise ValueError(f"neighbourhood must be a Neighbourhood or 'global', got {neighbourhood!r}")
+        est, var = _loo_global(xyz, z, model, ordinary, float(mean), regularization, labels,
+                               hole_ids if leave_out == "hole" else None)
+        n_used = np.full(n, n - 1, dtype=np.int64)
+        if leave_out == "hole":
+            _, inverse, counts = np.unique(np.asarray(hole_ids), return_inverse=True, return_counts=True)
+            n_used = (n - counts[inverse.ravel()]).astype(np.int64)
+    else:
+        search = DataSearch(xyz[:, :d], neighbourhood, model, hole_ids)
+        res = _krige_local(search, z, xyz, model, ordinary, float(mean), regularization, labels, False,
+                           progress, np.arange(n), search.holes if leave_out == "hole" else None)
+        if res.n_regularized:
+            warnings.warn(f"cross-validation: {res.n_regularized} local system(s) were singular and "
+                          f"were regularized with {regularization:g} x sill on the diagonal",
+                          GeosimWarning, stacklevel=2)
+        est, var, n_used = res.estimate, res.variance, res.n_used
+    return CrossValidationResult(xyz[:, :d].copy(), z.copy(), est, var, n_used,
+                                 [labels(i) for i in range(n)], "ordinary" if ordinary else "simple",
+                                 leave_out, str(model))
+
+
+def _loo_global(xyz, z, model, ordinary, mean, regularization, labels, hole_ids):
+    from scipy.linalg import cho_solve
+
+    n = xyz.shape[0]
+    factor, _ = _factor_global(xyz, model, regularization, labels)
+    kinv = cho_solve((factor, True), np.eye(n))
+    if ordinary:
+        # inverse of the bordered matrix [[K, 1], [1', 0]], top-left block, by the Schur complement
+        k1 = kinv.sum(axis=1)
+        b = kinv - np.outer(k1, k1) / k1.sum()
+        resid = b @ z
+    else:
+        b = kinv
+        resid = b @ (z - mean)
+    if hole_ids is None:
+        diag = np.diag(b)
+        return z - resid / diag, 1.0 / diag
+    est, var = np.empty(n), np.empty(n)
+    holes = np.asarray(hole_ids)
+    for h in np.unique(holes):
+        g = np.nonzero(holes == h)[0]
+        cov_err = np.linalg.inv(b[np.ix_(g, g)])
+        est[g] = z[g] - cov_err @ resid[g]
+        var[g] = np.diag(cov_err)
+    return est, var
