@@ -48,6 +48,9 @@ _LAZY = {
     "LogTransform": "geosim.transforms",
     "IdentityTransform": "geosim.transforms",
     "transform_from_dict": "geosim.transforms",
+    "simulate": "geosim.simulation",
+    "SequentialEngine": "geosim.simulation",
+    "ExactEngine": "geosim.simulation",
 }
 
 __all__ = ["CAUTION", "GeosimError", "GeosimWarning", "InputError", "NotPositiveDefiniteError",

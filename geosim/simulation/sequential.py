@@ -106,7 +106,7 @@ class SequentialEngine:
                 kriging: str = "simple", multigrid: int | None = None, max_template: int = 20_000,
                 sample_ids=None, pivot_tol: float = 1e-10) -> SequentialPlan:
         """Build the search template, covariance table and data neighbour lists."""
-        coords3, scores, nb, ordinary = check_inputs(data_coords, data_scores, model, grid, neighbourhood,
+        coords3, scores, nb, ordinary, model = check_inputs(data_coords, data_scores, model, grid, neighbourhood,
                                                      kriging)
         if nb.sectors or nb.max_per_sector is not None or nb.max_per_hole is not None:
             raise InputError("the sequential engine does not apply search sectors or per-hole limits",

@@ -10,7 +10,16 @@ KRIGING = ("simple", "ordinary")
 
 
 def check_inputs(data_coords, data_scores, model, grid, neighbourhood, kriging):
-    """Validate engine inputs; return ``(coords (n, 3), scores (n,), neighbourhood, ordinary)``."""
+    """Validate engine inputs; return ``(coords (n, 3), scores (n,), neighbourhood, ordinary, model)``.
+
+    A single structure is accepted as a one-structure model.
+    """
+    from ..variogram import Model, Structure
+    if isinstance(model, Structure):
+        model = Model([model])
+    if not isinstance(model, Model):
+        raise InputError(f"expected a geosim Model, got {type(model).__name__}", field="model",
+                         fix="build one with geosim.Spherical(...) + geosim.Nugget(...) or geosim.Model([...])")
     if kriging not in KRIGING:
         raise InputError(f"unknown kriging type {kriging!r}", field="kriging",
                          fix=f"use one of: {', '.join(KRIGING)}")
@@ -39,7 +48,7 @@ def check_inputs(data_coords, data_scores, model, grid, neighbourhood, kriging):
                          fix="check that the domain polygon or raster overlaps the grid")
     coords3 = np.zeros((coords.shape[0], 3))
     coords3[:, :coords.shape[1]] = coords
-    return coords3, scores, nb, kriging == "ordinary"
+    return coords3, scores, nb, kriging == "ordinary", model
 
 
 def data_labels(sample_ids, n: int) -> tuple:
