@@ -91,3 +91,7 @@ class NotPositiveDefiniteError(GeosimError, ArithmeticError):
                 "without nugget at very small spacing, or an invalid covariance model. "
                 "Merge duplicates, add a small nugget, or enable regularization.")
         super().__init__(msg)
+
+    def __reduce__(self):
+        # rebuilt from its fields, so the error survives the trip back from a worker process
+        return type(self), (self.pivot, self.value, self.ids or None, self.context)
