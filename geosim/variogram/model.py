@@ -114,6 +114,10 @@ class Model:
         mats = np.empty((m, 3, 3))
         params = np.empty(m)
         need_table = [s.code == MATERN or s.code < 0 or s.code >= 100 for s in self.structures]
+        for s in self.structures:
+            if BUILTIN_STRUCTURES.get(s.kind) is not type(s):
+                from ..plugins import note_numpy_only
+                note_numpy_only(type(s))
         tables = np.zeros((m, _TABLE_POINTS if any(need_table) else 1))
         steps = np.ones(m)
         for j, s in enumerate(self.structures):
@@ -144,7 +148,9 @@ class Model:
 
     @classmethod
     def from_dicts(cls, items: Sequence[dict], registry: dict | None = None) -> Model:
-        registry = registry or BUILTIN_STRUCTURES
+        if registry is None:  # every installed structure, plugins included
+            from ..plugins import structures as installed_structures
+            registry = installed_structures()
         structures = []
         for i, d in enumerate(items):
             d = dict(d)
@@ -181,8 +187,13 @@ class Model:
 
 
 def _table_extent(s: Structure) -> float:
-    """Reduced distance past which the correlation is negligible (< 1e-6), capped."""
+    """Reduced distance past which the correlation stays negligible (< 1e-6), capped.
+
+    "Stays": an oscillating (hole-effect) correlation crosses zero long before it dies out.
+    """
     r = np.linspace(0.0, 50.0, 5001)
     rho = np.abs(s.correlation(r))
-    beyond = np.nonzero(rho < 1e-6)[0]
-    return float(max(r[beyond[0]], 1.0)) if beyond.size else 50.0
+    above = np.nonzero(rho >= 1e-6)[0]
+    if above.size and above[-1] == r.size - 1:
+        return 50.0
+    return float(max(r[above[-1] + 1], 1.0)) if above.size else 1.0

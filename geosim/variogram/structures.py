@@ -49,6 +49,7 @@ class Structure:
     kind = "structure"
     code = -1
     param_name = None
+    numba_correlation = None  # optional compiled scalar form rho(r, param); see geosim.plugins
 
     def __post_init__(self):
         if not np.isfinite(self.sill) or self.sill < 0:
@@ -57,8 +58,16 @@ class Structure:
             object.__setattr__(self, "anisotropy", _as_anisotropy(self.anisotropy))
 
     def correlation(self, r: np.ndarray) -> np.ndarray:
-        """Correlation at reduced distances ``r >= 0`` (vectorized)."""
-        raise NotImplementedError
+        """Correlation at reduced distances ``r >= 0`` (vectorized).
+
+        By default ``numba_correlation`` evaluated in one compiled loop; structures
+        without a compiled form override this method with numpy code.
+        """
+        function = type(self).numba_correlation
+        if function is None:
+            raise NotImplementedError(f"{self.kind}: define correlation(r) or numba_correlation(r, param)")
+        from ..plugins import evaluate_compiled
+        return evaluate_compiled(function, r, self.param)
 
     def covariance(self, h: np.ndarray) -> np.ndarray:
         """Covariance at lag vectors ``h`` of shape (..., d)."""
