@@ -1,0 +1,212 @@
+"""Simple and ordinary kriging against reference libraries, a textbook example and brute force."""
+import warnings
+
+import numpy as np
+import pytest
+
+import geosim
+from geosim.errors import GeosimWarning, NotPositiveDefiniteError
+from geosim.kriging import krige, krige_grid
+from geosim.search import Neighbourhood
+from geosim.variogram import Anisotropy
+
+WIDE = Neighbourhood(max_samples=64, ranges=(1e6, 1e6, 1e6))
+
+
+def _data(n=40, seed=0, d=2):
+    rng = np.random.default_rng(seed)
+    return rng.uniform(0, 100, size=(n, d)), rng.normal(size=n)
+
+
+def _dense_ok(model, xy, z, t):
+    """Ordinary kriging by solving the bordered system directly (numpy.linalg.solve)."""
+    n = len(z)
+    a = np.ones((n + 1, n + 1))
+    a[:n, :n] = model.cov_matrix(xy)
+    a[n, n] = 0.0
+    b = np.append(model.cov_matrix(xy, t[None, :])[:, 0], 1.0)
+    sol = np.linalg.solve(a, b)
+    w, mu = sol[:n], sol[n]
+    return w, w @ z, model.sill - w @ b[:n] - mu
+
+
+@pytest.mark.parametrize("nbh", ["global", WIDE])
+def test_simple_kriging_equals_sklearn_gaussian_process_exponential(nbh):
+    # Reference: scikit-learn GaussianProcessRegressor with a fixed kernel, optimizer off and
+    # normalize_y off, gives the zero-mean GP posterior mean and std (Rasmussen and Williams 2006,
+    # Gaussian Processes for Machine Learning, eqs. 2.23-2.24), which is simple kriging with mean 0.
+    # Matern(nu=0.5, l) = exp(-h/l); geosim's exponential uses exp(-3h/a), so l = a/3.
+    from sklearn.gaussian_process import GaussianProcessRegressor
+    from sklearn.gaussian_process.kernels import ConstantKernel, Matern
+
+    xy, z = _data()
+    a, sill = 45.0, 2.5
+    model = geosim.Model([geosim.Exponential(sill, Anisotropy((a, a)))])
+    kernel = ConstantKernel(sill, "fixed") * Matern(length_scale=a / 3.0, length_scale_bounds="fixed", nu=0.5)
+    gp = GaussianProcessRegressor(kernel, alpha=1e-300, optimizer=None, normalize_y=False).fit(xy, z)
+    targets = np.random.default_rng(9).uniform(0, 100, size=(50, 2))
+    mu_ref, sd_ref = gp.predict(targets, return_std=True)
+    res = krige(xy, z, targets, model, method="simple", mean=0.0, neighbourhood=nbh)
+    assert np.allclose(res.estimate, mu_ref, rtol=1e-8, atol=1e-9)
+    assert np.allclose(res.std, sd_ref, rtol=1e-7, atol=1e-8)
+
+
+def test_simple_kriging_equals_sklearn_anisotropic_gaussian_with_nugget():
+    # Same reference (scikit-learn GPR, fixed kernel). Axis-aligned anisotropic RBF:
+    # exp(-0.5 sum (h_i/l_i)^2) equals geosim's gaussian exp(-3 r^2) with l_i = a_i / sqrt(6).
+    # The nugget is sklearn's WhiteKernel: on the training diagonal and in the predictive variance
+    # at new points, absent from the covariance between distinct points, as in geosim.
+    from sklearn.gaussian_process import GaussianProcessRegressor
+    from sklearn.gaussian_process.kernels import RBF, ConstantKernel, WhiteKernel
+
+    xy, z = _data(n=35, seed=3)
+    major, minor, sill, nug = 80.0, 30.0, 1.2, 0.3
+    # azimuth 90: major axis due east, i.e. along x
+    model = geosim.Nugget(nug) + geosim.Gaussian(sill, Anisotropy((major, minor), azimuth=90.0))
+    kernel = (ConstantKernel(sill, "fixed") * RBF([major / np.sqrt(6), minor / np.sqrt(6)], "fixed")
+              + WhiteKernel(nug, "fixed"))
+    gp = GaussianProcessRegressor(kernel, alpha=1e-300, optimizer=None, normalize_y=False).fit(xy, z)
+    targets = np.random.default_rng(4).uniform(0, 100, size=(40, 2))
+    mu_ref, sd_ref = gp.predict(targets, return_std=True)
+    for nbh in ("global", WIDE):
+        res = krige(xy, z, targets, model, neighbourhood=nbh)
+        assert np.allclose(res.estimate, mu_ref, rtol=1e-7, atol=1e-8)
+        assert np.allclose(res.std, sd_ref, rtol=1e-7, atol=1e-8)
+
+
+def test_ordinary_kriging_textbook_example():
+    # Isaaks and Srivastava (1989), An Introduction to Applied Geostatistics, ch. 12 (ordinary
+    # kriging), the seven-sample example around the point (65E, 137N) with the exponential
+    # covariance C(h) = 10 exp(-0.3 h).  Sample locations and values, the weights, the estimate
+    # 592.7 ppm and the error variance 8.96 ppm^2 are recalled FROM MEMORY; the tolerances are
+    # the rounding of the printed figures (3 decimals for weights, 1 for the estimate).
+    xy = np.array([[61, 139], [63, 140], [64, 129], [68, 128], [71, 140], [73, 141], [75, 128]], float)
+    v = np.array([477, 696, 227, 646, 606, 791, 783], float)
+    # geosim's exponential uses the practical range: exp(-3 h / a) = exp(-0.3 h) gives a = 10
+    model = geosim.Model([geosim.Exponential(10.0, Anisotropy((10.0, 10.0)))])
+    book_w = np.array([0.173, 0.318, 0.129, 0.086, 0.151, 0.057, 0.086])
+    for nbh in ("global", Neighbourhood(max_samples=7, ranges=(50.0, 50.0))):
+        r = krige(xy, v, [[65.0, 137.0]], model, method="ordinary", neighbourhood=nbh,
+                  return_weights=True)
+        w = np.zeros(7)
+        w[r.neighbours[0, :7]] = r.weights[0, :7]
+        assert np.allclose(w, book_w, atol=6e-4)
+        assert r.estimate[0] == pytest.approx(592.7, abs=0.06)
+        assert r.variance[0] == pytest.approx(8.96, abs=0.006)
+
+
+@pytest.mark.parametrize("method", ["simple", "ordinary"])
+@pytest.mark.parametrize("nugget", [0.0, 0.25])
+def test_exact_at_data_locations(method, nugget):
+    # Kriging is an exact interpolator: at a sample the estimate is the sample value and the
+    # variance 0, with or without nugget (Isaaks and Srivastava 1989, ch. 12, from memory;
+    # follows from c being a column of K).
+    xy, z = _data(n=30, seed=2)
+    model = geosim.Nugget(nugget) + geosim.Spherical(1.0 - nugget, Anisotropy((40.0, 25.0), azimuth=30.0))
+    nb = Neighbourhood(max_samples=10)
+    res = krige(xy, z, xy, model, method=method, mean=0.3, neighbourhood=nb)
+    assert np.allclose(res.estimate, z, atol=1e-9)
+    assert np.allclose(res.variance, 0.0, atol=1e-9)
+
+
+def test_ordinary_weights_sum_to_one_and_match_dense_solution():
+    xy, z = _data(n=60, seed=4)
+    model = geosim.Nugget(0.1) + geosim.Exponential(0.9, Anisotropy((70.0, 35.0), azimuth=120.0))
+    targets = np.random.default_rng(5).uniform(0, 100, size=(30, 2))
+    nb = Neighbourhood(max_samples=12, sectors=4)
+    res = krige(xy, z, targets, model, method="ordinary", neighbourhood=nb, return_weights=True)
+    assert np.allclose(res.weights.sum(axis=1), 1.0, atol=1e-12)
+    for i, t in enumerate(targets):
+        sel = res.neighbours[i, :res.n_used[i]]
+        w, est, var = _dense_ok(model, xy[sel], z[sel], t)
+        assert np.allclose(res.weights[i, :res.n_used[i]], w, atol=1e-10)
+        assert res.estimate[i] == pytest.approx(est, abs=1e-10)
+        assert res.variance[i] == pytest.approx(var, abs=1e-10)
+
+
+def test_simple_kriging_matches_dense_solve_in_3d_with_mean():
+    xyz, z = _data(n=50, seed=6, d=3)
+    model = geosim.Nugget(0.05) + geosim.Spherical(0.95, Anisotropy((80.0, 50.0, 20.0), 40.0, 15.0, 5.0))
+    targets = np.random.default_rng(7).uniform(10, 90, size=(20, 3))
+    nb = Neighbourhood(max_samples=16, sectors=8, max_per_sector=3)
+    res = krige(xyz, z, targets, model, mean=0.4, neighbourhood=nb, return_weights=True)
+    for i, t in enumerate(targets):
+        sel = res.neighbours[i, :res.n_used[i]]
+        k = model.cov_matrix(xyz[sel])
+        c = model.cov_matrix(xyz[sel], t[None, :])[:, 0]
+        w = np.linalg.solve(k, c)
+        assert res.estimate[i] == pytest.approx(0.4 + w @ (z[sel] - 0.4), abs=1e-10)
+        assert res.variance[i] == pytest.approx(model.sill - w @ c, abs=1e-10)
+
+
+def test_too_few_samples_gives_nan_never_a_made_up_value():
+    xy = np.array([[0.0, 0.0], [10.0, 0.0], [0.0, 10.0]])
+    model = geosim.Model([geosim.Spherical(1.0, Anisotropy((50.0, 50.0)))])
+    targets = np.array([[2.0, 2.0], [55.0, 0.0], [500.0, 500.0]])
+    res = krige(xy, [1.0, 2.0, 3.0], targets, model, neighbourhood=Neighbourhood(min_samples=2))
+    assert res.n_used.tolist() == [3, 1, 0]
+    assert np.isfinite(res.estimate[0]) and np.all(np.isnan(res.estimate[1:]))
+    assert np.all(np.isnan(res.variance[1:]))
+    # simple kriging with min_samples=0 falls back to the known mean and the sill (no data)
+    res = krige(xy, [1.0, 2.0, 3.0], targets, model, mean=5.0, neighbourhood=Neighbourhood(min_samples=0))
+    assert res.estimate[2] == 5.0 and res.variance[2] == 1.0
+
+
+def test_coincident_samples_raise_with_ids_and_cause():
+    xy = np.array([[0.0, 0.0], [10.0, 0.0], [10.0, 0.0], [0.0, 10.0]])
+    model = geosim.Model([geosim.Spherical(1.0, Anisotropy((50.0, 50.0)))])
+    ids = ["BH-01:1", "BH-02:1", "BH-02:2", "BH-03:1"]
+    for nbh in (Neighbourhood(), "global"):
+        with pytest.raises(NotPositiveDefiniteError) as err:
+            krige(xy, [1.0, 2.0, 2.5, 3.0], [[5.0, 5.0]], model, neighbourhood=nbh, sample_ids=ids)
+        msg = str(err.value)
+        assert "BH-02:1" in msg and "BH-02:2" in msg
+        assert "coincident" in msg and "no nugget" in msg
+
+
+def test_regularization_is_applied_only_when_needed_and_reported():
+    xy = np.array([[0.0, 0.0], [10.0, 0.0], [10.0, 0.0], [0.0, 10.0], [90.0, 90.0], [95.0, 90.0]])
+    z = [1.0, 2.0, 2.5, 3.0, 0.0, 1.0]
+    model = geosim.Model([geosim.Spherical(1.0, Anisotropy((30.0, 30.0)))])
+    targets = np.array([[5.0, 5.0], [92.0, 92.0]])
+    with pytest.warns(GeosimWarning, match="regularized"):
+        res = krige(xy, z, targets, model, regularization=1e-6)
+    assert res.n_regularized == 1
+    # the regularized system keeps the duplicates' average, and the clean node is untouched
+    clean = krige(xy[4:], z[4:], targets[1:], model)
+    assert res.estimate[1] == clean.estimate[0]
+    with warnings.catch_warnings():
+        warnings.simplefilter("error")
+        assert krige(xy[4:], z[4:], targets, model, regularization=1e-6).n_regularized == 0
+
+
+def test_krige_grid_clipped_by_polygon():
+    from shapely.geometry import Polygon
+
+    xy, z = _data(n=25, seed=12)
+    model = geosim.Nugget(0.1) + geosim.Spherical(0.9, Anisotropy((50.0, 50.0)))
+    grid = geosim.Grid(0.0, 0.0, (10.0, 10.0), (10, 10))
+    tri = Polygon([(0, 0), (100, 0), (0, 100)])
+    est, var = krige_grid(xy, z, grid, model, domain=tri, method="ordinary")
+    clipped = grid.clip_to_polygon(tri)
+    assert est.shape == (10, 10)
+    assert np.all(np.isnan(est[~clipped.mask])) and np.all(np.isfinite(est[clipped.mask]))
+    ref = krige(xy, z, clipped.coords(), model, method="ordinary")
+    assert np.array_equal(est[clipped.mask], ref.estimate)
+    assert np.array_equal(var[clipped.mask], ref.variance)
+
+
+def test_bad_input_is_named():
+    model = geosim.Model([geosim.Spherical(1.0, Anisotropy((50.0, 50.0)))])
+    with pytest.raises(geosim.InputError, match="row 1"):
+        krige([[0.0, 0.0], [1.0, 1.0]], [1.0, np.nan], [[0.0, 0.0]], model)
+    with pytest.raises(ValueError, match="method"):
+        krige([[0.0, 0.0]], [1.0], [[0.0, 0.0]], model, method="universal")
+
+
+def test_progress_is_reported():
+    xy, z = _data(n=20, seed=1)
+    model = geosim.Model([geosim.Spherical(1.0, Anisotropy((50.0, 50.0)))])
+    calls = []
+    krige(xy, z, xy + 1.0, model, progress=lambda done, total, what: calls.append((done, total, what)))
+    assert calls and calls[-1] == (20, 20, "kriging nodes")
