@@ -1,0 +1,536 @@
+"""Drillholes: collar, survey and interval tables, minimum-curvature positions, compositing.
+
+Tables (CSV; default column names, any of which can be renamed through ``columns``)
+
+* collar:    ``hole_id, x, y, z, depth`` (collar position and total depth along the hole, m)
+* survey:    ``hole_id, depth, azimuth, dip`` (downhole orientation measurements)
+* intervals: ``hole_id, from, to`` and one column per value (assays, logged properties)
+
+Conventions
+-----------
+* Depths are measured along the hole from the collar, in metres.
+* Azimuth: degrees clockwise from north, ``[0, 360)``; 360 is accepted as north.
+* Dip: degrees from horizontal, **negative downward**: -90 is vertically down,
+  0 horizontal, +90 vertically up (underground holes drilled upward), range
+  ``[-90, 90]``.
+* A hole without survey rows is vertical (dip -90).  When a hole's first survey is
+  below the collar, its orientation holds from the collar down to it; below the
+  last survey the hole continues straight.
+* Positions between survey stations follow the minimum-curvature method: the
+  path between two stations is the circular arc tangent to both measured
+  directions (Sawaryn and Thorogood 2005, "A compendium of directional
+  calculations based on the minimum curvature method", SPE Drilling & Completion
+  20(1); from memory).  For a station pair with direction unit vectors ``t1``,
+  ``t2`` a measured length ``L`` apart and dogleg angle ``b = angle(t1, t2)``, the
+  displacement is ``L / 2 * (t1 + t2) * RF(b)`` with ``RF(b) = (2 / b) tan(b / 2)``
+  (``RF -> 1`` as ``b -> 0``).  A depth between stations lies on the same arc: its
+  direction is the spherical interpolation of ``t1`` and ``t2`` and its position
+  the same formula over the partial length.
+* In an interval table an *empty* value cell means "not assayed": it does not
+  count, in particular not as zero.  Gaps between intervals are unsampled too.
+"""
+from __future__ import annotations
+
+import math
+import os
+import warnings
+from collections.abc import Mapping, Sequence
+from dataclasses import dataclass, field
+
+import numpy as np
+from pyproj import CRS
+
+from .crs import CrsLike, to_projected
+from .errors import GeosimWarning, InputError
+from .points import PointSet
+from .tables import CsvTable, read_table, suggest
+
+DEFAULT_COLUMNS = {
+    "collar": {"hole_id": "hole_id", "x": "x", "y": "y", "z": "z", "depth": "depth"},
+    "survey": {"hole_id": "hole_id", "depth": "depth", "azimuth": "azimuth", "dip": "dip"},
+    "intervals": {"hole_id": "hole_id", "from": "from", "to": "to"},
+}
+
+_DEPTH_TOL = 1e-3  # m; interval ends this close past the total depth are accepted (rounding)
+
+
+@dataclass(frozen=True, repr=False)
+class Drillholes:
+    """Validated drillhole tables.
+
+    Attributes
+    ----------
+    ids : (m,) str ndarray
+        Hole identifiers, in collar-table order.
+    collars : (m, 3) ndarray
+        Collar ``(x, y, z)`` in metres of ``crs``.
+    depths : (m,) ndarray
+        Total depth of each hole.
+    surveys : dict of str to (s, 3) ndarray
+        Per hole, rows ``(depth, azimuth, dip)`` sorted by depth; holes without
+        surveys are absent (vertical).
+    hole : (n,) str ndarray
+        Hole of each interval; intervals are sorted by hole (collar order) then depth.
+    top, bottom : (n,) ndarray
+        Interval ``from`` and ``to`` depths.
+    values : (n, k) ndarray
+        Interval values; NaN where not assayed.
+    names : tuple of str
+        Value names.
+    crs : pyproj.CRS or None
+    source : tuple of str
+        The three input paths.
+    notes : tuple of str
+        What intake chose or changed.
+    """
+
+    ids: np.ndarray
+    collars: np.ndarray
+    depths: np.ndarray
+    surveys: dict
+    hole: np.ndarray
+    top: np.ndarray
+    bottom: np.ndarray
+    values: np.ndarray
+    names: tuple[str, ...]
+    crs: CRS | None = None
+    source: tuple[str, ...] = ()
+    notes: tuple[str, ...] = ()
+    _row_of: dict = field(init=False, repr=False, compare=False)
+
+    def __post_init__(self):
+        object.__setattr__(self, "_row_of", {h: i for i, h in enumerate(self.ids)})
+
+    def __repr__(self) -> str:
+        return (f"Drillholes({len(self.ids)} holes, {len(self.hole)} intervals, names={self.names}, "
+                f"crs={None if self.crs is None else self.crs.to_string()})")
+
+    def intervals_of(self, hole_id: str) -> np.ndarray:
+        """Indices of the intervals of one hole, top to bottom."""
+        return np.flatnonzero(self.hole == hole_id)
+
+    def positions(self, hole_id: str, depths) -> np.ndarray:
+        """``(x, y, z)`` of points at the given depths along one hole (minimum curvature)."""
+        try:
+            i = self._row_of[hole_id]
+        except KeyError:
+            raise KeyError(f"no hole {hole_id!r}; {suggest(hole_id, list(self.ids))}".rstrip("; ")) from None
+        s = self.surveys.get(hole_id)
+        if s is None:
+            s = np.empty((0, 3))
+        return desurvey(self.collars[i], s[:, 0], s[:, 1], s[:, 2], depths)
+
+
+def direction(azimuth, dip) -> np.ndarray:
+    """Unit vectors ``(east, north, up)`` of the given azimuths and dips (degrees, dip negative down).
+
+    Examples
+    --------
+    >>> import geosim.drillholes as d
+    >>> d.direction(90.0, -90.0).round(12).tolist()
+    [[0.0, 0.0, -1.0]]
+    """
+    az = np.radians(np.atleast_1d(np.asarray(azimuth, dtype=np.float64)))
+    dp = np.radians(np.atleast_1d(np.asarray(dip, dtype=np.float64)))
+    c = np.cos(dp)
+    return np.column_stack([c * np.sin(az), c * np.cos(az), np.sin(dp)])
+
+
+def _ratio_factor(b: np.ndarray) -> np.ndarray:
+    """``(2 / b) tan(b / 2)``, 1 in the limit ``b -> 0``."""
+    b = np.asarray(b, dtype=np.float64)
+    small = b < 1e-7
+    safe = np.where(small, 1.0, b)
+    # series 1 + b^2/12 for tiny angles avoids 0/0
+    return np.where(small, 1.0 + b * b / 12.0, 2.0 / safe * np.tan(safe / 2.0))
+
+
+def _slerp(t1: np.ndarray, t2: np.ndarray, b: np.ndarray, f: np.ndarray) -> np.ndarray:
+    """Unit vector a fraction ``f`` of the way along the great circle from ``t1`` to ``t2``."""
+    b = b[:, None]
+    f = f[:, None]
+    small = b < 1e-7
+    sb = np.where(small, 1.0, np.sin(b))
+    arc = (np.sin((1.0 - f) * b) * t1 + np.sin(f * b) * t2) / sb
+    lin = (1.0 - f) * t1 + f * t2
+    out = np.where(small, lin, arc)
+    return out / np.linalg.norm(out, axis=1, keepdims=True)
+
+
+def desurvey(collar, survey_depths, azimuths, dips, depths) -> np.ndarray:
+    """Positions along a hole by the minimum-curvature method.
+
+    Parameters
+    ----------
+    collar : (3,) array_like
+        Collar ``(x, y, z)``.
+    survey_depths, azimuths, dips : (s,) array_like
+        Survey stations (depth along the hole, azimuth, dip in degrees, dip negative
+        downward), ascending depths.  Empty: the hole is vertical.
+    depths : (q,) array_like
+        Depths along the hole (>= 0) where positions are wanted.
+
+    Returns
+    -------
+    (q, 3) ndarray
+        ``(x, y, z)`` of each depth.
+
+    Examples
+    --------
+    >>> import geosim
+    >>> geosim.desurvey([0.0, 0.0, 100.0], [0.0], [0.0], [-90.0], [0.0, 25.0]).round(9).tolist()
+    [[0.0, 0.0, 100.0], [0.0, 0.0, 75.0]]
+    >>> p = geosim.desurvey([0.0, 0.0, 0.0], [0.0], [90.0], [-30.0], [10.0])   # 30 degrees below east
+    >>> p.round(6).tolist()
+    [[8.660254, 0.0, -5.0]]
+    """
+    c = np.asarray(collar, dtype=np.float64).reshape(3)
+    md = np.asarray(survey_depths, dtype=np.float64).ravel()
+    az = np.asarray(azimuths, dtype=np.float64).ravel()
+    dp = np.asarray(dips, dtype=np.float64).ravel()
+    q = np.atleast_1d(np.asarray(depths, dtype=np.float64)).ravel()
+    if not (len(md) == len(az) == len(dp)):
+        raise ValueError("survey depths, azimuths and dips must have the same length")
+    if (q < 0).any() or not np.isfinite(q).all():
+        raise ValueError("depths along the hole must be finite and >= 0")
+    if len(md) == 0:
+        md, az, dp = np.array([0.0]), np.array([0.0]), np.array([-90.0])
+    if (np.diff(md) <= 0).any():
+        raise ValueError("survey depths must increase strictly")
+    if md[0] > 0:
+        md, az, dp = np.r_[0.0, md], np.r_[az[0], az], np.r_[dp[0], dp]
+    t = direction(az, dp)
+    dl = np.diff(md)
+    b = np.arctan2(np.linalg.norm(np.cross(t[:-1], t[1:]), axis=1), np.einsum("ij,ij->i", t[:-1], t[1:]))
+    if (b > math.pi - 1e-6).any():
+        raise ValueError("two consecutive survey stations point in opposite directions")
+    steps = 0.5 * dl[:, None] * (t[:-1] + t[1:]) * _ratio_factor(b)[:, None]
+    stations = c + np.vstack([np.zeros(3), np.cumsum(steps, axis=0)])
+    out = np.empty((len(q), 3))
+    seg = np.searchsorted(md, q, side="right") - 1  # station at or above each depth
+    beyond = seg >= len(md) - 1
+    if beyond.any():
+        out[beyond] = stations[-1] + (q[beyond] - md[-1])[:, None] * t[-1]
+    inside = ~beyond
+    if inside.any():
+        k = seg[inside]
+        s = q[inside] - md[k]
+        f = s / dl[k]
+        tf = _slerp(t[k], t[k + 1], b[k], f)
+        out[inside] = stations[k] + 0.5 * s[:, None] * (t[k] + tf) * _ratio_factor(f * b[k])[:, None]
+    return out
+
+
+def _columns(columns: Mapping | None) -> dict:
+    names = {table: dict(cols) for table, cols in DEFAULT_COLUMNS.items()}
+    for table, renames in (columns or {}).items():
+        if table not in names:
+            raise ValueError(f"columns: unknown table {table!r}; expected one of {', '.join(names)}")
+        for role, col in renames.items():
+            if role not in names[table]:
+                raise ValueError(f"columns[{table!r}]: unknown role {role!r}; "
+                                 f"expected one of {', '.join(names[table])}")
+            names[table][role] = col
+    return names
+
+
+def _hole_index(table: CsvTable, col: str, known: dict, what: str) -> np.ndarray:
+    ids = table.text(col, role="hole id")
+    idx = np.empty(len(ids), dtype=np.int64)
+    for i, h in enumerate(ids):
+        j = known.get(h)
+        if j is None:
+            hint = suggest(h, list(known))
+            raise InputError(f"hole {h!r} is not in the collar table", file=table.path, row=table.lines[i],
+                             field=table.header[table.index(col)],
+                             fix=(hint + " " if hint else "") + f"add the hole to the collar table or "
+                                 f"remove its {what} rows")
+        idx[i] = j
+    return idx
+
+
+def read_drillholes(collars: str | os.PathLike, surveys: str | os.PathLike | None,
+                    intervals: str | os.PathLike, *, values: str | Sequence[str], crs: CrsLike | None,
+                    target_crs: CrsLike | None = None, columns: Mapping | None = None) -> Drillholes:
+    """Read and check collar, survey and interval tables.
+
+    Parameters
+    ----------
+    collars, surveys, intervals : path-like
+        The three CSV files; ``surveys`` may be None (every hole vertical).
+    values : str or sequence of str
+        Value column(s) of the interval table.
+    crs : CRS-like or None
+        CRS of the collar coordinates; None for a local mine grid in metres.
+        Geographic collars are reprojected (see :func:`geosim.crs.to_projected`).
+    target_crs : CRS-like, optional
+        Projected CRS in metres to work in.
+    columns : mapping, optional
+        Column renames per table, e.g. ``{"collar": {"x": "east", "y": "north"},
+        "intervals": {"from": "depth_from"}}``; roles are those of
+        :data:`DEFAULT_COLUMNS`.
+
+    Returns
+    -------
+    Drillholes
+
+    Raises
+    ------
+    InputError
+        Naming file, row and column: missing or misspelt columns, empty or
+        non-numeric cells, repeated hole ids in the collar table, non-positive
+        total depth, holes missing from the collar table, survey depths repeated
+        or past the hole's depth, azimuths or dips out of range, opposite
+        consecutive survey directions, ``from >= to``, negative ``from``,
+        intervals past the hole's depth, overlapping intervals within a hole.
+
+    Warns
+    -----
+    GeosimWarning
+        When every dip is positive (holes drilled upward): usually a file whose
+        dips are positive downward.
+    """
+    cols = _columns(columns)
+    names = (values,) if isinstance(values, str) else tuple(values)
+    if not names:
+        raise ValueError("name at least one value column")
+    notes: list[str] = []
+
+    # collars -------------------------------------------------------------------
+    ct = read_table(collars, what="collar table")
+    cc = cols["collar"]
+    ids = ct.text(cc["hole_id"], role="hole id")
+    xyz = np.column_stack([ct.numbers(cc[r], role=f"collar {r}") for r in ("x", "y", "z")])
+    depth = ct.numbers(cc["depth"], role="total depth")
+    known: dict[str, int] = {}
+    for i, h in enumerate(ids):
+        if h in known:
+            raise InputError(f"hole {h!r} appears twice (first in row {ct.lines[known[h]]})", file=ct.path,
+                             row=ct.lines[i], field=ct.header[ct.index(cc["hole_id"])],
+                             fix="give each hole one collar row")
+        known[h] = i
+        if not depth[i] > 0:
+            raise InputError(f"total depth {depth[i]:g} is not positive", file=ct.path, row=ct.lines[i],
+                             field=ct.header[ct.index(cc["depth"])], fix="give the hole's length in metres")
+    xyz, out_crs, note = to_projected(xyz, crs, target_crs, file=ct.path)
+    if note:
+        notes.append(note)
+
+    # surveys -------------------------------------------------------------------
+    survey_by_hole: dict[str, np.ndarray] = {}
+    sources = [ct.path]
+    if surveys is not None:
+        st = read_table(surveys, what="survey table")
+        sources.append(st.path)
+        sc = cols["survey"]
+        sh = _hole_index(st, sc["hole_id"], known, "survey")
+        sd = st.numbers(sc["depth"], role="survey depth")
+        sa = st.numbers(sc["azimuth"], role="azimuth")
+        sp = st.numbers(sc["dip"], role="dip")
+        col = {r: st.header[st.index(sc[r])] for r in ("depth", "azimuth", "dip")}
+        for i in range(len(st)):
+            row = st.lines[i]
+            if not 0.0 <= sd[i] <= depth[sh[i]] + _DEPTH_TOL:
+                raise InputError(f"survey depth {sd[i]:g} is outside the hole (total depth {depth[sh[i]]:g})",
+                                 file=st.path, row=row, field=col["depth"],
+                                 fix="correct the depth or the collar's total depth")
+            if not 0.0 <= sa[i] <= 360.0:
+                raise InputError(f"azimuth {sa[i]:g} is outside 0-360 degrees", file=st.path, row=row,
+                                 field=col["azimuth"], fix="give degrees clockwise from north, 0 to 360")
+            if not -90.0 <= sp[i] <= 90.0:
+                raise InputError(f"dip {sp[i]:g} is outside -90 to 90 degrees", file=st.path, row=row,
+                                 field=col["dip"],
+                                 fix="give degrees from horizontal, negative downward (-90 = vertically down)")
+        if (sp > 0).any() and not (sp < 0).any():
+            warnings.warn(f"{st.path}: every dip is positive, i.e. every hole points upward; geosim's dips "
+                          "are negative downward: negate the dips if the holes go down", GeosimWarning,
+                          stacklevel=2)
+        order = np.lexsort((sd, sh))
+        for h_idx in np.unique(sh):
+            rows = order[sh[order] == h_idx]
+            d = sd[rows]
+            dup = np.flatnonzero(np.diff(d) == 0)
+            if len(dup):
+                a, b = rows[dup[0]], rows[dup[0] + 1]
+                raise InputError(f"hole {ids[h_idx]!r} has two surveys at depth {d[dup[0]]:g} "
+                                 f"(rows {st.lines[min(a, b)]} and {st.lines[max(a, b)]})", file=st.path,
+                                 row=st.lines[max(a, b)], field=col["depth"], fix="keep one survey per depth")
+            tv = direction(sa[rows], sp[rows])
+            cosb = np.einsum("ij,ij->i", tv[:-1], tv[1:])
+            bad = np.flatnonzero(cosb < -1.0 + 1e-9)
+            if len(bad):
+                raise InputError(f"hole {ids[h_idx]!r}: consecutive surveys point in opposite directions",
+                                 file=st.path, row=st.lines[rows[bad[0] + 1]], field=col["azimuth"],
+                                 fix="check the azimuth and the sign of the dip")
+            survey_by_hole[str(ids[h_idx])] = np.column_stack([d, np.where(sa[rows] == 360.0, 0.0, sa[rows]),
+                                                               sp[rows]])
+
+    # intervals -----------------------------------------------------------------
+    it = read_table(intervals, what="interval table")
+    sources.append(it.path)
+    ic = cols["intervals"]
+    ih = _hole_index(it, ic["hole_id"], known, "interval")
+    top = it.numbers(ic["from"], role="interval from")
+    bot = it.numbers(ic["to"], role="interval to")
+    vals = np.column_stack([it.numbers(v, role="value", allow_missing=True) for v in names])
+    fcol, tcol = it.header[it.index(ic["from"])], it.header[it.index(ic["to"])]
+    for i in range(len(it)):
+        row = it.lines[i]
+        if top[i] < 0:
+            raise InputError(f"'from' {top[i]:g} is above the collar", file=it.path, row=row, field=fcol,
+                             fix="depths are measured down the hole from 0 at the collar")
+        if not top[i] < bot[i]:
+            raise InputError(f"'from' {top[i]:g} is not less than 'to' {bot[i]:g}", file=it.path, row=row,
+                             field=tcol, fix="check the interval ends (swapped or zero length?)")
+        if bot[i] > depth[ih[i]] + _DEPTH_TOL:
+            raise InputError(f"interval ends at {bot[i]:g}, past the hole's total depth {depth[ih[i]]:g}",
+                             file=it.path, row=row, field=tcol,
+                             fix="correct the interval or the collar's total depth")
+    order = np.lexsort((top, ih))
+    same = ih[order][1:] == ih[order][:-1]
+    overlap = np.flatnonzero(same & (top[order][1:] < bot[order][:-1] - 1e-9))
+    if len(overlap):
+        a, b = order[overlap[0]], order[overlap[0] + 1]
+        raise InputError(f"intervals {top[a]:g}-{bot[a]:g} (row {it.lines[a]}) and {top[b]:g}-{bot[b]:g} "
+                         f"(row {it.lines[b]}) of hole {ids[ih[a]]!r} overlap", file=it.path,
+                         row=max(it.lines[a], it.lines[b]), field=fcol, fix="correct or remove one of them")
+    value_names = tuple(it.header[it.index(v)] for v in names)
+    for j, name in enumerate(value_names):
+        missing = int(np.isnan(vals[:, j]).sum())
+        if missing:
+            notes.append(f"{missing} of {len(vals)} intervals have no {name} value (treated as not assayed)")
+    return Drillholes(ids=ids, collars=xyz, depths=depth, surveys=survey_by_hole, hole=ids[ih[order]],
+                      top=top[order], bottom=bot[order], values=vals[order], names=value_names, crs=out_crs,
+                      source=tuple(sources), notes=tuple(notes))
+
+
+def composite(holes: Drillholes, length: float, *, min_fraction: float = 0.5, residual: str = "merge",
+              start: str = "sample") -> PointSet:
+    """Fixed-length, length-weighted composites along each hole.
+
+    Each hole is cut into runs of ``length`` metres from its first sampled depth
+    (``start="sample"``) or from the collar (``start="collar"``) down to its last
+    sampled depth.  A composite's value is the length-weighted mean of the parts of
+    intervals inside it, over the *sampled* length only: gaps and not-assayed
+    intervals never count as zero.  The last run of a hole (the residual) is
+    kept when it is at least ``min_fraction * length`` long; a shorter one is
+    merged into the composite above it (``residual="merge"``; when it is the hole's
+    only run it is kept) or dropped (``residual="drop"``).  Composites with no
+    sampled length are left out.
+
+    Parameters
+    ----------
+    holes : Drillholes
+    length : float
+        Composite length (m), measured along the hole.
+    min_fraction : float
+        Shortest residual kept on its own, as a fraction of ``length`` (0 to 1).
+    residual : {"merge", "drop"}
+    start : {"sample", "collar"}
+
+    Returns
+    -------
+    PointSet
+        3-D points at the mid-point depth of each composite, with ``hole_ids`` and
+        attributes ``length`` (sampled length, m: the weight a composite carries),
+        ``depth`` (mid-point depth), ``from`` and ``to``.  A value is NaN where its
+        variable has no sampled length in that composite.
+
+    Examples
+    --------
+    >>> import numpy, geosim
+    >>> from geosim.drillholes import Drillholes
+    >>> h = Drillholes(ids=numpy.array(["A"]), collars=numpy.zeros((1, 3)), depths=numpy.array([10.0]),
+    ...                surveys={}, hole=numpy.array(["A", "A"]), top=numpy.array([0.0, 1.0]),
+    ...                bottom=numpy.array([1.0, 4.0]), values=numpy.array([[1.0], [3.0]]), names=("cu",))
+    >>> c = geosim.composite(h, 2.0)
+    >>> c.column().tolist(), c.attributes["depth"].tolist()   # (1*1 + 1*3)/2, then 3 over 2 m
+    ([2.0, 3.0], [1.0, 3.0])
+    """
+    if not length > 0:
+        raise ValueError(f"composite length must be positive, got {length}")
+    if not 0.0 <= min_fraction <= 1.0:
+        raise ValueError(f"min_fraction must be between 0 and 1, got {min_fraction}")
+    if residual not in ("merge", "drop"):
+        raise ValueError(f"residual must be 'merge' or 'drop', got {residual!r}")
+    if start not in ("sample", "collar"):
+        raise ValueError(f"start must be 'sample' or 'collar', got {start!r}")
+    k = len(holes.names)
+    parts: dict[str, list] = {key: [] for key in ("coords", "values", "hole", "length", "from", "to")}
+    merged = dropped = 0
+    for hole_id in holes.ids:
+        idx = holes.intervals_of(hole_id)
+        if len(idx) == 0:
+            continue
+        a, b, v = holes.top[idx], holes.bottom[idx], holes.values[idx]
+        first = 0.0 if start == "collar" else float(a[0])
+        last = float(b[-1])
+        edges, how = _edges(first, last, float(length), min_fraction, residual)
+        merged += how == "merged"
+        dropped += how == "dropped"
+        if len(edges) < 2:
+            continue
+        # cumulative sampled length and length x value are piecewise linear in depth with
+        # breakpoints at interval ends; differences at the edges give exact overlaps
+        xp = np.column_stack([a, b]).ravel()
+        sampled = np.isfinite(v)
+        lens = (b - a)[:, None] * sampled
+        sums = np.where(sampled, v, 0.0) * (b - a)[:, None]
+        any_len = (b - a) * sampled.any(axis=1)
+        comp_len = np.empty((len(edges) - 1, k))
+        comp_sum = np.empty((len(edges) - 1, k))
+        for j in range(k):
+            comp_len[:, j] = np.diff(np.interp(edges, xp, _cumulative(lens[:, j])))
+            comp_sum[:, j] = np.diff(np.interp(edges, xp, _cumulative(sums[:, j])))
+        covered = np.diff(np.interp(edges, xp, _cumulative(any_len)))
+        with np.errstate(invalid="ignore", divide="ignore"):
+            cv = np.where(comp_len > 1e-9, comp_sum / np.where(comp_len > 1e-9, comp_len, 1.0), np.nan)
+        keep = covered > 1e-9
+        if not keep.any():
+            continue
+        top, bottom = edges[:-1][keep], edges[1:][keep]
+        mid = 0.5 * (top + bottom)
+        parts["coords"].append(holes.positions(hole_id, mid))
+        parts["values"].append(cv[keep])
+        parts["hole"].append(np.full(keep.sum(), hole_id))
+        parts["length"].append(covered[keep])
+        parts["from"].append(top)
+        parts["to"].append(bottom)
+    if not parts["coords"]:
+        raise InputError("no composites: no hole has a sampled interval", fix="check the interval table")
+    cat = {key: np.concatenate(val) for key, val in parts.items()}
+    mids = 0.5 * (cat["from"] + cat["to"])
+    note = f"composited to {length:g} m along the hole ({len(mids)} composites"
+    if merged:
+        note += f"; {merged} residual(s) under {min_fraction:g} x length merged into the composite above"
+    if dropped:
+        note += f"; {dropped} residual(s) under {min_fraction:g} x length dropped"
+    note += ")"
+    return PointSet(cat["coords"], cat["values"], holes.names, holes.crs, cat["hole"],
+                    {"length": cat["length"], "depth": mids, "from": cat["from"], "to": cat["to"]},
+                    holes.source, holes.notes + (note,))
+
+
+def _cumulative(x: np.ndarray) -> np.ndarray:
+    """Cumulative totals at the breakpoints ``from_0, to_0, from_1, to_1, ...``."""
+    after = np.cumsum(x)
+    before = after - x
+    return np.column_stack([before, after]).ravel()
+
+
+def _edges(first: float, last: float, length: float, min_fraction: float,
+           residual: str) -> tuple[np.ndarray, str]:
+    span = last - first
+    n_full = int(math.floor(span / length + 1e-9))
+    edges = first + length * np.arange(n_full + 1)
+    rest = last - edges[-1]
+    if rest <= 1e-9:
+        return edges, "exact"
+    if rest >= min_fraction * length - 1e-9:
+        return np.append(edges, last), "kept"
+    if residual == "merge":
+        if n_full == 0:
+            return np.array([first, last]), "kept"
+        edges[-1] = last
+        return edges, "merged"
+    return edges, "dropped"
