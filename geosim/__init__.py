@@ -48,6 +48,8 @@ _LAZY = {
     "LogTransform": "geosim.transforms",
     "IdentityTransform": "geosim.transforms",
     "transform_from_dict": "geosim.transforms",
+    "read_domain": "geosim.domain",
+    "read_domain_raster": "geosim.domain",
     "simulate": "geosim.simulation",
     "SequentialEngine": "geosim.simulation",
     "ExactEngine": "geosim.simulation",
