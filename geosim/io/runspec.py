@@ -1,0 +1,680 @@
+"""Run specs: one TOML file that holds a whole geosim job.
+
+A run spec names the input tables, their CRS, the transform, declustering, the
+variogram (a model, a model file, or a fit request), the grid and domain, the
+neighbourhood, the simulation (engine, realizations, seed, workers or a Dask
+cluster) and the outputs.  :func:`load_spec` reads it with :mod:`tomllib` and
+validates it *completely* before any work starts: every problem is collected
+and reported at once in one :class:`~geosim.errors.SpecError`, each as
+``key.path: expected ..., found ...``.
+
+Paths inside a spec are relative to the spec file's folder.  The layout,
+section by section (``*`` marks required keys)::
+
+    title = "free text"
+
+    [data]                      # point samples ...
+    points = "wells.csv"        #   a CSV of points; or, for drillholes:
+    collars = "collars.csv"     #   collar, survey and interval tables
+    surveys = "surveys.csv"     #   (optional: holes without surveys are vertical)
+    intervals = "assays.csv"
+    x = "lon"  y = "lat"  z = "elev"   # coordinate columns of a points file
+    id = "well_id"              # sample or hole identifier column (optional)
+    value = "k_ms"              # * the variable to model
+    crs = "EPSG:4326"           # * CRS of the coordinates (EPSG code, WKT, PROJ)
+    working_crs = "auto"        # projected CRS to work in; "auto" = UTM zone of the data
+    units = "m/s"               # units of the value, for rasters and reports
+    columns = {hole_id = "HOLE"}   # drillholes: rename default column names
+    [data.composites]           # drillholes: fixed-length compositing
+    length = 2.0  min_fraction = 0.5  residual = "merge" | "drop"
+
+    [declustering]  method = "cells" | "none", sizes = [min, max], count, offsets, objective = "min" | "max"
+    [transform]     log = false, lower = .., upper = .., upper_tail = "linear" | "hyperbolic", tail_power = ..
+    [variogram]     fit = true, structures = [{kind, sill, ranges, azimuth, dip, rake, ...}, ...] or
+                    model_file = "model.toml"; lag, lag_count, directions = [{azimuth, dip, tolerance,
+                    bandwidth}], weighting = "cressie" | "pairs"
+    [grid]          * cell = [dx, dy] or [dx, dy, dz]; bounds = [xmin, ymin, xmax, ymax]; z_range = [lo, hi];
+                    padding = 0.0
+    [domain]        polygon = "domain.geojson"  or  raster = "mask.tif"
+    [search]        max_samples, min_samples, max_nodes, sectors, max_per_sector, max_per_hole
+    [simulation]    engine = "sequential", * realizations, * seed, kriging = "simple" | "ordinary",
+                    workers = N, cluster = "tcp://host:port"
+    [outputs]       cutoffs = [...], above = true, density, thickness, keep_realizations, plots,
+                    cross_validation, estimate
+
+Examples
+--------
+>>> import pathlib, tempfile
+>>> import geosim.io.runspec
+>>> folder = pathlib.Path(tempfile.mkdtemp())
+>>> _ = (folder / "wells.csv").write_text("well_id,x,y,k\\nA,0,0,1\\n")
+>>> _ = (folder / "run.toml").write_text('''
+... [data]
+... points = "wells.csv"
+... x = "x"
+... y = "y"
+... value = "k"
+... crs = "EPSG:32633"
+... [grid]
+... cell = [10.0, 10.0]
+... [simulation]
+... realizations = 5
+... seed = 42
+... ''')
+>>> spec = geosim.io.runspec.load_spec(folder / "run.toml")
+>>> spec["simulation.realizations"], spec["simulation.engine"]
+(5, 'sequential')
+>>> len(spec.sha256)
+64
+"""
+from __future__ import annotations
+
+import copy
+import difflib
+import hashlib
+import json
+import math
+import os
+import tomllib
+from collections.abc import Callable, Iterable, Mapping
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any
+
+from ..errors import SpecError
+
+__all__ = ["RunSpec", "load_spec", "spec_from_dict", "parse_overrides", "SCHEMA", "EXECUTION_KEYS"]
+
+# Keys that change how a run executes but not what it computes; they are left out
+# of the spec hash so that a run resumed with more workers keeps its realizations.
+EXECUTION_KEYS = ("simulation.workers", "simulation.cluster")
+
+
+# -- value checkers ----------------------------------------------------------
+# Each checker takes a TOML value and returns (normalized value, None) or
+# (None, "expected ...") describing the form it wanted.
+
+def _found(value: Any) -> str:
+    text = repr(value)
+    if len(text) > 60:
+        text = text[:57] + "..."
+    kind = {str: "text", bool: "true/false", int: "integer", float: "number", list: "list",
+            dict: "table"}.get(type(value), type(value).__name__)
+    return f"{kind} {text}"
+
+
+def _text(value):
+    if isinstance(value, str) and value.strip():
+        return value, None
+    return None, "non-empty text"
+
+
+def _path(value):
+    if isinstance(value, str) and value.strip():
+        return value, None
+    return None, "a file path (text, relative to the spec file)"
+
+
+def _bool(value):
+    if isinstance(value, bool):
+        return value, None
+    return None, "true or false"
+
+
+def _int(lo=None, hi=None):
+    def check(value):
+        ok = isinstance(value, int) and not isinstance(value, bool)
+        if ok and (lo is None or value >= lo) and (hi is None or value <= hi):
+            return value, None
+        bounds = (f" >= {lo}" if lo is not None else "") + (f" and <= {hi}" if hi is not None else "")
+        return None, f"an integer{bounds}"
+    return check
+
+
+def _number(lo=None, hi=None, lo_open=False):
+    def check(value):
+        ok = isinstance(value, (int, float)) and not isinstance(value, bool) and math.isfinite(value)
+        if ok and (lo is None or (value > lo if lo_open else value >= lo)) and (hi is None or value <= hi):
+            return float(value), None
+        bounds = ""
+        if lo is not None:
+            bounds += f" {'>' if lo_open else '>='} {lo:g}"
+        if hi is not None:
+            bounds += f" and <= {hi:g}"
+        return None, f"a number{bounds}"
+    return check
+
+
+def _choice(*options):
+    def check(value):
+        if value in options:
+            return value, None
+        return None, "one of " + ", ".join(f'"{o}"' for o in options)
+    return check
+
+
+def _numbers(sizes: tuple[int, ...], lo=None, lo_open=False, ascending=False, what="numbers"):
+    one = _number(lo, lo_open=lo_open)
+
+    def check(value):
+        sizes_text = " or ".join(str(s) for s in sizes)
+        wanted = f"a list of {sizes_text} {what}" + (
+            f" {'>' if lo_open else '>='} {lo:g}" if lo is not None else "") + (
+            ", ascending" if ascending else "")
+        if not isinstance(value, list) or len(value) not in sizes:
+            return None, wanted
+        out = []
+        for v in value:
+            v, err = one(v)
+            if err:
+                return None, wanted
+            out.append(v)
+        if ascending and any(b <= a for a, b in zip(out, out[1:])):
+            return None, wanted
+        return out, None
+    return check
+
+
+def _number_list(lo=None):
+    one = _number(lo)
+
+    def check(value):
+        wanted = "a list of numbers" + (f" >= {lo:g}" if lo is not None else "")
+        if not isinstance(value, list):
+            return None, wanted
+        out = []
+        for v in value:
+            v, err = one(v)
+            if err:
+                return None, wanted
+            out.append(v)
+        return out, None
+    return check
+
+
+def _str_map(value):
+    if isinstance(value, dict) and all(isinstance(k, str) and isinstance(v, str) and v.strip()
+                                       for k, v in value.items()):
+        return dict(value), None
+    return None, 'a table of column names, e.g. {hole_id = "HOLE", from = "FROM_M"}'
+
+
+@dataclass(frozen=True)
+class Key:
+    """One run-spec key: its checker, whether it is required, and its default."""
+
+    check: Callable
+    required: bool = False
+    default: Any = None
+    help: str = ""
+
+
+# section -> key -> Key.  Nested tables (data.composites) and lists of tables
+# (variogram.structures, variogram.directions) are described by their own entries.
+SCHEMA: dict[str, dict[str, Key]] = {
+    "data": {
+        "points": Key(_path, help="CSV file of point samples"),
+        "collars": Key(_path, help="drillhole collar CSV (hole_id, x, y, z, depth)"),
+        "surveys": Key(_path, help="drillhole survey CSV (hole_id, depth, azimuth, dip)"),
+        "intervals": Key(_path, help="drillhole interval CSV (hole_id, from, to, values...)"),
+        "x": Key(_text, help="x (east or longitude) column of a points file"),
+        "y": Key(_text, help="y (north or latitude) column of a points file"),
+        "z": Key(_text, help="z (elevation) column of a points file"),
+        "id": Key(_text, help="sample or hole identifier column"),
+        "value": Key(_text, required=True, help="column of the variable to model"),
+        "crs": Key(_text, required=True, help="CRS of the input coordinates"),
+        "working_crs": Key(_text, default="auto", help='projected CRS to work in, or "auto"'),
+        "units": Key(_text, default="", help="units of the value"),
+        "columns": Key(_str_map, default={}, help="drillholes: default column name -> name in the files"),
+    },
+    "data.composites": {
+        "length": Key(_number(0.0, lo_open=True), required=True, help="composite length in metres"),
+        "min_fraction": Key(_number(0.0, 1.0), default=0.5, help="shortest residual as a fraction of length"),
+        "residual": Key(_choice("merge", "drop"), default="merge", help="what to do with a short residual"),
+    },
+    "declustering": {
+        "method": Key(_choice("cells", "none"), default="cells"),
+        "sizes": Key(_numbers((2,), lo=0.0, lo_open=True, ascending=True), help="[smallest, largest] cell"),
+        "count": Key(_int(2, 200), default=20, help="cell sizes scanned"),
+        "offsets": Key(_int(1, 100), default=8, help="grid origin offsets averaged"),
+        "objective": Key(_choice("min", "max"), default="min",
+                         help='"min" when highs were sampled preferentially, "max" for lows'),
+    },
+    "transform": {
+        "log": Key(_bool, default=False, help="take log10 before the normal-score transform"),
+        "lower": Key(_number(), help="lower bound of the back-transform (data units)"),
+        "upper": Key(_number(), help="upper bound of the back-transform (data units)"),
+        "upper_tail": Key(_choice("linear", "hyperbolic"), default="linear"),
+        "tail_power": Key(_number(1.0, lo_open=True), default=1.5, help="hyperbolic upper-tail parameter"),
+    },
+    "variogram": {
+        "fit": Key(_bool, default=True, help="fit the structures to experimental variograms"),
+        "model_file": Key(_path, help="a saved geosim model file"),
+        "structures": Key(lambda v: (v, None) if isinstance(v, list) else (None, "a list of tables"),
+                          help="nested structures (fixed model, or start values for the fit)"),
+        "lag": Key(_number(0.0, lo_open=True), help="lag width in metres"),
+        "lag_count": Key(_int(2, 500), default=15),
+        "directions": Key(lambda v: (v, None) if isinstance(v, list) else (None, "a list of tables"),
+                          default=[]),
+        "weighting": Key(_choice("cressie", "pairs"), default="cressie"),
+        "total_sill": Key(_number(0.0, lo_open=True), default=1.0,
+                          help="constrain the fitted total sill (normal scores: 1)"),
+    },
+    "variogram.structures": {
+        "kind": Key(_text, required=True),
+        "sill": Key(_number(0.0), required=True),
+        "ranges": Key(_numbers((1, 2, 3), lo=0.0, lo_open=True)),
+        "azimuth": Key(_number(-360.0, 360.0), help="degrees clockwise from north (default 0)"),
+        "dip": Key(_number(-90.0, 90.0), help="degrees below horizontal (default 0)"),
+        "rake": Key(_number(-360.0, 360.0), help="degrees (default 0)"),
+        "smoothness": Key(_number(0.0, lo_open=True)),
+    },
+    "variogram.directions": {
+        "azimuth": Key(_number(-360.0, 360.0), default=0.0),
+        "dip": Key(_number(-90.0, 90.0), default=0.0),
+        "tolerance": Key(_number(0.0, 90.0), default=22.5, help="angular tolerance in degrees"),
+        "bandwidth": Key(_number(0.0, lo_open=True), help="largest distance off the direction line"),
+    },
+    "grid": {
+        "cell": Key(_numbers((2, 3), lo=0.0, lo_open=True), required=True, help="cell size [dx, dy(, dz)]"),
+        "bounds": Key(_numbers((4,)), help="[xmin, ymin, xmax, ymax] in the working CRS"),
+        "z_range": Key(_numbers((2,), ascending=True), help="[bottom, top] of a 3-D grid"),
+        "padding": Key(_number(0.0), default=0.0, help="metres added around the data or domain"),
+    },
+    "domain": {
+        "polygon": Key(_path, help="GeoJSON outline"),
+        "raster": Key(_path, help="raster mask, nonzero inside"),
+    },
+    "search": {
+        "max_samples": Key(_int(1, 256), default=16),
+        "min_samples": Key(_int(0, 256), default=1),
+        "max_nodes": Key(_int(0, 256), default=16),
+        "sectors": Key(_choice(0, 4, 8), default=0),
+        "max_per_sector": Key(_int(1, 256)),
+        "max_per_hole": Key(_int(1, 256)),
+    },
+    "simulation": {
+        "engine": Key(_text, default="sequential"),
+        "realizations": Key(_int(1, 100000), required=True),
+        "seed": Key(_int(0, 2 ** 63 - 1), required=True),
+        "kriging": Key(_choice("simple", "ordinary"), default="simple"),
+        "workers": Key(_int(1, 1024)),
+        "cluster": Key(_text, help="Dask scheduler address, e.g. tcp://10.0.0.5:8786"),
+    },
+    "outputs": {
+        "cutoffs": Key(_number_list(), default=[], help="thresholds in data units"),
+        "above": Key(_bool, default=True, help="decision figures above (true) or below the cut-offs"),
+        "density": Key(_number(0.0, lo_open=True), help="t/m3, for tonnage above cut-off"),
+        "thickness": Key(_number(0.0, lo_open=True), help="metres, for volumes of a 2-D grid"),
+        "keep_realizations": Key(_bool, default=True, help="keep one GeoTIFF per realization"),
+        "plots": Key(_bool, default=True),
+        "cross_validation": Key(_bool, default=True),
+        "estimate": Key(_bool, default=True, help="kriging estimate and variance maps"),
+    },
+}
+TOP_LEVEL = {"title": Key(_text, default="")}
+SUBTABLES = {"data": ("composites",)}
+TABLE_LISTS = {"variogram": ("structures", "directions")}
+
+
+@dataclass(frozen=True)
+class RunSpec:
+    """A validated run spec.
+
+    Attributes
+    ----------
+    path : pathlib.Path or None
+        The spec file (None for a spec built from a dict).
+    base : pathlib.Path
+        The folder relative paths are resolved against.
+    values : dict
+        The normalized spec: every section present, defaults filled in.
+    sha256 : str
+        SHA-256 of the canonical JSON form, without :data:`EXECUTION_KEYS`.
+    """
+
+    path: Path | None
+    base: Path
+    values: dict = field(repr=False)
+    sha256: str
+
+    def __getitem__(self, dotted: str):
+        """Value at a dotted key path, e.g. ``spec["simulation.seed"]``."""
+        node = self.values
+        for part in dotted.split("."):
+            node = node[part]
+        return node
+
+    def get(self, dotted: str, default=None):
+        try:
+            return self[dotted]
+        except (KeyError, TypeError):
+            return default
+
+    def resolve(self, relative: str | os.PathLike) -> Path:
+        """A path from the spec, made absolute against the spec's folder."""
+        p = Path(relative).expanduser()
+        return p if p.is_absolute() else (self.base / p)
+
+    @property
+    def name(self) -> str:
+        return str(self.path) if self.path is not None else "<run spec>"
+
+    @property
+    def is_drillholes(self) -> bool:
+        return self.values["data"].get("collars") is not None
+
+    def input_files(self) -> dict[str, Path]:
+        """Every input file the spec names, by dotted key."""
+        out = {}
+        for section, keys in (("data", ("points", "collars", "surveys", "intervals")),
+                              ("variogram", ("model_file",)), ("domain", ("polygon", "raster"))):
+            for key in keys:
+                value = self.values[section].get(key)
+                if value is not None:
+                    out[f"{section}.{key}"] = self.resolve(value)
+        return out
+
+    def canonical(self) -> str:
+        """The canonical JSON text the hash is taken of."""
+        return canonical_json(self.values)
+
+    def to_dict(self) -> dict:
+        return copy.deepcopy(self.values)
+
+
+def canonical_json(values: Mapping) -> str:
+    """Sorted, compact JSON of a normalized spec without :data:`EXECUTION_KEYS`."""
+    trimmed = copy.deepcopy(dict(values))
+    for dotted in EXECUTION_KEYS:
+        section, key = dotted.split(".")
+        trimmed.get(section, {}).pop(key, None)
+    return json.dumps(trimmed, sort_keys=True, separators=(",", ":"), ensure_ascii=True)
+
+
+def parse_overrides(items: Iterable[str] | Mapping[str, Any] | None) -> dict[str, Any]:
+    """``["simulation.realizations=3", 'grid.cell=[50, 50]']`` -> ``{dotted: value}``.
+
+    Values are read as TOML values (numbers, booleans, lists, quoted text); a value
+    that is not valid TOML is taken as plain text.
+    """
+    if items is None:
+        return {}
+    if isinstance(items, Mapping):
+        return dict(items)
+    out = {}
+    for item in items:
+        key, sep, text = item.partition("=")
+        key = key.strip()
+        if not sep or not key:
+            raise SpecError("command line", [f"{item!r}: expected key.path=value, e.g. simulation.realizations=5"])
+        try:
+            out[key] = tomllib.loads(f"v = {text.strip()}")["v"]
+        except tomllib.TOMLDecodeError:
+            out[key] = text.strip()
+    return out
+
+
+def load_spec(path: str | os.PathLike, overrides: Iterable[str] | Mapping[str, Any] | None = None,
+              *, check_files: bool = True) -> RunSpec:
+    """Read and completely validate a run-spec TOML file.
+
+    Parameters
+    ----------
+    path : str or path-like
+        The spec file.  Relative paths inside it are relative to its folder.
+    overrides : list of "key.path=value" strings or dict, optional
+        Values that replace (or add) keys before validation, e.g.
+        ``{"simulation.realizations": 3}``; they are part of the spec's hash.
+    check_files : bool
+        Also check that every input file named in the spec exists.
+
+    Returns
+    -------
+    RunSpec
+
+    Raises
+    ------
+    geosim.errors.SpecError
+        Listing every problem as ``key.path: expected ..., found ...``.
+    """
+    path = Path(path)
+    try:
+        raw = path.read_bytes()
+    except FileNotFoundError:
+        raise SpecError(str(path), ["the run-spec file does not exist"]) from None
+    except OSError as exc:
+        raise SpecError(str(path), [f"cannot read the file ({exc.strerror})"]) from None
+    try:
+        values = tomllib.loads(raw.decode("utf-8"))
+    except UnicodeDecodeError:
+        raise SpecError(str(path), ["the file is not UTF-8 text; save it as UTF-8"]) from None
+    except tomllib.TOMLDecodeError as exc:
+        raise SpecError(str(path), [f"not valid TOML: {exc}"]) from None
+    return spec_from_dict(values, path.resolve().parent, overrides=overrides, file=path,
+                          check_files=check_files)
+
+
+def spec_from_dict(values: Mapping, base: str | os.PathLike = ".", *,
+                   overrides: Iterable[str] | Mapping[str, Any] | None = None,
+                   file: str | os.PathLike | None = None, check_files: bool = True) -> RunSpec:
+    """Validate a spec given as a dict (the parsed TOML) against :data:`SCHEMA`.
+
+    ``base`` is the folder relative paths are resolved against.  See :func:`load_spec`.
+    """
+    name = str(file) if file is not None else "<run spec>"
+    values = copy.deepcopy(dict(values))
+    problems: list[str] = []
+    try:
+        override_map = parse_overrides(overrides)
+    except SpecError as exc:
+        problems.extend(exc.problems)
+        override_map = {}
+    for dotted, value in override_map.items():
+        parts = dotted.split(".")
+        node = values
+        for part in parts[:-1]:
+            node = node.setdefault(part, {})
+            if not isinstance(node, dict):
+                problems.append(f"{dotted}: cannot override inside a non-table value")
+                break
+        else:
+            node[parts[-1]] = value
+
+    base = Path(base)
+    out = _check_sections(values, problems)
+    _check_combinations(out, problems)
+    if check_files:
+        _check_files(out, base, problems)
+    if problems:
+        raise SpecError(name, problems)
+    spec = RunSpec(path=Path(file) if file is not None else None, base=base, values=out, sha256="")
+    object.__setattr__(spec, "sha256", hashlib.sha256(spec.canonical().encode()).hexdigest())
+    return spec
+
+
+def _check_table(table: Any, schema: Mapping[str, Key], where: str, problems: list[str],
+                 allowed_extra: Iterable[str] = ()) -> dict:
+    """Check one table; append problems; return the normalized table with defaults."""
+    if not isinstance(table, dict):
+        problems.append(f"{where}: expected a table, found {_found(table)}")
+        return {k: copy.deepcopy(key.default) for k, key in schema.items()}
+    out = {}
+    extra = set(allowed_extra)
+    for k, v in table.items():
+        if k in schema or k in extra:
+            continue
+        close = difflib.get_close_matches(k, list(schema) + list(extra), n=1)
+        hint = f" (did you mean {close[0]!r}?)" if close else ""
+        problems.append(f"{where}.{k}: unknown key{hint}; expected one of {', '.join(sorted(schema))}")
+    for k, key in schema.items():
+        full = f"{where}.{k}" if where else k
+        if k not in table:
+            if key.required:
+                problems.append(f"{full}: required, expected {_expected(key)}, found nothing")
+            out[k] = copy.deepcopy(key.default)
+            continue
+        value, err = key.check(table[k])
+        if err:
+            problems.append(f"{full}: expected {err}, found {_found(table[k])}")
+            out[k] = copy.deepcopy(key.default)
+        else:
+            out[k] = value
+    return out
+
+
+def _expected(key: Key) -> str:
+    probe = object()
+    _, err = key.check(probe)
+    return err + (f" ({key.help})" if key.help else "")
+
+
+def _check_sections(values: dict, problems: list[str]) -> dict:
+    out: dict[str, Any] = {}
+    sections = [s for s in SCHEMA if "." not in s]
+    for k in values:
+        if k not in sections and k not in TOP_LEVEL:
+            close = difflib.get_close_matches(k, sections + list(TOP_LEVEL), n=1)
+            hint = f" (did you mean [{close[0]}]?)" if close else ""
+            problems.append(f"{k}: unknown section{hint}; expected sections {', '.join(sections)}")
+    for k, key in TOP_LEVEL.items():
+        if k in values:
+            value, err = key.check(values[k])
+            if err:
+                problems.append(f"{k}: expected {err}, found {_found(values[k])}")
+            out[k] = value if not err else key.default
+        else:
+            out[k] = key.default
+    for section in sections:
+        table = values.get(section, {})
+        normalized = _check_table(table, SCHEMA[section], section, problems,
+                                  allowed_extra=SUBTABLES.get(section, ()))
+        if isinstance(table, dict):
+            for sub in SUBTABLES.get(section, ()):
+                if sub in table:
+                    normalized[sub] = _check_table(table[sub], SCHEMA[f"{section}.{sub}"],
+                                                   f"{section}.{sub}", problems)
+                else:
+                    normalized[sub] = None
+            for sub in TABLE_LISTS.get(section, ()):
+                items = normalized.get(sub)
+                if isinstance(items, list):
+                    normalized[sub] = [
+                        _check_table(item, SCHEMA[f"{section}.{sub}"], f"{section}.{sub}[{i}]", problems)
+                        for i, item in enumerate(items)]
+        out[section] = normalized
+    return out
+
+
+def _check_combinations(spec: dict, problems: list[str]) -> None:
+    """Rules that involve more than one key."""
+    data = spec["data"]
+    if data["points"] is not None and data["collars"] is not None:
+        problems.append("data: expected either points = \"...\" or collars/intervals tables, found both")
+    elif data["points"] is None and data["collars"] is None:
+        problems.append('data: expected points = "file.csv" (point samples) or collars = "..." and '
+                        'intervals = "..." (drillholes), found neither')
+    if data["points"] is not None:
+        for k in ("x", "y"):
+            if data[k] is None:
+                problems.append(f"data.{k}: required for a points file, expected the column name, found nothing")
+        for k in ("collars", "surveys", "intervals"):
+            if data[k] is not None:
+                problems.append(f"data.{k}: only for drillholes, found it beside data.points")
+        if data["composites"] is not None:
+            problems.append("data.composites: only for drillholes, found it beside data.points")
+    if data["collars"] is not None:
+        if data["intervals"] is None:
+            problems.append('data.intervals: required for drillholes, expected a CSV path, found nothing')
+        for k in ("x", "y", "z"):
+            if data[k] is not None:
+                problems.append(f"data.{k}: only for a points file; rename drillhole columns with "
+                                f"data.columns, found {data[k]!r}")
+    elif data["columns"]:
+        problems.append("data.columns: only for drillholes, found it beside data.points")
+
+    decl = spec["declustering"]
+    grid = spec["grid"]
+    cell = grid["cell"]
+    ndim = len(cell) if cell else None
+    if data["collars"] is not None and ndim == 2:
+        problems.append("grid.cell: expected [dx, dy, dz] for drillhole data (a 3-D grid), found 2 sizes")
+    if grid["z_range"] is not None and ndim == 2:
+        problems.append("grid.z_range: only for a 3-D grid (cell = [dx, dy, dz]), found a 2-D cell")
+    b = grid["bounds"]
+    if b is not None and not (b[2] > b[0] and b[3] > b[1]):
+        problems.append(f"grid.bounds: expected [xmin, ymin, xmax, ymax] with xmax > xmin and ymax > ymin, "
+                        f"found {b}")
+    if spec["domain"]["polygon"] is not None and spec["domain"]["raster"] is not None:
+        problems.append("domain: expected polygon or raster, found both")
+    if decl["method"] == "none" and decl["sizes"] is not None:
+        problems.append('declustering.sizes: only with method = "cells", found it with method = "none"')
+
+    tr = spec["transform"]
+    if tr["lower"] is not None and tr["upper"] is not None and tr["lower"] >= tr["upper"]:
+        problems.append(f"transform.lower: expected a number below transform.upper ({tr['upper']:g}), "
+                        f"found {tr['lower']:g}")
+    if tr["log"] and tr["lower"] is not None and tr["lower"] <= 0:
+        problems.append(f"transform.lower: expected a positive number with log = true, found {tr['lower']:g}")
+
+    vg = spec["variogram"]
+    if vg["model_file"] is not None and vg["structures"] is not None:
+        problems.append("variogram: expected structures or model_file, found both")
+    if not vg["fit"] and vg["model_file"] is None and not vg["structures"]:
+        problems.append("variogram: with fit = false, expected structures = [...] or model_file = \"...\", "
+                        "found neither")
+    if vg["structures"] is not None and not vg["structures"]:
+        problems.append("variogram.structures: expected at least one structure, found an empty list")
+    kinds = _installed("structures")
+    for i, s in enumerate(vg["structures"] or []):
+        kind = s.get("kind")
+        if kind is not None and kinds is not None and kind not in kinds:
+            close = difflib.get_close_matches(kind, kinds, n=1)
+            hint = f" (did you mean {close[0]!r}?)" if close else ""
+            problems.append(f"variogram.structures[{i}].kind: expected one of {', '.join(kinds)}, "
+                            f"found {kind!r}{hint}")
+        if kind not in (None, "nugget") and s.get("ranges") is None:
+            problems.append(f"variogram.structures[{i}].ranges: required for a {kind} structure, expected "
+                            "[major], [major, minor] or [major, minor, vertical] in metres, found nothing")
+
+    search = spec["search"]
+    if search["min_samples"] > search["max_samples"]:
+        problems.append(f"search.min_samples: expected at most search.max_samples "
+                        f"({search['max_samples']}), found {search['min_samples']}")
+
+    sim = spec["simulation"]
+    engines = _installed("engines")
+    if sim["engine"] is not None and engines is not None and sim["engine"] not in engines:
+        problems.append(f"simulation.engine: expected one of {', '.join(engines)}, found {sim['engine']!r}")
+    if sim["workers"] is not None and sim["cluster"] is not None:
+        problems.append("simulation: expected workers or cluster, found both")
+
+    out = spec["outputs"]
+    if out["density"] is not None and ndim == 2 and out["thickness"] is None:
+        problems.append("outputs.thickness: required with density on a 2-D grid, expected metres, "
+                        "found nothing")
+    if tr["log"] and any(c <= 0 for c in out["cutoffs"]):
+        problems.append(f"outputs.cutoffs: expected positive numbers with transform.log = true, "
+                        f"found {out['cutoffs']}")
+
+
+def _installed(group: str) -> list[str] | None:
+    from .. import plugins
+    try:
+        return plugins.available(group)
+    except Exception:  # a broken registry is reported by geosim.plugins itself, not here
+        return None
+
+
+def _check_files(spec: dict, base: Path, problems: list[str]) -> None:
+    for section, keys in (("data", ("points", "collars", "surveys", "intervals")),
+                          ("variogram", ("model_file",)), ("domain", ("polygon", "raster"))):
+        for key in keys:
+            value = spec[section].get(key)
+            if value is None:
+                continue
+            p = Path(value).expanduser()
+            p = p if p.is_absolute() else base / p
+            if not p.is_file():
+                problems.append(f"{section}.{key}: expected an existing file (relative to the spec's "
+                                f"folder {base}), found no file at {value!r}")

@@ -1,0 +1,794 @@
+"""The whole geosim job as library calls: one function per step, and :func:`run` for all.
+
+Each command of the ``geosim`` command line is one call here, so a script can do
+exactly what the command line does::
+
+    import geosim.io.runspec, geosim.pipeline
+    spec = geosim.io.runspec.load_spec("sample_fields/alluvial_aquifer/run.toml")
+    result = geosim.pipeline.run(spec, "geosim-demo")
+
+Steps, in the order :func:`run` calls them:
+
+==========================  =========================================================
+:func:`prepare_data`        read samples (points or composited drillholes), reproject,
+                            decluster, fit the transform to normal scores
+:func:`make_grid`           the grid over the bounds, the domain or the data, masked
+                            by the domain
+:func:`variogram_model`     a model from the spec, a model file, or fitted to
+                            experimental variograms of the normal scores
+:func:`cross_validate`      leave-one-out kriging of the normal scores
+:func:`estimate`            kriging maps of the conditional mean and variance
+:func:`simulate`            realizations written one file each, resumable
+:func:`summarize`           multiband realizations, summary raster, decision figures,
+                            plots and the JSON run report
+==========================  =========================================================
+
+Resume
+------
+The output folder holds ``run-state/``: ``run.json`` (the spec's hashes, seed,
+input checksums) and one ``r#####.json`` record per finished realization, written
+atomically by the worker right after the realization's GeoTIFF.  A rerun with
+the same spec verifies each recorded file by SHA-256 and computes only the
+missing realizations; since realization ``i`` depends only on the seed and ``i``,
+the result equals an uninterrupted run.  The realization count, workers and
+cluster may change between runs (so a run can be extended); anything else makes
+the folder belong to another run, which is an error unless ``overwrite``.
+"""
+from __future__ import annotations
+
+import json
+import math
+import os
+import shutil
+import time
+from collections.abc import Callable, Mapping, Sequence
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+
+from .errors import InputError
+from .io.atomic import atomic_output
+from .io.runspec import RunSpec, canonical_json, load_spec
+
+Progress = Callable[[int, int, str], None]
+
+__all__ = ["PreparedData", "VariogramResult", "EstimateResult", "SimulationResult", "RunResult",
+           "TransformChain", "load_samples", "decluster", "fit_transform", "prepare_data", "make_grid",
+           "read_domain_geometry", "neighbourhood", "variogram_model", "cross_validate", "estimate",
+           "simulate", "summarize", "run", "describe_spec", "describe_data", "resume_key", "STATE_DIR"]
+
+STATE_DIR = "run-state"
+_STATE_FORMAT = 1
+# keys a resumed run may change: realization i depends only on the seed and i
+_RESUMABLE_CHANGES = ("simulation.realizations",)
+
+
+# -- data -------------------------------------------------------------------------------------
+
+class TransformChain:
+    """Transforms applied in order (e.g. log10, then normal scores), inverted in reverse.
+
+    Has the transform interface of :mod:`geosim.transforms` (``fit``, ``transform``,
+    ``inverse``, ``describe``, ``to_dict``) and is picklable, so its ``inverse`` can
+    run in simulation workers.
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> import geosim
+    >>> from geosim.pipeline import TransformChain
+    >>> t = TransformChain([geosim.LogTransform(), geosim.NormalScoreTransform()])
+    >>> k = np.array([1e-5, 1e-4, 1e-3, 1e-2])
+    >>> np.allclose(t.inverse(t.fit(k).transform(k)), k)
+    True
+    """
+
+    kind = "chain"
+
+    def __init__(self, steps: Sequence[Any]):
+        self.steps = list(steps)
+
+    def fit(self, values, weights=None) -> TransformChain:
+        v = np.asarray(values, dtype=float)
+        for step in self.steps:
+            v = step.fit(v, weights).transform(v)
+        return self
+
+    def transform(self, values) -> np.ndarray:
+        v = np.asarray(values, dtype=float)
+        for step in self.steps:
+            v = step.transform(v)
+        return v
+
+    def inverse(self, scores) -> np.ndarray:
+        v = np.asarray(scores, dtype=float)
+        for step in reversed(self.steps):
+            v = step.inverse(v)
+        return v
+
+    def describe(self) -> str:
+        return " then ".join(step.describe() for step in self.steps)
+
+    def to_dict(self) -> dict:
+        return {"kind": "chain", "steps": [step.to_dict() for step in self.steps]}
+
+
+@dataclass
+class PreparedData:
+    """Samples ready for modelling: coordinates in metres, weights, transform and scores."""
+
+    samples: Any                 # geosim.points.PointSet
+    values: np.ndarray           # (n,) the modelled variable, data units
+    weights: np.ndarray | None   # declustering weights summing to 1, or None
+    declustering: Any            # the declustering result (with its scan), or None
+    transform: Any               # fitted transform, data units -> normal scores
+    scores: np.ndarray           # (n,) normal scores of the samples
+    notes: list[str] = field(default_factory=list)
+
+    @property
+    def coords(self) -> np.ndarray:
+        return self.samples.coords
+
+    @property
+    def crs(self):
+        return self.samples.crs
+
+
+def load_samples(spec: RunSpec):
+    """Read the samples the spec names, in metres of a projected CRS.
+
+    Points come from one CSV; drillholes from collar, survey and interval tables,
+    desurveyed and composited to ``data.composites.length``.
+
+    Returns
+    -------
+    geosim.points.PointSet
+    """
+    d = spec["data"]
+    target = None if d["working_crs"] == "auto" else d["working_crs"]
+    if d["points"] is not None:
+        from .points import read_points
+        return read_points(spec.resolve(d["points"]), x=d["x"], y=d["y"], z=d["z"], values=d["value"],
+                           hole=d["id"], crs=d["crs"], target_crs=target)
+    from .drillholes import composite, read_drillholes
+    holes = read_drillholes(spec.resolve(d["collars"]),
+                            None if d["surveys"] is None else spec.resolve(d["surveys"]),
+                            spec.resolve(d["intervals"]), values=d["value"], crs=d["crs"],
+                            columns=d["columns"] or None)
+    comp = d["composites"]
+    return composite(holes, comp["length"], min_fraction=comp["min_fraction"], residual=comp["residual"])
+
+
+def decluster(spec: RunSpec, samples):
+    """Cell declustering of the samples as the spec asks, or None for ``method = "none"``."""
+    dc = spec["declustering"]
+    if dc["method"] == "none" or len(samples) < 3:
+        return None
+    from .declustering import cell_declustering
+    values = samples.column(spec["data.value"])
+    sizes = None if dc["sizes"] is None else np.linspace(dc["sizes"][0], dc["sizes"][1], dc["count"])
+    return cell_declustering(samples.coords, values, sizes=sizes, n_sizes=dc["count"],
+                             n_offsets=dc["offsets"], objective=dc["objective"])
+
+
+def fit_transform(spec: RunSpec, values: np.ndarray, weights: np.ndarray | None = None) -> TransformChain:
+    """The transform to normal scores the spec asks for, fitted to the data (and weights)."""
+    from .transforms import LogTransform, NormalScoreTransform
+    tr = spec["transform"]
+    name = spec["data.value"]
+    lower, upper = tr["lower"], tr["upper"]
+    steps = []
+    if tr["log"]:
+        steps.append(LogTransform(base=10.0, name=name))
+        lower = None if lower is None else math.log10(lower)
+        upper = None if upper is None else math.log10(upper)
+    steps.append(NormalScoreTransform(lower=lower, upper=upper, upper_tail=tr["upper_tail"],
+                                      upper_omega=tr["tail_power"], seed=spec["simulation.seed"], name=name))
+    return TransformChain(steps).fit(values, weights)
+
+
+def prepare_data(spec: RunSpec, progress: Progress | None = None) -> PreparedData:
+    """Read, decluster and transform the samples (:func:`load_samples`, :func:`decluster`,
+    :func:`fit_transform`)."""
+    samples = load_samples(spec)
+    name = spec["data.value"]
+    if hasattr(samples, "complete"):
+        samples = samples.complete(name)
+    values = samples.column(name)
+    if len(values) < 3:
+        raise InputError(f"only {len(values)} usable samples of {name!r}; simulation needs at least 3",
+                         file=", ".join(samples.source) or None, field=name,
+                         fix="check the value column and the composite settings")
+    dc = decluster(spec, samples)
+    weights = None if dc is None else np.asarray(dc.weights, dtype=float)
+    transform = fit_transform(spec, values, weights)
+    scores = transform.transform(values)
+    notes = list(getattr(samples, "notes", ()))
+    return PreparedData(samples, values, weights, dc, transform, np.asarray(scores, dtype=float), notes)
+
+
+# -- grid and domain ----------------------------------------------------------------------------
+
+def read_domain_geometry(spec: RunSpec, crs):
+    """The domain polygon in the working CRS, or None when the spec names none."""
+    path = spec["domain.polygon"]
+    if path is None:
+        return None
+    from .domain import read_domain
+    return read_domain(spec.resolve(path), crs)
+
+
+def make_grid(spec: RunSpec, data: PreparedData, geometry=None):
+    """The simulation grid: over ``grid.bounds``, else the domain, else the data (plus padding),
+    masked by the domain polygon or raster.
+
+    ``geometry`` is the domain polygon from :func:`read_domain_geometry` (read here if None).
+    """
+    from .grid import Grid
+    g = spec["grid"]
+    if geometry is None:
+        geometry = read_domain_geometry(spec, data.crs)
+    coords = data.coords
+    if g["bounds"] is not None:
+        bounds = tuple(g["bounds"])
+    elif geometry is not None:
+        bounds = geometry.bounds
+    else:
+        bounds = (coords[:, 0].min(), coords[:, 1].min(), coords[:, 0].max(), coords[:, 1].max())
+    zrange = None
+    if len(g["cell"]) == 3:
+        if g["z_range"] is not None:
+            zrange = tuple(g["z_range"])
+        elif coords.shape[1] == 3:
+            zrange = (coords[:, 2].min() - g["padding"], coords[:, 2].max() + g["padding"])
+        else:
+            raise InputError("a 3-D grid needs z_range = [bottom, top] for 2-D samples", field="grid.z_range",
+                             fix="give grid.z_range or a 2-D cell [dx, dy]")
+    if len(g["cell"]) == 2 and coords.shape[1] == 3:
+        raise InputError("the samples are 3-D but grid.cell has two sizes", field="grid.cell",
+                         fix="give cell = [dx, dy, dz]")
+    grid = Grid.covering(bounds, g["cell"], crs=data.crs, zrange=zrange, pad=g["padding"])
+    if geometry is not None:
+        grid = grid.clip_to_polygon(geometry)
+    if spec["domain.raster"] is not None:
+        from .domain import read_domain_raster
+        mask2d = read_domain_raster(spec.resolve(spec["domain.raster"]), grid)
+        grid = grid.with_mask(grid.mask & np.broadcast_to(mask2d, grid.shape))
+    if grid.n_active == 0:
+        raise InputError("no grid node falls inside the domain", file=spec["domain.polygon"] or spec.name,
+                         fix="check the domain's CRS and the grid bounds")
+    return grid
+
+
+def neighbourhood(spec: RunSpec):
+    """The :class:`geosim.search.Neighbourhood` of ``[search]``."""
+    from .search import Neighbourhood
+    s = spec["search"]
+    return Neighbourhood(max_samples=s["max_samples"], min_samples=s["min_samples"], sectors=s["sectors"],
+                         max_per_sector=s["max_per_sector"], max_per_hole=s["max_per_hole"],
+                         max_nodes=s["max_nodes"])
+
+
+# -- variogram ---------------------------------------------------------------------------------
+
+@dataclass
+class VariogramResult:
+    """The model used, and, when it was fitted, the experimental variograms and the fit."""
+
+    model: Any
+    experimental: list = field(default_factory=list)
+    fit: Any = None
+    source: str = ""
+
+
+def _structures_model(spec: RunSpec):
+    from .plugins import structures as registered
+    from .variogram import Model
+    dicts = [{k: v for k, v in item.items() if v is not None} for item in spec["variogram.structures"]]
+    try:
+        return Model.from_dicts(dicts, registered())
+    except (ValueError, TypeError) as exc:
+        raise InputError(str(exc), file=spec.name, field="variogram.structures",
+                         fix="check each structure's kind, sill, ranges and angles") from None
+
+
+def _default_template(data: PreparedData):
+    """Start values for a fit when the spec gives none: 0.1 nugget + 0.9 spherical, ranges a
+    third of the data extent (common practice, no source)."""
+    from .variogram import Anisotropy, Nugget, Spherical
+    span = np.ptp(data.coords, axis=0)
+    horizontal = max(float(np.hypot(span[0], span[1])) / 3.0, 1.0)
+    vertical = max(float(span[2]) / 3.0, 1.0) if span.size == 3 else horizontal
+    return Nugget(0.1) + Spherical(0.9, Anisotropy((horizontal, horizontal, vertical)))
+
+
+def experimental_variograms(spec: RunSpec, data: PreparedData, progress: Progress | None = None) -> list:
+    """Experimental variograms of the normal scores in the spec's directions."""
+    from .variogram.experimental import Direction, directional_variograms
+    vg = spec["variogram"]
+    coords = data.coords
+    lag = vg["lag"]
+    if lag is None:
+        # half the largest horizontal extent split into the lag count (common practice, no source)
+        span = np.ptp(coords[:, :2], axis=0)
+        lag = float(np.hypot(*span)) / 2.0 / vg["lag_count"]
+    directions = [Direction(d["azimuth"], d["dip"], azimuth_tol=d["tolerance"], dip_tol=d["tolerance"],
+                            bandwidth_h=d["bandwidth"] or np.inf, bandwidth_v=d["bandwidth"] or np.inf)
+                  for d in vg["directions"]] or [None]
+    return directional_variograms(coords, data.scores, directions, lag=lag, nlags=vg["lag_count"],
+                                  progress=progress)
+
+
+def variogram_model(spec: RunSpec, data: PreparedData, progress: Progress | None = None) -> VariogramResult:
+    """The covariance model of the normal scores: from a model file, from the spec's
+    structures, or fitted to experimental variograms (structures as start values)."""
+    vg = spec["variogram"]
+    if vg["model_file"] is not None and not vg["fit"]:
+        from .variogram.modelfile import load_model
+        return VariogramResult(load_model(spec.resolve(vg["model_file"])), source=vg["model_file"])
+    if not vg["fit"]:
+        return VariogramResult(_structures_model(spec), source="run spec")
+    if vg["model_file"] is not None:
+        from .variogram.modelfile import load_model
+        template = load_model(spec.resolve(vg["model_file"]))
+    elif vg["structures"]:
+        template = _structures_model(spec)
+    else:
+        template = _default_template(data)
+    from .variogram.fitting import fit_model
+    experimental = experimental_variograms(spec, data, progress)
+    fit = fit_model(experimental, template, weighting=vg["weighting"], total_sill=vg["total_sill"])
+    return VariogramResult(fit.model_, experimental, fit, source="fitted")
+
+
+# -- kriging -----------------------------------------------------------------------------------
+
+def cross_validate(spec: RunSpec, data: PreparedData, model, progress: Progress | None = None):
+    """Leave-one-out kriging of the normal scores with the spec's neighbourhood."""
+    from .kriging import cross_validate as loo
+    hole_ids = getattr(data.samples, "hole_ids", None)
+    return loo(data.coords, data.scores, model, method=spec["simulation.kriging"], mean=0.0,
+               neighbourhood=neighbourhood(spec), hole_ids=hole_ids, progress=progress)
+
+
+@dataclass
+class EstimateResult:
+    """Kriging maps on the grid (NaN outside the domain or where too few samples were found).
+
+    ``scores_mean`` and ``scores_variance`` are the kriged normal score and its kriging
+    variance; ``mean`` and ``variance`` are the conditional mean and variance in data
+    units under the multi-Gaussian model (Verly 1983, "The multigaussian approach and
+    its applications to the estimation of local reserves", Mathematical Geology 15(2)):
+    E[T^-1(Y)] with Y ~ N(kriged score, kriging variance), by Gauss-Hermite quadrature.
+    """
+
+    scores_mean: np.ndarray
+    scores_variance: np.ndarray
+    mean: np.ndarray
+    variance: np.ndarray
+
+
+def multigaussian_moments(transform, mean: np.ndarray, variance: np.ndarray,
+                          points: int = 24) -> tuple[np.ndarray, np.ndarray]:
+    """Mean and variance of ``transform.inverse(Y)`` for ``Y ~ N(mean, variance)``, elementwise.
+
+    Gauss-Hermite quadrature with ``points`` nodes (probabilists' form:
+    ``numpy.polynomial.hermite_e.hermegauss``, weights summing to sqrt(2 pi)).
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> from geosim.pipeline import multigaussian_moments
+    >>> class Exp:  # log-normal: E[exp(Y)] = exp(m + v/2)
+    ...     inverse = staticmethod(np.exp)
+    >>> m, v = multigaussian_moments(Exp, np.array([0.0]), np.array([1.0]))
+    >>> bool(np.isclose(m[0], np.exp(0.5)) and np.isclose(v[0], (np.e - 1) * np.e))
+    True
+    """
+    from numpy.polynomial.hermite_e import hermegauss
+    z, w = hermegauss(points)
+    w = w / w.sum()
+    mean = np.asarray(mean, dtype=float)
+    sd = np.sqrt(np.maximum(np.asarray(variance, dtype=float), 0.0))
+    out_mean = np.full(mean.shape, np.nan)
+    out_var = np.full(mean.shape, np.nan)
+    ok = np.isfinite(mean) & np.isfinite(sd)
+    if ok.any():
+        y = mean[ok][:, None] + sd[ok][:, None] * z[None, :]
+        v = np.asarray(transform.inverse(y.ravel()), dtype=float).reshape(y.shape)
+        m1 = v @ w
+        out_mean[ok] = m1
+        out_var[ok] = np.maximum((v - m1[:, None]) ** 2 @ w, 0.0)
+    return out_mean, out_var
+
+
+def estimate(spec: RunSpec, data: PreparedData, model, grid, progress: Progress | None = None) -> EstimateResult:
+    """Kriging of the normal scores at every active grid node, with data-unit moments."""
+    from .kriging import krige
+    targets = grid.coords()
+    hole_ids = getattr(data.samples, "hole_ids", None)
+    result = krige(data.coords, data.scores, targets, model, method=spec["simulation.kriging"], mean=0.0,
+                   neighbourhood=neighbourhood(spec), hole_ids=hole_ids, progress=progress)
+    mean, var = multigaussian_moments(data.transform, result.estimate, result.variance)
+    maps = []
+    for values in (result.estimate, result.variance, mean, var):
+        full = np.full(grid.shape, np.nan)
+        full[grid.mask] = values
+        maps.append(full)
+    return EstimateResult(*maps)
+
+
+# -- resume state ----------------------------------------------------------------------------
+
+def resume_key(spec: RunSpec) -> str:
+    """SHA-256 of the spec without the keys a resumed run may change (the realization count)."""
+    import hashlib
+    values = spec.to_dict()
+    for dotted in _RESUMABLE_CHANGES:
+        section, key = dotted.split(".")
+        values[section].pop(key, None)
+    return hashlib.sha256(canonical_json(values).encode()).hexdigest()
+
+
+def _input_checksums(spec: RunSpec) -> dict[str, str]:
+    from .io.report import file_sha256
+    return {key: file_sha256(path) for key, path in spec.input_files().items()}
+
+
+def _write_json(path: Path, payload: Mapping, overwrite: bool = True) -> None:
+    with atomic_output(path, overwrite=overwrite) as tmp:
+        tmp.write_text(json.dumps(payload, indent=1, sort_keys=True, default=_plain))
+
+
+def _plain(obj):
+    if isinstance(obj, np.generic):
+        return obj.item()
+    if isinstance(obj, np.ndarray):
+        return obj.tolist()
+    if isinstance(obj, Path):
+        return str(obj)
+    raise TypeError(f"cannot write {type(obj).__name__} to JSON")
+
+
+def _differences(old: Mapping, new: Mapping) -> list[str]:
+    keys = sorted(set(old) | set(new))
+    return [k for k in keys if old.get(k) != new.get(k)]
+
+
+def _open_output(spec: RunSpec, out_dir: Path, *, overwrite: bool, resume: bool) -> dict:
+    """Check the output folder belongs to this run (or is new); return the run-state header."""
+    state_dir = out_dir / STATE_DIR
+    header = {"format": _STATE_FORMAT, "spec_sha256": spec.sha256, "resume_key": resume_key(spec),
+              "seed": spec["simulation.seed"], "inputs": _input_checksums(spec),
+              "spec": json.loads(canonical_json(spec.values))}
+    state_file = state_dir / "run.json"
+    if state_file.is_file():
+        try:
+            old = json.loads(state_file.read_text())
+        except (OSError, ValueError):
+            old = {}
+        same = (old.get("format") == _STATE_FORMAT and old.get("resume_key") == header["resume_key"]
+                and old.get("seed") == header["seed"] and old.get("inputs") == header["inputs"])
+        if not same and not overwrite:
+            what = []
+            if old.get("inputs") != header["inputs"]:
+                what.append("input files " + ", ".join(_differences(old.get("inputs", {}), header["inputs"])))
+            changed = _differences(old.get("spec", {}), header["spec"])
+            if changed:
+                what.append("spec sections [" + "], [".join(changed) + "]")
+            raise InputError("the output folder holds a run of a different spec or different inputs"
+                             + (f" (changed: {'; '.join(what)})" if what else ""), file=str(out_dir),
+                             fix="choose another --out folder, or pass --overwrite to replace that run")
+        if not same or not resume:
+            # the folder is this run's to replace: forget the old records and realization files
+            shutil.rmtree(state_dir)
+            shutil.rmtree(out_dir / "realizations", ignore_errors=True)
+    elif out_dir.is_dir() and any(out_dir.iterdir()) and not overwrite:
+        raise InputError("the output folder is not empty and holds no geosim run state", file=str(out_dir),
+                         fix="choose a new or empty --out folder, or pass --overwrite")
+    state_dir.mkdir(parents=True, exist_ok=True)
+    _write_json(state_file, header)
+    return header
+
+
+def _completed(out_dir: Path, header: Mapping, n_realizations: int) -> dict[int, dict]:
+    """Records of realizations already written by an earlier run of this spec, verified by checksum."""
+    from .io.geotiff import verify_realization
+    kept = {}
+    for path in sorted((out_dir / STATE_DIR).glob("r*.json")):
+        try:
+            rec = json.loads(path.read_text())
+        except (OSError, ValueError):
+            continue
+        index = rec.get("index")
+        if (not isinstance(index, int) or index >= n_realizations or rec.get("resume_key") != header["resume_key"]
+                or rec.get("seed") != header["seed"]):
+            continue
+        record = rec.get("record", {})
+        files = record.get("files", [])
+        if files and all(verify_realization(out_dir / f, sha) for f, sha in zip(files, record.get("sha256", []))):
+            kept[index] = record
+    return kept
+
+
+class RecordingSink:
+    """Picklable sink: runs the writer in the worker, then records the result atomically
+    in ``run-state/`` so an interrupted run can keep it."""
+
+    def __init__(self, writer, state_dir: str | os.PathLike, resume_key: str, seed: int):
+        self.writer = writer
+        self.state_dir = Path(state_dir)
+        self.resume_key = resume_key
+        self.seed = seed
+
+    def __call__(self, index: int, field: np.ndarray) -> dict:
+        record = self.writer(index, field)
+        _write_json(self.state_dir / f"r{int(index):05d}.json",
+                    {"index": int(index), "resume_key": self.resume_key, "seed": self.seed, "record": record})
+        return record
+
+
+# -- simulation --------------------------------------------------------------------------------
+
+@dataclass
+class SimulationResult:
+    """Records of every realization in index order, and which were kept from an earlier run."""
+
+    records: list
+    kept: list[int]
+    computed: list[int]
+    writer: Any
+
+
+def _inputs(spec: RunSpec) -> dict[str, str]:
+    """{input file path: SHA-256} for provenance."""
+    from .io.report import file_sha256
+    return {str(path): file_sha256(path) for path in spec.input_files().values()}
+
+
+def provenance_tags(spec: RunSpec, data: PreparedData, model) -> dict[str, str]:
+    """The provenance tags every raster of the run carries."""
+    from .io.report import provenance
+    return provenance(seed=spec["simulation.seed"], engine=spec["simulation.engine"], model=model,
+                      transform=data.transform, inputs=_inputs(spec), units=spec["data.units"] or None,
+                      extra={"run_spec_sha256": spec.sha256})
+
+
+def _figures(spec: RunSpec, grid):
+    """The per-realization decision figures the outputs ask for, as a picklable callable."""
+    import functools
+
+    from . import summaries
+    out = spec["outputs"]
+    if not out["cutoffs"]:
+        return None
+    if out["density"] is not None:
+        thickness = out["thickness"] if grid.ndim == 2 else None
+        return functools.partial(_grade_tonnage, grid=grid, cutoffs=tuple(out["cutoffs"]),
+                                 density=out["density"], thickness=thickness)
+    func = summaries.fraction_above if out["above"] else summaries.fraction_below
+    return functools.partial(func, grid=grid, thresholds=tuple(out["cutoffs"]))
+
+
+def _grade_tonnage(field, *, grid, cutoffs, density, thickness):
+    from .summaries import grade_tonnage
+    return grade_tonnage(field, grid, cutoffs, density, thickness)
+
+
+def simulate(spec: RunSpec, data: PreparedData, model, grid, out_dir: str | os.PathLike, *,
+             overwrite: bool = False, resume: bool = True, progress: Progress | None = None,
+             _header: Mapping | None = None) -> SimulationResult:
+    """Compute the spec's realizations into ``out_dir/realizations/``, keeping verified ones.
+
+    Parameters
+    ----------
+    spec, data, model, grid
+        From :func:`load_spec`, :func:`prepare_data`, :func:`variogram_model` and :func:`make_grid`.
+    out_dir : path
+        The run's output folder (created if missing).
+    overwrite : bool
+        Replace a run of another spec in ``out_dir``.
+    resume : bool
+        Keep realizations an earlier run of the same spec completed (verified by SHA-256).
+    progress : callable, optional
+        ``progress(done, total, "realizations")``.
+    """
+    from .io.geotiff import RealizationWriter
+    from .simulation import simulate as run_engine
+    out_dir = Path(out_dir)
+    out_dir.mkdir(parents=True, exist_ok=True)
+    header = _header if _header is not None else _open_output(spec, out_dir, overwrite=overwrite, resume=resume)
+    n = spec["simulation.realizations"]
+    kept = _completed(out_dir, header, n) if resume else {}
+    missing = [i for i in range(n) if i not in kept]
+    writer = RealizationWriter(out_dir, grid, tags=provenance_tags(spec, data, model), units=spec["data.units"],
+                               back_transform=data.transform.inverse, figures=_figures(spec, grid),
+                               overwrite=True)
+    sink = RecordingSink(writer, out_dir / STATE_DIR, header["resume_key"], header["seed"])
+    sim = spec["simulation"]
+    records = dict(kept)
+    if missing:
+        new = run_engine(data.coords, data.scores, model, grid, n_realizations=n, seed=sim["seed"],
+                         engine=sim["engine"], neighbourhood=neighbourhood(spec), kriging=sim["kriging"],
+                         workers=sim["workers"], client=sim["cluster"], sink=sink, indices=missing,
+                         progress=progress)
+        records.update({i: r for i, r in zip(missing, new)})
+    elif progress is not None:
+        progress(n, n, "realizations")
+    return SimulationResult([records[i] for i in range(n)], sorted(kept), missing, writer)
+
+
+# -- summaries and report -----------------------------------------------------------------------
+
+def summarize(spec: RunSpec, data: PreparedData, model, grid, out_dir: str | os.PathLike,
+              simulation: SimulationResult, *, extra: Mapping[str, Any] | None = None,
+              progress: Progress | None = None) -> dict[str, list[str]]:
+    """Assemble the multiband realizations, the summary raster, decision figures and the
+    JSON run report from the realization files of :func:`simulate`.
+
+    Returns output kind -> list of paths.
+    """
+    from .io.report import provenance, write_report
+    out_dir = Path(out_dir)
+    out = spec["outputs"]
+    files = simulation.writer.finish(simulation.records, cutoffs=out["cutoffs"], stack=True,
+                                     keep_realization_files=out["keep_realizations"], progress=progress)
+    report = dict(provenance(seed=spec["simulation.seed"], engine=spec["simulation.engine"], model=model,
+                             transform=data.transform, inputs=_inputs(spec), units=spec["data.units"] or None))
+    report.update({"run_spec": spec.name, "run_spec_sha256": spec.sha256, "parameters": spec.to_dict(),
+                   "samples": len(data.values), "notes": data.notes,
+                   "grid": {"shape": list(grid.shape), "cell": list(grid.cell), "active_nodes": grid.n_active},
+                   "realizations": {"count": len(simulation.records), "kept_from_earlier_run": simulation.kept}})
+    if extra:
+        report.update(extra)
+    report_path = write_report(out_dir / "report.json", report, overwrite=True)
+    files["report"] = [str(report_path)]
+    return files
+
+
+# -- the whole job -----------------------------------------------------------------------------
+
+@dataclass
+class RunResult:
+    """What :func:`run` did and wrote."""
+
+    out_dir: Path
+    spec_sha256: str
+    files: dict[str, list[str]]
+    model: Any
+    kept: list[int]
+    computed: list[int]
+    crossval: dict | None
+    timings: dict[str, float]
+    notes: list[str]
+
+
+def run(spec: RunSpec | str | os.PathLike, out_dir: str | os.PathLike, *, overwrite: bool = False,
+        resume: bool = True, progress: Progress | None = None) -> RunResult:
+    """Run the whole job of a run spec into ``out_dir``.
+
+    Parameters
+    ----------
+    spec : RunSpec or path
+        A spec from :func:`geosim.io.runspec.load_spec`, or the path of one.
+    out_dir : path
+        Output folder, created if missing.  A folder holding a run of the same spec
+        is resumed; one holding another run raises :class:`~geosim.errors.InputError`
+        unless ``overwrite``.
+    overwrite : bool
+        Replace another run's outputs in ``out_dir``.
+    resume : bool
+        Keep verified realizations of an interrupted run of the same spec.
+    progress : callable, optional
+        ``progress(done, total, what)`` for long steps.
+
+    Returns
+    -------
+    RunResult
+    """
+    if not isinstance(spec, RunSpec):
+        spec = load_spec(spec)
+    out_dir = Path(out_dir)
+    timings: dict[str, float] = {}
+
+    def timed(name, func, *args, **kwargs):
+        t0 = time.perf_counter()
+        value = func(*args, **kwargs)
+        timings[name] = time.perf_counter() - t0
+        return value
+
+    data = timed("read and transform data", prepare_data, spec, progress)
+    geometry = read_domain_geometry(spec, data.crs)
+    grid = timed("grid and domain", make_grid, spec, data, geometry)
+    out_dir.mkdir(parents=True, exist_ok=True)
+    header = _open_output(spec, out_dir, overwrite=overwrite, resume=resume)
+    vg = timed("variogram", variogram_model, spec, data, progress)
+    files: dict[str, list[str]] = {}
+    extra: dict[str, Any] = {"variogram": {"model": str(vg.model), "source": vg.source}}
+    files.update(_variogram_outputs(spec, vg, out_dir))
+    crossval = None
+    if spec["outputs.cross_validation"]:
+        cv = timed("cross-validation", cross_validate, spec, data, vg.model, progress)
+        crossval = _crossval_summary(cv)
+        extra["cross_validation"] = crossval
+        files.update(_crossval_outputs(spec, cv, data, out_dir))
+    if spec["outputs.estimate"]:
+        est = timed("kriging estimate", estimate, spec, data, vg.model, grid, progress)
+        files.update(_estimate_outputs(spec, data, vg.model, grid, est, out_dir))
+    sim = timed("simulation", simulate, spec, data, vg.model, grid, out_dir, overwrite=overwrite,
+                resume=resume, progress=progress, _header=header)
+    files.update(timed("summaries and report", summarize, spec, data, vg.model, grid, out_dir, sim,
+                       extra=extra, progress=progress))
+    return RunResult(out_dir, spec.sha256, files, vg.model, sim.kept, sim.computed, crossval, timings,
+                     list(data.notes))
+
+
+def _variogram_outputs(spec: RunSpec, vg: VariogramResult, out_dir: Path) -> dict[str, list[str]]:
+    from .variogram.modelfile import save_model
+    files = {"model": [str(save_model(vg.model, out_dir / "variogram_model.toml", overwrite=True))]}
+    if vg.experimental and spec["outputs.plots"]:
+        from .variogram.plots import plot_variogram
+        files["variogram_plot"] = [str(plot_variogram(vg.experimental, vg.model, path=out_dir / "variogram.png",
+                                                      overwrite=True))]
+    return files
+
+
+def _crossval_summary(cv) -> dict:
+    keys = ("mean_error", "rmse", "mean_standardized_squared_error")
+    return {k: float(getattr(cv, k)) for k in keys if hasattr(cv, k)}
+
+
+def _crossval_outputs(spec: RunSpec, cv, data: PreparedData, out_dir: Path) -> dict[str, list[str]]:
+    from .io.crossval import plot_crossval, write_crossval_csv
+    files = {"cross_validation": [str(write_crossval_csv(cv, out_dir / "cross_validation.csv", overwrite=True))]}
+    if spec["outputs.plots"]:
+        files["cross_validation"].append(str(plot_crossval(cv, out_dir / "cross_validation.png", overwrite=True)))
+    return files
+
+
+def _estimate_outputs(spec: RunSpec, data: PreparedData, model, grid, est: EstimateResult,
+                      out_dir: Path) -> dict[str, list[str]]:
+    from .io.geotiff import write_raster
+    units = spec["data.units"]
+    u = f" ({units})" if units else ""
+    stack = np.stack([est.mean, np.sqrt(est.variance), est.scores_mean, est.scores_variance],
+                     axis=0 if grid.ndim == 2 else 1)
+    descriptions = [(f"kriged conditional mean{u}", units), (f"conditional standard deviation{u}", units),
+                    ("kriged normal score", ""), ("kriging variance of the normal score", "")]
+    written = write_raster(out_dir / "estimate.tif", stack, grid, descriptions=descriptions,
+                           tags=provenance_tags(spec, data, model), overwrite=True)
+    return {"estimate": [str(p) for p in written]}
+
+
+# -- descriptions for the command line ---------------------------------------------------------
+
+def describe_spec(spec: RunSpec) -> list[tuple[str, str]]:
+    """Short (label, text) rows saying what the spec will do."""
+    d, g, s = spec["data"], spec["grid"], spec["simulation"]
+    if d["points"] is not None:
+        source = f"points {d['points']} ({d['value']}, {d['crs']})"
+    else:
+        source = f"drillholes {d['collars']}, {d['intervals']} ({d['value']}, {d['crs']})"
+    vg = spec["variogram"]
+    variogram = ("fit to experimental variograms" if vg["fit"] else "fixed") + (
+        f", from {vg['model_file']}" if vg["model_file"] else "")
+    where = s["cluster"] or (f"{s['workers']} worker(s)" if s["workers"] else "all local cores")
+    return [("data", source), ("variogram", variogram),
+            ("grid cell", " x ".join(f"{c:g}" for c in g["cell"]) + " m"),
+            ("simulation", f"{s['realizations']} realization(s), {s['engine']} engine, seed {s['seed']}, "
+                           f"on {where}")]
+
+
+def describe_data(data: PreparedData) -> list[tuple[str, str]]:
+    """Short (label, text) rows describing prepared samples."""
+    v = data.values
+    rows = [("samples", f"{len(v)} in {data.coords.shape[1]}-D"),
+            ("CRS", data.crs.name if data.crs is not None else "local metres"),
+            ("values", f"min {v.min():.4g}, mean {v.mean():.4g}, max {v.max():.4g}")]
+    if data.weights is not None:
+        rows.append(("declustered mean", f"{float(np.sum(data.weights * v) / np.sum(data.weights)):.4g}"))
+    rows.append(("transform", data.transform.describe()))
+    rows += [("note", n) for n in data.notes]
+    return rows
