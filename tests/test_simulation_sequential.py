@@ -1,0 +1,214 @@
+"""Sequential engine: local kriging, data reproduction, marginal law, variogram, agreement with exact.
+
+Sampling-error tolerances (R independent realizations, one node):
+* ensemble mean: standard error sigma / sqrt(R);
+* ensemble variance: relative standard error sqrt(2 / (R - 1)) (chi-square, R - 1 dof).
+We allow 4.5 standard errors (two-sided 6.8e-6 per comparison, < 1e-3 over 100 nodes);
+seeds are fixed, so a pass is reproducible.
+"""
+import numpy as np
+import pytest
+from scipy import stats
+from sklearn.gaussian_process import GaussianProcessRegressor
+from sklearn.gaussian_process.kernels import ConstantKernel, Matern, WhiteKernel
+
+import geosim
+from geosim.search import Neighbourhood
+from geosim.simulation import realization_rng
+from geosim.simulation.exact import ExactEngine
+from geosim.simulation.sequential import SequentialEngine
+
+Z = 4.5
+XY = np.array([[12.0, 71.0], [47.0, 44.0], [83.0, 18.0], [21.0, 15.0], [66.0, 81.0], [55.0, 62.0]]) * 0.8
+SCORES = np.array([1.3, -0.4, 0.9, -1.6, 0.2, 0.7])
+
+
+def _model():
+    return geosim.Nugget(0.1) + geosim.Exponential(0.9, geosim.Anisotropy((60.0, 30.0), azimuth=60.0))
+
+
+def _ensemble(engine, plan, r, seed):
+    return np.array([engine.realize(plan, realization_rng(seed, i)) for i in range(r)])
+
+
+def test_one_node_draws_from_simple_kriging_distribution():
+    # a one-node grid: every realization is mean + sd * N(0, 1) of simple kriging at that node
+    grid = geosim.Grid(30.0, 30.0, (10.0, 10.0), (1, 1))
+    model = geosim.Nugget(0.1) + geosim.Exponential(0.9, geosim.Anisotropy.isotropic(60.0))
+    engine = SequentialEngine()
+    plan = engine.prepare(XY, SCORES, model, grid, neighbourhood=Neighbourhood(max_samples=6, ranges=(500.0, 500.0)))
+    r = 8000
+    vals = _ensemble(engine, plan, r, 4)[:, 0, 0]
+    # reference: zero-mean GP posterior = simple kriging (Rasmussen and Williams 2006, eqs. 2.23-2.24);
+    # sklearn Matern(nu=0.5, l) = exp(-h/l), geosim's exponential exp(-3h/range), so l = range/3
+    kernel = ConstantKernel(0.9, "fixed") * Matern(20.0, "fixed", nu=0.5) + WhiteKernel(0.1, "fixed")
+    gp = GaussianProcessRegressor(kernel, alpha=1e-12, optimizer=None).fit(XY, SCORES)
+    mean, std = gp.predict(grid.coords(), return_std=True)
+    assert abs(vals.mean() - mean[0]) <= Z * std[0] / np.sqrt(r)
+    assert abs(vals.var(ddof=1) / std[0] ** 2 - 1.0) <= Z * np.sqrt(2.0 / (r - 1))
+
+
+def test_one_node_ordinary_kriging_option():
+    grid = geosim.Grid(30.0, 30.0, (10.0, 10.0), (1, 1))
+    model = _model()
+    shifted = SCORES + 3.0
+    engine = SequentialEngine()
+    plan = engine.prepare(XY, shifted, model, grid, kriging="ordinary",
+                          neighbourhood=Neighbourhood(max_samples=6, ranges=(500.0, 500.0)))
+    # bordered ordinary kriging system (Journel and Huijbregts 1978, Mining Geostatistics, V.A; from memory)
+    n = len(shifted)
+    a = np.ones((n + 1, n + 1))
+    a[:n, :n] = model.cov_matrix(XY)
+    a[n, n] = 0.0
+    b = np.append(model.cov_matrix(XY, grid.coords())[:, 0], 1.0)
+    sol = np.linalg.solve(a, b)
+    mean, var = sol[:n] @ shifted, model.sill - sol[:n] @ b[:n] - sol[n]
+    r = 8000
+    vals = _ensemble(engine, plan, r, 8)[:, 0, 0]
+    assert abs(vals.mean() - mean) <= Z * np.sqrt(var / r)
+    assert abs(vals.var(ddof=1) / var - 1.0) <= Z * np.sqrt(2.0 / (r - 1))
+    assert mean > 2.0  # simple kriging with mean 0 would be far below
+
+
+@pytest.mark.parametrize("model", [geosim.Model([geosim.Spherical(1.0, geosim.Anisotropy.isotropic(40.0))]),
+                                   geosim.Nugget(0.3) + geosim.Spherical(0.7, geosim.Anisotropy.isotropic(40.0))])
+def test_data_reproduced_at_data_nodes(model):
+    grid = geosim.Grid(0.0, 0.0, (5.0, 5.0), (16, 16))
+    on_nodes = np.array([[2.5, 2.5], [37.5, 42.5], [77.5, 77.5], [52.5, 12.5]])
+    off_nodes = np.array([[20.0, 60.0], [61.0, 31.0]])  # on cell corners: kept at their true place
+    xy = np.vstack([on_nodes, off_nodes])
+    scores = np.array([1.5, -2.0, 0.3, 0.9, -0.7, 1.1])
+    engine = SequentialEngine()
+    plan = engine.prepare(xy, scores, model, grid, neighbourhood=Neighbourhood(max_samples=8, max_nodes=12))
+    rows = ((grid.ymax - on_nodes[:, 1]) / 5.0).astype(int)
+    cols = (on_nodes[:, 0] / 5.0).astype(int)
+    for i in range(3):
+        field = engine.realize(plan, realization_rng(1, i))
+        np.testing.assert_array_equal(field[rows, cols], scores[:4])
+        assert np.isfinite(field).all()
+
+
+def _integral_range_cells(model, cell, n=81):
+    """Integral range in cells: the sum of correlations over all grid offsets.
+
+    The number of independent pieces of information in a field of N cells is about N
+    divided by it (Lantuejoul 2002, Geostatistical Simulation, section 2.3, from memory).
+    """
+    o = np.arange(-n, n + 1) * cell
+    h = np.stack(np.meshgrid(o, o, indexing="ij"), axis=-1).reshape(-1, 2)
+    return float(model.covariance(h).sum() / model.sill)
+
+
+def test_realization_scores_are_standard_normal():
+    grid = geosim.Grid(0.0, 0.0, (5.0, 5.0), (64, 64))
+    model = geosim.Model([geosim.Spherical(1.0, geosim.Anisotropy.isotropic(30.0))])
+    engine = SequentialEngine()
+    plan = engine.prepare(np.zeros((0, 2)), np.zeros(0), model, grid, neighbourhood=Neighbourhood(max_nodes=16))
+    fields = _ensemble(engine, plan, 20, 13)
+    # Spatial correlation shrinks the effective sample size of a field to N / integral range;
+    # the Kolmogorov-Smirnov statistic is compared with its 0.1% critical value 1.95 / sqrt(n_eff)
+    # (Massey 1951, JASA 46(253), table 1, asymptotic column).
+    n_eff = grid.size / _integral_range_cells(model, 5.0)
+    for f in fields:
+        assert stats.kstest(f.ravel(), "norm").statistic <= 1.95 / np.sqrt(n_eff)
+    pooled = stats.kstest(fields.ravel(), "norm").statistic
+    assert pooled <= 1.95 / np.sqrt(len(fields) * n_eff)
+
+
+def _semivariogram(field, axis, lag):
+    a = field.take(range(lag, field.shape[axis]), axis=axis)
+    b = field.take(range(field.shape[axis] - lag), axis=axis)
+    return 0.5 * np.mean((a - b) ** 2)
+
+
+def test_variogram_of_realizations_matches_model():
+    grid = geosim.Grid(0.0, 0.0, (5.0, 5.0), (60, 60))
+    # anisotropic: 75 m north-south, 40 m east-west, so the axes convention is checked too
+    model = geosim.Model([geosim.Spherical(1.0, geosim.Anisotropy((75.0, 40.0), azimuth=0.0))])
+    engine = SequentialEngine()
+    plan = engine.prepare(np.zeros((0, 2)), np.zeros(0), model, grid, neighbourhood=Neighbourhood(max_nodes=24))
+    fields = _ensemble(engine, plan, 24, 21)
+    for axis, step, reach in ((0, np.array([0.0, 5.0]), 15), (1, np.array([5.0, 0.0]), 8)):
+        for lag in range(1, reach + 1):
+            per = np.array([_semivariogram(f, axis, lag) for f in fields])
+            target = float(model.semivariance(step[None, :] * lag)[0])
+            # the expected experimental semivariogram of a stationary field is the model itself;
+            # its standard error over the realizations must leave room inside the 10% band
+            assert per.std(ddof=1) / np.sqrt(len(per)) <= 0.04 * target
+            assert abs(per.mean() / target - 1.0) <= 0.10, (axis, lag, per.mean(), target)
+
+
+@pytest.mark.parametrize("max_nodes,r", [(63, 1200), (16, 1200)])
+def test_agrees_with_exact_engine(max_nodes, r):
+    # with the whole grid in the neighbourhood sequential simulation is exact (the chain rule of
+    # a Gaussian vector); with 16 nodes the screen effect keeps it within sampling error here
+    grid = geosim.Grid(0.0, 0.0, (8.0, 8.0), (8, 8))
+    model = _model()
+    exact = ExactEngine().prepare(XY, SCORES, model, grid)
+    engine = SequentialEngine()
+    plan = engine.prepare(XY, SCORES, model, grid, neighbourhood=Neighbourhood(max_samples=6,
+                                                                             max_nodes=max_nodes))
+    vals = _ensemble(engine, plan, r, 3).reshape(r, -1)
+    mean, var = exact.mean, exact.variance
+    assert np.all(np.abs(vals.mean(axis=0) - mean) <= Z * np.sqrt(var / r))
+    assert np.all(np.abs(vals.var(axis=0, ddof=1) / var - 1.0) <= Z * np.sqrt(2.0 / (r - 1)))
+
+
+def test_three_d_grid_agrees_with_exact_engine():
+    grid = geosim.Grid(0.0, 0.0, (12.0, 12.0, 4.0), (3, 4, 4), zmin=100.0)
+    model = geosim.Nugget(0.05) + geosim.Spherical(0.95, geosim.Anisotropy((60.0, 40.0, 10.0), azimuth=30.0,
+                                                                           dip=10.0))
+    xyz = np.array([[13.0, 21.0, 101.0], [34.0, 38.0, 106.0], [41.0, 9.0, 110.5], [22.0, 44.0, 103.0]])
+    scores = np.array([1.1, -0.6, 0.4, 1.7])
+    exact = ExactEngine().prepare(xyz, scores, model, grid)
+    engine = SequentialEngine()
+    plan = engine.prepare(xyz, scores, model, grid, neighbourhood=Neighbourhood(max_samples=4, max_nodes=47,
+                                                                              ranges=(200.0, 200.0, 50.0)))
+    r = 800
+    vals = _ensemble(engine, plan, r, 17).reshape(r, -1)
+    assert np.all(np.abs(vals.mean(axis=0) - exact.mean) <= Z * np.sqrt(exact.variance / r))
+    assert np.all(np.abs(vals.var(axis=0, ddof=1) / exact.variance - 1.0) <= Z * np.sqrt(2.0 / (r - 1)))
+
+
+def test_mask_from_polygon_gives_nan_outside():
+    from shapely.geometry import Polygon
+    grid = geosim.Grid(0.0, 0.0, (5.0, 5.0), (20, 20)).clip_to_polygon(
+        Polygon([(0, 0), (100, 0), (0, 100)]))
+    model = geosim.Model([geosim.Spherical(1.0, geosim.Anisotropy.isotropic(30.0))])
+    for engine in (SequentialEngine(), ExactEngine()):
+        plan = engine.prepare(np.array([[20.0, 20.0]]), np.array([0.5]), model, grid)
+        field = engine.realize(plan, realization_rng(0, 0))
+        assert np.isnan(field[~grid.mask]).all() and np.isfinite(field[grid.mask]).all()
+        assert 0 < grid.n_active < grid.size
+
+
+def test_pure_nugget_is_independent_standard_normal():
+    grid = geosim.Grid(0.0, 0.0, (1.0, 1.0), (40, 50))
+    engine = SequentialEngine()
+    plan = engine.prepare(np.zeros((0, 2)), np.zeros(0), geosim.Model([geosim.Nugget(1.0)]), grid)
+    f = engine.realize(plan, realization_rng(2, 0)).ravel()
+    # 2000 independent N(0,1): KS 0.1% critical value 1.95/sqrt(n) (Massey 1951, table 1)
+    assert stats.kstest(f, "norm").statistic <= 1.95 / np.sqrt(f.size)
+    assert abs(np.corrcoef(f[:-1], f[1:])[0, 1]) <= Z / np.sqrt(f.size)
+
+
+def test_duplicate_data_raise_with_sample_ids():
+    grid = geosim.Grid(0.0, 0.0, (5.0, 5.0), (6, 6))
+    xy = np.array([[11.0, 12.0], [11.0, 12.0], [20.0, 3.0]])
+    model = geosim.Model([geosim.Spherical(1.0, geosim.Anisotropy.isotropic(30.0))])
+    engine = SequentialEngine()
+    plan = engine.prepare(xy, np.array([0.1, 0.2, -0.3]), model, grid, sample_ids=["DH-7", "DH-8", "DH-9"])
+    with pytest.raises(geosim.NotPositiveDefiniteError, match="sample DH-[78].*sample DH-[78]"):
+        engine.realize(plan, realization_rng(0, 0))
+
+
+def test_bad_inputs_are_named():
+    grid = geosim.Grid(0.0, 0.0, (5.0, 5.0), (6, 6))
+    model = geosim.Model([geosim.Spherical(1.0, geosim.Anisotropy.isotropic(30.0))])
+    engine = SequentialEngine()
+    with pytest.raises(geosim.InputError, match="row 3"):
+        engine.prepare(np.array([[1.0, 2.0], [3.0, 4.0], [np.nan, 1.0]]), np.zeros(3), model, grid)
+    with pytest.raises(geosim.InputError, match="kriging"):
+        engine.prepare(np.zeros((0, 2)), np.zeros(0), model, grid, kriging="universal")
+    with pytest.raises(geosim.InputError, match="sectors"):
+        engine.prepare(np.zeros((0, 2)), np.zeros(0), model, grid, neighbourhood=Neighbourhood(sectors=4))
