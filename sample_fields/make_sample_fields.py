@@ -38,6 +38,7 @@ from shapely.geometry.polygon import orient
 
 from geosim.io.atomic import atomic_output
 from geosim.variogram import Anisotropy, Exponential, Model, Nugget, Spherical
+from geosim.variogram.compiled import cov_matrix_into
 
 SEED = 20261202
 HERE = Path(__file__).resolve().parent
@@ -68,7 +69,10 @@ def _rng(stream: int) -> np.random.Generator:
 
 def gaussian_at(points: np.ndarray, model: Model, rng: np.random.Generator) -> np.ndarray:
     """Exact unconditional simulation of ``model`` at ``points``: ``L z`` with ``C = L L^T``."""
-    cov = model.cov_matrix(points)
+    xyz = np.zeros((points.shape[0], 3))
+    xyz[:, :points.shape[1]] = points
+    cov = np.empty((len(xyz), len(xyz)))
+    cov_matrix_into(model.compiled(), xyz, xyz, cov)  # Model.cov_matrix, compiled: 5000 points in ~1 s
     lower = scipy.linalg.cholesky(cov, lower=True, overwrite_a=True, check_finite=False)
     return lower @ rng.standard_normal(points.shape[0])
 
