@@ -26,6 +26,8 @@ from __future__ import annotations
 import math
 import warnings
 from collections.abc import Callable, Sequence
+from concurrent.futures import ThreadPoolExecutor
+from contextlib import nullcontext
 from dataclasses import dataclass, field
 
 import numpy as np
@@ -39,6 +41,8 @@ from .variogram.compiled import cov_lag
 # a conditional variance (Cholesky pivot) below this fraction of the sill is
 # treated as singular: rounding noise, not information (common practice, no source)
 PIVOT_RTOL = 1e-10
+# below this many targets per thread, threads cost more than they save
+_MIN_ROWS_PER_THREAD = 256
 
 Progress = Callable[[int, int, str], None]
 
@@ -95,6 +99,12 @@ def _as_model(model):
     return model
 
 
+def _check_threads(threads) -> int:
+    if int(threads) != threads or threads < 1:
+        raise ValueError(f"threads must be a whole number >= 1, got {threads!r}")
+    return int(threads)
+
+
 def _check_method(method: str) -> bool:
     if method not in ("simple", "ordinary"):
         raise ValueError(f"method must be 'simple' or 'ordinary', got {method!r}")
@@ -128,7 +138,7 @@ def _sample_labels(n: int, sample_ids, hole_ids) -> Callable[[int], str]:
 
 def krige(data_coords, data_values, targets, model, *, method: str = "simple", mean: float = 0.0,
           neighbourhood: Neighbourhood | str = Neighbourhood(), hole_ids=None, sample_ids=None,
-          regularization: float | None = None, return_weights: bool = False,
+          regularization: float | None = None, return_weights: bool = False, threads: int = 1,
           progress: Progress | None = None) -> KrigingResult:
     """Simple or ordinary kriging at arbitrary points.
 
@@ -159,6 +169,9 @@ def krige(data_coords, data_values, targets, model, *, method: str = "simple", m
         :class:`~geosim.errors.GeosimWarning` is issued.
     return_weights : bool
         Keep the weights and their sample indices (memory ``m * max_samples``).
+    threads : int
+        Threads sharing the local systems (the compiled loop releases the GIL);
+        results do not depend on it.
     progress : callable, optional
         ``progress(done, total, "kriging nodes")`` after each block.
 
@@ -180,16 +193,17 @@ def krige(data_coords, data_values, targets, model, *, method: str = "simple", m
     >>> model = geosim.Spherical(1.0, geosim.Anisotropy((100.0, 100.0)))
     >>> pts = np.array([[0.0, 0.0], [50.0, 0.0], [0.0, 50.0]])
     >>> r = krige(pts, [1.0, 2.0, 3.0], [[50.0, 0.0], [500.0, 500.0]], model, method="ordinary")
-    >>> np.round(r.estimate, 6).tolist(), np.round(r.variance[0], 6)
+    >>> np.round(r.estimate, 6).tolist(), round(float(r.variance[0]), 6)
     ([2.0, nan], 0.0)
     """
     ordinary = _check_method(method)
     model = _as_model(model)
+    threads = _check_threads(threads)
+    d = np.shape(data_coords)[-1]
     xyz, z = _check_data(data_coords, data_values)
+    if np.shape(targets)[-1] != d:
+        raise ValueError(f"data are {d}-D but targets have {np.shape(targets)[-1]} coordinates")
     txyz = as_xyz(targets, "targets")
-    if np.asarray(data_coords).shape[-1] != np.asarray(targets).reshape(-1, np.asarray(
-            targets).shape[-1]).shape[-1]:
-        raise ValueError("data and targets must have the same number of coordinates (2-D or 3-D)")
     labels = _sample_labels(xyz.shape[0], sample_ids, hole_ids)
     if isinstance(neighbourhood, str):
         if neighbourhood != "global":
@@ -197,9 +211,9 @@ def krige(data_coords, data_values, targets, model, *, method: str = "simple", m
         res = _krige_global(xyz, z, txyz, model, ordinary, float(mean), regularization, labels,
                             return_weights, progress)
     else:
-        search = DataSearch(xyz[:, :np.asarray(data_coords).shape[-1]], neighbourhood, model, hole_ids)
+        search = DataSearch(xyz[:, :d], neighbourhood, model, hole_ids)
         res = _krige_local(search, z, txyz, model, ordinary, float(mean), regularization, labels,
-                           return_weights, progress, None, None)
+                           return_weights, progress, None, None, threads)
     if res.n_regularized:
         warnings.warn(f"kriging: {res.n_regularized} local system(s) were singular and were "
                       f"regularized with {regularization:g} x sill on the diagonal", GeosimWarning,
@@ -208,7 +222,7 @@ def krige(data_coords, data_values, targets, model, *, method: str = "simple", m
 
 
 def _krige_local(search: DataSearch, z, txyz, model, ordinary, mean, regularization, labels,
-                 return_weights, progress, excl_index, excl_hole) -> KrigingResult:
+                 return_weights, progress, excl_index, excl_hole, threads=1) -> KrigingResult:
     nb = search.neighbourhood
     m = txyz.shape[0]
     tframe = search.to_frame(txyz)
@@ -222,15 +236,16 @@ def _krige_local(search: DataSearch, z, txyz, model, ordinary, mean, regularizat
     k = nb.max_samples
     wts = np.zeros((m if return_weights else 0, k))
     nbr = np.full((m if return_weights else 0, k), -1, dtype=np.int64)
-    fail_info = np.zeros(2)
-    fail_nbr = np.full(k, -1, dtype=np.int64)
     reg = 0.0 if regularization is None else float(regularization)
     if reg < 0:
         raise ValueError(f"regularization must be >= 0, got {regularization}")
     tol = PIVOT_RTOL * c0
 
-    def step(rows, cand):
+    def part(rows, cand):
+        # each thread writes its own targets' outputs and has its own failure record
         more = np.zeros(rows.shape[0], dtype=np.bool_)
+        fail_info = np.zeros(2)
+        fail_nbr = np.full(k, -1, dtype=np.int64)
         failed = _krige_rows(rows, cand, search.xyz, search.frame, z, search.holes, txyz, tframe, excl_i,
                              excl_h, cm, ordinary, mean, c0, k, nb.min_samples, nb.sectors,
                              nb.sector_limit, nb.hole_limit, tol, reg, est, var, n_used, n_reg, more,
@@ -240,8 +255,16 @@ def _krige_local(search: DataSearch, z, txyz, model, ordinary, mean, regularizat
                             fail_info[1], labels, model, reg)
         return more
 
-    search.run(tframe, step, exclusions=excl_index is not None or excl_hole is not None,
-               progress=progress, what="kriging nodes")
+    with ThreadPoolExecutor(threads) if threads > 1 else nullcontext() as pool:
+        def step(rows, cand):
+            if pool is None or rows.shape[0] < _MIN_ROWS_PER_THREAD * threads:
+                return part(rows, cand)
+            cuts = np.linspace(0, rows.shape[0], threads + 1).astype(int)
+            jobs = [pool.submit(part, rows[a:b], cand[a:b]) for a, b in zip(cuts[:-1], cuts[1:])]
+            return np.concatenate([j.result() for j in jobs])
+
+        search.run(tframe, step, exclusions=excl_index is not None or excl_hole is not None,
+                   progress=progress, what="kriging nodes", workers=threads)
     return KrigingResult(est, var, n_used, "ordinary" if ordinary else "simple",
                          math.nan if ordinary else mean, int(n_reg.sum()),
                          wts if return_weights else None, nbr if return_weights else None)
@@ -423,14 +446,14 @@ def _krige_global(xyz, z, txyz, model, ordinary, mean, regularization, labels, r
 
 def krige_grid(data_coords, data_values, grid, model, *, domain=None, method: str = "simple",
                mean: float = 0.0, neighbourhood: Neighbourhood | str = Neighbourhood(), hole_ids=None,
-               sample_ids=None, regularization: float | None = None,
+               sample_ids=None, regularization: float | None = None, threads: int = 1,
                progress: Progress | None = None) -> tuple[np.ndarray, np.ndarray]:
     """Kriging estimate and variance at the active nodes of a grid.
 
     Parameters
     ----------
     data_coords, data_values, model, method, mean, neighbourhood, hole_ids, sample_ids, \
-regularization, progress
+regularization, threads, progress
         As for :func:`krige`.
     grid : geosim.grid.Grid
         Nodes to estimate; nodes outside ``grid.mask`` are left NaN.
@@ -461,7 +484,7 @@ regularization, progress
         raise ValueError(f"data are {np.asarray(data_coords).shape[-1]}-D but the grid is {grid.ndim}-D")
     res = krige(data_coords, data_values, coords, model, method=method, mean=mean,
                 neighbourhood=neighbourhood, hole_ids=hole_ids, sample_ids=sample_ids,
-                regularization=regularization, progress=progress)
+                regularization=regularization, threads=threads, progress=progress)
     est = np.full(grid.shape, np.nan)
     var = np.full(grid.shape, np.nan)
     est[grid.mask] = res.estimate
@@ -545,13 +568,14 @@ def _nanmean(a: np.ndarray) -> float:
 def cross_validate(data_coords, data_values, model, *, method: str = "ordinary", mean: float = 0.0,
                    neighbourhood: Neighbourhood | str = Neighbourhood(), hole_ids=None,
                    sample_ids: Sequence | None = None, leave_out: str = "sample",
-                   regularization: float | None = None,
+                   regularization: float | None = None, threads: int = 1,
                    progress: Progress | None = None) -> CrossValidationResult:
     """Leave-one-out cross-validation: krige each sample from the others.
 
     Parameters
     ----------
-    data_coords, data_values, model, method, mean, neighbourhood, hole_ids, regularization, progress
+    data_coords, data_values, model, method, mean, neighbourhood, hole_ids, regularization, threads, \
+progress
         As for :func:`krige`.
     sample_ids : sequence, optional
         Labels for the table (default: ``hole#row`` or the row number).
@@ -605,7 +629,8 @@ def cross_validate(data_coords, data_values, model, *, method: str = "ordinary",
     else:
         search = DataSearch(xyz[:, :d], neighbourhood, model, hole_ids)
         res = _krige_local(search, z, xyz, model, ordinary, float(mean), regularization, labels, False,
-                           progress, np.arange(n), search.holes if leave_out == "hole" else None)
+                           progress, np.arange(n), search.holes if leave_out == "hole" else None,
+                           _check_threads(threads))
         if res.n_regularized:
             warnings.warn(f"cross-validation: {res.n_regularized} local system(s) were singular and "
                           f"were regularized with {regularization:g} x sill on the diagonal",

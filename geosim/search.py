@@ -233,26 +233,29 @@ class DataSearch:
             k += 1
         return max(1, min(self.n, k))
 
-    def candidates(self, frame_targets: np.ndarray, k: int) -> np.ndarray:
+    def candidates(self, frame_targets: np.ndarray, k: int, workers: int = 1) -> np.ndarray:
         """Nearest ``k`` samples inside the ellipsoid for targets already in the frame.
 
         Returns an ``(m, k)`` int64 array of sample indices sorted by reduced
         distance, padded with ``n`` (the number of samples) where fewer lie inside.
+        ``workers`` threads share the tree query.
         """
         m = frame_targets.shape[0]
         if self.n == 0 or k == 0:
             return np.full((m, max(k, 1)), self.n, dtype=np.int64)
-        _, idx = self._tree.query(frame_targets, k=k, distance_upper_bound=1.0 + _RADIUS_SLACK)
+        _, idx = self._tree.query(frame_targets, k=k, distance_upper_bound=1.0 + _RADIUS_SLACK,
+                                  workers=workers)
         return np.ascontiguousarray(idx.reshape(m, k), dtype=np.int64)
 
     def run(self, frame_targets: np.ndarray, step: Callable[[np.ndarray, np.ndarray], np.ndarray], *,
-            exclusions: bool = False, progress=None, what: str = "nodes") -> None:
+            exclusions: bool = False, progress=None, what: str = "nodes", workers: int = 1) -> None:
         """Drive ``step(rows, candidates) -> needs_more`` over all targets, block by block.
 
         ``rows`` are target indices and ``candidates`` their candidate rows.
         ``step`` returns a boolean array: rows whose candidates ran out before
         the limits were met are fetched again with twice as many candidates.
-        ``progress(done, total, what)`` is called after each block.
+        ``progress(done, total, what)`` is called after each block; ``workers``
+        threads share the candidate query.
         """
         m = frame_targets.shape[0]
         k0 = self.initial_candidates(exclusions)
@@ -261,7 +264,7 @@ class DataSearch:
             rows = np.arange(start, min(m, start + block), dtype=np.int64)
             k = k0
             while rows.size:
-                more = step(rows, self.candidates(frame_targets[rows], k))
+                more = step(rows, self.candidates(frame_targets[rows], k, workers))
                 if k >= self.n or not np.any(more):
                     break
                 rows = rows[more]

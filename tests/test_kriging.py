@@ -210,3 +210,16 @@ def test_progress_is_reported():
     calls = []
     krige(xy, z, xy + 1.0, model, progress=lambda done, total, what: calls.append((done, total, what)))
     assert calls and calls[-1] == (20, 20, "kriging nodes")
+
+
+def test_threads_give_identical_results():
+    xy, z = _data(n=300, seed=13)
+    model = geosim.Nugget(0.1) + geosim.Spherical(0.9, Anisotropy((30.0, 15.0), azimuth=60.0))
+    targets = np.random.default_rng(14).uniform(-40, 140, size=(3000, 2))
+    nb = Neighbourhood(max_samples=12, min_samples=4, sectors=4)
+    one = krige(xy, z, targets, model, method="ordinary", neighbourhood=nb)
+    two = krige(xy, z, targets, model, method="ordinary", neighbourhood=nb, threads=2)
+    assert np.isnan(one.estimate).any()  # the comparison covers nodata nodes too
+    assert np.array_equal(one.estimate, two.estimate, equal_nan=True)
+    assert np.array_equal(one.variance, two.variance, equal_nan=True)
+    assert np.array_equal(one.n_used, two.n_used)
