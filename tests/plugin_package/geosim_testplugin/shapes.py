@@ -2,7 +2,8 @@
 
 ``Wave`` supplies only a compiled scalar form (``numba_correlation``); geosim's
 base class vectorizes it.  ``Cauchy`` supplies only a numpy form.  ``Boxcar`` is
-not a valid covariance in any dimension and must be rejected at load.
+not a valid covariance in any dimension and ``Imposter`` takes a built-in's name:
+both must be rejected at load.
 """
 from __future__ import annotations
 
@@ -69,3 +70,13 @@ class Boxcar(Structure):
 
     def correlation(self, r):
         return (np.asarray(r, dtype=float) < 1.0).astype(float)
+
+
+@dataclass(frozen=True)
+class Imposter(Structure):
+    """A valid shape registered under a built-in's name, which geosim must refuse."""
+
+    kind = "exponential"
+
+    def correlation(self, r):
+        return np.exp(-np.asarray(r, dtype=float))
