@@ -114,7 +114,7 @@ class Drillholes:
         try:
             i = self._row_of[hole_id]
         except KeyError:
-            raise KeyError(f"no hole {hole_id!r}; {suggest(hole_id, list(self.ids))}".rstrip("; ")) from None
+            raise KeyError(f"no hole {hole_id!r}; {suggest(hole_id, self.ids.tolist())}".rstrip("; ")) from None
         s = self.surveys.get(hole_id)
         if s is None:
             s = np.empty((0, 3))
@@ -235,7 +235,7 @@ def _columns(columns: Mapping | None) -> dict:
 
 
 def _hole_index(table: CsvTable, col: str, known: dict, what: str) -> np.ndarray:
-    ids = table.text(col, role="hole id")
+    ids = table.text(col, role="hole id").tolist()
     idx = np.empty(len(ids), dtype=np.int64)
     for i, h in enumerate(ids):
         j = known.get(h)
@@ -303,7 +303,7 @@ def read_drillholes(collars: str | os.PathLike, surveys: str | os.PathLike | Non
     xyz = np.column_stack([ct.numbers(cc[r], role=f"collar {r}") for r in ("x", "y", "z")])
     depth = ct.numbers(cc["depth"], role="total depth")
     known: dict[str, int] = {}
-    for i, h in enumerate(ids):
+    for i, h in enumerate(ids.tolist()):
         if h in known:
             raise InputError(f"hole {h!r} appears twice (first in row {ct.lines[known[h]]})", file=ct.path,
                              row=ct.lines[i], field=ct.header[ct.index(cc["hole_id"])],
@@ -352,14 +352,14 @@ def read_drillholes(collars: str | os.PathLike, surveys: str | os.PathLike | Non
             dup = np.flatnonzero(np.diff(d) == 0)
             if len(dup):
                 a, b = rows[dup[0]], rows[dup[0] + 1]
-                raise InputError(f"hole {ids[h_idx]!r} has two surveys at depth {d[dup[0]]:g} "
+                raise InputError(f"hole {str(ids[h_idx])!r} has two surveys at depth {d[dup[0]]:g} "
                                  f"(rows {st.lines[min(a, b)]} and {st.lines[max(a, b)]})", file=st.path,
                                  row=st.lines[max(a, b)], field=col["depth"], fix="keep one survey per depth")
             tv = direction(sa[rows], sp[rows])
             cosb = np.einsum("ij,ij->i", tv[:-1], tv[1:])
             bad = np.flatnonzero(cosb < -1.0 + 1e-9)
             if len(bad):
-                raise InputError(f"hole {ids[h_idx]!r}: consecutive surveys point in opposite directions",
+                raise InputError(f"hole {str(ids[h_idx])!r}: consecutive surveys point in opposite directions",
                                  file=st.path, row=st.lines[rows[bad[0] + 1]], field=col["azimuth"],
                                  fix="check the azimuth and the sign of the dip")
             survey_by_hole[str(ids[h_idx])] = np.column_stack([d, np.where(sa[rows] == 360.0, 0.0, sa[rows]),
@@ -392,7 +392,7 @@ def read_drillholes(collars: str | os.PathLike, surveys: str | os.PathLike | Non
     if len(overlap):
         a, b = order[overlap[0]], order[overlap[0] + 1]
         raise InputError(f"intervals {top[a]:g}-{bot[a]:g} (row {it.lines[a]}) and {top[b]:g}-{bot[b]:g} "
-                         f"(row {it.lines[b]}) of hole {ids[ih[a]]!r} overlap", file=it.path,
+                         f"(row {it.lines[b]}) of hole {str(ids[ih[a]])!r} overlap", file=it.path,
                          row=max(it.lines[a], it.lines[b]), field=fcol, fix="correct or remove one of them")
     value_names = tuple(it.header[it.index(v)] for v in names)
     for j, name in enumerate(value_names):
@@ -458,7 +458,7 @@ def composite(holes: Drillholes, length: float, *, min_fraction: float = 0.5, re
     k = len(holes.names)
     parts: dict[str, list] = {key: [] for key in ("coords", "values", "hole", "length", "from", "to")}
     merged = dropped = 0
-    for hole_id in holes.ids:
+    for hole_id in holes.ids.tolist():
         idx = holes.intervals_of(hole_id)
         if len(idx) == 0:
             continue

@@ -81,7 +81,7 @@ class CsvTable:
         folded = [i for i, h in enumerate(self.header) if h.casefold() == key.casefold()]
         if len(folded) == 1:
             return folded[0]
-        close = difflib.get_close_matches(key, self.header, n=3, cutoff=0.6)
+        close = _close(key, self.header)
         what = f" ({role})" if role else ""
         fix = (f"did you mean {' or '.join(repr(c) for c in close)}? " if close else "") + \
             f"columns in the file are: {', '.join(repr(h) for h in self.header)}"
@@ -231,5 +231,14 @@ def suggest(name: str, choices: Sequence[str]) -> str:
     >>> suggest("DH-01", ["DH-001", "RC-7"])
     "did you mean 'DH-001'?"
     """
-    close = difflib.get_close_matches(name, list(choices), n=3, cutoff=0.6)
+    close = _close(name, choices)
     return f"did you mean {' or '.join(repr(c) for c in close)}?" if close else ""
+
+
+def _close(name: str, choices: Sequence[str]) -> list[str]:
+    """Up to three choices that look like ``name``, ignoring case."""
+    by_folded: dict[str, str] = {}
+    for c in choices:
+        by_folded.setdefault(str(c).casefold(), str(c))
+    hits = difflib.get_close_matches(str(name).casefold(), list(by_folded), n=3, cutoff=0.6)
+    return [by_folded[h] for h in hits]
