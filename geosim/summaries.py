@@ -246,7 +246,7 @@ def grade_tonnage(field: np.ndarray, grid, cutoffs: Sequence[float], density: fl
     --------
     >>> import numpy as np, geosim
     >>> g = geosim.Grid(0.0, 0.0, (10.0, 10.0), (1, 2))
-    >>> gt = geosim.summaries.grade_tonnage(np.array([[1.0, 3.0]]), g, [0.0, 2.0], density=2.5, thickness=2.0)
+    >>> gt = geosim.grade_tonnage(np.array([[1.0, 3.0]]), g, [0.0, 2.0], density=2.5, thickness=2.0)
     >>> gt["tonnage"].tolist(), gt["mean_grade"].tolist(), gt["metal"].tolist()
     ([1000.0, 500.0], [2.0, 3.0], [2000.0, 1500.0])
     """
@@ -291,7 +291,7 @@ def fraction_above(field: np.ndarray, grid, thresholds: Sequence[float]) -> dict
     --------
     >>> import numpy as np, geosim
     >>> g = geosim.Grid(0.0, 0.0, (10.0, 10.0), (2, 2))
-    >>> geosim.summaries.fraction_above(np.array([[1e-5, 1e-4], [1e-6, np.nan]]), g, [5e-6])["fraction_above"]
+    >>> geosim.fraction_above(np.array([[1e-5, 1e-4], [1e-6, np.nan]]), g, [5e-6])["fraction_above"]
     array([0.66666667])
     """
     return _fractions(field, grid, thresholds, above=True)
@@ -332,7 +332,7 @@ def decision_spread(figures: Sequence[Mapping[str, np.ndarray]]) -> list[dict]:
     --------
     >>> import numpy as np, geosim
     >>> figs = [{"cutoff": np.array([1.0]), "tonnage": np.array([float(t)])} for t in range(11)]
-    >>> geosim.summaries.decision_spread(figs)[0]
+    >>> geosim.decision_spread(figs)[0]
     {'cutoff': 1.0, 'figure': 'tonnage', 'n': 11, 'mean': 5.0, 'P10': 1.0, 'P50': 5.0, 'P90': 9.0}
     """
     if not figures:
