@@ -24,13 +24,14 @@ from __future__ import annotations
 import difflib
 import sys
 import traceback
+import warnings
 from dataclasses import dataclass
 from importlib.metadata import entry_points
 
 import click
 
 from geosim.cautions import CAUTION
-from geosim.errors import GeosimError, InputError, SpecError
+from geosim.errors import GeosimError, GeosimWarning, InputError, SpecError
 
 COMMAND_GROUP = "geosim.commands"
 
@@ -94,43 +95,61 @@ class EntryPointGroup(click.Group):
 
     def invoke(self, ctx):
         session = ctx.ensure_object(Session)
-        code = None
         try:
-            return super().invoke(ctx)
+            with warnings.catch_warnings():
+                warnings.showwarning = _warning_printer(session)
+                return super().invoke(ctx)
         except (click.exceptions.Exit, click.exceptions.Abort, click.ClickException):
             raise
-        except SpecError as exc:
-            _say(f"error: {exc.file}: {len(exc.problems)} problem(s) in the run spec:")
-            for problem in exc.problems:
-                _say(f"  {problem}")
-            code = EXIT_INPUT
-        except InputError as exc:
-            _say(f"error: {exc}")
-            code = EXIT_INPUT
-        except GeosimError as exc:
-            _say(f"error: {exc}")
-            code = EXIT_GEOSIM
-        except KeyboardInterrupt:
-            _say("interrupted; completed realizations are kept, rerun the same command to resume")
-            code = EXIT_INTERRUPTED
-        except Exception as exc:
-            if session.debug:
-                traceback.print_exc()
-            _say(f"internal error: {type(exc).__name__}: {exc}")
-            if not session.debug:
-                _say("this is a bug in geosim or a plugin; rerun with --debug for the traceback "
-                     "and report it")
-            code = EXIT_INTERNAL
+        except BaseException as exc:
+            code = _report(exc, session.debug)
         finally:
             if session.started:
                 click.echo("\n" + CAUTION, err=True)
-        if session.debug and code in (EXIT_INPUT, EXIT_GEOSIM):
-            traceback.print_exc()
         ctx.exit(code)
+
+
+def _report(exc: BaseException, debug: bool) -> int:
+    """Print one line (or the spec's problem list) for an exception; return the exit code."""
+    if debug:
+        traceback.print_exception(exc)
+    if isinstance(exc, SpecError):
+        _say(f"error: {exc.file}: {len(exc.problems)} problem(s) in the run spec:")
+        for problem in exc.problems:
+            _say(f"  {problem}")
+        return EXIT_INPUT
+    if isinstance(exc, InputError):
+        _say(f"error: {exc}")
+        return EXIT_INPUT
+    if isinstance(exc, GeosimError):
+        _say(f"error: {exc}")
+        return EXIT_GEOSIM
+    if isinstance(exc, KeyboardInterrupt):
+        _say("interrupted; rerun the same command to resume (finished realizations are kept)")
+        return EXIT_INTERRUPTED
+    if not isinstance(exc, Exception):
+        raise exc
+    _say(f"internal error: {type(exc).__name__}: {exc}")
+    if not debug:
+        _say("this is a bug in geosim or a plugin; rerun with --debug for the traceback and report it")
+    return EXIT_INTERNAL
 
 
 def _say(text: str) -> None:
     click.echo(f"geosim: {text}", err=True)
+
+
+def _warning_printer(session: Session):
+    """Show geosim's own warnings (choices it made, merged samples) as one-line notes;
+    other libraries' warnings only with --debug."""
+    default = warnings.showwarning
+
+    def show(message, category, filename, lineno, file=None, line=None):
+        if issubclass(category, GeosimWarning):
+            _say(f"note: {message}")
+        elif session.debug:
+            default(message, category, filename, lineno, file, line)
+    return show
 
 
 def _version() -> str:

@@ -205,7 +205,7 @@ def prepare_data(spec: RunSpec, progress: Progress | None = None) -> PreparedDat
     weights = None if dc is None else np.asarray(dc.weights, dtype=float)
     transform = fit_transform(spec, values, weights)
     scores = transform.transform(values)
-    notes = list(getattr(samples, "notes", ()))
+    notes = list(samples.notes) + ([dc.describe()] if dc is not None else [])
     return PreparedData(samples, values, weights, dc, transform, np.asarray(scores, dtype=float), notes)
 
 
@@ -220,16 +220,13 @@ def read_domain_geometry(spec: RunSpec, crs):
     return read_domain(spec.resolve(path), crs)
 
 
-def make_grid(spec: RunSpec, data: PreparedData, geometry=None):
-    """The simulation grid: over ``grid.bounds``, else the domain, else the data (plus padding),
-    masked by the domain polygon or raster.
-
-    ``geometry`` is the domain polygon from :func:`read_domain_geometry` (read here if None).
-    """
+def make_grid(spec: RunSpec, data: PreparedData | None = None):
+    """The simulation grid: over ``grid.bounds``, else the domain, else the data (plus
+    ``grid.padding``), masked by the domain polygon or raster."""
     from .grid import Grid
+    data = data if data is not None else prepare_data(spec)
     g = spec["grid"]
-    if geometry is None:
-        geometry = read_domain_geometry(spec, data.crs)
+    geometry = read_domain_geometry(spec, data.crs)
     coords = data.coords
     if g["bounds"] is not None:
         bounds = tuple(g["bounds"])
@@ -237,28 +234,28 @@ def make_grid(spec: RunSpec, data: PreparedData, geometry=None):
         bounds = geometry.bounds
     else:
         bounds = (coords[:, 0].min(), coords[:, 1].min(), coords[:, 0].max(), coords[:, 1].max())
+    if len(g["cell"]) == 2 and coords.shape[1] == 3:
+        raise InputError("the samples are 3-D but grid.cell has two sizes", file=spec.name, field="grid.cell",
+                         fix="give cell = [dx, dy, dz]")
     zrange = None
     if len(g["cell"]) == 3:
         if g["z_range"] is not None:
             zrange = tuple(g["z_range"])
         elif coords.shape[1] == 3:
-            zrange = (coords[:, 2].min() - g["padding"], coords[:, 2].max() + g["padding"])
+            zrange = (coords[:, 2].min(), coords[:, 2].max())
         else:
-            raise InputError("a 3-D grid needs z_range = [bottom, top] for 2-D samples", field="grid.z_range",
-                             fix="give grid.z_range or a 2-D cell [dx, dy]")
-    if len(g["cell"]) == 2 and coords.shape[1] == 3:
-        raise InputError("the samples are 3-D but grid.cell has two sizes", field="grid.cell",
-                         fix="give cell = [dx, dy, dz]")
+            raise InputError("a 3-D grid needs z_range = [bottom, top] for 2-D samples", file=spec.name,
+                             field="grid.z_range", fix="give grid.z_range or a 2-D cell [dx, dy]")
     grid = Grid.covering(bounds, g["cell"], crs=data.crs, zrange=zrange, pad=g["padding"])
     if geometry is not None:
         grid = grid.clip_to_polygon(geometry)
     if spec["domain.raster"] is not None:
         from .domain import read_domain_raster
-        mask2d = read_domain_raster(spec.resolve(spec["domain.raster"]), grid)
-        grid = grid.with_mask(grid.mask & np.broadcast_to(mask2d, grid.shape))
+        mask = read_domain_raster(spec.resolve(spec["domain.raster"]), grid)
+        grid = grid.with_mask(grid.mask & np.broadcast_to(mask, grid.shape))
     if grid.n_active == 0:
-        raise InputError("no grid node falls inside the domain", file=spec["domain.polygon"] or spec.name,
-                         fix="check the domain's CRS and the grid bounds")
+        raise InputError("no grid node falls inside the domain", file=spec.name, field="domain",
+                         fix="check the domain file, its CRS and grid.bounds")
     return grid
 
 
@@ -271,16 +268,30 @@ def neighbourhood(spec: RunSpec):
                          max_nodes=s["max_nodes"])
 
 
+def _relabel(progress: Progress | None, label: str) -> Progress | None:
+    """A progress callback that reports under ``label`` whatever a step calls its work."""
+    if progress is None:
+        return None
+    return lambda done, total, what: progress(done, total, label)
+
+
+def _folder(out_dir) -> Path:
+    out_dir = Path(out_dir)
+    out_dir.mkdir(parents=True, exist_ok=True)
+    return out_dir
+
+
 # -- variogram ---------------------------------------------------------------------------------
 
 @dataclass
 class VariogramResult:
-    """The model used, and, when it was fitted, the experimental variograms and the fit."""
+    """The model used; when it was fitted, the experimental variograms and the fit; files written."""
 
     model: Any
     experimental: list = field(default_factory=list)
     fit: Any = None
     source: str = ""
+    files: dict[str, list[str]] = field(default_factory=dict)
 
 
 def _structures_model(spec: RunSpec):
@@ -305,52 +316,105 @@ def _default_template(data: PreparedData):
 
 
 def experimental_variograms(spec: RunSpec, data: PreparedData, progress: Progress | None = None) -> list:
-    """Experimental variograms of the normal scores in the spec's directions."""
+    """Experimental variograms of the normal scores in the spec's directions (omnidirectional
+    when it names none)."""
     from .variogram.experimental import Direction, directional_variograms
     vg = spec["variogram"]
-    coords = data.coords
     lag = vg["lag"]
     if lag is None:
-        # half the largest horizontal extent split into the lag count (common practice, no source)
-        span = np.ptp(coords[:, :2], axis=0)
-        lag = float(np.hypot(*span)) / 2.0 / vg["lag_count"]
+        # half the diagonal of the data's horizontal extent, split into lag_count bins
+        # (common practice, no source)
+        lag = float(np.hypot(*np.ptp(data.coords[:, :2], axis=0))) / 2.0 / vg["lag_count"]
     directions = [Direction(d["azimuth"], d["dip"], azimuth_tol=d["tolerance"], dip_tol=d["tolerance"],
                             bandwidth_h=d["bandwidth"] or np.inf, bandwidth_v=d["bandwidth"] or np.inf)
-                  for d in vg["directions"]] or [None]
-    return directional_variograms(coords, data.scores, directions, lag=lag, nlags=vg["lag_count"],
+                  for d in spec["variogram.directions"]] or [None]
+    return directional_variograms(data.coords, data.scores, directions, lag=lag, nlags=vg["lag_count"],
                                   progress=progress)
 
 
-def variogram_model(spec: RunSpec, data: PreparedData, progress: Progress | None = None) -> VariogramResult:
+def variogram_model(spec: RunSpec, data: PreparedData | None = None, *, out_dir: str | os.PathLike | None = None,
+                    overwrite: bool = False, progress: Progress | None = None) -> VariogramResult:
     """The covariance model of the normal scores: from a model file, from the spec's
-    structures, or fitted to experimental variograms (structures as start values)."""
+    structures, or fitted to experimental variograms (the structures or model file giving
+    start values).
+
+    With ``out_dir``, the model is saved as ``variogram_model.toml`` and, when it was
+    fitted and ``outputs.plots`` is on, the variograms are plotted to ``variogram.png``.
+    """
     vg = spec["variogram"]
-    if vg["model_file"] is not None and not vg["fit"]:
-        from .variogram.modelfile import load_model
-        return VariogramResult(load_model(spec.resolve(vg["model_file"])), source=vg["model_file"])
     if not vg["fit"]:
-        return VariogramResult(_structures_model(spec), source="run spec")
-    if vg["model_file"] is not None:
-        from .variogram.modelfile import load_model
-        template = load_model(spec.resolve(vg["model_file"]))
-    elif vg["structures"]:
-        template = _structures_model(spec)
+        if vg["model_file"] is not None:
+            from .variogram.modelfile import load_model
+            result = VariogramResult(load_model(spec.resolve(vg["model_file"])), source=vg["model_file"])
+        else:
+            result = VariogramResult(_structures_model(spec), source="run spec")
     else:
-        template = _default_template(data)
-    from .variogram.fitting import fit_model
-    experimental = experimental_variograms(spec, data, progress)
-    fit = fit_model(experimental, template, weighting=vg["weighting"], total_sill=vg["total_sill"])
-    return VariogramResult(fit.model_, experimental, fit, source="fitted")
+        data = data if data is not None else prepare_data(spec, progress)
+        if vg["model_file"] is not None:
+            from .variogram.modelfile import load_model
+            template = load_model(spec.resolve(vg["model_file"]))
+        elif vg["structures"]:
+            template = _structures_model(spec)
+        else:
+            template = _default_template(data)
+        from .variogram.fitting import fit_model
+        experimental = experimental_variograms(spec, data, progress)
+        fit = fit_model(experimental, template, weighting=vg["weighting"], total_sill=vg["total_sill"])
+        result = VariogramResult(fit.model_, experimental, fit, source="fitted")
+    if out_dir is not None:
+        from .variogram.modelfile import save_model
+        out_dir = _folder(out_dir)
+        result.files["model"] = [str(save_model(result.model, out_dir / "variogram_model.toml",
+                                                overwrite=overwrite))]
+        if result.experimental and spec["outputs.plots"]:
+            from .variogram.plots import plot_variogram
+            result.files["variogram_plot"] = [str(plot_variogram(result.experimental, result.model,
+                                                                 path=out_dir / "variogram.png",
+                                                                 overwrite=overwrite))]
+    return result
+
+
+def _model(spec: RunSpec, data: PreparedData | None, model, progress):
+    return model if model is not None else variogram_model(spec, data, progress=progress).model
 
 
 # -- kriging -----------------------------------------------------------------------------------
 
-def cross_validate(spec: RunSpec, data: PreparedData, model, progress: Progress | None = None):
-    """Leave-one-out kriging of the normal scores with the spec's neighbourhood."""
-    from .kriging import cross_validate as loo
-    hole_ids = getattr(data.samples, "hole_ids", None)
-    return loo(data.coords, data.scores, model, method=spec["simulation.kriging"], mean=0.0,
-               neighbourhood=neighbourhood(spec), hole_ids=hole_ids, progress=progress)
+@dataclass
+class CrossValidation:
+    """Leave-one-out result (:class:`geosim.kriging.CrossValidationResult`), its summary and files."""
+
+    result: Any
+    summary: dict
+    files: dict[str, list[str]] = field(default_factory=dict)
+
+
+def cross_validate(spec: RunSpec, data: PreparedData | None = None, model=None, *,
+                   out_dir: str | os.PathLike | None = None, overwrite: bool = False,
+                   progress: Progress | None = None) -> CrossValidation:
+    """Leave-one-out kriging of the normal scores with the spec's neighbourhood (for
+    drillholes, every composite of the hole is left out together).
+
+    With ``out_dir``, writes ``cross_validation.csv`` (and ``cross_validation.png`` when
+    ``outputs.plots`` is on).
+    """
+    from .kriging import cross_validate as leave_one_out
+    data = data if data is not None else prepare_data(spec, progress)
+    model = _model(spec, data, model, progress)
+    result = leave_one_out(data.coords, data.scores, model, method=spec["simulation.kriging"], mean=0.0,
+                           neighbourhood=neighbourhood(spec), hole_ids=data.samples.hole_ids,
+                           leave_out="hole" if spec.is_drillholes else "sample",
+                           progress=_relabel(progress, "cross-validation"))
+    cv = CrossValidation(result, result.summary())
+    if out_dir is not None:
+        from .io.crossval import plot_crossval, write_crossval_csv
+        out_dir = _folder(out_dir)
+        cv.files["cross_validation"] = [str(write_crossval_csv(result, out_dir / "cross_validation.csv",
+                                                               overwrite=overwrite))]
+        if spec["outputs.plots"]:
+            cv.files["cross_validation"].append(str(plot_crossval(result, out_dir / "cross_validation.png",
+                                                                  overwrite=overwrite)))
+    return cv
 
 
 @dataclass
@@ -361,27 +425,28 @@ class EstimateResult:
     variance; ``mean`` and ``variance`` are the conditional mean and variance in data
     units under the multi-Gaussian model (Verly 1983, "The multigaussian approach and
     its applications to the estimation of local reserves", Mathematical Geology 15(2)):
-    E[T^-1(Y)] with Y ~ N(kriged score, kriging variance), by Gauss-Hermite quadrature.
+    the moments of T^-1(Y) with Y ~ N(kriged score, kriging variance), T the transform.
     """
 
     scores_mean: np.ndarray
     scores_variance: np.ndarray
     mean: np.ndarray
     variance: np.ndarray
+    files: dict[str, list[str]] = field(default_factory=dict)
 
 
 def multigaussian_moments(transform, mean: np.ndarray, variance: np.ndarray,
                           points: int = 24) -> tuple[np.ndarray, np.ndarray]:
     """Mean and variance of ``transform.inverse(Y)`` for ``Y ~ N(mean, variance)``, elementwise.
 
-    Gauss-Hermite quadrature with ``points`` nodes (probabilists' form:
-    ``numpy.polynomial.hermite_e.hermegauss``, weights summing to sqrt(2 pi)).
+    Gauss-Hermite quadrature with ``points`` nodes (probabilists' form,
+    ``numpy.polynomial.hermite_e.hermegauss``).  NaN in, NaN out.
 
     Examples
     --------
     >>> import numpy as np
     >>> from geosim.pipeline import multigaussian_moments
-    >>> class Exp:  # log-normal: E[exp(Y)] = exp(m + v/2)
+    >>> class Exp:  # log-normal: E[exp(Y)] = exp(m + v/2), Var = (e^v - 1) e^(2m + v)
     ...     inverse = staticmethod(np.exp)
     >>> m, v = multigaussian_moments(Exp, np.array([0.0]), np.array([1.0]))
     >>> bool(np.isclose(m[0], np.exp(0.5)) and np.isclose(v[0], (np.e - 1) * np.e))
@@ -404,20 +469,39 @@ def multigaussian_moments(transform, mean: np.ndarray, variance: np.ndarray,
     return out_mean, out_var
 
 
-def estimate(spec: RunSpec, data: PreparedData, model, grid, progress: Progress | None = None) -> EstimateResult:
-    """Kriging of the normal scores at every active grid node, with data-unit moments."""
+def estimate(spec: RunSpec, data: PreparedData | None = None, model=None, grid=None, *,
+             out_dir: str | os.PathLike | None = None, overwrite: bool = False,
+             progress: Progress | None = None) -> EstimateResult:
+    """Kriging of the normal scores at every active grid node, with data-unit moments.
+
+    With ``out_dir``, writes ``estimate.tif`` (per level for 3-D): conditional mean and
+    standard deviation in data units, kriged normal score and its kriging variance.
+    """
     from .kriging import krige
-    targets = grid.coords()
-    hole_ids = getattr(data.samples, "hole_ids", None)
-    result = krige(data.coords, data.scores, targets, model, method=spec["simulation.kriging"], mean=0.0,
-                   neighbourhood=neighbourhood(spec), hole_ids=hole_ids, progress=progress)
+    data = data if data is not None else prepare_data(spec, progress)
+    model = _model(spec, data, model, progress)
+    grid = grid if grid is not None else make_grid(spec, data)
+    result = krige(data.coords, data.scores, grid.coords(), model, method=spec["simulation.kriging"],
+                   mean=0.0, neighbourhood=neighbourhood(spec), hole_ids=data.samples.hole_ids,
+                   progress=progress)
     mean, var = multigaussian_moments(data.transform, result.estimate, result.variance)
     maps = []
     for values in (result.estimate, result.variance, mean, var):
         full = np.full(grid.shape, np.nan)
         full[grid.mask] = values
         maps.append(full)
-    return EstimateResult(*maps)
+    est = EstimateResult(*maps)
+    if out_dir is not None:
+        from .io.geotiff import write_raster
+        units = spec["data.units"]
+        u = f" ({units})" if units else ""
+        bands = np.stack([est.mean, np.sqrt(est.variance), est.scores_mean, est.scores_variance])
+        descriptions = [(f"conditional mean{u}", units), (f"conditional standard deviation{u}", units),
+                        ("kriged normal score", ""), ("kriging variance of the normal score", "")]
+        written = write_raster(_folder(out_dir) / "estimate.tif", bands, grid, descriptions=descriptions,
+                               tags=provenance_tags(spec, data, model), overwrite=overwrite)
+        est.files["estimate"] = [str(p) for p in written]
+    return est
 
 
 # -- resume state ----------------------------------------------------------------------------
@@ -439,7 +523,7 @@ def _input_checksums(spec: RunSpec) -> dict[str, str]:
 
 def _write_json(path: Path, payload: Mapping, overwrite: bool = True) -> None:
     with atomic_output(path, overwrite=overwrite) as tmp:
-        tmp.write_text(json.dumps(payload, indent=1, sort_keys=True, default=_plain))
+        tmp.write_text(json.dumps(payload, indent=1, default=_plain))  # key order matters for figures
 
 
 def _plain(obj):
@@ -457,7 +541,7 @@ def _differences(old: Mapping, new: Mapping) -> list[str]:
     return [k for k in keys if old.get(k) != new.get(k)]
 
 
-def _open_output(spec: RunSpec, out_dir: Path, *, overwrite: bool, resume: bool) -> dict:
+def open_output(spec: RunSpec, out_dir: Path, *, overwrite: bool, resume: bool) -> dict:
     """Check the output folder belongs to this run (or is new); return the run-state header."""
     state_dir = out_dir / STATE_DIR
     header = {"format": _STATE_FORMAT, "spec_sha256": spec.sha256, "resume_key": resume_key(spec),
@@ -465,10 +549,7 @@ def _open_output(spec: RunSpec, out_dir: Path, *, overwrite: bool, resume: bool)
               "spec": json.loads(canonical_json(spec.values))}
     state_file = state_dir / "run.json"
     if state_file.is_file():
-        try:
-            old = json.loads(state_file.read_text())
-        except (OSError, ValueError):
-            old = {}
+        old = _read_header(out_dir) or {}
         same = (old.get("format") == _STATE_FORMAT and old.get("resume_key") == header["resume_key"]
                 and old.get("seed") == header["seed"] and old.get("inputs") == header["inputs"])
         if not same and not overwrite:
@@ -493,7 +574,14 @@ def _open_output(spec: RunSpec, out_dir: Path, *, overwrite: bool, resume: bool)
     return header
 
 
-def _completed(out_dir: Path, header: Mapping, n_realizations: int) -> dict[int, dict]:
+def _read_header(out_dir: Path) -> dict | None:
+    try:
+        return json.loads((out_dir / STATE_DIR / "run.json").read_text())
+    except (OSError, ValueError):
+        return None
+
+
+def completed_realizations(out_dir: Path, header: Mapping, n_realizations: int) -> dict[int, dict]:
     """Records of realizations already written by an earlier run of this spec, verified by checksum."""
     from .io.geotiff import verify_realization
     kept = {}
@@ -577,15 +665,24 @@ def _grade_tonnage(field, *, grid, cutoffs, density, thickness):
     return grade_tonnage(field, grid, cutoffs, density, thickness)
 
 
-def simulate(spec: RunSpec, data: PreparedData, model, grid, out_dir: str | os.PathLike, *,
-             overwrite: bool = False, resume: bool = True, progress: Progress | None = None,
-             _header: Mapping | None = None) -> SimulationResult:
+def _writer(spec: RunSpec, data: PreparedData, model, grid, out_dir: Path):
+    from .io.geotiff import RealizationWriter
+    # overwrite=True: the folder was checked to belong to this run before anything is written
+    return RealizationWriter(out_dir, grid, tags=provenance_tags(spec, data, model), units=spec["data.units"],
+                             back_transform=data.transform.inverse, figures=_figures(spec, grid), overwrite=True)
+
+
+def simulate(spec: RunSpec, data: PreparedData | None = None, model=None, grid=None, *,
+             out_dir: str | os.PathLike, overwrite: bool = False, resume: bool = True,
+             progress: Progress | None = None) -> SimulationResult:
     """Compute the spec's realizations into ``out_dir/realizations/``, keeping verified ones.
 
     Parameters
     ----------
-    spec, data, model, grid
-        From :func:`load_spec`, :func:`prepare_data`, :func:`variogram_model` and :func:`make_grid`.
+    spec : RunSpec
+    data, model, grid : optional
+        From :func:`prepare_data`, :func:`variogram_model` and :func:`make_grid`;
+        computed from the spec when not given.
     out_dir : path
         The run's output folder (created if missing).
     overwrite : bool
@@ -595,17 +692,16 @@ def simulate(spec: RunSpec, data: PreparedData, model, grid, out_dir: str | os.P
     progress : callable, optional
         ``progress(done, total, "realizations")``.
     """
-    from .io.geotiff import RealizationWriter
     from .simulation import simulate as run_engine
-    out_dir = Path(out_dir)
-    out_dir.mkdir(parents=True, exist_ok=True)
-    header = _header if _header is not None else _open_output(spec, out_dir, overwrite=overwrite, resume=resume)
+    data = data if data is not None else prepare_data(spec, progress)
+    model = _model(spec, data, model, progress)
+    grid = grid if grid is not None else make_grid(spec, data)
+    out_dir = _folder(out_dir)
+    header = open_output(spec, out_dir, overwrite=overwrite, resume=resume)
     n = spec["simulation.realizations"]
-    kept = _completed(out_dir, header, n) if resume else {}
+    kept = completed_realizations(out_dir, header, n) if resume else {}
     missing = [i for i in range(n) if i not in kept]
-    writer = RealizationWriter(out_dir, grid, tags=provenance_tags(spec, data, model), units=spec["data.units"],
-                               back_transform=data.transform.inverse, figures=_figures(spec, grid),
-                               overwrite=True)
+    writer = _writer(spec, data, model, grid, out_dir)
     sink = RecordingSink(writer, out_dir / STATE_DIR, header["resume_key"], header["seed"])
     sim = spec["simulation"]
     records = dict(kept)
@@ -614,7 +710,7 @@ def simulate(spec: RunSpec, data: PreparedData, model, grid, out_dir: str | os.P
                          engine=sim["engine"], neighbourhood=neighbourhood(spec), kriging=sim["kriging"],
                          workers=sim["workers"], client=sim["cluster"], sink=sink, indices=missing,
                          progress=progress)
-        records.update({i: r for i, r in zip(missing, new)})
+        records.update(zip(missing, new))
     elif progress is not None:
         progress(n, n, "realizations")
     return SimulationResult([records[i] for i in range(n)], sorted(kept), missing, writer)
@@ -622,29 +718,49 @@ def simulate(spec: RunSpec, data: PreparedData, model, grid, out_dir: str | os.P
 
 # -- summaries and report -----------------------------------------------------------------------
 
-def summarize(spec: RunSpec, data: PreparedData, model, grid, out_dir: str | os.PathLike,
-              simulation: SimulationResult, *, extra: Mapping[str, Any] | None = None,
+def summarize(spec: RunSpec, out_dir: str | os.PathLike, *, data: PreparedData | None = None, model=None,
+              grid=None, simulation: SimulationResult | None = None, extra: Mapping[str, Any] | None = None,
               progress: Progress | None = None) -> dict[str, list[str]]:
-    """Assemble the multiband realizations, the summary raster, decision figures and the
-    JSON run report from the realization files of :func:`simulate`.
+    """Multiband realizations, summary raster, decision figures and the JSON run report.
+
+    Without ``simulation``, the realizations are the ones a :func:`simulate` of the same
+    spec completed in ``out_dir`` (every one must be there and verify).
 
     Returns output kind -> list of paths.
     """
     from .io.report import provenance, write_report
     out_dir = Path(out_dir)
+    data = data if data is not None else prepare_data(spec, progress)
+    model = _model(spec, data, model, progress)
+    grid = grid if grid is not None else make_grid(spec, data)
+    n = spec["simulation.realizations"]
+    if simulation is None:
+        header = _read_header(out_dir)
+        if header is None or header.get("resume_key") != resume_key(spec):
+            raise InputError("the folder holds no realizations of this run spec", file=str(out_dir),
+                             fix="run `geosim simulate` (or `geosim run`) with this spec and folder first")
+        kept = completed_realizations(out_dir, header, n)
+        missing = [i for i in range(n) if i not in kept]
+        if missing:
+            shown = ", ".join(map(str, missing[:10])) + (" ..." if len(missing) > 10 else "")
+            raise InputError(f"{len(missing)} of {n} realizations are missing or changed: {shown}",
+                             file=str(out_dir), fix="rerun `geosim simulate` with the same spec to complete them")
+        simulation = SimulationResult([kept[i] for i in range(n)], sorted(kept), [],
+                                      _writer(spec, data, model, grid, out_dir))
     out = spec["outputs"]
     files = simulation.writer.finish(simulation.records, cutoffs=out["cutoffs"], stack=True,
-                                     keep_realization_files=out["keep_realizations"], progress=progress)
+                                     keep_realization_files=out["keep_realizations"],
+                                     progress=_relabel(progress, "summary windows"))
     report = dict(provenance(seed=spec["simulation.seed"], engine=spec["simulation.engine"], model=model,
                              transform=data.transform, inputs=_inputs(spec), units=spec["data.units"] or None))
-    report.update({"run_spec": spec.name, "run_spec_sha256": spec.sha256, "parameters": spec.to_dict(),
-                   "samples": len(data.values), "notes": data.notes,
-                   "grid": {"shape": list(grid.shape), "cell": list(grid.cell), "active_nodes": grid.n_active},
-                   "realizations": {"count": len(simulation.records), "kept_from_earlier_run": simulation.kept}})
+    report.update({"title": spec["title"], "run_spec": spec.name, "run_spec_sha256": spec.sha256,
+                   "parameters": spec.to_dict(), "samples": int(len(data.values)), "notes": list(data.notes),
+                   "grid": {"shape": list(grid.shape), "cell": list(grid.cell), "active_nodes": grid.n_active,
+                            "crs": grid.crs.to_string() if grid.crs is not None else None},
+                   "realizations": {"count": n, "kept_from_earlier_run": simulation.kept}})
     if extra:
         report.update(extra)
-    report_path = write_report(out_dir / "report.json", report, overwrite=True)
-    files["report"] = [str(report_path)]
+    files["report"] = [str(write_report(out_dir / "report.json", report, overwrite=True))]
     return files
 
 
@@ -661,6 +777,7 @@ class RunResult:
     kept: list[int]
     computed: list[int]
     crossval: dict | None
+    decision: list[dict]
     timings: dict[str, float]
     notes: list[str]
 
@@ -700,66 +817,33 @@ def run(spec: RunSpec | str | os.PathLike, out_dir: str | os.PathLike, *, overwr
         return value
 
     data = timed("read and transform data", prepare_data, spec, progress)
-    geometry = read_domain_geometry(spec, data.crs)
-    grid = timed("grid and domain", make_grid, spec, data, geometry)
-    out_dir.mkdir(parents=True, exist_ok=True)
-    header = _open_output(spec, out_dir, overwrite=overwrite, resume=resume)
-    vg = timed("variogram", variogram_model, spec, data, progress)
-    files: dict[str, list[str]] = {}
+    grid = timed("grid and domain", make_grid, spec, data)
+    # claim the folder (or fail on another run's) before anything is written into it
+    open_output(spec, _folder(out_dir), overwrite=overwrite, resume=resume)
+    mine = dict(out_dir=out_dir, overwrite=True, progress=progress)
+    vg = timed("variogram", variogram_model, spec, data, **mine)
+    files = dict(vg.files)
     extra: dict[str, Any] = {"variogram": {"model": str(vg.model), "source": vg.source}}
-    files.update(_variogram_outputs(spec, vg, out_dir))
     crossval = None
     if spec["outputs.cross_validation"]:
-        cv = timed("cross-validation", cross_validate, spec, data, vg.model, progress)
-        crossval = _crossval_summary(cv)
-        extra["cross_validation"] = crossval
-        files.update(_crossval_outputs(spec, cv, data, out_dir))
+        cv = timed("cross-validation", cross_validate, spec, data, vg.model, **mine)
+        crossval = extra["cross_validation"] = cv.summary
+        files.update(cv.files)
     if spec["outputs.estimate"]:
-        est = timed("kriging estimate", estimate, spec, data, vg.model, grid, progress)
-        files.update(_estimate_outputs(spec, data, vg.model, grid, est, out_dir))
-    sim = timed("simulation", simulate, spec, data, vg.model, grid, out_dir, overwrite=overwrite,
-                resume=resume, progress=progress, _header=header)
-    files.update(timed("summaries and report", summarize, spec, data, vg.model, grid, out_dir, sim,
-                       extra=extra, progress=progress))
-    return RunResult(out_dir, spec.sha256, files, vg.model, sim.kept, sim.computed, crossval, timings,
-                     list(data.notes))
+        files.update(timed("kriging estimate", estimate, spec, data, vg.model, grid, **mine).files)
+    sim = timed("simulation", simulate, spec, data, vg.model, grid, out_dir=out_dir, resume=resume,
+                progress=progress)
+    files.update(timed("summaries and report", summarize, spec, out_dir, data=data, model=vg.model, grid=grid,
+                       simulation=sim, extra=extra, progress=progress))
+    return RunResult(out_dir, spec.sha256, files, vg.model, sim.kept, sim.computed, crossval,
+                     decision_spread(sim), timings, list(data.notes))
 
 
-def _variogram_outputs(spec: RunSpec, vg: VariogramResult, out_dir: Path) -> dict[str, list[str]]:
-    from .variogram.modelfile import save_model
-    files = {"model": [str(save_model(vg.model, out_dir / "variogram_model.toml", overwrite=True))]}
-    if vg.experimental and spec["outputs.plots"]:
-        from .variogram.plots import plot_variogram
-        files["variogram_plot"] = [str(plot_variogram(vg.experimental, vg.model, path=out_dir / "variogram.png",
-                                                      overwrite=True))]
-    return files
-
-
-def _crossval_summary(cv) -> dict:
-    keys = ("mean_error", "rmse", "mean_standardized_squared_error")
-    return {k: float(getattr(cv, k)) for k in keys if hasattr(cv, k)}
-
-
-def _crossval_outputs(spec: RunSpec, cv, data: PreparedData, out_dir: Path) -> dict[str, list[str]]:
-    from .io.crossval import plot_crossval, write_crossval_csv
-    files = {"cross_validation": [str(write_crossval_csv(cv, out_dir / "cross_validation.csv", overwrite=True))]}
-    if spec["outputs.plots"]:
-        files["cross_validation"].append(str(plot_crossval(cv, out_dir / "cross_validation.png", overwrite=True)))
-    return files
-
-
-def _estimate_outputs(spec: RunSpec, data: PreparedData, model, grid, est: EstimateResult,
-                      out_dir: Path) -> dict[str, list[str]]:
-    from .io.geotiff import write_raster
-    units = spec["data.units"]
-    u = f" ({units})" if units else ""
-    stack = np.stack([est.mean, np.sqrt(est.variance), est.scores_mean, est.scores_variance],
-                     axis=0 if grid.ndim == 2 else 1)
-    descriptions = [(f"kriged conditional mean{u}", units), (f"conditional standard deviation{u}", units),
-                    ("kriged normal score", ""), ("kriging variance of the normal score", "")]
-    written = write_raster(out_dir / "estimate.tif", stack, grid, descriptions=descriptions,
-                           tags=provenance_tags(spec, data, model), overwrite=True)
-    return {"estimate": [str(p) for p in written]}
+def decision_spread(simulation: SimulationResult) -> list[dict]:
+    """P10/P50/P90 of each decision figure across the realizations (empty without cut-offs)."""
+    from .summaries import decision_spread as spread
+    figures = [r.get("figures") for r in simulation.records]
+    return spread(figures) if figures and all(f is not None for f in figures) else []
 
 
 # -- descriptions for the command line ---------------------------------------------------------

@@ -1,0 +1,54 @@
+"""``geosim run``: the whole job of a run spec, resumable."""
+from __future__ import annotations
+
+import time
+
+import click
+
+from .common import load, out_option, overwrite_option, reporter, set_option, spec_argument, table
+from .report import crossval_text, decision_text, files_text, seconds
+
+
+@click.command("run", short_help="Run the whole job of a run spec: data to rasters, plots and report.")
+@spec_argument
+@out_option
+@set_option
+@overwrite_option
+@click.option("--no-resume", is_flag=True,
+              help="Recompute every realization even if an interrupted run of this spec left some.")
+@click.option("--check", "check_only", is_flag=True, help="Validate the spec and read the inputs, then stop.")
+@click.pass_context
+def run(ctx, spec, out_dir, overrides, overwrite, no_resume, check_only):
+    """Read the data, fit the variogram, cross-validate, krige, simulate and summarize, as the
+    run spec SPEC says, writing everything into the folder --out.
+
+    Rerunning the same command after an interruption keeps the realizations already
+    written (verified by checksum) and computes only the rest. A folder holding a
+    run of a different spec is refused unless --overwrite is given.
+    """
+    import geosim.pipeline
+
+    run_spec = load(ctx, spec, overrides)
+    progress = reporter(ctx)
+    if check_only:
+        data = geosim.pipeline.prepare_data(run_spec, progress)
+        table(geosim.pipeline.describe_spec(run_spec) + geosim.pipeline.describe_data(data),
+              title="run spec and inputs are valid; nothing was computed")
+        return
+    start = time.perf_counter()
+    result = geosim.pipeline.run(run_spec, out_dir, overwrite=overwrite, resume=not no_resume, progress=progress)
+    progress.close()
+    n = len(result.kept) + len(result.computed)
+    realizations = f"{n} ({len(result.computed)} computed"
+    realizations += f", {len(result.kept)} kept from an earlier run)" if result.kept else ")"
+    rows = [("output folder", str(result.out_dir)), ("variogram model", str(result.model).strip())]
+    if result.crossval:
+        rows.append(("cross-validation", crossval_text(result.crossval)))
+    rows.append(("realizations", realizations))
+    if result.decision:
+        rows.append(("decision figures", decision_text(result.decision)))
+    rows += [("note", note) for note in result.notes]
+    rows += [("files", files_text(result.files, result.out_dir)),
+             ("time", seconds(time.perf_counter() - start) + " (" + ", ".join(
+                 f"{k} {seconds(v)}" for k, v in sorted(result.timings.items(), key=lambda kv: -kv[1])[:3]) + ")")]
+    table(rows, title="run complete")

@@ -1,0 +1,48 @@
+"""Summary tables printed at the end of geosim commands."""
+from __future__ import annotations
+
+import math
+from pathlib import Path
+
+
+def seconds(value: float) -> str:
+    return f"{value:.1f} s" if value < 120 else f"{value / 60:.1f} min"
+
+
+def number(value) -> str:
+    if value is None or (isinstance(value, float) and math.isnan(value)):
+        return "n/a"
+    return f"{value:.4g}" if isinstance(value, float) else str(value)
+
+
+def crossval_text(summary: dict) -> str:
+    return (f"RMSE {number(summary.get('rmse'))}, mean error {number(summary.get('mean_error'))}, "
+            f"mean standardized squared error {number(summary.get('mean_standardized_squared_error'))} "
+            f"({summary.get('estimated', '?')} of {summary.get('samples', '?')} samples estimated)")
+
+
+def decision_text(rows: list[dict], limit: int = 6) -> str:
+    lines = []
+    for row in rows[:limit]:
+        level_key = next(iter(row))
+        lines.append(f"{row['figure']} at {level_key} {row[level_key]:g}: P10 {number(row.get('P10'))}, "
+                     f"P50 {number(row.get('P50'))}, P90 {number(row.get('P90'))}")
+    if len(rows) > limit:
+        lines.append(f"... {len(rows) - limit} more in decision_spread.csv")
+    return "\n".join(lines)
+
+
+def files_text(files: dict[str, list[str]], out_dir: Path, limit: int = 8) -> str:
+    shown = []
+    for kind, paths in files.items():
+        if kind == "realization_files":
+            shown.append(f"realizations/ ({len(paths)} files)")
+            continue
+        for p in paths:
+            try:
+                shown.append(str(Path(p).resolve().relative_to(Path(out_dir).resolve())))
+            except ValueError:
+                shown.append(str(p))
+    if len(shown) > limit:
+        shown = shown[:limit] + [f"... {len(shown) - limit} more"]
+    return ", ".join(shown)
