@@ -209,18 +209,45 @@ def fit_model(experimental: ExperimentalVariogram | Sequence[ExperimentalVariogr
         if not free_sills and not math.isclose(fixed_sum, total_sill, rel_tol=1e-9):
             raise ValueError(f"all sills are fixed and add up to {fixed_sum:g}, not total_sill={total_sill:g}")
 
-    def build(p) -> Model:
+    def values_of(p) -> dict:
         values = dict(start)
         values.update(zip(free, p))
         for name, (base, ratio) in tied.items():
             values[name] = values[base] * ratio
-        return _model_from(template, values)
+        return values
 
-    def residuals(p, penalty=True):
-        m = build(p)
+    # lag vectors in each structure's (fixed) frame, so that a residual costs a few vector operations
+    frames = [None if s.kind == "nugget" else axes(s.anisotropy.azimuth, s.anisotropy.dip, s.anisotropy.rake)
+              for s in template.structures]
+    rotated = []
+    for _, lags, _, _, dirs in blocks:
+        h = np.concatenate([lags[:, None] * u[None, :] for u in dirs])  # (ndirs * nbins, 3)
+        if dim == 2:
+            h[:, 2] = 0.0
+        rotated.append([None if f is None else h @ f.T for f in frames])
+
+    def model_gamma(values) -> list[np.ndarray]:
+        out = []
+        for (_, lags, _, _, dirs), q in zip(blocks, rotated):
+            g = np.zeros(len(q[0]) if q[0] is not None else len(lags) * len(dirs))
+            for j, s in enumerate(template.structures):
+                sill = values[f"{j}.sill"]
+                if s.kind == "nugget":
+                    g += sill  # every lag used is > 0
+                    continue
+                ranges = np.array([values[f"{j}.major"], values[f"{j}.minor"], values[f"{j}.vertical"]])
+                r = np.sqrt(np.sum((q[j] / ranges) ** 2, axis=1))
+                shape = s if not s.param_name else s.with_(param=values[f"{j}.{s.param_name}"])
+                g += sill * (1.0 - shape.correlation(r))
+            out.append(g.reshape(len(dirs), len(lags)).mean(axis=0))
+        return out
+
+    def residuals(p):
+        return residuals_of(values_of(p), penalty=True)
+
+    def residuals_of(values, penalty):
         parts = []
-        for _, lags, g, npairs, dirs in blocks:
-            model_g = np.mean([m.semivariance(lags[:, None] * u[None, :dim]) for u in dirs], axis=0)
+        for (_, _, g, npairs, _), model_g in zip(blocks, model_gamma(values)):
             if weighting == "cressie":
                 parts.append(np.sqrt(npairs) * (g / np.maximum(model_g, 1e-12 * gmax) - 1.0))
             elif weighting == "pairs":
@@ -228,8 +255,9 @@ def fit_model(experimental: ExperimentalVariogram | Sequence[ExperimentalVariogr
             else:
                 parts.append(g - model_g)
         if penalty and total_sill is not None:
+            total = sum(values[n] for n in names if n.endswith(".sill"))
             scale = math.sqrt(sum(b[3].sum() for b in blocks)) * 1e3 / max(total_sill, 1e-12)
-            parts.append(np.array([scale * (m.sill - total_sill)]))
+            parts.append(np.array([scale * (total - total_sill)]))
         return np.concatenate(parts)
 
     lb = np.array([lo[n] for n in free])
@@ -246,11 +274,17 @@ def fit_model(experimental: ExperimentalVariogram | Sequence[ExperimentalVariogr
     else:
         p, success, message = np.array([]), True, "no free parameters"
 
-    model = build(p)
-    if total_sill is not None and model.sill > 0:  # remove the penalty's last 1e-9 of slack
-        model = Model([s.with_(sill=s.sill * total_sill / model.sill) for s in model.structures])
+    values = values_of(p)
+    free_sills = [n for n in free if n.endswith(".sill")]
+    if total_sill is not None and free_sills:  # remove the penalty's last ~1e-9 of slack
+        target = total_sill - sum(values[n] for n in names if n.endswith(".sill") and n not in free)
+        current = sum(values[n] for n in free_sills)
+        if current > 0 and target > 0:
+            for n in free_sills:
+                values[n] *= target / current
+    model = _model_from(template, values)
     values = _values(model)
-    wres = residuals(p, penalty=False)
+    wres = residuals_of(values, penalty=False)
     raw_by = {}
     raw_all = []
     for ev, lags, g, _, dirs in blocks:
