@@ -42,7 +42,7 @@ from pyproj import CRS
 
 from .crs import CrsLike, to_projected
 from .errors import GeosimWarning, InputError
-from .points import PointSet
+from .points import PointSet, merge_coincident
 from .tables import CsvTable, read_table, suggest
 
 DEFAULT_COLUMNS = {
@@ -97,17 +97,40 @@ class Drillholes:
     source: tuple[str, ...] = ()
     notes: tuple[str, ...] = ()
     _row_of: dict = field(init=False, repr=False, compare=False)
+    _slices: dict = field(init=False, repr=False, compare=False)
 
     def __post_init__(self):
-        object.__setattr__(self, "_row_of", {h: i for i, h in enumerate(self.ids)})
+        ids = np.asarray(self.ids).astype(str)
+        row_of = {h: i for i, h in enumerate(ids.tolist())}
+        if len(row_of) != len(ids):
+            raise ValueError("hole ids must be distinct")
+        hole = np.asarray(self.hole).astype(str)
+        try:
+            which = np.array([row_of[h] for h in hole.tolist()], dtype=np.int64)
+        except KeyError as exc:
+            raise ValueError(f"interval of hole {exc.args[0]!r}, which has no collar") from None
+        top = np.asarray(self.top, dtype=np.float64)
+        order = np.lexsort((top, which))
+        values = np.asarray(self.values, dtype=np.float64).reshape(len(hole), -1)
+        for name, arr in (("ids", ids), ("hole", hole[order]), ("top", top[order]),
+                          ("bottom", np.asarray(self.bottom, dtype=np.float64)[order]),
+                          ("values", values[order]),
+                          ("collars", np.asarray(self.collars, dtype=np.float64).reshape(len(ids), 3)),
+                          ("depths", np.asarray(self.depths, dtype=np.float64).reshape(len(ids))),
+                          ("names", tuple(self.names)), ("_row_of", row_of)):
+            object.__setattr__(self, name, arr)
+        # intervals are grouped by hole, so each hole's intervals are one slice
+        bounds = np.searchsorted(which[order], np.arange(len(ids) + 1))
+        object.__setattr__(self, "_slices", {h: slice(bounds[i], bounds[i + 1]) for h, i in row_of.items()})
 
     def __repr__(self) -> str:
         return (f"Drillholes({len(self.ids)} holes, {len(self.hole)} intervals, names={self.names}, "
                 f"crs={None if self.crs is None else self.crs.to_string()})")
 
     def intervals_of(self, hole_id: str) -> np.ndarray:
-        """Indices of the intervals of one hole, top to bottom."""
-        return np.flatnonzero(self.hole == hole_id)
+        """Indices of the intervals of one hole, top to bottom (empty for an unknown hole)."""
+        sl = self._slices.get(hole_id)
+        return np.arange(0) if sl is None else np.arange(sl.start, sl.stop)
 
     def positions(self, hole_id: str, depths) -> np.ndarray:
         """``(x, y, z)`` of points at the given depths along one hole (minimum curvature)."""
@@ -328,19 +351,17 @@ def read_drillholes(collars: str | os.PathLike, surveys: str | os.PathLike | Non
         sa = st.numbers(sc["azimuth"], role="azimuth")
         sp = st.numbers(sc["dip"], role="dip")
         col = {r: st.header[st.index(sc[r])] for r in ("depth", "azimuth", "dip")}
-        for i in range(len(st)):
-            row = st.lines[i]
-            if not 0.0 <= sd[i] <= depth[sh[i]] + _DEPTH_TOL:
-                raise InputError(f"survey depth {sd[i]:g} is outside the hole (total depth {depth[sh[i]]:g})",
-                                 file=st.path, row=row, field=col["depth"],
-                                 fix="correct the depth or the collar's total depth")
-            if not 0.0 <= sa[i] <= 360.0:
-                raise InputError(f"azimuth {sa[i]:g} is outside 0-360 degrees", file=st.path, row=row,
-                                 field=col["azimuth"], fix="give degrees clockwise from north, 0 to 360")
-            if not -90.0 <= sp[i] <= 90.0:
-                raise InputError(f"dip {sp[i]:g} is outside -90 to 90 degrees", file=st.path, row=row,
-                                 field=col["dip"],
-                                 fix="give degrees from horizontal, negative downward (-90 = vertically down)")
+        _raise_first([
+            (~((sd >= 0.0) & (sd <= depth[sh] + _DEPTH_TOL)), lambda i: InputError(
+                f"survey depth {sd[i]:g} is outside the hole (total depth {depth[sh[i]]:g})", file=st.path,
+                row=st.lines[i], field=col["depth"], fix="correct the depth or the collar's total depth")),
+            (~((sa >= 0.0) & (sa <= 360.0)), lambda i: InputError(
+                f"azimuth {sa[i]:g} is outside 0-360 degrees", file=st.path, row=st.lines[i],
+                field=col["azimuth"], fix="give degrees clockwise from north, 0 to 360")),
+            (~((sp >= -90.0) & (sp <= 90.0)), lambda i: InputError(
+                f"dip {sp[i]:g} is outside -90 to 90 degrees", file=st.path, row=st.lines[i], field=col["dip"],
+                fix="give degrees from horizontal, negative downward (-90 = vertically down)")),
+        ])
         if (sp > 0).any() and not (sp < 0).any():
             warnings.warn(f"{st.path}: every dip is positive, i.e. every hole points upward; geosim's dips "
                           "are negative downward: negate the dips if the holes go down", GeosimWarning,
@@ -374,18 +395,17 @@ def read_drillholes(collars: str | os.PathLike, surveys: str | os.PathLike | Non
     bot = it.numbers(ic["to"], role="interval to")
     vals = np.column_stack([it.numbers(v, role="value", allow_missing=True) for v in names])
     fcol, tcol = it.header[it.index(ic["from"])], it.header[it.index(ic["to"])]
-    for i in range(len(it)):
-        row = it.lines[i]
-        if top[i] < 0:
-            raise InputError(f"'from' {top[i]:g} is above the collar", file=it.path, row=row, field=fcol,
-                             fix="depths are measured down the hole from 0 at the collar")
-        if not top[i] < bot[i]:
-            raise InputError(f"'from' {top[i]:g} is not less than 'to' {bot[i]:g}", file=it.path, row=row,
-                             field=tcol, fix="check the interval ends (swapped or zero length?)")
-        if bot[i] > depth[ih[i]] + _DEPTH_TOL:
-            raise InputError(f"interval ends at {bot[i]:g}, past the hole's total depth {depth[ih[i]]:g}",
-                             file=it.path, row=row, field=tcol,
-                             fix="correct the interval or the collar's total depth")
+    _raise_first([
+        (top < 0, lambda i: InputError(
+            f"'from' {top[i]:g} is above the collar", file=it.path, row=it.lines[i], field=fcol,
+            fix="depths are measured down the hole from 0 at the collar")),
+        (~(top < bot), lambda i: InputError(
+            f"'from' {top[i]:g} is not less than 'to' {bot[i]:g}", file=it.path, row=it.lines[i], field=tcol,
+            fix="check the interval ends (swapped or zero length?)")),
+        (bot > depth[ih] + _DEPTH_TOL, lambda i: InputError(
+            f"interval ends at {bot[i]:g}, past the hole's total depth {depth[ih[i]]:g}", file=it.path,
+            row=it.lines[i], field=tcol, fix="correct the interval or the collar's total depth")),
+    ])
     order = np.lexsort((top, ih))
     same = ih[order][1:] == ih[order][:-1]
     overlap = np.flatnonzero(same & (top[order][1:] < bot[order][:-1] - 1e-9))
@@ -404,6 +424,22 @@ def read_drillholes(collars: str | os.PathLike, surveys: str | os.PathLike | Non
                       source=tuple(sources), notes=tuple(notes))
 
 
+def _raise_first(checks) -> None:
+    """Raise the error of the first row failing any check, checks tried in the order given.
+
+    ``checks`` is a list of ``(bad, make)`` with ``bad`` a boolean array over rows and
+    ``make(i)`` building the error for row ``i``.
+    """
+    bad = np.zeros(len(checks[0][0]), dtype=bool)
+    for mask, _ in checks:
+        bad |= mask
+    if bad.any():
+        i = int(np.argmax(bad))
+        for mask, make in checks:
+            if mask[i]:
+                raise make(i)
+
+
 def composite(holes: Drillholes, length: float, *, min_fraction: float = 0.5, residual: str = "merge",
               start: str = "sample") -> PointSet:
     """Fixed-length, length-weighted composites along each hole.
@@ -412,7 +448,8 @@ def composite(holes: Drillholes, length: float, *, min_fraction: float = 0.5, re
     (``start="sample"``) or from the collar (``start="collar"``) down to its last
     sampled depth.  A composite's value is the length-weighted mean of the parts of
     intervals inside it, over the *sampled* length only: gaps and not-assayed
-    intervals never count as zero.  The last run of a hole (the residual) is
+    intervals never count as zero.  Composites of different holes at the same
+position (twin holes) are averaged, with a warning and a note.  The last run of a hole (the residual) is
     kept when it is at least ``min_fraction * length`` long; a shorter one is
     merged into the composite above it (``residual="merge"``; when it is the hole's
     only run it is kept) or dropped (``residual="drop"``).  Composites with no
@@ -506,9 +543,11 @@ def composite(holes: Drillholes, length: float, *, min_fraction: float = 0.5, re
     if dropped:
         note += f"; {dropped} residual(s) under {min_fraction:g} x length dropped"
     note += ")"
-    return PointSet(cat["coords"], cat["values"], holes.names, holes.crs, cat["hole"],
-                    {"length": cat["length"], "depth": mids, "from": cat["from"], "to": cat["to"]},
-                    holes.source, holes.notes + (note,))
+    points = PointSet(cat["coords"], cat["values"], holes.names, holes.crs, cat["hole"],
+                      {"length": cat["length"], "depth": mids, "from": cat["from"], "to": cat["to"]},
+                      holes.source, holes.notes + (note,))
+    # twin holes collared at the same spot give coincident composites, which kriging cannot use
+    return merge_coincident(points)
 
 
 def _cumulative(x: np.ndarray) -> np.ndarray:

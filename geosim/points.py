@@ -254,8 +254,12 @@ def merge_coincident(points: PointSet, *, tolerance: float = 1e-3, mode: str = "
                   for k, v in points.attributes.items()}
     merged = int(n - n_groups)
     example = [int(r) for r in rows[label == label[pairs[0][0]]][:3]]
+    where = "rows" if lines is not None else "samples"
+    if points.hole_ids is not None:
+        holes = sorted(set(points.hole_ids[label == label[pairs[0][0]]].tolist()))
+        where = f"holes {', '.join(holes)}, " + where
     note = (f"merged {merged + int((counts > 1).sum())} coincident samples into "
-            f"{int((counts > 1).sum())} (averaged; e.g. rows {', '.join(map(str, example))})")
+            f"{int((counts > 1).sum())} (averaged; e.g. {where} {', '.join(map(str, example))})")
     warnings.warn(note + (f" in {file}" if file else ""), GeosimWarning, stacklevel=3)
     return replace(points, coords=average(points.coords), values=average(points.values),
                    hole_ids=None if points.hole_ids is None else points.hole_ids[keep],

@@ -270,3 +270,13 @@ def test_reads_and_composites_the_ore_prospect():
     z0 = h.collars[h.ids.tolist().index(vertical[0]), 2]
     np.testing.assert_allclose(c.coords[sel, 2], z0 - c.attributes["depth"][sel], atol=1e-9)
     assert geosim.composite is composite and geosim.read_drillholes is read_drillholes
+
+
+def test_twin_holes_give_merged_composites_with_warning(tmp_path):
+    col = write(tmp_path, "c.csv", "hole_id,x,y,z,depth\nT1,0,0,0,10\nT2,0,0,0,10\n")
+    itv = write(tmp_path, "i.csv", "hole_id,from,to,cu\nT1,0,2,1.0\nT2,0,2,3.0\n")
+    h = read_drillholes(col, None, itv, values="cu", crs=None)
+    with pytest.warns(GeosimWarning, match="merged 2 coincident samples into 1"):
+        c = composite(h, 2.0)
+    assert len(c) == 1 and c.column().tolist() == [2.0]
+    assert "holes T1, T2" in c.notes[-1]
