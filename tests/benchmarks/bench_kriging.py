@@ -1,0 +1,111 @@
+"""Per-node cost of kriging a 1,000 x 1,000 grid with 16 and 32 neighbours.
+
+Prints microseconds per node for simple and ordinary kriging, split into the
+candidate search (k-d tree query in the ellipsoid frame) and the compiled
+select-build-factor-solve loop, and the compiled Cholesky against LAPACK at a
+few orders (the crossover behind ``geosim.linalg.LAPACK_ORDER``).  Numba
+compilation is excluded (warm-up call first).  Wall-clock figures on a shared
+machine are noisy: read the ratios, and rerun on a quiet machine for absolute
+numbers.
+
+    python tests/benchmarks/bench_kriging.py            # full 1,000 x 1,000 grid
+    python tests/benchmarks/bench_kriging.py --rows 100 # 100 rows, scaled up
+"""
+from __future__ import annotations
+
+import argparse
+import os
+import time
+
+import numpy as np
+from numba import njit
+
+import geosim
+from geosim.kriging import krige
+from geosim.linalg import chol_inplace
+from geosim.search import DataSearch, Neighbourhood
+
+
+def _search_seconds(search: DataSearch, targets: np.ndarray) -> float:
+    tframe = search.to_frame(np.column_stack([targets, np.zeros(len(targets))]))
+    k = search.initial_candidates()
+    block = max(1, (1 << 21) // k)
+    t0 = time.perf_counter()
+    for start in range(0, len(tframe), block):
+        search.candidates(tframe[start:start + block], k)
+    return time.perf_counter() - t0
+
+
+@njit
+def _factor_many(a, buf, work, reps):
+    """Copy and factor ``reps`` times inside compiled code, as the kriging loop does."""
+    n = a.shape[0]
+    status = 0
+    for _ in range(reps):
+        for i in range(n):
+            for j in range(i + 1):
+                buf[i, j] = a[i, j]
+        status += chol_inplace(buf, n, work, 0.0)
+    return status
+
+
+def _cholesky_table(orders=(16, 32, 64, 128, 256)) -> None:
+    from scipy.linalg import lapack
+
+    rng = np.random.default_rng(0)
+    print("\nCholesky of one n x n matrix (microseconds): compiled chol_inplace called in a compiled loop"
+          " vs LAPACK dpotrf called from Python via scipy")
+    for n in orders:
+        x = rng.normal(size=(n, n))
+        a = x @ x.T + n * np.eye(n)
+        buf, work = np.empty_like(a), np.empty(n)
+        reps = max(20, 2_000_000 // (n * n))
+        _factor_many(a, buf, work, 1)
+        t0 = time.perf_counter()
+        assert _factor_many(a, buf, work, reps) == -reps
+        ours = (time.perf_counter() - t0) / reps
+        t0 = time.perf_counter()
+        for _ in range(reps):
+            lapack.dpotrf(a, lower=1, clean=0, overwrite_a=0)
+        theirs = (time.perf_counter() - t0) / reps
+        print(f"  n={n:4d}  compiled {ours * 1e6:9.1f}  LAPACK {theirs * 1e6:9.1f}  ratio {ours / theirs:5.2f}")
+
+
+def main() -> None:
+    ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    ap.add_argument("--rows", type=int, default=1000, help="grid rows to krige (of 1000), scaled up")
+    ap.add_argument("--samples", type=int, default=2000, help="number of data samples")
+    args = ap.parse_args()
+
+    rng = np.random.default_rng(42)
+    # an invented 10 km x 10 km prospect, 10 m cells
+    side, cells = 10_000.0, 1000
+    data = rng.uniform(0, side, size=(args.samples, 2))
+    model = geosim.Nugget(0.15) + geosim.Spherical(0.85, geosim.Anisotropy((2500.0, 1200.0), azimuth=30.0))
+    values = np.linalg.cholesky(model.cov_matrix(data) + 1e-9 * np.eye(args.samples)) @ rng.normal(
+        size=args.samples)
+    grid = geosim.Grid(0.0, 0.0, (side / cells, side / cells), (args.rows, cells))
+    targets = grid.coords()
+    m = len(targets)
+    print(f"grid {args.rows} x {cells} = {m:,} nodes (scaled to 1,000,000), {args.samples} samples, "
+          f"load average {os.getloadavg()[0]:.2f} on {os.cpu_count()} cores (shared machine)")
+
+    krige(data, values, targets[:100], model, method="simple")  # compile (cached) before timing
+    krige(data, values, targets[:100], model, method="ordinary")
+    for k in (16, 32):
+        nb = Neighbourhood(max_samples=k)
+        search_s = _search_seconds(DataSearch(data, nb, model), targets)
+        for method in ("simple", "ordinary"):
+            t0 = time.perf_counter()
+            res = krige(data, values, targets, model, method=method, neighbourhood=nb)
+            total = time.perf_counter() - t0
+            assert np.isfinite(res.estimate).all()
+            per = total / m * 1e6
+            print(f"K={k:2d} {method:8s}: {per:6.2f} us/node total = search {search_s / m * 1e6:5.2f} + "
+                  f"select/build/factor/solve {(total - search_s) / m * 1e6:5.2f}; "
+                  f"1,000,000 nodes ~ {per:.1f} s")
+    _cholesky_table()
+
+
+if __name__ == "__main__":
+    main()
