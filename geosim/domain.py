@@ -45,7 +45,7 @@ _LONLAT = CRS.from_user_input("OGC:CRS84")  # RFC 7946 section 4: WGS 84, longit
 _MAX_SEGMENT_DEGREES = 0.001
 
 
-def read_domain(path: str | os.PathLike, target_crs: CrsLike, *,
+def read_domain(path: str | os.PathLike, target_crs: CrsLike | None, *,
                 source_crs: CrsLike | None = None) -> Polygon | MultiPolygon:
     """Read a domain polygon from GeoJSON and reproject it to ``target_crs``.
 
@@ -55,9 +55,11 @@ def read_domain(path: str | os.PathLike, target_crs: CrsLike, *,
         A GeoJSON file: a FeatureCollection, a Feature, or a bare Polygon,
         MultiPolygon or GeometryCollection.  Every polygon in it is part of the
         domain (they are united); features without geometry are skipped.
-    target_crs : pyproj.CRS, int or str
+    target_crs : pyproj.CRS, int, str or None
         CRS of the result, normally the projected CRS of the data and the grid
-        (``"EPSG:32750"``, ``32750``, WKT, ...).
+        (``"EPSG:32750"``, ``32750``, WKT, ...).  None is for data in a local grid
+        without a CRS: the file's coordinates are then taken to be in that local
+        grid as they are, and the file must not name a CRS.
     source_crs : pyproj.CRS, int or str, optional
         CRS of the file's coordinates.  By default the file's legacy ``"crs"``
         member if it has one, else longitude/latitude (WGS 84) as RFC 7946 says.
@@ -84,9 +86,17 @@ def read_domain(path: str | os.PathLike, target_crs: CrsLike, *,
     """
     path = os.fspath(path)
     doc = _load_json(path)
+    geom = _polygons(doc, path)
+    if target_crs is None:
+        named = source_crs if source_crs is not None else (doc.get("crs") if isinstance(doc, dict) else None)
+        if named is not None:
+            raise InputError("the domain names a CRS but the data have none, so it cannot be brought to them",
+                             file=path, field="crs",
+                             fix="give the data's CRS, or store the domain in the data's local coordinates "
+                                 "without a 'crs' member")
+        return _valid(geom, path, "as read")
     source = _source_crs(doc, path, source_crs)
     target = parse_crs(target_crs, field="target CRS")
-    geom = _polygons(doc, path)
     geographic = source.is_geographic
     if geographic:
         _check_lonlat(geom, path)

@@ -123,6 +123,27 @@ def test_source_crs_argument_overrides(tmp_path):
     assert np.allclose(shapely.get_coordinates(poly), xy, atol=1e-9, rtol=0)
 
 
+def test_holes_and_heights(tmp_path):
+    hole = [[15.00, 47.51], [15.01, 47.51], [15.01, 47.52], [15.00, 47.51]]
+    with_z = [[x, y, 420.0] for x, y in RING]
+    poly = read_domain(_write(tmp_path, {"type": "Polygon", "coordinates": [with_z, hole]}), "EPSG:32633")
+    assert not poly.has_z and len(poly.interiors) == 1
+    solid = read_domain(_write(tmp_path, {"type": "Polygon", "coordinates": [RING]}, "solid.geojson"),
+                        "EPSG:32633")
+    hole_utm = shapely.transform(shapely.segmentize(Polygon(hole), 0.001), _to_utm33)
+    assert poly.area == pytest.approx(solid.area - hole_utm.area, rel=1e-9)
+
+
+def test_local_grid_without_crs(tmp_path):
+    local = [[1000.0, 2000.0], [1400.0, 2000.0], [1400.0, 2300.0], [1000.0, 2300.0], [1000.0, 2000.0]]
+    poly = read_domain(_write(tmp_path, {"type": "Polygon", "coordinates": [local]}), None)
+    assert poly.bounds == (1000.0, 2000.0, 1400.0, 2300.0)
+    named = _collection({"type": "Polygon", "coordinates": [local]},
+                        crs={"type": "name", "properties": {"name": "EPSG:32633"}})
+    with pytest.raises(InputError, match="the data have none"):
+        read_domain(_write(tmp_path, named, "named.geojson"), None)
+
+
 def test_self_intersecting_polygon_is_repaired_with_a_warning(tmp_path):
     bowtie = [[15.0, 47.0], [15.01, 47.01], [15.01, 47.0], [15.0, 47.01], [15.0, 47.0]]
     path = _write(tmp_path, {"type": "Polygon", "coordinates": [bowtie]})
