@@ -2,8 +2,8 @@
 
 On a terminal each kind of work (``what``: realizations, nodes, pairs, ...) gets
 one bar redrawn in place, at most ten times a second.  When stderr is not a
-terminal (a log file, a queue), each finished piece of work gets one plain line
-instead.  With ``--quiet`` nothing is shown.
+terminal (a log file, a queue), each piece of work that took a second or more
+gets one plain line when it finishes.  With ``--quiet`` nothing is shown.
 """
 from __future__ import annotations
 
@@ -61,8 +61,10 @@ class ProgressReporter:
                 self._close_line()
                 self._what = None
         elif finished:
-            self.stream.write(f"{what}: {total} done in {now - self._start:.1f} s\n")
-            self.stream.flush()
+            # one plain line per long piece of work; quick steps stay silent in logs
+            if now - self._start >= 1.0:
+                self.stream.write(f"{what}: {total} done ({now - self._start:.1f} s)\n")
+                self.stream.flush()
             self._what = None
 
     def note(self, text: str) -> None:

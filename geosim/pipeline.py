@@ -155,7 +155,7 @@ def load_samples(spec: RunSpec):
     from .drillholes import composite, read_drillholes
     holes = read_drillholes(spec.resolve(d["collars"]),
                             None if d["surveys"] is None else spec.resolve(d["surveys"]),
-                            spec.resolve(d["intervals"]), values=d["value"], crs=d["crs"],
+                            spec.resolve(d["intervals"]), values=d["value"], crs=d["crs"], target_crs=target,
                             columns=d["columns"] or None)
     comp = d["composites"]
     return composite(holes, comp["length"], min_fraction=comp["min_fraction"], residual=comp["residual"])

@@ -586,6 +586,9 @@ def _check_combinations(spec: dict, problems: list[str]) -> None:
     if data["collars"] is not None:
         if data["intervals"] is None:
             problems.append('data.intervals: required for drillholes, expected a CSV path, found nothing')
+        if data["composites"] is None:
+            problems.append("data.composites: required for drillholes, expected a table such as "
+                            "{ length = 2.0 } (composite length in metres), found nothing")
         for k in ("x", "y", "z"):
             if data[k] is not None:
                 problems.append(f"data.{k}: only for a points file; rename drillhole columns with "
@@ -646,6 +649,12 @@ def _check_combinations(spec: dict, problems: list[str]) -> None:
     engines = _installed("engines")
     if sim["engine"] is not None and engines is not None and sim["engine"] not in engines:
         problems.append(f"simulation.engine: expected one of {', '.join(engines)}, found {sim['engine']!r}")
+    if sim["engine"] == "sequential":
+        # known before any work starts: the sequential engine refuses these (geosim.simulation)
+        for key in ("sectors", "max_per_sector", "max_per_hole"):
+            if search[key]:
+                problems.append(f"search.{key}: the sequential engine does not apply sectors or per-hole "
+                                f"limits, expected it left out, found {search[key]!r}")
     if sim["workers"] is not None and sim["cluster"] is not None:
         problems.append("simulation: expected workers or cluster, found both")
 
