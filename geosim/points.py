@@ -175,6 +175,8 @@ def read_points(path: str | os.PathLike, *, x: str, y: str, z: str | None = None
     Returns
     -------
     PointSet
+        With the attribute ``row``: the file row of each sample (of the first one, for
+        merged samples), so later checks can point back into the file.
 
     Raises
     ------
@@ -197,7 +199,7 @@ def read_points(path: str | os.PathLike, *, x: str, y: str, z: str | None = None
     coords, out_crs, note = to_projected(np.column_stack(cols), crs, target_crs, file=table.path)
     notes = [] if note is None else [note]
     points = PointSet(coords, vals, tuple(table.header[table.index(v)] for v in names), out_crs, ids,
-                      {}, (table.path,), tuple(notes))
+                      {"row": np.array(table.lines, dtype=np.int64)}, (table.path,), tuple(notes))
     return merge_coincident(points, tolerance=tolerance, mode=duplicates, lines=np.array(table.lines),
                             file=table.path)
 
@@ -250,7 +252,8 @@ def merge_coincident(points: PointSet, *, tolerance: float = 1e-3, mode: str = "
             return sums / hits
 
     keep = np.sort(first)
-    attributes = {k: (average(v.astype(float))[:, 0] if np.issubdtype(v.dtype, np.number) else v[keep])
+    # measured quantities are averaged; labels and integer bookkeeping (file rows) keep the first
+    attributes = {k: (average(v)[:, 0] if np.issubdtype(v.dtype, np.floating) else v[keep])
                   for k, v in points.attributes.items()}
     merged = int(n - n_groups)
     example = [int(r) for r in rows[label == label[pairs[0][0]]][:3]]
@@ -264,3 +267,27 @@ def merge_coincident(points: PointSet, *, tolerance: float = 1e-3, mode: str = "
     return replace(points, coords=average(points.coords), values=average(points.values),
                    hole_ids=None if points.hole_ids is None else points.hole_ids[keep],
                    attributes=attributes, notes=points.notes + (note,))
+
+
+def check_positive(points: PointSet, name: str | None = None, *, why: str = "a log transform") -> None:
+    """Raise :class:`InputError` at the first sample whose value ``name`` is not > 0.
+
+    The error names the file and row (from the ``row`` attribute that :func:`read_points`
+    sets) or, for drillhole composites, the hole and depth.  NaN values are ignored.
+    """
+    v = points.column(name)
+    bad = v <= 0
+    if not bad.any():
+        return
+    i = int(np.argmax(bad))
+    field_name = name if name is not None else points.names[0]
+    file = points.source[0] if len(points.source) == 1 else None
+    row = int(points.attributes["row"][i]) if "row" in points.attributes else None
+    where = ""
+    if row is None and points.hole_ids is not None:
+        depth = points.attributes.get("depth")
+        where = f" (hole {points.hole_ids[i]}" + (f", depth {depth[i]:g} m)" if depth is not None else ")")
+        file = None
+    raise InputError(f"value {v[i]:g}{where} is not positive, which {why} needs", file=file, row=row,
+                     field=field_name, fix="correct or remove non-positive values (a value below detection is "
+                                           "usually entered as half the detection limit), or choose no log")

@@ -292,8 +292,10 @@ class NormalScoreTransform:
     def _table(self) -> None:
         # unique values with the weighted mean score of each tie: the forward lookup table
         uv, start = np.unique(self.values_, return_index=True)
-        sums = np.add.reduceat(self.scores_ * self.weights_, start)
-        self._uv, self._uy = uv, sums / np.add.reduceat(self.weights_, start)
+        wsum = np.add.reduceat(self.weights_, start)
+        mean_w = np.add.reduceat(self.scores_ * self.weights_, start) / np.where(wsum > 0, wsum, 1.0)
+        mean_plain = np.add.reduceat(self.scores_, start) / np.diff(np.r_[start, len(self.values_)])
+        self._uv, self._uy = uv, np.where(wsum > 0, mean_w, mean_plain)
 
     def _check_fitted(self) -> None:
         if not hasattr(self, "values_"):

@@ -280,3 +280,15 @@ def test_twin_holes_give_merged_composites_with_warning(tmp_path):
         c = composite(h, 2.0)
     assert len(c) == 1 and c.column().tolist() == [2.0]
     assert "holes T1, T2" in c.notes[-1]
+
+
+def test_check_positive_names_hole_and_depth(files):
+    from geosim.points import check_positive
+    h = read_drillholes(*files, values="cu", crs=None)
+    c = composite(h, 2.0)
+    check_positive(c, "cu")
+    zeroed = c.take(np.arange(len(c)))
+    zeroed.values[3, 0] = 0.0
+    with pytest.raises(InputError, match=r"hole B, depth 3 m\)") as err:
+        check_positive(zeroed, "cu")
+    assert err.value.field == "cu" and err.value.row is None

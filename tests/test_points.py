@@ -176,3 +176,15 @@ def test_reads_the_aquifer_sample_field():
     ref = Transformer.from_crs(4326, p.crs, always_xy=True).transform(lon, lat)
     np.testing.assert_allclose(p.coords, np.column_stack(ref), atol=1e-6)
     assert geosim.read_points is read_points
+
+
+def test_rows_travel_with_samples_and_check_positive_names_them(tmp_path):
+    from geosim.points import check_positive
+    f = write(tmp_path / "k.csv", "x,y,k\n0,0,1e-5\n10,0,2e-5\n0,0,3e-5\n20,0,0\n")
+    with pytest.warns(GeosimWarning):
+        p = read_points(f, x="x", y="y", values="k", crs=None)
+    assert p.attributes["row"].tolist() == [2, 3, 5]  # merged rows keep the first row number
+    with pytest.raises(InputError, match="not positive") as err:
+        check_positive(p, "k")
+    assert err.value.file == f and err.value.row == 5 and err.value.field == "k"
+    check_positive(p.take([0, 1]), "k")

@@ -170,3 +170,8 @@ def test_describe_names_the_choices():
     with pytest.raises(ValueError, match="unknown transform kind"):
         transform_from_dict({"kind": "box-cox"})
     assert geosim.NormalScoreTransform is NormalScoreTransform
+
+
+def test_zero_weights_in_a_tie_do_not_break_the_lookup():
+    t = NormalScoreTransform(ties="order").fit([1.0, 1.0, 2.0, 3.0], weights=[0.0, 0.0, 1.0, 1.0])
+    assert np.isfinite(t.transform([1.0, 1.5, 2.5])).all()
