@@ -82,7 +82,8 @@ def read_domain(path: str | os.PathLike, target_crs: CrsLike | None, *,
     -----
     GeosimWarning
         When an invalid polygon (self-intersecting ring, ...) was repaired with
-        :func:`shapely.make_valid`, naming the problem shapely found.
+        :func:`shapely.make_valid`, naming the problem shapely found, and when
+        ``target_crs`` is None but the coordinates look like longitude/latitude.
     """
     path = os.fspath(path)
     doc = _load_json(path)
@@ -94,6 +95,11 @@ def read_domain(path: str | os.PathLike, target_crs: CrsLike | None, *,
                              file=path, field="crs",
                              fix="give the data's CRS, or store the domain in the data's local coordinates "
                                  "without a 'crs' member")
+        xy = shapely.get_coordinates(geom)
+        if np.all(np.abs(xy) <= [180.0, 90.0]) and np.ptp(xy[:, 0]) < 5.0 and np.ptp(xy[:, 1]) < 5.0:
+            warnings.warn(f"{path}: the domain's coordinates look like longitude/latitude but the data have "
+                          "no CRS, so they are used as local metres; give the data's CRS if they are "
+                          "longitude/latitude", GeosimWarning, stacklevel=2)
         return _valid(geom, path, "as read")
     source = _source_crs(doc, path, source_crs)
     target = parse_crs(target_crs, field="target CRS")

@@ -142,6 +142,8 @@ def test_local_grid_without_crs(tmp_path):
                         crs={"type": "name", "properties": {"name": "EPSG:32633"}})
     with pytest.raises(InputError, match="the data have none"):
         read_domain(_write(tmp_path, named, "named.geojson"), None)
+    with pytest.warns(GeosimWarning, match="look like longitude/latitude"):
+        read_domain(_write(tmp_path, {"type": "Polygon", "coordinates": [RING]}, "lonlat.geojson"), None)
 
 
 def test_self_intersecting_polygon_is_repaired_with_a_warning(tmp_path):
