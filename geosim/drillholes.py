@@ -415,6 +415,11 @@ def read_drillholes(collars: str | os.PathLike, surveys: str | os.PathLike | Non
                          f"(row {it.lines[b]}) of hole {str(ids[ih[a]])!r} overlap", file=it.path,
                          row=max(it.lines[a], it.lines[b]), field=fcol, fix="correct or remove one of them")
     value_names = tuple(it.header[it.index(v)] for v in names)
+    with_intervals = set(np.unique(ih).tolist())
+    unsampled = [h for h, i in known.items() if i not in with_intervals]
+    if unsampled:
+        notes.append(f"{len(unsampled)} hole(s) without intervals: {', '.join(unsampled[:10])}"
+                     + (" ..." if len(unsampled) > 10 else ""))
     for j, name in enumerate(value_names):
         missing = int(np.isnan(vals[:, j]).sum())
         if missing:

@@ -112,6 +112,7 @@ def test_read_drillholes(files):
     assert set(h.surveys) == {"A", "B"}
     assert np.isnan(h.values[h.intervals_of("B")][1, 0])
     assert any("1 of 7 intervals have no cu value" in n for n in h.notes)
+    assert "1 hole(s) without intervals: C" in h.notes
     np.testing.assert_allclose(h.positions("C", [10.0]), [[200, 200, 45]])
     end = h.positions("A", [20.0])[0]
     np.testing.assert_allclose(end, [100 + 10.0, 200, 50 - 20 * math.sin(math.radians(60))], atol=1e-9)
