@@ -82,7 +82,7 @@ def summary_band_descriptions(cutoffs: Sequence[float] = (), units: str = "") ->
 
 def _stack_stats(stack: np.ndarray, cutoffs: Sequence[float]) -> np.ndarray:
     """Summary bands of a stack ``(n_real, ...)``; returns ``(n_bands, ...)`` float64."""
-    stack = np.asarray(stack, dtype=np.float64)
+    stack = np.asarray(stack)
     shape = stack.shape[1:]
     out = np.full((5 + len(cutoffs),) + shape, np.nan)
     valid = ~np.isnan(stack)
@@ -92,7 +92,7 @@ def _stack_stats(stack: np.ndarray, cutoffs: Sequence[float]) -> np.ndarray:
                          "must share the domain mask")
     if not inside.any():
         return out
-    vals = stack[:, inside]
+    vals = stack[:, inside].astype(np.float64)  # statistics in double precision, one copy of the active nodes
     out[0][inside] = vals.mean(axis=0)
     out[1][inside] = vals.std(axis=0)
     out[2:5, inside] = np.percentile(vals, SUMMARY_PERCENTILES, axis=0, method=QUANTILE_METHOD)
