@@ -570,8 +570,18 @@ def open_output(spec: RunSpec, out_dir: Path, *, overwrite: bool, resume: bool) 
         raise InputError("the output folder is not empty and holds no geosim run state", file=str(out_dir),
                          fix="choose a new or empty --out folder, or pass --overwrite")
     state_dir.mkdir(parents=True, exist_ok=True)
+    _sweep_temporaries(out_dir)
     _write_json(state_file, header)
     return header
+
+
+def _sweep_temporaries(out_dir: Path) -> None:
+    """Remove the hidden temporary files a killed run may have left (atomic writes that
+    never reached their rename); finished files are never touched."""
+    for folder in (out_dir, out_dir / "realizations", out_dir / STATE_DIR):
+        for pattern in (".*.partial*", ".*.stage.tif"):
+            for path in folder.glob(pattern):
+                path.unlink(missing_ok=True)
 
 
 def _read_header(out_dir: Path) -> dict | None:
