@@ -15,7 +15,9 @@ from .structures import CUBIC, EXPONENTIAL, GAUSSIAN, NUGGET, SPHERICAL, TABULAT
 _ZERO_LAG2 = 1e-18  # squared metres: lags shorter than 1 nm are "the same place"
 
 
-@njit(cache=True, nogil=True)
+# inline="always": kernels call this per matrix entry; a real call costs a reference-count
+# round trip on each of cm's six arrays, 7x the covariance itself (tests/benchmarks/bench_kriging.py)
+@njit(cache=True, nogil=True, inline="always")
 def cov_lag(cm, dx, dy, dz):
     """Covariance of the compiled model ``cm`` at the lag vector (dx, dy, dz)."""
     codes, sills, mats, params, tables, steps = cm
