@@ -101,9 +101,14 @@ def cell_weights(coords: np.ndarray, size: float, *, n_offsets: int = 8,
     for i in range(n_offsets):
         origin = low - cell * (i / n_offsets)
         idx = np.floor((xyz - origin) / cell).astype(np.int64)
-        _, label, counts = np.unique(idx, axis=0, return_inverse=True, return_counts=True)
-        label = label.ravel()
-        total += 1.0 / (len(counts) * counts[label])
+        keys, n_keys = _cell_keys(idx)
+        if n_keys <= 16 * n:  # dense enough to count by cell number directly
+            counts = np.bincount(keys, minlength=n_keys)
+            per_sample, occupied = counts[keys], np.count_nonzero(counts)
+        else:
+            _, label, counts = np.unique(keys, return_inverse=True, return_counts=True)
+            per_sample, occupied = counts[label.ravel()], len(counts)
+        total += 1.0 / (occupied * per_sample)
     return total / total.sum()
 
 
@@ -178,6 +183,18 @@ def cell_declustering(coords, values, *, sizes: float | Sequence[float] | None =
     best = int(np.argmin(means) if objective == "min" else np.argmax(means))
     return DeclusteringResult(all_weights[best], float(scan[best]), scan, means, float(v.mean()),
                               float(means[best]), objective)
+
+
+def _cell_keys(idx: np.ndarray) -> tuple[np.ndarray, int]:
+    """One integer per cell from (n, d) non-negative cell indices, and the number of
+    possible keys (1-D keys count much faster than rows); falls back to row labels
+    when the index space exceeds int64."""
+    dims = idx.max(axis=0) + 1
+    space = float(np.prod(dims.astype(float)))
+    if space < 2.0 ** 62:
+        return np.ravel_multi_index(idx.T, dims), int(space)
+    labels = np.unique(idx, axis=0, return_inverse=True)[1].ravel()
+    return labels, int(labels.max()) + 1
 
 
 def _coords(coords) -> np.ndarray:
