@@ -57,11 +57,12 @@ from collections.abc import Mapping, Sequence
 
 import numpy as np
 
-__all__ = ["KS_CRITICAL_05", "ks_distance", "effective_count", "node_index", "axis_semivariogram",
+__all__ = ["KS_CRITICAL_05", "PLOT_QUANTILES", "ks_distance", "effective_count", "node_index", "axis_semivariogram",
            "RunChecks"]
 
 KS_CRITICAL_05 = 1.358  # Smirnov (1948): two-sample KS critical constant c(alpha) for alpha = 0.05
 VARIOGRAM_SILL_FRACTION = 0.15  # common practice, no source
+PLOT_QUANTILES = np.linspace(0.0, 1.0, 201)  # per-realization CDF kept for plots: 0.5 % steps
 
 
 def effective_count(weights: np.ndarray | None, n: int) -> float:
@@ -164,6 +165,10 @@ class RunChecks:
         The data's normal scores.
     weights : array (n,), optional
         Declustering weights.
+    data_values : array (n,), optional
+        The data in data units; kept for the histogram-reproduction plot, whose
+        realization curves come from the ``quantiles`` measured per realization
+        (:data:`PLOT_QUANTILES` levels of the data-unit values).
     nlags : int
         Lags per grid axis for variogram reproduction (from one node step up to
         the smaller of the model's largest range along that axis's direction and
@@ -176,12 +181,13 @@ class RunChecks:
     >>> g = geosim.Grid(0.0, 0.0, (1.0, 1.0), (30, 30))
     >>> m = geosim.Spherical(1.0, geosim.Anisotropy((10.0, 10.0, 10.0)))
     >>> checks = RunChecks(g, geosim.Model([m]), [[0.5, 29.5]], [0.0])
-    >>> sorted(checks(np.zeros(g.shape), np.zeros(g.shape)))
-    ['at_data', 'ks', 'mean', 'semivariance', 'var']
+    >>> sorted(checks(np.zeros(g.shape), np.ones(g.shape)))
+    ['at_data', 'ks', 'mean', 'quantiles', 'semivariance', 'var']
     """
 
-    def __init__(self, grid, model, data_coords, data_scores, weights=None, nlags: int = 6):
+    def __init__(self, grid, model, data_coords, data_scores, weights=None, data_values=None, nlags: int = 6):
         self.grid = grid
+        self.data_values = None if data_values is None else np.asarray(data_values, dtype=float).ravel()
         self.model = model
         coords = np.atleast_2d(np.asarray(data_coords, dtype=float))
         self.scores = np.asarray(data_scores, dtype=float).ravel()
@@ -221,16 +227,21 @@ class RunChecks:
         return v
 
     def __call__(self, scores: np.ndarray, values: np.ndarray | None = None) -> dict:
-        """Measure one realization (normal scores of ``grid.shape``, NaN outside the domain)."""
+        """Measure one realization: normal scores of ``grid.shape`` (NaN outside the
+        domain) and, optionally, the same field in data units."""
         s = np.asarray(scores, dtype=float)
         active = s[~np.isnan(s)]
         axes = {"east": self.grid.ndim - 1, "north": self.grid.ndim - 2, "up": 0}
         semivariance = {name: axis_semivariogram(s, axes[name], steps)[0].tolist()
                         for name, steps in self.steps.items()}
-        return {"ks": ks_distance(self.scores, active, self.weights),
-                "mean": float(active.mean()), "var": float(active.var()),
-                "semivariance": semivariance,
-                "at_data": s[tuple(self.data_nodes.T)].tolist()}
+        out = {"ks": ks_distance(self.scores, active, self.weights),
+               "mean": float(active.mean()), "var": float(active.var()),
+               "semivariance": semivariance,
+               "at_data": s[tuple(self.data_nodes.T)].tolist()}
+        if values is not None:
+            v = np.asarray(values, dtype=float)
+            out["quantiles"] = np.quantile(v[~np.isnan(v)], PLOT_QUANTILES).tolist()
+        return out
 
     def summarize(self, measures: Sequence[Mapping]) -> dict:
         """The ``validation`` section of the run report from all realizations' measurements."""

@@ -210,3 +210,30 @@ def test_files_open_in_a_fresh_process(tmp_path):
     assert res.returncode == 0, res.stderr
     info = json.loads(res.stdout)
     assert info == {"epsg": 32750, "max": 2.5, "caution": CAUTION, "desc": "x"}
+
+
+def test_writer_with_checks_draws_plots_and_gives_the_validation_section(tmp_path):
+    from geosim.validation import RunChecks
+    grid = _grid((60, 70))
+    model = geosim.Model([geosim.Spherical(1.0, geosim.Anisotropy((200.0, 100.0)))])
+    rng = np.random.default_rng(8)
+    coords = grid.coords()[rng.choice(grid.n_active, 12, replace=False)]
+    data_scores = rng.normal(size=12)
+    checks = RunChecks(grid, model, coords, data_scores, data_values=np.exp(data_scores))
+    writer = RealizationWriter(tmp_path, grid, units="g/t", back_transform=np.exp, measure=checks,
+                               figures=functools.partial(grade_tonnage, grid=grid, cutoffs=[0.5, 1.0],
+                                                         density=2.7, thickness=5.0))
+    scores = rng.normal(size=(3, *grid.shape))
+    scores[:, ~grid.mask] = np.nan
+    records = [writer(i, scores[i]) for i in range(3)]
+    # the measurement ran on the normal scores, the quantiles on the data-unit values
+    assert records[2]["checks"]["mean"] == pytest.approx(np.nanmean(scores[2]))
+    assert records[2]["checks"]["quantiles"][-1] == pytest.approx(np.nanmax(np.exp(scores[2])))
+    out = writer.finish(records, cutoffs=[1.0], plots=True)
+    names = sorted(p.rsplit("/", 1)[1] for p in out["plots"])
+    assert names == ["decision_spread.png", "histogram_reproduction.png", "mean.png", "p10.png", "p90.png",
+                     "prob_above_1.png", "std.png", "variogram_reproduction.png"]
+    section = writer.validation(records)
+    assert set(section) == {"histogram", "variogram", "data", "n_realizations"}
+    # the data sit at node centres but these fields ignore them: data reproduction must warn
+    assert section["data"]["flag"] == "warn"

@@ -25,6 +25,12 @@ Realization writer layout (see :class:`RealizationWriter`)::
     <folder>/summary.tif                  mean, std, P10, P50, P90, P(>cutoff)...
     <folder>/decision_figures.csv         figures per realization and cut-off
     <folder>/decision_spread.csv          P10/P50/P90 of each figure
+    <folder>/*.png                        with finish(plots=True): maps and checks
+
+For 3-D grids the rasters get ``_z000``... per level (``realizations_z000.tif``,
+``summary_z000.tif``, ``realizations/r0007_z000.tif``).  Hidden temporaries
+(``.<name>.<hex>.partial<suffix>``, ``.<name>.<hex>.stage.tif``) exist only while
+a file is being written; a killed run may leave them, and they can be deleted.
 """
 from __future__ import annotations
 
@@ -335,7 +341,7 @@ class RealizationWriter:
                 "checks": None if self.measure is None else self.measure(scores, values)}
 
     def finish(self, records: Sequence[Mapping], *, cutoffs: Sequence[float] = (),
-               stack: bool = True, keep_realization_files: bool = True,
+               stack: bool = True, keep_realization_files: bool = True, plots: bool = False,
                progress: Callable[[int, int, str], None] | None = None) -> dict[str, list[str]]:
         """Assemble the multiband realization COG(s), the summary raster(s) and decision CSVs.
 
@@ -351,6 +357,11 @@ class RealizationWriter:
             Keep ``realizations/r*.tif`` after assembly (they let a resumed run
             skip finished realizations and are single-band COGs themselves);
             False removes them once everything else is written.
+        plots : bool
+            Also draw PNGs (:mod:`geosim.io.plots`): summary maps (per level,
+            prefixed ``z000_``... for 3-D), ``decision_spread.png`` and, when
+            ``measure`` is a :class:`geosim.validation.RunChecks`,
+            ``variogram_reproduction.png`` and ``histogram_reproduction.png``.
         progress : callable, optional
 
         Returns
@@ -392,9 +403,47 @@ class RealizationWriter:
             p1 = write_decision_csv(self.folder / "decision_figures.csv", rows, self.overwrite)
             p2 = write_decision_csv(self.folder / "decision_spread.csv", decision_spread(figures), self.overwrite)
             out["decision"] = [str(p1), str(p2)]
+        if plots:
+            out["plots"] = [str(p) for p in self._plots(records, cutoffs, out["summary"])]
         if not keep_realization_files:
             for f in out.pop("realization_files"):
                 (self.folder / f).unlink()
             with contextlib.suppress(OSError):
                 (self.folder / "realizations").rmdir()
+        return out
+
+    def validation(self, records: Sequence[Mapping]) -> dict | None:
+        """The run report's ``validation`` section from the records' measurements (None without ``measure``)."""
+        checks = [r.get("checks") for r in records]
+        if not hasattr(self.measure, "summarize") or any(c is None for c in checks):
+            return None
+        return self.measure.summarize(checks)
+
+    def _plots(self, records, cutoffs, summaries) -> list[Path]:
+        from ..summaries import summary_band_names
+        from . import plots
+        out = []
+        names = summary_band_names(cutoffs)
+        for k, path in enumerate(summaries):
+            g2 = level_grid(self.grid, k)
+            with open_checked(path, g2) as src:
+                summary = {name: src.read(b + 1).astype(np.float64) for b, name in enumerate(names)}
+            prefix = "" if self.grid.ndim == 2 else f"z{k:03d}_"
+            out += plots.plot_summary_maps(summary, g2, self.folder, units=self.units, prefix=prefix,
+                                           overwrite=self.overwrite)
+        figures = [r["figures"] for r in records]
+        if figures and all(f is not None for f in figures):
+            out.append(plots.plot_decision_spread(figures, self.folder / "decision_spread.png", units=self.units,
+                                                  overwrite=self.overwrite))
+        section = self.validation(records)
+        if section is not None:
+            out.append(plots.plot_variogram_reproduction(section["variogram"],
+                                                         self.folder / "variogram_reproduction.png",
+                                                         model=self.measure.model, ndim=self.grid.ndim,
+                                                         overwrite=self.overwrite))
+            samples = [r["checks"].get("quantiles") for r in records]
+            if self.measure.data_values is not None and all(q is not None for q in samples):
+                out.append(plots.plot_histogram_reproduction(
+                    self.measure.data_values, samples, self.folder / "histogram_reproduction.png",
+                    weights=self.measure.weights, units=self.units, overwrite=self.overwrite))
         return out
