@@ -163,7 +163,7 @@ def summarize_realizations(paths: Sequence[str | os.PathLike], grid, cutoffs: Se
     progress : callable, optional
         ``progress(done, total, "summary")`` after each window.
     """
-    from .io.geotiff import open_checked, write_bands
+    from .io.geotiff import grid_windows, open_checked, write_bands
 
     if len(paths) < 1:
         raise ValueError("no realization files to summarize")
@@ -175,12 +175,6 @@ def summarize_realizations(paths: Sequence[str | os.PathLike], grid, cutoffs: Se
     n_bands = 5 + len(cutoffs)
     names = summary_band_descriptions(cutoffs, units)
 
-    def windows():
-        from rasterio.windows import Window
-        for r0 in range(0, grid.ny, win):
-            for c0 in range(0, grid.nx, win):
-                yield Window(c0, r0, min(win, grid.nx - c0), min(win, grid.ny - r0))
-
     def compute(w):
         stack = np.empty((len(paths), w.height, w.width), dtype=np.float32)
         for i, p in enumerate(paths):
@@ -188,8 +182,8 @@ def summarize_realizations(paths: Sequence[str | os.PathLike], grid, cutoffs: Se
                 stack[i] = src.read(1, window=w)
         return _stack_stats(stack, cutoffs)
 
-    return write_bands(out_path, grid, n_bands, windows, compute, descriptions=names, tags=tags,
-                       overwrite=overwrite, progress=progress, what="summary")
+    return write_bands(out_path, grid, n_bands, grid_windows(grid, win), compute, descriptions=names,
+                       tags=tags, overwrite=overwrite, progress=progress, what="summary")
 
 
 # ---------------------------------------------------------------------------------------------

@@ -57,8 +57,8 @@ from collections.abc import Mapping, Sequence
 
 import numpy as np
 
-__all__ = ["KS_CRITICAL_05", "PLOT_QUANTILES", "ks_distance", "effective_count", "node_index", "axis_semivariogram",
-           "RunChecks"]
+__all__ = ["KS_CRITICAL_05", "PLOT_QUANTILES", "ks_distance", "effective_count", "node_index",
+           "axis_semivariogram", "RunChecks"]
 
 KS_CRITICAL_05 = 1.358  # Smirnov (1948): two-sample KS critical constant c(alpha) for alpha = 0.05
 VARIOGRAM_SILL_FRACTION = 0.15  # common practice, no source
@@ -215,7 +215,8 @@ class RunChecks:
             # the model's range along this axis: where the semivariance first reaches 95 % of the sill
             h = np.linspace(0.0, 3.0 * max(self.model.max_range, cell), 600)
             gam = self.model.semivariance(h[:, None] * unit)
-            reach = h[np.argmax(gam >= 0.95 * self.model.sill)] if (gam >= 0.95 * self.model.sill).any() else h[-1]
+            near_sill = gam >= 0.95 * self.model.sill
+            reach = h[np.argmax(near_sill)] if near_sill.any() else h[-1]
             top = max(1, min(int(reach / cell), g.shape[axis] // 2))
             out[name] = sorted({max(1, int(round(s))) for s in np.linspace(1, top, nlags)})
         return out

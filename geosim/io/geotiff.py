@@ -47,8 +47,9 @@ from ..errors import InputError
 from .atomic import atomic_output, check_writable
 from .report import file_sha256
 
-__all__ = ["tile_size", "level_grid", "write_raster", "write_bands", "open_checked", "verify_realization",
-           "assemble_realizations", "RealizationWriter", "read_realization"]
+__all__ = ["tile_size", "level_grid", "level_paths", "grid_windows", "write_raster", "write_bands",
+           "open_checked", "verify_realization", "assemble_realizations", "RealizationWriter",
+           "read_realization"]
 
 _COG_OPTIONS = {"COMPRESS": "DEFLATE", "PREDICTOR": "YES", "OVERVIEW_RESAMPLING": "AVERAGE",
                 "BIGTIFF": "IF_SAFER"}
@@ -78,7 +79,8 @@ def _crs(grid):
     return None if grid.crs is None else grid.crs.to_wkt()
 
 
-def _windows(grid, size: int) -> Callable[[], Iterator]:
+def grid_windows(grid, size: int) -> Callable[[], Iterator]:
+    """A callable returning rasterio Windows of ``size`` cells that tile the 2-D ``grid`` row by row."""
     def gen():
         from rasterio.windows import Window
         for r0 in range(0, grid.ny, size):
@@ -189,7 +191,7 @@ def write_raster(path: str | os.PathLike, data: np.ndarray, grid, *,
         level = a if grid.ndim == 2 else a[:, k]
         level = np.where(g2.mask, level, np.nan).astype(np.float32)
         t = {**(tags or {}), **_level_tags(grid, k)}
-        out.append(write_bands(target, g2, level.shape[0], _windows(g2, tile_size(g2)),
+        out.append(write_bands(target, g2, level.shape[0], grid_windows(g2, tile_size(g2)),
                                lambda w, lv=level: lv[:, w.row_off:w.row_off + w.height,
                                                       w.col_off:w.col_off + w.width],
                                descriptions=descriptions, tags=t, overwrite=overwrite))
@@ -266,7 +268,7 @@ def assemble_realizations(paths: Sequence[str | os.PathLike], grid, out_path: st
                 out[b] = src.read(1, window=w)
         return out
 
-    return write_bands(out_path, grid, len(paths), _windows(grid, size), compute, descriptions=descriptions,
+    return write_bands(out_path, grid, len(paths), grid_windows(grid, size), compute, descriptions=descriptions,
                        tags=tags, overwrite=overwrite, progress=progress, what="realizations")
 
 
@@ -329,8 +331,7 @@ class RealizationWriter:
             inside = ~np.isnan(scores)
             values[inside] = self.back_transform(scores[inside])
         (self.folder / "realizations").mkdir(parents=True, exist_ok=True)
-        target = self.realization_paths(index)[0] if self.grid.ndim == 2 else \
-            self.folder / "realizations" / f"r{index:04d}.tif"
+        target = self.folder / "realizations" / f"r{index:04d}.tif"  # write_raster adds _z000... in 3-D
         u = f" ({self.units})" if self.units else ""
         written = write_raster(target, values, self.grid, descriptions=[(f"realization {index}{u}", self.units)],
                                tags={**self.tags, "realization": str(index)}, overwrite=self.overwrite)

@@ -68,8 +68,9 @@ def main() -> None:
                                  capture_output=True, text=True)
             results.append(json.loads(out.stdout))
         for r in results:
+            grew = r["peak_rss_mb"] - r["baseline_rss_mb"]
             print(f"{r['n']:3d} realizations: {r['seconds']:6.1f} s, peak RSS {r['peak_rss_mb']:7.1f} MB "
-                  f"(baseline {r['baseline_rss_mb']:.1f} MB, growth {r['peak_rss_mb'] - r['baseline_rss_mb']:.1f} MB), "
+                  f"(baseline {r['baseline_rss_mb']:.1f} MB, growth {grew:.1f} MB), "
                   f"peak NumPy allocations {r['peak_numpy_mb']:.1f} MB")
         a, b = results
         growth = [(r["peak_rss_mb"] - r["baseline_rss_mb"]) for r in results]
