@@ -9,7 +9,8 @@ import pytest
 
 from geosim.errors import GeosimWarning
 from geosim.variogram import (Anisotropy, Direction, Exponential, Matern, Model, Nugget, Spherical,
-                              directional_variograms, experimental_variogram, fit_model, parameter_names)
+                              directional_variograms, downhole_variogram, experimental_variogram, fit_model,
+                              parameter_names)
 
 SAMPLES = Path(__file__).resolve().parents[1] / "sample_fields"
 
@@ -174,3 +175,53 @@ def test_aquifer_sample_fit_within_spread_of_same_design():
     assert np.all((lo <= sample) & (sample <= hi)), (sample, lo, hi)
     p5, p95 = np.percentile(sims, [5, 95], axis=0)
     assert np.all((p5 <= [0.1, 1500.0, 300.0]) & ([0.1, 1500.0, 300.0] <= p95)), (p5, p95)
+
+
+def test_ore_prospect_joint_fit_with_downhole_variogram():
+    """Quenbarrow Ridge drillholes (3-D): down-hole plus three directional variograms, fitted jointly.
+
+    Desurveyed with geosim.drillholes; grades turned back into the true normal scores with the
+    README's marginal (ln cu = mu + 0.8 y), so the test sees the field the README's model made.
+    Every second interval is used (2,500 points) so that the same design can be simulated exactly
+    8 times here.  Tolerances from those replicates: (a) the sample's fit is one more draw from
+    their distribution, so (x - mean) / (sd sqrt(1 + 1/8)) follows Student's t with 7 degrees of
+    freedom, and |t| <= 3.5 (its 99.5 % point) is required; (b) the truth lies within 3.5 standard
+    errors (sd / sqrt(8)) of the replicates' mean, i.e. the fitting is not biased beyond sampling
+    error.  Critical value: t(7) 0.995 quantile = 3.499 (standard t tables, e.g. Abramowitz and
+    Stegun 1964, table 26.10).
+    """
+    from geosim.drillholes import read_drillholes
+
+    folder = SAMPLES / "ore_prospect"
+    if not (folder / "assays.csv").exists():
+        pytest.skip("sample field not present")
+    dh = read_drillholes(folder / "collars.csv", folder / "surveys.csv", folder / "assays.csv",
+                         values="cu_pct", crs="EPSG:32750")
+    mid = 0.5 * (dh.top + dh.bottom)
+    xyz = np.vstack([dh.positions(h, mid[dh.hole == h]) for h in dh.ids])[::2]
+    holes = np.concatenate([dh.hole[dh.hole == h] for h in dh.ids])[::2]
+    cu = np.concatenate([dh.values[dh.hole == h, 0] for h in dh.ids])[::2]
+    sigma = 0.8
+    y = (np.log(cu) - (math.log(0.6) - sigma**2 / 2)) / sigma
+
+    truth = Nugget(0.15) + Spherical(0.85, Anisotropy((180.0, 90.0, 40.0), azimuth=60.0))
+    dirs = [Direction(60.0, 0.0, azimuth_tol=22.5, dip_tol=10.0, bandwidth_v=10.0),
+            Direction(150.0, 0.0, azimuth_tol=22.5, dip_tol=10.0, bandwidth_v=10.0),
+            Direction(0.0, 90.0, azimuth_tol=90.0, dip_tol=15.0)]
+    template = Nugget(0.2) + Spherical(0.8, Anisotropy((120.0, 120.0, 60.0), azimuth=60.0))
+    names = ["0.sill", "1.major", "1.minor", "1.vertical"]
+
+    def fit(z):
+        evs = [downhole_variogram(xyz, z, holes, lag=3.0, nlags=12)]
+        evs += directional_variograms(xyz, z, dirs, lag=15.0, nlags=15)
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore", GeosimWarning)
+            result = fit_model(evs, template, total_sill=1.0)
+        assert set(names) <= set(result.free_)
+        return np.array([result.params_[n] for n in names])
+
+    sample = fit(y)
+    sims = np.array([fit(z) for z in _field(truth, xyz, 8, 5).T])
+    mean, sd = sims.mean(axis=0), sims.std(axis=0, ddof=1)
+    assert np.all(np.abs(sample - mean) <= 3.5 * sd * math.sqrt(1 + 1 / 8)), (sample, mean, sd)
+    assert np.all(np.abs(np.array([0.15, 180.0, 90.0, 40.0]) - mean) <= 3.5 * sd / math.sqrt(8)), (mean, sd)
