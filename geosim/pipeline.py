@@ -595,7 +595,7 @@ def completed_realizations(out_dir: Path, header: Mapping, n_realizations: int) 
     """Records of realizations already written by an earlier run of this spec, verified by checksum."""
     from .io.geotiff import verify_realization
     kept = {}
-    for path in sorted((out_dir / STATE_DIR).glob("r*.json")):
+    for path in sorted((out_dir / STATE_DIR).glob("r[0-9]*.json")):
         try:
             rec = json.loads(path.read_text())
         except (OSError, ValueError):

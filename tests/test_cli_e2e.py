@@ -1,0 +1,167 @@
+"""The geosim command driven as a subprocess, end to end on the sample fields.
+
+Grids are coarsened and realizations cut through ``--set`` so the whole module runs
+in well under two minutes; the full-size demos are the run specs themselves.
+"""
+from __future__ import annotations
+
+import json
+import os
+import shutil
+import signal
+import subprocess
+import sys
+import time
+from pathlib import Path
+
+import numpy as np
+import pytest
+
+import geosim
+from geosim.io.report import file_sha256
+
+rasterio = pytest.importorskip("rasterio")
+
+SAMPLES = Path(__file__).resolve().parent.parent / "sample_fields"
+AQUIFER = SAMPLES / "alluvial_aquifer" / "run.toml"
+ORE = SAMPLES / "ore_prospect" / "run.toml"
+# 60 realizations on a 100 m grid: a few seconds of simulation, long enough to kill a run midway
+AQUIFER_SMALL = ["--set", "grid.cell=[100.0, 100.0]", "--set", "simulation.realizations=60",
+                 "--set", "outputs.plots=false", "--set", "simulation.workers=1"]
+GEOSIM = [sys.executable, "-c", "import sys; from geosim_cli.main import main; sys.exit(main())"]
+
+
+def geosim_cmd(*args, **kwargs):
+    return subprocess.run(GEOSIM + [str(a) for a in args], capture_output=True, text=True, timeout=300,
+                          **kwargs)
+
+
+def band_values(path):
+    with rasterio.open(path) as src:
+        return src.read()
+
+
+@pytest.fixture(scope="module")
+def reference(tmp_path_factory):
+    """An uninterrupted run (on two worker processes: workers do not change the result)."""
+    out = tmp_path_factory.mktemp("reference") / "run"
+    args = AQUIFER_SMALL[:-2] + ["--set", "simulation.workers=2"]
+    result = geosim_cmd("run", AQUIFER, "--out", out, *args)
+    assert result.returncode == 0, result.stderr
+    return out, result
+
+
+def test_run_writes_described_outputs(reference):
+    out, result = reference
+    assert "run complete" in result.stdout and "60 (60 computed)" in result.stdout
+    assert result.stderr.rstrip().endswith(geosim.CAUTION)
+    with rasterio.open(out / "summary.tif") as src:
+        assert src.crs.to_epsg() == 32725
+        assert src.descriptions[0].lower().startswith("mean") and len(src.descriptions) == 5 + 3
+        assert src.tags()["caution"] == geosim.CAUTION
+        values = src.read(1)
+        # nodata outside the valley polygon, values inside: the domain clipped the grid
+        assert np.isnan(values).any() and np.isfinite(values).any()
+    with rasterio.open(out / "realizations.tif") as src:
+        assert src.count == 60
+    report = json.loads((out / "report.json").read_text())
+    assert report["caution"] == geosim.CAUTION
+    assert report["realizations"]["count"] == 60 and report["run_spec_sha256"]
+    assert (out / "run-state" / "run.json").is_file()
+
+
+def test_killed_run_resumes_and_equals_an_uninterrupted_run(tmp_path, reference):
+    ref_out, _ = reference
+    out = tmp_path / "run"
+    proc = subprocess.Popen(GEOSIM + ["run", str(AQUIFER), "--out", str(out), *AQUIFER_SMALL],
+                            stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL, start_new_session=True)
+    deadline = time.monotonic() + 240
+    while time.monotonic() < deadline and proc.poll() is None:
+        if len(list((out / "run-state").glob("r[0-9]*.json"))) >= 2:
+            break
+        time.sleep(0.01)
+    assert proc.poll() is None, "the run finished before it could be killed"
+    os.killpg(proc.pid, signal.SIGKILL)
+    proc.wait(timeout=30)
+
+    # nothing corrupt is left: every visible realization file is complete and readable
+    kept = {}
+    for path in sorted((out / "realizations").glob("r*.tif")):
+        band_values(path)
+        kept[path.name] = (path.stat().st_mtime_ns, file_sha256(path))
+    assert 2 <= len(kept) < 60
+    assert not (out / "summary.tif").exists()
+
+    result = geosim_cmd("run", AQUIFER, "--out", out, *AQUIFER_SMALL)
+    assert result.returncode == 0, result.stderr
+    n_kept = int(result.stdout.split("computed, ")[1].split(" kept")[0])
+    assert n_kept >= 2
+    for name, (mtime, sha) in kept.items():  # completed realizations were kept, not recomputed
+        path = out / "realizations" / name
+        if (out / "run-state" / f"r{int(name[1:5]):05d}.json").is_file():
+            assert path.stat().st_mtime_ns == mtime and file_sha256(path) == sha
+    assert not list(out.rglob(".*.partial*"))
+    # bit-identical by seed to the uninterrupted run
+    for name in ("realizations.tif", "summary.tif"):
+        np.testing.assert_array_equal(band_values(out / name), band_values(ref_out / name), err_msg=name)
+
+
+def test_another_spec_into_a_finished_folder_is_refused(reference):
+    out, _ = reference
+    result = geosim_cmd("run", AQUIFER, "--out", out, *AQUIFER_SMALL, "--set", "simulation.seed=1")
+    assert result.returncode == 2
+    assert "different spec" in result.stderr and "--overwrite" in result.stderr
+    assert "[simulation]" in result.stderr
+
+
+def test_bad_run_spec_stops_before_any_work(tmp_path):
+    spec = tmp_path / "run.toml"
+    text = AQUIFER.read_text().replace("realizations = 20", "realizations = 'many'")
+    text = text.replace('kind = "exponential"', 'kind = "exponentail"')
+    spec.write_text(text.replace('points = "wells.csv"', f'points = "{SAMPLES}/alluvial_aquifer/wells.csv"')
+                    .replace('polygon = "domain.geojson"', 'polygon = "nowhere.geojson"'))
+    out = tmp_path / "out"
+    result = geosim_cmd("run", spec, "--out", out)
+    assert result.returncode == 2
+    for key in ("simulation.realizations: expected an integer", "variogram.structures[1].kind: expected one of",
+                "domain.polygon: expected an existing file"):
+        assert key in result.stderr, key
+    assert "Traceback" not in result.stderr
+    assert not out.exists()
+    assert result.stderr.rstrip().endswith(geosim.CAUTION)
+
+
+def test_bad_input_files_give_one_line_and_write_nothing(tmp_path):
+    folder = tmp_path / "ore"
+    shutil.copytree(SAMPLES / "ore_prospect", folder)
+    rows = (folder / "assays.csv").read_text().splitlines()
+    hole, frm, to, value = rows[10].split(",")
+    rows[10] = ",".join([hole, to, frm, value])  # from > to
+    (folder / "assays.csv").write_text("\n".join(rows) + "\n")
+    out = tmp_path / "out"
+    result = geosim_cmd("run", folder / "run.toml", "--out", out)
+    assert result.returncode == 2
+    errors = [line for line in result.stderr.splitlines() if line.startswith("geosim: error:")]
+    assert len(errors) == 1 and "assays.csv" in errors[0] and "row 11" in errors[0], result.stderr
+    assert not out.exists()
+
+    (folder / "assays.csv").write_text((SAMPLES / "ore_prospect" / "assays.csv").read_text())
+    (folder / "collars.csv").write_text((folder / "collars.csv").read_text().replace("hole_id,", "hole,", 1))
+    result = geosim_cmd("check", folder / "run.toml")
+    assert result.returncode == 2
+    assert "collars.csv" in result.stderr and "hole_id" in result.stderr
+
+
+def test_ore_prospect_3d_run(tmp_path):
+    out = tmp_path / "ore"
+    result = geosim_cmd("run", ORE, "--out", out, "--set", "grid.cell=[40.0, 40.0, 20.0]",
+                        "--set", "simulation.realizations=3", "--set", "outputs.plots=false",
+                        "--set", "simulation.workers=1")
+    assert result.returncode == 0, result.stderr
+    levels = sorted(out.glob("summary_z*.tif"))
+    assert len(levels) == 13  # z_range 100-360 m in 20 m levels
+    with rasterio.open(levels[0]) as src:
+        assert src.crs.to_epsg() == 32750 and "z_bottom" in src.tags()
+    spread = (out / "decision_spread.csv").read_text()
+    assert "tonnage" in spread and "mean_grade" in spread
+    assert "tonnage at cutoff 0.3" in result.stdout
