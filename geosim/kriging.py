@@ -622,6 +622,8 @@ progress
             raise ValueError(f"neighbourhood must be a Neighbourhood or 'global', got {neighbourhood!r}")
         est, var = _loo_global(xyz, z, model, ordinary, float(mean), regularization, labels,
                                hole_ids if leave_out == "hole" else None)
+        if progress is not None:
+            progress(n, n, "kriging nodes")
         n_used = np.full(n, n - 1, dtype=np.int64)
         if leave_out == "hole":
             _, inverse, counts = np.unique(np.asarray(hole_ids), return_inverse=True, return_counts=True)

@@ -2,8 +2,9 @@
 
 Prints microseconds per node for simple and ordinary kriging, split into the
 candidate search (k-d tree query in the ellipsoid frame) and the compiled
-select-build-factor-solve loop, and the compiled Cholesky against LAPACK at a
-few orders (the crossover behind ``geosim.linalg.LAPACK_ORDER``).  Numba
+select-build-factor-solve loop, the compiled Cholesky against LAPACK at a
+few orders (the crossover behind ``geosim.linalg.LAPACK_ORDER``), and the cost
+of one covariance evaluation inlined against called.  Numba
 compilation is excluded (warm-up call first).  Wall-clock figures on a shared
 machine are noisy: read the ratios, and rerun on a quiet machine for absolute
 numbers.
@@ -14,6 +15,7 @@ numbers.
 from __future__ import annotations
 
 import argparse
+import math
 import os
 import time
 
@@ -71,6 +73,33 @@ def _cholesky_table(orders=(16, 32, 64, 128, 256)) -> None:
         print(f"  n={n:4d}  compiled {ours * 1e6:9.1f}  LAPACK {theirs * 1e6:9.1f}  ratio {ours / theirs:5.2f}")
 
 
+def _cov_lag_table(model) -> None:
+    from geosim.variogram.compiled import cov_lag
+
+    called = njit(cov_lag.py_func)  # the same function compiled as a real (not inlined) call
+
+    def make_loop(f):
+        @njit
+        def loop(cm, n):
+            s = 0.0
+            for i in range(n):
+                s += f(cm, 0.001 * i, 3.0, 0.0)
+            return s
+        return loop
+
+    cm = model.compiled()
+    print("\ncov_lag per evaluation inside a compiled loop (nanoseconds):")
+    for name, f in (("inlined (as shipped)", cov_lag), ("real call", called)):
+        loop = make_loop(f)
+        loop(cm, 10)
+        best = math.inf
+        for _ in range(3):
+            t0 = time.perf_counter()
+            loop(cm, 2_000_000)
+            best = min(best, time.perf_counter() - t0)
+        print(f"  {name:22s} {best / 2e6 * 1e9:6.1f}")
+
+
 def main() -> None:
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     ap.add_argument("--rows", type=int, default=1000, help="grid rows to krige (of 1000), scaled up")
@@ -105,6 +134,7 @@ def main() -> None:
                   f"select/build/factor/solve {(total - search_s) / m * 1e6:5.2f}; "
                   f"1,000,000 nodes ~ {per:.1f} s")
     _cholesky_table()
+    _cov_lag_table(model)
 
 
 if __name__ == "__main__":
