@@ -46,6 +46,7 @@ _LAZY = {
     "save_model": "geosim.variogram",
     "load_model": "geosim.variogram",
     "plot_variogram": "geosim.variogram",
+    "plot_variogram_map": "geosim.variogram",
     "cholesky": "geosim.linalg",
     "Neighbourhood": "geosim.search",
     "DataSearch": "geosim.search",

@@ -10,7 +10,8 @@ import geosim
 from geosim.errors import InputError
 from geosim.variogram import (Anisotropy, Cubic, Direction, Exponential, Gaussian, Matern, Model, Nugget,
                               Spherical, directional_variograms, dumps_model, experimental_variogram,
-                              load_model, loads_model, plot_variogram, save_model)
+                              load_model, loads_model, plot_variogram, plot_variogram_map, save_model,
+                              variogram_map)
 
 NESTED = (Nugget(0.15) + Spherical(0.55, Anisotropy((180.0, 90.0, 40.0), azimuth=60.0, dip=12.5, rake=-7.0))
           + Matern(0.2, Anisotropy.from_ratios(700.0, 0.3, 0.1, 15.0), param=0.75)
@@ -110,3 +111,19 @@ def test_plot_writes_png_with_caution(tmp_path):
         plot_variogram(evs[0], None, out)
     plot_variogram(experimental_variogram(xy, z, lag=25.0, nlags=12), model, out, overwrite=True)
     assert sorted(p.name for p in tmp_path.iterdir()) == ["vario.png"]
+
+
+def test_plot_variogram_map(tmp_path):
+    PIL = pytest.importorskip("PIL.Image")
+    rng = np.random.default_rng(6)
+    xy = rng.uniform(0, 400, (400, 2))
+    z = np.sin((xy[:, 0] + xy[:, 1]) / 60.0)  # continuous along azimuth 135, varying along 45
+    vm = variogram_map(xy, z, cell=20.0, ncells=8)
+    # the map itself shows it: lags along 135 vary less than lags along 45
+    c = 8
+    assert vm.gamma[c - 3, c + 3] < vm.gamma[c + 3, c + 3]
+    out = plot_variogram_map(vm, tmp_path / "map.png")
+    with PIL.open(out) as im:
+        assert im.format == "PNG" and im.info["Description"] == geosim.CAUTION
+    with pytest.raises(InputError, match="overwrite"):
+        plot_variogram_map(vm, out)

@@ -15,7 +15,7 @@ from pathlib import Path
 import numpy as np
 
 from ..cautions import CAUTION
-from .experimental import ExperimentalVariogram
+from .experimental import ExperimentalVariogram, VariogramMap
 from .model import Model
 
 _MARKERS = ("o", "s", "^", "D", "v", "P", "X", "<", ">")
@@ -99,6 +99,38 @@ def plot_variogram(experimentals: ExperimentalVariogram | Sequence[ExperimentalV
     ax.grid(True, color="0.9", zorder=0)
     ax.legend(fontsize="small", frameon=False, loc="upper left", bbox_to_anchor=(1.01, 1.0))
     ax.set_title(title or "Semivariogram (marker area grows with pair count)", fontsize="medium")
+    with atomic_output(path, overwrite=overwrite) as tmp:
+        fig.savefig(tmp, format="png", metadata={"Description": CAUTION, "Software": "geosim"})
+    return Path(path)
+
+
+def plot_variogram_map(vmap: VariogramMap, path: str | os.PathLike, *, overwrite: bool = False,
+                       title: str | None = None, value_unit: str | None = None, dpi: int = 120) -> Path:
+    """Draw a :class:`~geosim.variogram.VariogramMap` into a PNG file (cividis, colour bar).
+
+    The axes are the east and north lag components in metres; cells with too
+    few pairs are left blank.  The direction of slowest growth of the
+    semivariance is the major axis of continuity.  Returns the path written;
+    the PNG carries :data:`geosim.cautions.CAUTION` in its ``Description`` chunk.
+    """
+    from matplotlib.backends.backend_agg import FigureCanvasAgg
+    from matplotlib.figure import Figure
+
+    from ..io.atomic import atomic_output
+
+    half = vmap.cell / 2.0
+    extent = (vmap.dx[0] - half, vmap.dx[-1] + half, vmap.dy[0] - half, vmap.dy[-1] + half)
+    fig = Figure(figsize=(6.0, 5.0), dpi=dpi, layout="constrained")
+    FigureCanvasAgg(fig)
+    ax = fig.add_subplot()
+    image = ax.imshow(np.ma.masked_invalid(vmap.gamma), origin="lower", extent=extent, cmap="cividis",
+                      interpolation="nearest")
+    unit = f" [({value_unit})\u00b2]" if value_unit else ""
+    fig.colorbar(image, ax=ax, label="semivariance" + unit)
+    ax.set_xlabel("east lag (m)")
+    ax.set_ylabel("north lag (m)")
+    ax.set_aspect("equal")
+    ax.set_title(title or "Variogram map", fontsize="medium")
     with atomic_output(path, overwrite=overwrite) as tmp:
         fig.savefig(tmp, format="png", metadata={"Description": CAUTION, "Software": "geosim"})
     return Path(path)
