@@ -269,9 +269,9 @@ class RunChecks:
         bad = (ks > tol_ks) | (np.abs(mean_err) > tol_mean) | (np.abs(var_err) > tol_var)
         return {
             "flag": _flag(bad.mean() <= 0.5),
-            "ks_distance": ks.tolist(), "ks_tolerance": tol_ks,
-            "mean_error_in_sd": mean_err.tolist(), "mean_tolerance": tol_mean,
-            "variance_relative_error": var_err.tolist(), "variance_tolerance": tol_var,
+            "ks_distance": ks.tolist(), "ks_tolerance": float(tol_ks),
+            "mean_error_in_sd": mean_err.tolist(), "mean_tolerance": float(tol_mean),
+            "variance_relative_error": var_err.tolist(), "variance_tolerance": float(tol_var),
             "realizations_flagged": int(bad.sum()),
             "data_effective_count": n, "data_score_mean": d_mean, "data_score_variance": d_var,
             "basis": "KS: Smirnov (1948) 5% two-sample critical value with the data's effective count; "
@@ -308,7 +308,7 @@ class RunChecks:
         msd = float(np.mean((sim - data[None, :]) ** 2))
         expected = float(np.mean(2.0 * self.model.semivariance(self.offsets)))
         n = sim.size
-        tol = expected * (1.0 + 2.0 * np.sqrt(2.0 / n)) + 1e-4
+        tol = float(expected * (1.0 + 2.0 * np.sqrt(2.0 / n)) + 1e-4)
         return {"flag": _flag(msd <= tol), "n_data_in_nodes": int(self.node_data.size),
                 "mean_squared_difference": msd, "expected_bound": expected, "tolerance": tol,
                 "max_abs_difference": float(np.max(np.abs(sim - data[None, :]))),

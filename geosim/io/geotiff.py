@@ -381,7 +381,8 @@ class RealizationWriter:
                     raise InputError("realization file is missing or changed since it was written",
                                      file=str(self.folder / f), fix="re-run that realization")
         indices = [r["index"] for r in records]
-        out: dict[str, list[str]] = {"realization_files": [f for r in records for f in r["files"]]}
+        out: dict[str, list[str]] = {
+            "realization_files": [str(self.folder / f) for r in records for f in r["files"]]}
         if stack:
             out["realizations"] = []
         out["summary"] = []
@@ -408,7 +409,7 @@ class RealizationWriter:
             out["plots"] = [str(p) for p in self._plots(records, cutoffs, out["summary"])]
         if not keep_realization_files:
             for f in out.pop("realization_files"):
-                (self.folder / f).unlink()
+                Path(f).unlink()
             with contextlib.suppress(OSError):
                 (self.folder / "realizations").rmdir()
         return out
