@@ -155,8 +155,9 @@ def to_projected(coords: np.ndarray, crs: CrsLike | None, target: CrsLike | None
     -----
     GeosimWarning
         When the UTM zone is chosen for the user, and when coordinates said to be
-        projected look like degrees (within +-180 and +-90, spanning under 5 units),
-        a hint that the CRS is wrong.
+        projected (or local) look like decimal degrees (within +-180 and +-90,
+        spanning under 5 units, with digits below a thousandth), a hint that the
+        CRS is wrong.
 
     Examples
     --------
@@ -181,6 +182,7 @@ def to_projected(coords: np.ndarray, crs: CrsLike | None, target: CrsLike | None
         if target_crs is not None:
             raise InputError("a target CRS was given but not the CRS of the input coordinates", file=file,
                              field="CRS", fix="name the CRS of the input coordinates")
+        _warn_if_degrees(xyz, None)
         return xyz, None, None
     source = parse_crs(crs, file=file, field="CRS")
     h = _horizontal(source)
@@ -231,10 +233,14 @@ def _check_lonlat(xyz: np.ndarray, file: str | None) -> None:
                          file=file, field="CRS", fix=fix)
 
 
-def _warn_if_degrees(xyz: np.ndarray, crs: CRS) -> None:
+def _warn_if_degrees(xyz: np.ndarray, crs: CRS | None) -> None:
     x, y = xyz[:, 0], xyz[:, 1]
-    if np.all(np.abs(x) <= 180.0) and np.all(np.abs(y) <= 90.0) and np.ptp(x) < 5.0 and np.ptp(y) < 5.0 \
-            and len(x) > 1:
-        warnings.warn(f"coordinates span less than 5 units in {_crs_name(crs)} and look like degrees; "
+    # degrees read as metres: a spread of under 5 units, within lon/lat bounds, with the
+    # sub-millimetre digits that decimal degrees carry and survey coordinates do not
+    fine_digits = np.any(np.abs(xyz[:, :2] * 1000.0 - np.round(xyz[:, :2] * 1000.0)) > 1e-6)
+    if len(x) > 1 and np.all(np.abs(x) <= 180.0) and np.all(np.abs(y) <= 90.0) and 0 < np.ptp(x) < 5.0 \
+            and 0 < np.ptp(y) < 5.0 and fine_digits:
+        where = "a local grid (no CRS)" if crs is None else _crs_name(crs)
+        warnings.warn(f"coordinates span less than 5 units in {where} and look like degrees; "
                       "if they are longitude/latitude, give a geographic CRS such as EPSG:4326",
                       GeosimWarning, stacklevel=3)

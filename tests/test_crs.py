@@ -140,6 +140,9 @@ def test_degrees_out_of_range_and_swapped_axes():
 
 def test_projected_coordinates_that_look_like_degrees_warn():
     with pytest.warns(GeosimWarning, match="look like degrees"):
+        to_projected(np.array([[15.12345, 48.21234], [15.2, 48.3]]), "EPSG:32633")
+    with warnings.catch_warnings():
+        warnings.simplefilter("error")  # a small survey in metres with round coordinates is fine
         to_projected(np.array([[15.1, 48.2], [15.2, 48.3]]), "EPSG:32633")
 
 
@@ -152,3 +155,8 @@ def test_no_warning_when_target_given():
 
 def test_public_names():
     assert geosim.parse_crs is parse_crs and geosim.to_projected is to_projected
+
+
+def test_local_grid_that_looks_like_degrees_warns():
+    with pytest.warns(GeosimWarning, match="local grid"):
+        to_projected(np.array([[15.1, 48.2], [15.2, 48.30001]]), None)
