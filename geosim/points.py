@@ -200,20 +200,18 @@ def read_points(path: str | os.PathLike, *, x: str, y: str, z: str | None = None
     notes = [] if note is None else [note]
     points = PointSet(coords, vals, tuple(table.header[table.index(v)] for v in names), out_crs, ids,
                       {"row": np.array(table.lines, dtype=np.int64)}, (table.path,), tuple(notes))
-    return merge_coincident(points, tolerance=tolerance, mode=duplicates, lines=np.array(table.lines),
-                            file=table.path)
+    return merge_coincident(points, tolerance=tolerance, mode=duplicates)
 
 
-def merge_coincident(points: PointSet, *, tolerance: float = 1e-3, mode: str = "average",
-                     lines: np.ndarray | None = None, file: str | None = None) -> PointSet:
+def merge_coincident(points: PointSet, *, tolerance: float = 1e-3, mode: str = "average") -> PointSet:
     """Merge samples closer than ``tolerance`` metres by averaging them.
 
     Groups are the connected components of the "closer than tolerance" relation.
-    Values and numeric attributes are averaged (NaN ignored); the first sample's
-    hole id is kept.  A :class:`GeosimWarning` and a note report how many samples
-    were merged.  With ``mode="error"`` the first coincident pair raises
-    :class:`InputError` naming both rows (``lines`` gives the file row of each
-    sample; default the sample index + 1).
+    Values and floating-point attributes are averaged (NaN ignored); the first
+    sample's hole id and other attributes (such as its file ``row``) are kept.  A
+    :class:`GeosimWarning` and a note report how many samples were merged.  With
+    ``mode="error"`` the first coincident pair raises :class:`InputError` naming
+    both file rows (the ``row`` attribute; sample numbers when it is absent).
     """
     from scipy.sparse import coo_matrix
     from scipy.sparse.csgraph import connected_components
@@ -224,11 +222,14 @@ def merge_coincident(points: PointSet, *, tolerance: float = 1e-3, mode: str = "
         else np.empty((0, 2), dtype=int)
     if len(pairs) == 0:
         return points
-    rows = np.arange(1, n + 1) if lines is None else np.asarray(lines)
+    lines = points.attributes.get("row")
+    rows = np.arange(1, n + 1) if lines is None else lines
+    file = points.source[0] if len(points.source) == 1 else None
+    where = "rows" if lines is not None else "samples"
     if mode == "error":
         i, j = sorted(pairs[0])
-        raise InputError(f"samples in rows {rows[i]} and {rows[j]} are at the same position "
-                         f"(within {tolerance} m)", file=file, row=int(rows[j]),
+        raise InputError(f"{where} {rows[i]} and {rows[j]} are at the same position "
+                         f"(within {tolerance} m)", file=file, row=int(rows[j]) if lines is not None else None,
                          fix="remove or average one of them, or read with duplicates='average'")
     graph = coo_matrix((np.ones(len(pairs)), (pairs[:, 0], pairs[:, 1])), shape=(n, n))
     n_groups, label = connected_components(graph, directed=False)
@@ -257,7 +258,6 @@ def merge_coincident(points: PointSet, *, tolerance: float = 1e-3, mode: str = "
                   for k, v in points.attributes.items()}
     merged = int(n - n_groups)
     example = [int(r) for r in rows[label == label[pairs[0][0]]][:3]]
-    where = "rows" if lines is not None else "samples"
     if points.hole_ids is not None:
         holes = sorted(set(points.hole_ids[label == label[pairs[0][0]]].tolist()))
         where = f"holes {', '.join(holes)}, " + where

@@ -127,7 +127,7 @@ def test_coincident_samples_are_averaged_with_warning_and_note(tmp_path):
 
 def test_coincident_samples_error_mode_names_rows(tmp_path):
     f = write(tmp_path / "dup.csv", "x,y,v\n0,0,1\n5,5,2\n0,0,4\n")
-    with pytest.raises(InputError, match="rows 2 and 4") as err:
+    with pytest.raises(InputError, match="rows 2 and 4 are at the same position") as err:
         read_points(f, x="x", y="y", values="v", crs=None, duplicates="error")
     assert err.value.row == 4
 
