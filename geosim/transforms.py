@@ -385,6 +385,8 @@ class NormalScoreTransform:
 
     @classmethod
     def from_dict(cls, d: Mapping) -> NormalScoreTransform:
+        """Rebuild from :meth:`to_dict`: the same mapping both ways (``data_scores_`` then
+        follow the stored, sorted order, since the input order is not stored)."""
         t = cls(lower=d["lower"], upper=d["upper"], lower_tail=d["lower_tail"], upper_tail=d["upper_tail"],
                 lower_omega=d["lower_omega"], upper_omega=d["upper_omega"], ties="order",
                 seed=d.get("seed", 0), name=d.get("name"))
