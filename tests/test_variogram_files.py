@@ -8,7 +8,7 @@ from hypothesis import strategies as st
 
 import geosim
 from geosim.errors import InputError
-from geosim.variogram import (Anisotropy, Cubic, Direction, Exponential, Gaussian, Matern, Model, Nugget,
+from geosim.variogram import (Anisotropy, Cubic, Direction, Exponential, Gaussian, Matern, Nugget,
                               Spherical, directional_variograms, dumps_model, experimental_variogram,
                               load_model, loads_model, plot_variogram, plot_variogram_map, save_model,
                               variogram_map)

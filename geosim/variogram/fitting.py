@@ -45,7 +45,8 @@ from .model import Model
 
 WEIGHTINGS = ("cressie", "pairs", "equal")
 _COVERED = math.cos(math.radians(30.0))
-_SILL_FACTOR = 1.5  # warn when the total sill is beyond x1.5 or /1.5 the sample variance (common practice, no source)
+# warn when the total sill is beyond x1.5 or /1.5 the sample variance (common practice, no source)
+_SILL_FACTOR = 1.5
 
 
 @dataclass
@@ -176,6 +177,8 @@ def fit_model(experimental: ExperimentalVariogram | Sequence[ExperimentalVariogr
     if not isinstance(template, Model):
         template = Model(template)
     dim = evs[0].dim
+    if any(ev.dim != dim for ev in evs):
+        raise ValueError("the experimental variograms mix 2-D and 3-D data; fit one dimension at a time")
     names = parameter_names(template)
     start = _values(template)
     unknown = sorted(set(fixed) - set(names)) + sorted(set(bounds or {}) - set(names))
@@ -229,7 +232,7 @@ def fit_model(experimental: ExperimentalVariogram | Sequence[ExperimentalVariogr
     def model_gamma(values) -> list[np.ndarray]:
         out = []
         for (_, lags, _, _, dirs), q in zip(blocks, rotated):
-            g = np.zeros(len(q[0]) if q[0] is not None else len(lags) * len(dirs))
+            g = np.zeros(len(lags) * len(dirs))
             for j, s in enumerate(template.structures):
                 sill = values[f"{j}.sill"]
                 if s.kind == "nugget":
