@@ -79,9 +79,7 @@ class ExactEngine:
         labels = data_labels(sample_ids, len(scores))
         n = scores.shape[0]
         nodes = grid.coords()
-        node3 = np.zeros((nodes.shape[0], 3))
-        node3[:, :nodes.shape[1]] = nodes
-        fixed, fixed_data = coincident_nodes(coords3, node3, min(grid.cell))
+        fixed, fixed_data = coincident_nodes(coords3, grid)
         free = np.setdiff1d(np.arange(nodes.shape[0]), fixed)
         size = n + free.shape[0]
         if size > max_size:

@@ -52,9 +52,11 @@ class SequentialPlan:
     fixed_data: np.ndarray       # the data ids of those nodes
     offsets: np.ndarray          # (T, 3) int64 template offsets (dk, di, dj)
     lags: np.ndarray             # (T, 3) float64 their lag vectors in metres
-    table: np.ndarray            # node covariance table, or an empty (1, 1, 1) array
-    centre: np.ndarray           # (3,) int64 index of the zero offset in ``table``
+    table: np.ndarray            # node covariance table, raveled (or empty)
+    table_lin: np.ndarray        # (T,) int64 raveled-table step of each template offset
+    table_zero: int              # raveled-table index of the zero offset
     use_table: bool
+    data_cov: np.ndarray         # (n, n) covariances among the data, or (0, 0) when n is large
     origin: np.ndarray           # first node centre (x, y, z)
     step: np.ndarray             # (dx, -dy, dz)
     shape3: tuple
@@ -118,18 +120,24 @@ class SequentialEngine:
             np.zeros((0, 3), dtype=np.int64)
         cm = model.compiled()
         table, centre = covariance_table(cm, offsets, step)
+        if table is not None:
+            strides = np.array([table.shape[1] * table.shape[2], table.shape[2], 1], dtype=np.int64)
+            table_lin, table_zero, table = offsets @ strides, int(centre @ strides), table.ravel()
+        else:
+            table_lin, table_zero, table = np.zeros(len(offsets), dtype=np.int64), 0, np.zeros(1)
+        data_cov = (_data_covariances(cm, coords3) if len(scores) <= DATA_COV_LIMIT else np.zeros((0, 0)))
         active_flat = np.flatnonzero(grid.mask.ravel()).astype(np.int64)
         node_xyz = _active_xyz(active_flat, shape3, origin, step)
         neighbours = _data_neighbours(coords3, node_xyz, search.matrix(), nb.max_samples)
-        fixed_pos, fixed_data = coincident_nodes(coords3, node_xyz, min(grid.cell))
+        fixed_pos, fixed_data = coincident_nodes(coords3, grid)
         free = np.setdiff1d(np.arange(active_flat.shape[0]), fixed_pos)
         return SequentialPlan(
             grid=grid, cm=cm, sill=model.sill, active_flat=active_flat, free=free,
             levels=path_levels(grid, offsets, multigrid)[free], fixed_flat=active_flat[fixed_pos],
             fixed_data=fixed_data, offsets=offsets,
             lags=np.ascontiguousarray(offset_lags(offsets, step)),
-            table=table if table is not None else np.zeros((1, 1, 1)), centre=centre,
-            use_table=table is not None, origin=origin, step=step, shape3=shape3,
+            table=table, table_lin=table_lin, table_zero=table_zero, use_table=table.size > 1,
+            data_cov=data_cov, origin=origin, step=step, shape3=shape3,
             data_coords=coords3, data_scores=scores, data_neighbours=neighbours,
             data_labels=data_labels(sample_ids, len(scores)), max_nodes=int(nb.max_nodes),
             ordinary=ordinary, tol=float(pivot_tol) * model.sill)
@@ -144,7 +152,8 @@ class SequentialEngine:
         fail = np.zeros(4, dtype=np.int64)
         a = np.zeros((max(kmax, 1), max(kmax, 1)))
         status = _sgs_kernel(field, plan.active_flat, path, normals, np.array(plan.shape3, dtype=np.int64),
-                             plan.origin, plan.step, plan.offsets, plan.lags, plan.table, plan.centre, plan.use_table,
+                             plan.origin, plan.step, plan.offsets, plan.lags, plan.table, plan.table_lin,
+                             plan.table_zero, plan.use_table, plan.data_cov,
                              plan.data_coords, plan.data_scores, plan.data_neighbours, plan.cm,
                              plan.max_nodes, plan.ordinary, plan.tol, a, ids, fail)
         if status >= 0:
@@ -152,6 +161,23 @@ class SequentialEngine:
         # nodes on a datum stay out of the node search (the datum itself is found) and take its score
         field[plan.fixed_flat] = plan.data_scores[plan.fixed_data]
         return field.reshape(plan.grid.shape)
+
+
+#: Most data for which the data-to-data covariances are kept as a matrix (32 MiB).
+DATA_COV_LIMIT = 2048
+
+
+@njit(cache=True, nogil=True)
+def _data_covariances(cm, coords3):
+    n = coords3.shape[0]
+    out = np.empty((n, n))
+    for i in range(n):
+        for j in range(i + 1):
+            c = cov_lag(cm, coords3[i, 0] - coords3[j, 0], coords3[i, 1] - coords3[j, 1],
+                        coords3[i, 2] - coords3[j, 2])
+            out[i, j] = c
+            out[j, i] = c
+    return out
 
 
 def _active_xyz(active_flat, shape3, origin, step) -> np.ndarray:
@@ -178,8 +204,9 @@ def _data_neighbours(coords3: np.ndarray, node_xyz: np.ndarray, matrix: np.ndarr
 
 
 @njit(cache=True, nogil=True)
-def _sgs_kernel(field, active_flat, path, normals, shape3, origin, step, offsets, lags, table, centre,
-                use_table, dcoords, dscores, dnbr, cm, max_nodes, ordinary, tol, a, ids, fail):
+def _sgs_kernel(field, active_flat, path, normals, shape3, origin, step, offsets, lags, table, table_lin,
+                table_zero, use_table, data_cov, dcoords, dscores, dnbr, cm, max_nodes, ordinary, tol, a, ids,
+                fail):
     """Simulate every node of ``path`` into ``field`` (flat, NaN = not yet simulated).
 
     Returns -1, or the path position where a local covariance matrix failed to factor
@@ -196,6 +223,8 @@ def _sgs_kernel(field, active_flat, path, normals, shape3, origin, step, offsets
     uv = np.empty(kmax)
     work = np.empty(kmax)
     rel = np.empty((kmax, 3))  # conditioning points relative to the node being simulated
+    lin = np.empty(kmax, dtype=np.int64)
+    use_data_cov = data_cov.shape[0] > 0
     for p in range(path.shape[0]):
         pos = path[p]
         flat = active_flat[pos]
@@ -228,6 +257,7 @@ def _sgs_kernel(field, active_flat, path, normals, shape3, origin, step, offsets
                 v = field[(kk * ny + ii) * nx + jj]
                 if v == v:
                     ids[m] = t
+                    lin[m] = table_lin[t]
                     zv[m] = v
                     rel[m, 0] = lags[t, 0]
                     rel[m, 1] = lags[t, 1]
@@ -237,19 +267,25 @@ def _sgs_kernel(field, active_flat, path, normals, shape3, origin, step, offsets
                         break
         for r in range(m):
             row = a[r]
-            if r >= nd and use_table:
-                tr = ids[r]
-                rhs[r] = table[centre[0] + offsets[tr, 0], centre[1] + offsets[tr, 1], centre[2] + offsets[tr, 2]]
-                for s in range(nd):
-                    row[s] = cov_lag(cm, rel[r, 0] - rel[s, 0], rel[r, 1] - rel[s, 1], rel[r, 2] - rel[s, 2])
-                for s in range(nd, r + 1):
-                    ts = ids[s]
-                    row[s] = table[centre[0] + offsets[tr, 0] - offsets[ts, 0],
-                                   centre[1] + offsets[tr, 1] - offsets[ts, 1],
-                                   centre[2] + offsets[tr, 2] - offsets[ts, 2]]
-            else:
+            if r < nd:
+                dr = ids[r]
                 rhs[r] = cov_lag(cm, rel[r, 0], rel[r, 1], rel[r, 2])
                 for s in range(r + 1):
+                    if use_data_cov:
+                        row[s] = data_cov[dr, ids[s]]
+                    else:
+                        row[s] = cov_lag(cm, rel[r, 0] - rel[s, 0], rel[r, 1] - rel[s, 1], rel[r, 2] - rel[s, 2])
+                continue
+            for s in range(nd):
+                row[s] = cov_lag(cm, rel[r, 0] - rel[s, 0], rel[r, 1] - rel[s, 1], rel[r, 2] - rel[s, 2])
+            if use_table:
+                base = table_zero + lin[r]
+                rhs[r] = table[base]
+                for s in range(nd, r + 1):
+                    row[s] = table[base - lin[s]]
+            else:
+                rhs[r] = cov_lag(cm, rel[r, 0], rel[r, 1], rel[r, 2])
+                for s in range(nd, r + 1):
                     row[s] = cov_lag(cm, rel[r, 0] - rel[s, 0], rel[r, 1] - rel[s, 1], rel[r, 2] - rel[s, 2])
         mean = 0.0
         var = c0

@@ -62,18 +62,33 @@ def data_labels(sample_ids, n: int) -> tuple:
     return labels
 
 
-def coincident_nodes(coords3: np.ndarray, node_xyz: np.ndarray, cell: float, rel_tol: float = 1e-4):
-    """Active nodes lying on a datum (closer than ``rel_tol * cell``): ``(node positions, data ids)``.
+def coincident_nodes(coords3: np.ndarray, grid, rel_tol: float = 1e-4):
+    """Active nodes lying on a datum (closer than ``rel_tol`` of the smallest cell).
 
-    Such a node and its datum would be two identical rows of a covariance matrix, so the
-    engines give the node the datum's score instead of simulating it.  If several data
-    share a node the first one is taken (duplicate data fail later, with their ids).
+    Returns ``(positions among the active nodes in C order, data ids)``.  Such a node
+    and its datum would be two identical rows of a covariance matrix, so the engines give
+    the node the datum's score instead of simulating it.  If several data share a node
+    the first one is taken (duplicate data fail later, with their ids).
     """
+    from .paths import grid_axes
+    empty = np.zeros(0, dtype=np.int64)
     if coords3.shape[0] == 0:
-        empty = np.zeros(0, dtype=np.int64)
         return empty, empty
-    from scipy.spatial import cKDTree
-    dist, idx = cKDTree(node_xyz).query(coords3, k=1, distance_upper_bound=rel_tol * cell)
-    hit = np.flatnonzero(np.isfinite(dist))
-    nodes, first = np.unique(idx[hit], return_index=True)
-    return nodes.astype(np.int64), hit[first].astype(np.int64)
+    shape3, origin, step = grid_axes(grid)
+    # nearest node by rounding the fractional node index along each axis (x -> column, ...)
+    frac = (coords3 - origin) / step
+    if grid.ndim == 2:
+        frac[:, 2] = 0.0
+    idx = np.rint(frac).astype(np.int64)
+    inside = np.all((idx >= 0) & (idx < np.array([shape3[2], shape3[1], shape3[0]])), axis=1)
+    near = np.linalg.norm((frac - idx) * np.abs(step), axis=1) <= rel_tol * min(grid.cell)
+    hit = np.flatnonzero(inside & near)
+    if hit.size == 0:
+        return empty, empty
+    flat = (idx[hit, 2] * shape3[1] + idx[hit, 1]) * shape3[2] + idx[hit, 0]
+    mask = grid.mask.ravel()
+    keep = mask[flat]
+    flat, hit = flat[keep], hit[keep]
+    flat, first = np.unique(flat, return_index=True)
+    position = np.cumsum(mask)[flat] - 1
+    return position.astype(np.int64), hit[first].astype(np.int64)
