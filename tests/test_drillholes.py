@@ -7,6 +7,7 @@ from pathlib import Path
 
 import numpy as np
 import pytest
+from hypothesis import given, settings, strategies as st
 
 import geosim
 from geosim.drillholes import Drillholes, composite, desurvey, direction, read_drillholes
@@ -293,3 +294,32 @@ def test_check_positive_names_hole_and_depth(files):
     with pytest.raises(InputError, match=r"hole B, depth 3 m\)") as err:
         check_positive(zeroed, "cu")
     assert err.value.field == "cu" and err.value.row is None
+
+
+@settings(max_examples=60, deadline=None)
+@given(pieces=st.lists(st.tuples(st.floats(0.0, 3.0), st.floats(0.1, 4.0),
+                                 st.one_of(st.none(), st.floats(0.0, 50.0))), min_size=1, max_size=25),
+       length=st.floats(0.5, 6.0), min_fraction=st.floats(0.0, 1.0))
+def test_merged_composites_conserve_sampled_metres(pieces, length, min_fraction):
+    # property: with residual="merge" every sampled metre lands in exactly one composite, so the
+    # length-weighted totals agree, and each composite lies between the values it averages
+    top, bottom, vals, d = [], [], [], 0.0
+    for gap, size, v in pieces:
+        top.append(d + gap)
+        bottom.append(d + gap + size)
+        vals.append(np.nan if v is None else v)
+        d = bottom[-1]
+    top, bottom, vals = np.array(top), np.array(bottom), np.array(vals)
+    h = Drillholes(ids=np.array(["P"]), collars=np.zeros((1, 3)), depths=np.array([d + 1.0]), surveys={},
+                   hole=np.full(len(top), "P"), top=top, bottom=bottom, values=vals[:, None], names=("v",))
+    ok = np.isfinite(vals)
+    if not ok.any():
+        with pytest.raises(InputError):
+            composite(h, length, min_fraction=min_fraction)
+        return
+    c = composite(h, length, min_fraction=min_fraction, residual="merge")
+    got = c.attributes["length"] * c.column()
+    np.testing.assert_allclose(got.sum(), ((bottom - top) * np.where(ok, vals, 0.0)).sum(), rtol=1e-9, atol=1e-9)
+    np.testing.assert_allclose(c.attributes["length"].sum(), (bottom - top)[ok].sum(), rtol=1e-9)
+    assert (c.column() >= vals[ok].min() - 1e-9).all() and (c.column() <= vals[ok].max() + 1e-9).all()
+    assert (np.diff(c.attributes["depth"]) > 0).all()
