@@ -127,6 +127,20 @@ def test_3d_rake_turns_minor_axis_counter_clockwise_looking_down_major():
     np.testing.assert_allclose(rows @ rows.T, np.eye(3), atol=1e-12)
 
 
+@settings(max_examples=30, deadline=None, derandomize=True)
+@given(az=st.floats(-360.0, 360.0), dip=st.floats(-90.0, 90.0), rake=st.floats(-180.0, 180.0))
+def test_axes_match_scipy_rotations(az, dip, rake):
+    # The convention as three rotations of the frame (minor, major, third) = (east, north, up),
+    # built with scipy.spatial.transform.Rotation (reference library): turn clockwise seen from
+    # above by the azimuth (-az about up), plunge the major axis down by the dip (-dip about the
+    # new minor axis), turn counter-clockwise looking down the major axis by the rake (-rake about
+    # the new major axis). Intrinsic "ZXY" Euler angles do exactly that.
+    from scipy.spatial.transform import Rotation
+    r = Rotation.from_euler("ZXY", [-az, -dip, -rake], degrees=True).as_matrix()
+    expected = np.vstack([r[:, 1], r[:, 0], r[:, 2]])  # rows: major, minor, third
+    np.testing.assert_allclose(axes(az, dip, rake), expected, atol=1e-12)
+
+
 def test_from_ratios_rejects_bad_ratios():
     with pytest.raises(ValueError, match="ratio_minor"):
         Anisotropy.from_ratios(100.0, 0.0)
