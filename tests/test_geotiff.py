@@ -106,6 +106,11 @@ def test_3d_grid_writes_one_file_per_level(tmp_path):
         assert src.tags()["level"] == "2"
         assert float(src.tags()["z_bottom"]) == -90.0 and float(src.tags()["z_top"]) == -85.0
     np.testing.assert_array_equal(read_realization(paths, grid), data)
+    # one existing level blocks the whole set: no level is rewritten
+    paths[0].unlink()
+    with pytest.raises(InputError, match="block_z001.tif"):
+        write_raster(tmp_path / "block.tif", data, grid, descriptions=["index"])
+    assert not paths[0].exists()
 
 
 def _run_writer(tmp_path, grid, stack, executor=None, **finish):

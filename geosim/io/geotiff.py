@@ -184,9 +184,11 @@ def write_raster(path: str | os.PathLike, data: np.ndarray, grid, *,
         a = a[None]
     if a.shape[1:] != grid.shape:
         raise ValueError(f"data of shape {a.shape} does not fit grid shape {grid.shape}")
-    path = Path(path)
+    targets = level_paths(path, grid)
+    for target in targets:  # refuse before writing any level, so a set of levels is never half replaced
+        check_writable(target, overwrite)
     out = []
-    for k, target in enumerate(level_paths(path, grid)):
+    for k, target in enumerate(targets):
         g2 = level_grid(grid, k)
         level = a if grid.ndim == 2 else a[:, k]
         level = np.where(g2.mask, level, np.nan).astype(np.float32)
