@@ -14,6 +14,12 @@ Tiles are 256 x 256 cells, or 128 x 128 when the grid's longer side is under
 resolution until the image fits in one tile, so a grid that fits in a single
 tile has none.
 
+Multiband files are pixel-interleaved (GDAL's COG driver before GDAL 3.11
+writes no other layout): one tile holds every band at those cells, which
+suits reading the whole ensemble at a place; a tile of ``n`` realizations
+decompresses to ``tile^2 x 4 x n`` bytes (26 MB for 100).  To look at single
+realizations of a very large ensemble, keep the per-realization files.
+
 3-D grids are written as one file per level, named with ``_z`` and the level
 number (level 0 lowest), e.g. ``r0007_z000.tif``; each level file carries the
 tags ``level``, ``z_bottom`` and ``z_top`` (metres).
