@@ -24,7 +24,7 @@ import numpy as np
 
 from ..errors import InputError, NotPositiveDefiniteError
 from ..search import Neighbourhood
-from .validate import check_inputs, coincident_nodes, data_labels
+from .validate import check_inputs, coincident_nodes, complement, data_labels
 
 
 @dataclass(frozen=True)
@@ -80,7 +80,7 @@ class ExactEngine:
         n = scores.shape[0]
         nodes = grid.coords()
         fixed, fixed_data = coincident_nodes(coords3, grid)
-        free = np.setdiff1d(np.arange(nodes.shape[0]), fixed)
+        free = complement(nodes.shape[0], fixed)
         size = n + free.shape[0]
         if size > max_size:
             raise InputError(f"the exact engine would factor a {size} x {size} covariance matrix "

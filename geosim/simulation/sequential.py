@@ -35,7 +35,7 @@ from ..search import Neighbourhood
 from ..variogram.compiled import cov_lag
 from .paths import covariance_table, grid_axes, node_template, offset_lags, path_levels, random_path, \
     search_anisotropy
-from .validate import check_inputs, coincident_nodes, data_labels
+from .validate import check_inputs, coincident_nodes, complement, data_labels
 
 
 @dataclass(frozen=True)
@@ -130,7 +130,7 @@ class SequentialEngine:
         node_xyz = _active_xyz(active_flat, shape3, origin, step)
         neighbours = _data_neighbours(coords3, node_xyz, search.matrix(), nb.max_samples)
         fixed_pos, fixed_data = coincident_nodes(coords3, grid)
-        free = np.setdiff1d(np.arange(active_flat.shape[0]), fixed_pos)
+        free = complement(active_flat.shape[0], fixed_pos)
         return SequentialPlan(
             grid=grid, cm=cm, sill=model.sill, active_flat=active_flat, free=free,
             levels=path_levels(grid, offsets, multigrid)[free], fixed_flat=active_flat[fixed_pos],
@@ -197,7 +197,7 @@ def _data_neighbours(coords3: np.ndarray, node_xyz: np.ndarray, matrix: np.ndarr
     tree = cKDTree(coords3 @ matrix.T)
     for start in range(0, node_xyz.shape[0], block):
         pts = node_xyz[start:start + block] @ matrix.T
-        _, idx = tree.query(pts, k=kq, distance_upper_bound=1.0 + 1e-9, workers=1)
+        _, idx = tree.query(pts, k=kq, distance_upper_bound=1.0 + 1e-9, workers=-1)
         idx = np.asarray(idx).reshape(pts.shape[0], kq)
         out[start:start + block] = np.where(idx < n, idx, -1)
     return out

@@ -92,3 +92,10 @@ def coincident_nodes(coords3: np.ndarray, grid, rel_tol: float = 1e-4):
     flat, first = np.unique(flat, return_index=True)
     position = np.cumsum(mask)[flat] - 1
     return position.astype(np.int64), hit[first].astype(np.int64)
+
+
+def complement(n: int, taken: np.ndarray) -> np.ndarray:
+    """``0 .. n-1`` without ``taken``, in order."""
+    keep = np.ones(n, dtype=bool)
+    keep[taken] = False
+    return np.flatnonzero(keep)
