@@ -90,7 +90,7 @@ class InvalidStructureError(GeosimError, ValueError):
 # group -> (usable objects by name, every registration found)
 _loaded: dict[str, tuple[dict[str, object], list[PluginInfo]]] = {}
 _numpy_only_noted: set[str] = set()
-_correlation_kernel = None
+_correlation_kernel = None  # (correlation loop, covariance loop)
 _checking = False
 
 
@@ -180,18 +180,48 @@ def evaluate_compiled(function, r, param: float = 0.0) -> np.ndarray:
         Reduced distances.
     param : float
         The structure's shape parameter (ignored by structures without one).
-
-    One compiled loop calls the function through a pointer, so it is compiled
-    (and cached on disk) once for every plugin structure, not once per plugin.
     """
     r = np.asarray(r, dtype=np.float64)
     flat = np.ascontiguousarray(r).ravel()
     out = np.empty_like(flat)
-    _kernel()(function, flat, float(param), out)
+    _kernels()[0](function, flat, float(param), out)
     return out.reshape(r.shape)
 
 
-def _kernel():
+def add_covariance(structure, a: np.ndarray, b: np.ndarray, out: np.ndarray) -> None:
+    """Add the covariances of a structure with a compiled form between point sets to ``out``.
+
+    ``out[i, j] += sill * rho(|M (a_i - b_j)|)`` in one compiled loop over the pairs,
+    without the lag arrays of the numpy path; :meth:`geosim.variogram.Model.cov_matrix`
+    uses it for every structure that sets ``numba_correlation``.
+
+    Parameters
+    ----------
+    structure : Structure
+        An instance whose class sets ``numba_correlation``.
+    a, b : (n, d) and (m, d) arrays
+        Coordinates, d in {1, 2, 3}.
+    out : (n, m) float64 C-contiguous array
+    """
+    function = type(structure).numba_correlation
+    if function is None:
+        raise ValueError(f"structure {structure.kind!r} has no compiled form (numba_correlation)")
+    if a.shape[1] == 1:  # 1-D lags run along the major axis, as in Anisotropy.reduced_distance
+        mat = np.zeros((3, 3))
+        mat[0, 0] = 1.0 / structure.anisotropy.ranges[0]
+    else:
+        mat = np.ascontiguousarray(structure.anisotropy.matrix())
+    _kernels()[1](function, mat, float(structure.sill), float(structure.param), _as3(a), _as3(b), out)
+
+
+def _as3(points: np.ndarray) -> np.ndarray:
+    p3 = np.zeros((points.shape[0], 3))
+    p3[:, :points.shape[1]] = points
+    return p3
+
+
+def _kernels():
+    """The two compiled loops, compiled on first use (cached on disk)."""
     global _correlation_kernel
     if _correlation_kernel is None:
         from numba import njit, types
@@ -201,12 +231,27 @@ def _kernel():
             for i in range(r.size):
                 out[i] = function(r[i], param)
 
-        # typed as a function pointer rather than per plugin, so the loop compiles once
-        pointer = types.FunctionType(types.float64(types.float64, types.float64))
-        correlation_loop.compile(types.void(pointer, types.float64[::1], types.float64,
-                                            types.float64[::1]))
-        correlation_loop.disable_compile()
-        _correlation_kernel = correlation_loop
+        @njit(cache=True, nogil=True)
+        def covariance_loop(function, mat, sill, param, a, b, out):
+            for i in range(a.shape[0]):
+                for j in range(b.shape[0]):
+                    dx = a[i, 0] - b[j, 0]
+                    dy = a[i, 1] - b[j, 1]
+                    dz = a[i, 2] - b[j, 2]
+                    u = mat[0, 0] * dx + mat[0, 1] * dy + mat[0, 2] * dz
+                    v = mat[1, 0] * dx + mat[1, 1] * dy + mat[1, 2] * dz
+                    w = mat[2, 0] * dx + mat[2, 1] * dy + mat[2, 2] * dz
+                    out[i, j] += sill * function(np.sqrt(u * u + v * v + w * w), param)
+
+        # typed with a function pointer rather than per plugin, so each loop compiles once
+        f64 = types.float64
+        pointer = types.FunctionType(f64(f64, f64))
+        correlation_loop.compile(types.void(pointer, f64[::1], f64, f64[::1]))
+        covariance_loop.compile(types.void(pointer, f64[:, ::1], f64, f64, f64[:, ::1], f64[:, ::1],
+                                           f64[:, ::1]))
+        for loop in (correlation_loop, covariance_loop):
+            loop.disable_compile()
+        _correlation_kernel = (correlation_loop, covariance_loop)
     return _correlation_kernel
 
 

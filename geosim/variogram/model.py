@@ -91,10 +91,24 @@ class Model:
         b = a if b is None else np.atleast_2d(np.asarray(b, dtype=float))
         if a.shape[1] != b.shape[1]:
             raise ValueError(f"point sets differ in dimension: {a.shape[1]} and {b.shape[1]}")
-        out = np.empty((a.shape[0], b.shape[0]))
-        for start in range(0, a.shape[0], chunk):
-            block = a[start:start + chunk]
-            out[start:start + chunk] = self.covariance(block[:, None, :] - b[None, :, :])
+        out = np.zeros((a.shape[0], b.shape[0]))
+        # built-in closed forms and plugins' compiled forms run in compiled loops over the pairs,
+        # without lag arrays; the rest (Matern, numpy-only plugins, 1-D lags) through numpy
+        route = [_route(s, a.shape[1]) for s in self.structures]
+        closed = [s for s, how in zip(self.structures, route) if how == "closed"]
+        if closed:
+            from .compiled import cov_matrix_into
+            cov_matrix_into(Model(closed).compiled(), _as3(a), _as3(b), out)
+        rest = [s for s, how in zip(self.structures, route) if how == "numpy"]
+        if rest:
+            for start in range(0, a.shape[0], chunk):
+                block = a[start:start + chunk]
+                out[start:start + chunk] += sum(s.covariance(block[:, None, :] - b[None, :, :]) for s in rest)
+        if "plugin" in route:
+            from ..plugins import add_covariance
+            for s, how in zip(self.structures, route):
+                if how == "plugin":
+                    add_covariance(s, a, b, out)
         return out
 
     # compiled form -----------------------------------------------------------
@@ -184,6 +198,21 @@ class Model:
 
     def __repr__(self) -> str:
         return f"Model({list(self.structures)!r})"
+
+
+def _route(s: Structure, d: int) -> str:
+    """How :meth:`Model.cov_matrix` evaluates a structure: "closed", "plugin" or "numpy"."""
+    if type(s).numba_correlation is not None:
+        return "plugin"
+    if d > 1 and BUILTIN_STRUCTURES.get(s.kind) is type(s) and s.code != MATERN:
+        return "closed"  # 1-D lags follow the major axis unrotated, which cov_lag does not do
+    return "numpy"
+
+
+def _as3(points: np.ndarray) -> np.ndarray:
+    p3 = np.zeros((points.shape[0], 3))
+    p3[:, :points.shape[1]] = points
+    return p3
 
 
 def _table_extent(s: Structure) -> float:
