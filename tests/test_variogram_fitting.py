@@ -1,5 +1,6 @@
 """Variogram fitting: weights by definition, constraints, warnings, and recovery of known models."""
 import csv
+import json
 import math
 import warnings
 from pathlib import Path
@@ -67,6 +68,8 @@ def test_fixed_bounds_and_total_sill(small2d):
     assert p["1.minor"] == pytest.approx(0.5 * p["1.major"], rel=1e-12)
     assert "1.minor" not in fit.free_ and "1.major" in fit.free_
     assert any("omnidirectional" in w for w in fit.warnings_)
+    report = json.loads(json.dumps(fit.to_dict()))
+    assert Model.from_dicts(report["model"]) == fit.model_ and report["params"] == p
     with pytest.raises(ValueError, match="unknown parameter"):
         fit_model(ev, template, fixed=["2.sill"])
     with pytest.raises(ValueError, match="cannot determine"):

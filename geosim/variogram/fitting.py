@@ -92,6 +92,13 @@ class FitResult:
     warnings_: list = field(default_factory=list)
     weighting: str = "cressie"
 
+    def to_dict(self) -> dict:
+        """Plain data for JSON reports: the model as ``to_dicts()``, parameters, fit figures, warnings."""
+        return {"model": self.model_.to_dicts(), "model_text": str(self.model_), "params": dict(self.params_),
+                "free": list(self.free_), "weighting": self.weighting, "wrss": self.wrss_, "rmse": self.rmse_,
+                "rmse_by_direction": dict(self.rmse_by_direction_), "nbins": self.nbins_,
+                "success": self.success_, "message": self.message_, "warnings": list(self.warnings_)}
+
     def __str__(self) -> str:
         lines = ["fitted model:", str(self.model_),
                  f"weighting: {self.weighting}; bins used: {self.nbins_}; "
