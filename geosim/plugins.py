@@ -26,13 +26,17 @@ How plugin structures reach compiled code
 The kriging and simulation kernels are fixed functions, compiled once and cached
 on disk; a plugin cannot add code to them.  Inside those kernels every structure
 without a built-in closed form is read from a table of its correlation
-(:meth:`geosim.variogram.Model.compiled`), which costs the same whatever the
-structure.  Outside them geosim evaluates structures directly (model fitting,
-covariance matrices, building the table, the checks here).  A structure that sets
-``numba_correlation``, a numba-compiled scalar function ``rho(r, param)``, is
-evaluated there by one compiled loop (:func:`evaluate_compiled`); a structure
-with only a numpy ``correlation`` is evaluated through numpy, which is slower,
-and geosim says so once per structure kind per process.
+(:meth:`geosim.variogram.Model.compiled`, linear interpolation in 4097 points),
+which costs the same whatever the structure.  Outside them geosim evaluates
+structures directly: covariance matrices (:meth:`~geosim.variogram.Model.cov_matrix`:
+the exact engine, global kriging, the checks here), model fitting and the table
+itself.  A structure that sets ``numba_correlation``, a numba-compiled scalar
+function ``rho(r, param)``, is evaluated there by compiled loops that call it
+through a function pointer (:func:`add_covariance`, :func:`evaluate_compiled`;
+compiled once for all plugins and cached); a structure with only a numpy
+``correlation`` goes through numpy lag arrays, which is slower (see
+``tests/benchmarks/bench_plugins.py``), and geosim says so once per structure kind
+per process.
 """
 from __future__ import annotations
 
@@ -265,9 +269,10 @@ def note_numpy_only(cls: type, where: str = "") -> None:
     warnings.warn(
         f"covariance structure {kind!r}{source} supplies only a numpy form: inside the compiled "
         f"kriging and simulation kernels it is read from a table like every non-built-in structure, "
-        f"but wherever geosim evaluates it directly (fitting, covariance matrices, its table) it runs "
-        f"through numpy, which is slower. Its author can add numba_correlation(r, param) for "
-        f"compiled speed; see DEVELOPERS.md, 'Adding a covariance structure'.",
+        f"but wherever geosim evaluates it directly (covariance matrices of the exact engine and of "
+        f"global kriging, fitting) it runs through numpy, which is slower. Its author can add "
+        f"numba_correlation(r, param) for compiled speed; see DEVELOPERS.md, 'Adding a covariance "
+        f"structure'.",
         GeosimWarning, stacklevel=3)
 
 
