@@ -5,7 +5,8 @@ import time
 
 import click
 
-from .common import load, out_option, overwrite_option, reporter, set_option, spec_argument, table
+from .common import (cluster_option, load, out_option, overwrite_option, reporter, set_option, spec_argument,
+                     table, workers_option)
 from .report import crossval_text, decision_text, files_text, seconds
 
 
@@ -13,12 +14,14 @@ from .report import crossval_text, decision_text, files_text, seconds
 @spec_argument
 @out_option
 @set_option
+@workers_option
+@cluster_option
 @overwrite_option
 @click.option("--no-resume", is_flag=True,
               help="Recompute every realization even if an interrupted run of this spec left some.")
 @click.option("--check", "check_only", is_flag=True, help="Validate the spec and read the inputs, then stop.")
 @click.pass_context
-def run(ctx, spec, out_dir, overrides, overwrite, no_resume, check_only):
+def run(ctx, spec, out_dir, overrides, workers, cluster, overwrite, no_resume, check_only):
     """Read the data, fit the variogram, cross-validate, krige, simulate and summarize, as the
     run spec SPEC says, writing everything into the folder --out.
 
@@ -28,7 +31,7 @@ def run(ctx, spec, out_dir, overrides, overwrite, no_resume, check_only):
     """
     import geosim.pipeline
 
-    run_spec = load(ctx, spec, overrides)
+    run_spec = load(ctx, spec, overrides, workers=workers, cluster=cluster)
     progress = reporter(ctx)
     if check_only:
         data = geosim.pipeline.prepare_data(run_spec, progress)

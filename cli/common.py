@@ -15,6 +15,11 @@ set_option = click.option(
          "--set 'grid.cell=[50, 50]' (repeatable; TOML values).")
 out_option = click.option("--out", "out_dir", required=True, type=click.Path(file_okay=False, path_type=str),
                           help="Output folder (created if missing).")
+workers_option = click.option("--workers", type=click.IntRange(1), default=None,
+                              help="Local worker processes for the realizations (default: the spec's, "
+                                   "else every core).")
+cluster_option = click.option("--cluster", metavar="ADDRESS", default=None,
+                              help="Run the realizations on this Dask scheduler, e.g. tcp://10.0.0.5:8786.")
 overwrite_option = click.option("--overwrite", is_flag=True,
                                 help="Replace existing outputs, including a finished or different run.")
 
@@ -26,11 +31,18 @@ def session(ctx: click.Context) -> Session:
     return s
 
 
-def load(ctx: click.Context, spec_path: str, overrides: Sequence[str]):
-    """Load and validate the spec (raises SpecError, mapped to exit 2 by the group)."""
+def load(ctx: click.Context, spec_path: str, overrides: Sequence[str], *, workers: int | None = None,
+         cluster: str | None = None):
+    """Load and validate the spec with the command line's overrides (a SpecError is
+    mapped to exit 2 by the group)."""
     import geosim.io.runspec
     session(ctx)
-    return geosim.io.runspec.load_spec(spec_path, overrides)
+    values = geosim.io.runspec.parse_overrides(overrides)
+    if workers is not None:
+        values.update({"simulation.workers": workers, "simulation.cluster": None})
+    if cluster is not None:
+        values.update({"simulation.cluster": cluster, "simulation.workers": None})
+    return geosim.io.runspec.load_spec(spec_path, values)
 
 
 def reporter(ctx: click.Context) -> ProgressReporter:

@@ -165,3 +165,30 @@ def test_ore_prospect_3d_run(tmp_path):
     spread = (out / "decision_spread.csv").read_text()
     assert "tonnage" in spread and "mean_grade" in spread
     assert "tonnage at cutoff 0.3" in result.stdout
+
+
+def test_simulate_on_a_dask_cluster_equals_serial(tmp_path):
+    from click.testing import CliRunner
+
+    from geosim_cli.main import cli
+
+    distributed = pytest.importorskip("dask.distributed")
+    small = ["--set", "grid.cell=[200.0, 200.0]", "--set", "simulation.realizations=3",
+             "--set", "variogram.fit=false"]
+    # in this process: the Dask workers are processes of their own, a geosim subprocess adds only start-up
+    runner = CliRunner()
+    with distributed.LocalCluster(n_workers=2, threads_per_worker=1, processes=True, host="127.0.0.1",
+                                  dashboard_address=None) as cluster:
+        remote = runner.invoke(cli, ["simulate", str(AQUIFER), "--out", str(tmp_path / "dask"), "--cluster",
+                                     cluster.scheduler_address, *small])
+    assert remote.exit_code == 0, remote.stderr
+    assert "3 (3 computed, 0 kept)" in remote.stdout
+    serial = runner.invoke(cli, ["simulate", str(AQUIFER), "--out", str(tmp_path / "serial"), "--workers", "1",
+                                 *small])
+    assert serial.exit_code == 0, serial.stderr
+    for i in range(3):
+        name = f"realizations/r{i:04d}.tif"
+        np.testing.assert_array_equal(band_values(tmp_path / "dask" / name), band_values(tmp_path / "serial" / name))
+    summary = runner.invoke(cli, ["summarize", str(AQUIFER), "--out", str(tmp_path / "dask"), *small])
+    assert summary.exit_code == 0, summary.stderr
+    assert (tmp_path / "dask" / "summary.tif").is_file()

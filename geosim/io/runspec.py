@@ -425,7 +425,8 @@ def load_spec(path: str | os.PathLike, overrides: Iterable[str] | Mapping[str, A
         The spec file.  Relative paths inside it are relative to its folder.
     overrides : list of "key.path=value" strings or dict, optional
         Values that replace (or add) keys before validation, e.g.
-        ``{"simulation.realizations": 3}``; they are part of the spec's hash.
+        ``{"simulation.realizations": 3}``; they are part of the spec's hash.  In a
+        dict, the value None removes the key.
     check_files : bool
         Also check that every input file named in the spec exists.
 
@@ -479,7 +480,10 @@ def spec_from_dict(values: Mapping, base: str | os.PathLike = ".", *,
                 problems.append(f"{dotted}: cannot override inside a non-table value")
                 break
         else:
-            node[parts[-1]] = value
+            if value is None:  # a None override removes the key (e.g. workers when a cluster is given)
+                node.pop(parts[-1], None)
+            else:
+                node[parts[-1]] = value
 
     base = Path(base)
     out = _check_sections(values, problems)
