@@ -210,5 +210,21 @@ def test_bad_inputs_are_named():
         engine.prepare(np.array([[1.0, 2.0], [3.0, 4.0], [np.nan, 1.0]]), np.zeros(3), model, grid)
     with pytest.raises(geosim.InputError, match="kriging"):
         engine.prepare(np.zeros((0, 2)), np.zeros(0), model, grid, kriging="universal")
-    with pytest.raises(geosim.InputError, match="sectors"):
-        engine.prepare(np.zeros((0, 2)), np.zeros(0), model, grid, neighbourhood=Neighbourhood(sectors=4))
+    with pytest.raises(geosim.InputError, match="hole"):
+        engine.prepare(np.array([[1.0, 2.0]]), np.zeros(1), model, grid, neighbourhood=Neighbourhood(max_per_hole=2))
+
+
+def test_data_search_limits_apply():
+    # the data search is geosim.search's: quadrant limits and per-hole limits shape each node's set
+    grid = geosim.Grid(0.0, 0.0, (5.0, 5.0), (6, 6))
+    model = geosim.Model([geosim.Spherical(1.0, geosim.Anisotropy.isotropic(60.0))])
+    xy = np.array([[14.0, 16.0], [13.0, 17.0], [12.0, 18.0], [16.0, 14.0], [28.0, 27.0]])
+    engine = SequentialEngine()
+    plain = engine.prepare(xy, np.zeros(5), model, grid, neighbourhood=Neighbourhood(max_samples=3))
+    per_hole = engine.prepare(xy, np.zeros(5), model, grid, hole_ids=["A", "A", "A", "A", "B"],
+                              neighbourhood=Neighbourhood(max_samples=3, max_per_hole=2))
+    holes = np.array([0, 0, 0, 0, 1])
+    assert (plain.data_neighbours >= 0).sum(axis=1).min() == 3
+    for row in per_hole.data_neighbours:
+        used = row[row >= 0]
+        assert len(used) == 3 and np.bincount(holes[used], minlength=2)[0] == 2

@@ -13,8 +13,7 @@ import math
 import numpy as np
 from numba import njit
 
-from ..search import Neighbourhood
-from ..variogram import Anisotropy, Model
+from ..variogram import Anisotropy
 from ..variogram.compiled import cov_lag
 
 #: Most covariance-table entries (float64) kept; beyond this the kernels evaluate the model.
@@ -37,26 +36,6 @@ def grid_axes(grid) -> tuple[tuple[int, int, int], np.ndarray, np.ndarray]:
     origin = np.array([grid.xmin + 0.5 * grid.cell[0], grid.ymax - 0.5 * grid.cell[1], z0])
     step = np.array([grid.cell[0], -grid.cell[1], dz])
     return shape3, origin, step
-
-
-def search_anisotropy(model: Model, neighbourhood: Neighbourhood, grid) -> Anisotropy:
-    """The search ellipsoid: the neighbourhood's ranges and angles, else the model's longest structure.
-
-    A pure-nugget model has no range; its search then reaches one cell, which is all a
-    spatially uncorrelated field needs.
-    """
-    ranged = [s for s in model.structures if s.kind != "nugget"]
-    if ranged:
-        longest = max(ranged, key=lambda s: max(s.anisotropy.ranges)).anisotropy
-    else:
-        longest = Anisotropy.isotropic(max(grid.cell))
-    nb = neighbourhood
-    return Anisotropy(
-        tuple(nb.ranges) if nb.ranges is not None else longest.ranges,
-        longest.azimuth if nb.azimuth is None else float(nb.azimuth),
-        longest.dip if nb.dip is None else float(nb.dip),
-        longest.rake if nb.rake is None else float(nb.rake),
-    )
 
 
 def offset_lags(offsets: np.ndarray, step: np.ndarray) -> np.ndarray:

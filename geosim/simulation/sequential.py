@@ -24,17 +24,16 @@ on sequential Gaussian simulation (the method, not the program).
 from __future__ import annotations
 
 import math
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 
 import numpy as np
 from numba import njit
 
 from ..errors import InputError, NotPositiveDefiniteError
 from ..linalg import chol_inplace, forward_inplace
-from ..search import Neighbourhood
+from ..search import DataSearch, Neighbourhood, search_ellipsoid
 from ..variogram.compiled import cov_lag
-from .paths import covariance_table, grid_axes, node_template, offset_lags, path_levels, random_path, \
-    search_anisotropy
+from .paths import covariance_table, grid_axes, node_template, offset_lags, path_levels, random_path
 from .validate import check_inputs, coincident_nodes, complement, data_labels
 
 
@@ -81,6 +80,8 @@ class SequentialEngine:
         Most template offsets scanned for simulated neighbours (default 20,000).
     ``sample_ids`` : sequence
         Labels of the data rows for error messages (default: row numbers from 1).
+    ``hole_ids`` : sequence
+        Drillhole of each datum, for ``neighbourhood.max_per_hole``.
     ``pivot_tol`` : float
         A Cholesky pivot ``<= pivot_tol * sill`` counts as failure (default 1e-10).
 
@@ -106,16 +107,15 @@ class SequentialEngine:
 
     def prepare(self, data_coords, data_scores, model, grid, *, neighbourhood: Neighbourhood | None = None,
                 kriging: str = "simple", multigrid: int | None = None, max_template: int = 20_000,
-                sample_ids=None, pivot_tol: float = 1e-10) -> SequentialPlan:
+                sample_ids=None, hole_ids=None, pivot_tol: float = 1e-10) -> SequentialPlan:
         """Build the search template, covariance table and data neighbour lists."""
         coords3, scores, nb, ordinary, model = check_inputs(data_coords, data_scores, model, grid, neighbourhood,
                                                      kriging)
-        if nb.sectors or nb.max_per_sector is not None or nb.max_per_hole is not None:
-            raise InputError("the sequential engine does not apply search sectors or per-hole limits",
-                             field="neighbourhood",
-                             fix="set sectors=0, max_per_sector=None and max_per_hole=None")
+        if nb.ranges is None and not any(s.kind != "nugget" for s in model.structures):
+            # a pure nugget has no range: one cell is all an uncorrelated field needs
+            nb = replace(nb, ranges=(max(grid.cell),) * 3)
         shape3, origin, step = grid_axes(grid)
-        search = search_anisotropy(model, nb, grid)
+        search = search_ellipsoid(nb, model)
         offsets = node_template(grid, search, limit=int(max_template)) if nb.max_nodes > 0 else \
             np.zeros((0, 3), dtype=np.int64)
         cm = model.compiled()
@@ -128,7 +128,7 @@ class SequentialEngine:
         data_cov = (_data_covariances(cm, coords3) if len(scores) <= DATA_COV_LIMIT else np.zeros((0, 0)))
         active_flat = np.flatnonzero(grid.mask.ravel()).astype(np.int64)
         node_xyz = _active_xyz(active_flat, shape3, origin, step)
-        neighbours = _data_neighbours(coords3, node_xyz, search.matrix(), nb.max_samples)
+        neighbours = _data_neighbours(coords3[:, :grid.ndim], node_xyz[:, :grid.ndim], nb, model, hole_ids)
         fixed_pos, fixed_data = coincident_nodes(coords3, grid)
         free = complement(active_flat.shape[0], fixed_pos)
         return SequentialPlan(
@@ -185,22 +185,24 @@ def _active_xyz(active_flat, shape3, origin, step) -> np.ndarray:
     return np.column_stack([origin[0] + j * step[0], origin[1] + i * step[1], origin[2] + k * step[2]])
 
 
-def _data_neighbours(coords3: np.ndarray, node_xyz: np.ndarray, matrix: np.ndarray, k: int,
-                     block: int = 200_000) -> np.ndarray:
-    """Up to ``k`` nearest data inside the search ellipsoid of each node, -1 padded."""
-    n = coords3.shape[0]
-    kq = min(int(k), n)
-    out = np.full((node_xyz.shape[0], kq), -1, dtype=np.int32)
-    if kq == 0:
-        return out
-    from scipy.spatial import cKDTree
-    tree = cKDTree(coords3 @ matrix.T)
-    for start in range(0, node_xyz.shape[0], block):
-        pts = node_xyz[start:start + block] @ matrix.T
-        _, idx = tree.query(pts, k=kq, distance_upper_bound=1.0 + 1e-9, workers=-1)
-        idx = np.asarray(idx).reshape(pts.shape[0], kq)
-        out[start:start + block] = np.where(idx < n, idx, -1)
-    return out
+def _data_neighbours(coords: np.ndarray, node_coords: np.ndarray, nb: Neighbourhood, model, hole_ids,
+                     block: int = 250_000) -> np.ndarray:
+    """Data selected for each active node by :class:`geosim.search.DataSearch` (int32, -1 padded).
+
+    The search (ellipsoid, sectors, per-hole limits) is the one kriging uses; it runs once
+    per run, in blocks of nodes to bound the memory of the query.
+    """
+    if coords.shape[0] == 0:
+        return np.full((node_coords.shape[0], 0), -1, dtype=np.int32)
+    try:
+        search = DataSearch(coords, nb, model, hole_ids)
+    except ValueError as err:
+        raise InputError(str(err), field="neighbourhood", fix="adjust the neighbourhood or pass hole_ids=") from None
+    out = np.empty((node_coords.shape[0], nb.max_samples), dtype=np.int32)
+    for start in range(0, node_coords.shape[0], block):
+        out[start:start + block] = search.query(node_coords[start:start + block])[0]
+    used = int((out >= 0).sum(axis=1).max()) if out.size else 0
+    return np.ascontiguousarray(out[:, :used])
 
 
 @njit(cache=True, nogil=True)
