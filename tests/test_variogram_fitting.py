@@ -46,7 +46,7 @@ def test_weighted_rss_matches_definitions(small2d, weighting):
         else:
             units = [(math.sin(math.radians(20.0)), math.cos(math.radians(20.0)))]
         gm = np.mean([model.semivariance(np.outer(h, u)) for u in units], axis=0)
-        if weighting == "cressie":  # Cressie (1985), Mathematical Geology 17(5), eq. (2.3)
+        if weighting == "cressie":  # Cressie (1985), Mathematical Geology 17(5); from memory
             total += np.sum(n * (g / gm - 1.0) ** 2)
         elif weighting == "pairs":
             total += np.sum(n * (g - gm) ** 2)
@@ -190,8 +190,8 @@ def test_ore_prospect_joint_fit_with_downhole_variogram():
     their distribution, so (x - mean) / (sd sqrt(1 + 1/8)) follows Student's t with 7 degrees of
     freedom, and |t| <= 3.5 (its 99.5 % point) is required; (b) the truth lies within 3.5 standard
     errors (sd / sqrt(8)) of the replicates' mean, i.e. the fitting is not biased beyond sampling
-    error.  Critical value: t(7) 0.995 quantile = 3.499 (standard t tables, e.g. Abramowitz and
-    Stegun 1964, table 26.10).
+    error.  Critical value: t(7) 0.995 quantile = 3.499 (scipy.stats.t.ppf(0.995, 7); also in
+    standard t tables).
     """
     from geosim.drillholes import read_drillholes
 

@@ -15,12 +15,12 @@ from geosim.variogram.anisotropy import axes
 # --- structure values at chosen lags ------------------------------------------------------------
 
 # Spherical: gamma(h) = C [3/2 (h/a) - 1/2 (h/a)^3] for h <= a, C beyond.
-# Journel and Huijbregts 1978, Mining Geostatistics, section III.B, eq. (III.8).
+# Journel and Huijbregts 1978, Mining Geostatistics, chapter III.B (section and numbering from memory).
 # Exponential and Gaussian in their practical-range forms gamma = C [1 - exp(-3h/a)] and
 # C [1 - exp(-3 h^2 / a^2)]: Journel and Huijbregts 1978, section III.B (they write exp(-h/a') with
-# practical range a = 3a', and exp(-h^2/a'^2) with a = sqrt(3) a').
+# practical range a = 3a', and exp(-h^2/a'^2) with a = sqrt(3) a'; from memory).
 # Cubic: gamma = C [7r^2 - 35/4 r^3 + 7/2 r^5 - 3/4 r^7], r = h/a <= 1: Chiles and Delfiner 2012,
-# Geostatistics: Modeling Spatial Uncertainty, 2nd ed., section 2.5.1 (cubic model).
+# Geostatistics: Modeling Spatial Uncertainty, 2nd ed., chapter 2 (cubic model; section from memory).
 # Each expected number below is that formula worked by hand at h/a = 0.5 (C = 2, a = 100).
 HAND = [
     (Spherical, 2.0 * (0.75 - 0.0625)),                                  # 1.375
@@ -46,7 +46,8 @@ def test_structures_against_published_formulas(cls, expected):
 
 @pytest.mark.parametrize("nu,closed", [
     # Matern closed forms for half-integer smoothness: Rasmussen and Williams 2006, Gaussian
-    # Processes for Machine Learning, eq. (4.16)-(4.17), with r = h / scale.
+    # Processes for Machine Learning, section 4.2.1, eq. (4.17) (equation number from memory),
+    # with r = h / scale.
     (0.5, lambda r: np.exp(-r)),
     (1.5, lambda r: (1 + math.sqrt(3) * r) * np.exp(-math.sqrt(3) * r)),
     (2.5, lambda r: (1 + math.sqrt(5) * r + 5 * r**2 / 3) * np.exp(-math.sqrt(5) * r)),

@@ -21,7 +21,8 @@ Definitions used throughout (stated once here):
 * The classical estimator is ``gamma = sum (z_j - z_i)^2 / (2 N)``
   (Matheron 1962).  The robust estimator of Cressie and Hawkins (1980) is
   ``gamma = [mean |z_j - z_i|^(1/2)]^4 / (2 (0.457 + 0.494 / N))``
-  (Cressie 1993, Statistics for Spatial Data, eq. 2.4.12).
+  (Cressie 1993, Statistics for Spatial Data, eq. 2.4.12; formula and equation
+  number from memory, the code is checked against a brute-force loop of it).
 
 Cost and memory: every pair with an x-gap up to the largest lag is visited once
 in compiled code; memory is ``O(n + directions x lags)`` (a sorted copy of the

@@ -20,8 +20,8 @@ Weightings, for bin ``k`` with ``N_k`` pairs, experimental ``g_k`` and model
 ``gamma_k``:
 
 * ``"cressie"``: residual ``sqrt(N_k) (g_k / gamma_k - 1)``, Cressie (1985),
-  Fitting variogram models by weighted least squares, Mathematical Geology 17(5),
-  eq. (2.3);
+  Fitting variogram models by weighted least squares, Mathematical Geology 17(5)
+  (the criterion from memory);
 * ``"pairs"``: residual ``sqrt(N_k) (g_k - gamma_k)``;
 * ``"equal"``: residual ``g_k - gamma_k``.
 
