@@ -58,7 +58,7 @@ def test_unknown_name_is_a_key_error_listing_what_exists():
 @pytest.mark.parametrize("cls", list(BUILTIN_STRUCTURES.values()), ids=list(BUILTIN_STRUCTURES))
 def test_check_accepts_every_builtin_structure(cls):
     # all six are valid covariances in 3-D (Chiles and Delfiner 2012, Geostatistics:
-    # Modeling Spatial Uncertainty, section 2.5), including the Gaussian on a dense lattice
+    # Modeling Spatial Uncertainty, section 2.5, from memory), the Gaussian on a dense lattice too
     plugins.check_structure(cls)
 
 
@@ -318,7 +318,7 @@ def test_kriging_with_the_plugin_structure_matches_a_direct_solve(wells):
     xy, z, model = wells
     targets = np.array([[400.0, 700.0], [1010.0, 222.0], [75.0, 1400.0]])
     # simple kriging with mean 0, all data: weights C^-1 c, variance C(0) - c' C^-1 c
-    # (Chiles and Delfiner 2012, section 3.3, the simple kriging system)
+    # (the simple kriging system; Chiles and Delfiner 2012, section 3.3, from memory)
     c = model.cov_matrix(xy)
     c0 = model.cov_matrix(xy, targets)
     w = np.linalg.solve(c, c0)

@@ -44,7 +44,7 @@ class Cauchy(Structure):
 
     The range is the practical range (as for geosim's exponential); ``shape`` > 0
     sets how slowly the tail decays.  Valid in every dimension (a scale mixture of
-    Gaussian correlations; Gneiting and Schlather 2004, SIAM Review 46(2)).
+    Gaussian correlations; Gneiting and Schlather 2004, SIAM Review 46(2), from memory).
     """
 
     kind = "cauchy"
