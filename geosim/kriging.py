@@ -464,7 +464,8 @@ regularization, threads, progress
     -------
     estimate, variance : ndarray of ``grid.shape``
         NaN outside the domain and where too few samples were found, ready for
-        the raster writer (float, NaN as nodata).
+        the raster writer, e.g. ``geosim.io.geotiff.write_raster(path,
+        numpy.stack([estimate, variance]), grid, descriptions=[...])``.
 
     Examples
     --------
