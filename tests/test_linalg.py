@@ -79,3 +79,13 @@ def test_tolerance_rejects_tiny_pivots():
     a = np.array([[1.0, 1.0 - 1e-14], [1.0 - 1e-14, 1.0]])
     assert gl.chol_inplace(a.copy(), 2, np.empty(2), 0.0) == -1
     assert gl.chol_inplace(a.copy(), 2, np.empty(2), 1e-10) == 1
+
+
+@pytest.mark.parametrize("n", [5, gl.LAPACK_ORDER + 8])
+def test_public_cholesky_applies_tolerance_in_both_branches(n):
+    a = np.eye(n)
+    a[2:4, 2:4] = [[1.0, 1.0 - 1e-14], [1.0 - 1e-14, 1.0]]  # nearly duplicated rows
+    gl.cholesky(a)  # strictly positive pivots: factors
+    with pytest.raises(NotPositiveDefiniteError) as err:
+        gl.cholesky(a, tol=1e-10)
+    assert err.value.pivot == 3 and 0.0 < err.value.value < 1e-10
