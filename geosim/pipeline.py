@@ -675,11 +675,18 @@ def _grade_tonnage(field, *, grid, cutoffs, density, thickness):
     return grade_tonnage(field, grid, cutoffs, density, thickness)
 
 
+def _checks(data: PreparedData, model, grid):
+    """The per-realization reproduction checks of :mod:`geosim.validation`."""
+    from .validation import RunChecks
+    return RunChecks(grid, model, data.coords, data.scores, weights=data.weights, data_values=data.values)
+
+
 def _writer(spec: RunSpec, data: PreparedData, model, grid, out_dir: Path):
     from .io.geotiff import RealizationWriter
     # overwrite=True: the folder was checked to belong to this run before anything is written
     return RealizationWriter(out_dir, grid, tags=provenance_tags(spec, data, model), units=spec["data.units"],
-                             back_transform=data.transform.inverse, figures=_figures(spec, grid), overwrite=True)
+                             back_transform=data.transform.inverse, figures=_figures(spec, grid),
+                             measure=_checks(data, model, grid), overwrite=True)
 
 
 def simulate(spec: RunSpec, data: PreparedData | None = None, model=None, grid=None, *,
@@ -768,10 +775,55 @@ def summarize(spec: RunSpec, out_dir: str | os.PathLike, *, data: PreparedData |
                    "grid": {"shape": list(grid.shape), "cell": list(grid.cell), "active_nodes": grid.n_active,
                             "crs": grid.crs.to_string() if grid.crs is not None else None},
                    "realizations": {"count": n, "kept_from_earlier_run": simulation.kept}})
+    checks = [r.get("checks") for r in simulation.records]
+    if all(c is not None for c in checks):
+        report["validation"] = _checks(data, model, grid).summarize(checks)
     if extra:
         report.update(extra)
+    if out["plots"]:
+        files["plots"] = [str(p) for p in _summary_plots(spec, data, model, grid, out_dir, simulation.records,
+                                                         report.get("validation"))]
     files["report"] = [str(write_report(out_dir / "report.json", report, overwrite=True))]
     return files
+
+
+def _plot_level(data: PreparedData, grid) -> int:
+    """The level of a 3-D grid mapped in the PNGs: the one nearest the samples' mean elevation."""
+    if grid.ndim == 2:
+        return 0
+    z = grid.axes()[0]
+    return int(np.argmin(np.abs(z - data.coords[:, 2].mean())))
+
+
+def _summary_plots(spec: RunSpec, data: PreparedData, model, grid, out_dir: Path, records: Sequence[Mapping],
+                   validation: Mapping | None) -> list[Path]:
+    """Maps of the summary (one level for 3-D grids), reproduction and decision-spread plots."""
+    import rasterio
+
+    from .io import plots
+    from .io.geotiff import level_grid, level_paths
+    from .summaries import summary_band_names
+    units = spec["data.units"]
+    k = _plot_level(data, grid)
+    g2 = level_grid(grid, k)
+    with rasterio.open(level_paths(out_dir / "summary.tif", grid)[k]) as src:
+        summary = dict(zip(summary_band_names(spec["outputs.cutoffs"]), src.read().astype(float)))
+    prefix = "" if grid.ndim == 2 else f"z{k:03d}_"
+    written = list(plots.plot_summary_maps(summary, g2, out_dir, units=units, prefix=prefix, overwrite=True))
+    quantiles = [r["checks"]["quantiles"] for r in records if r.get("checks") and "quantiles" in r["checks"]]
+    if quantiles:
+        written.append(plots.plot_histogram_reproduction(
+            data.values, [np.asarray(q, dtype=float) for q in quantiles], out_dir / "histogram_reproduction.png",
+            weights=data.weights, units=units, overwrite=True))
+    if validation:
+        written.append(plots.plot_variogram_reproduction(validation["variogram"],
+                                                         out_dir / "variogram_reproduction.png", model=model,
+                                                         ndim=grid.ndim, overwrite=True))
+    figures = [r.get("figures") for r in records]
+    if figures and all(f is not None for f in figures):
+        written.append(plots.plot_decision_spread(figures, out_dir / "decision_spread.png", units=units,
+                                                  overwrite=True))
+    return written
 
 
 # -- the whole job -----------------------------------------------------------------------------
@@ -834,6 +886,8 @@ def run(spec: RunSpec | str | os.PathLike, out_dir: str | os.PathLike, *, overwr
     vg = timed("variogram", variogram_model, spec, data, **mine)
     files = dict(vg.files)
     extra: dict[str, Any] = {"variogram": {"model": str(vg.model), "source": vg.source}}
+    if vg.fit is not None:
+        extra["variogram"]["fit"] = vg.fit.to_dict()
     crossval = None
     if spec["outputs.cross_validation"]:
         cv = timed("cross-validation", cross_validate, spec, data, vg.model, **mine)
