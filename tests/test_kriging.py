@@ -3,6 +3,8 @@ import warnings
 
 import numpy as np
 import pytest
+from hypothesis import given, settings
+from hypothesis import strategies as st
 
 import geosim
 from geosim.errors import GeosimWarning, NotPositiveDefiniteError
@@ -223,3 +225,30 @@ def test_threads_give_identical_results():
     assert np.array_equal(one.estimate, two.estimate, equal_nan=True)
     assert np.array_equal(one.variance, two.variance, equal_nan=True)
     assert np.array_equal(one.n_used, two.n_used)
+
+
+@settings(max_examples=40, deadline=None)
+@given(n=st.integers(1, 25), k=st.integers(1, 10), sectors=st.sampled_from([0, 4]),
+       ordinary=st.booleans(), seed=st.integers(0, 2**31 - 1))
+def test_any_configuration_matches_the_dense_system(n, k, sectors, ordinary, seed):
+    rng = np.random.default_rng(seed)
+    xy = rng.uniform(0, 50, size=(n, 2))
+    z = rng.normal(size=n)
+    targets = np.vstack([rng.uniform(-10, 60, size=(4, 2)), xy[:1]])  # one target on a sample
+    model = geosim.Nugget(0.2) + geosim.Exponential(0.8, Anisotropy((40.0, 20.0), azimuth=float(seed % 180)))
+    res = krige(xy, z, targets, model, method="ordinary" if ordinary else "simple", mean=0.5,
+                neighbourhood=Neighbourhood(max_samples=k, sectors=sectors, ranges=(200.0, 200.0)),
+                return_weights=True)
+    for i, t in enumerate(targets):
+        sel = res.neighbours[i, :res.n_used[i]]
+        assert res.n_used[i] >= 1  # a 200 m search reaches every sample
+        if ordinary:
+            w, est, var = _dense_ok(model, xy[sel], z[sel], t)
+            assert res.weights[i].sum() == pytest.approx(1.0, abs=1e-9)
+        else:
+            c = model.cov_matrix(xy[sel], t[None, :])[:, 0]
+            w = np.linalg.solve(model.cov_matrix(xy[sel]), c)
+            est, var = 0.5 + w @ (z[sel] - 0.5), model.sill - w @ c
+        assert res.estimate[i] == pytest.approx(est, abs=1e-8)
+        assert res.variance[i] == pytest.approx(max(var, 0.0), abs=1e-8)
+        assert 0.0 <= res.variance[i] <= model.sill + (np.inf if ordinary else 1e-12)
