@@ -103,7 +103,7 @@ class Direction:
         return np.concatenate([[0.0], r.ravel(), [tan_az, tan_dip, self.bandwidth_h, self.bandwidth_v]])
 
 
-@dataclass(frozen=True)
+@dataclass(frozen=True, eq=False)  # holds arrays: compare fields explicitly
 class ExperimentalVariogram:
     """One experimental semivariogram: per lag bin, the mean lag, gamma and pair count.
 
@@ -187,7 +187,7 @@ class ExperimentalVariogram:
         }
 
 
-@dataclass(frozen=True)
+@dataclass(frozen=True, eq=False)
 class VariogramMap:
     """Semivariance over a square of 2-D lag vectors.
 
