@@ -121,8 +121,10 @@ def _check_data(coords, values, what: str = "data") -> tuple[np.ndarray, np.ndar
         bad = ~np.isfinite(arr if arr.ndim == 1 else arr.sum(axis=1))
         if bad.any():
             row = int(np.argmax(bad))
-            raise InputError(f"sample {row} has a missing or non-finite value in its {name}",
-                             row=row, field=name, fix="drop or correct the sample before kriging")
+            # an array position, not a file row: intake has already named the file's rows
+            raise InputError(f"the sample at index {row} (counting from 0) has a missing or non-finite "
+                             f"value in its {name}", field=name,
+                             fix="drop or correct the sample before kriging")
     return xyz, z
 
 

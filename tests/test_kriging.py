@@ -200,7 +200,7 @@ def test_krige_grid_clipped_by_polygon():
 
 def test_bad_input_is_named():
     model = geosim.Model([geosim.Spherical(1.0, Anisotropy((50.0, 50.0)))])
-    with pytest.raises(geosim.InputError, match="row 1"):
+    with pytest.raises(geosim.InputError, match="index 1 "):
         krige([[0.0, 0.0], [1.0, 1.0]], [1.0, np.nan], [[0.0, 0.0]], model)
     with pytest.raises(ValueError, match="method"):
         krige([[0.0, 0.0]], [1.0], [[0.0, 0.0]], model, method="universal")
