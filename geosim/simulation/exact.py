@@ -74,8 +74,9 @@ class ExactEngine:
     def prepare(self, data_coords, data_scores, model, grid, *, neighbourhood: Neighbourhood | None = None,
                 kriging: str = "simple", max_size: int = 16_000, sample_ids=None) -> ExactPlan:
         """Factor the joint covariance of data and active nodes once."""
-        coords3, scores, _, ordinary, model = check_inputs(data_coords, data_scores, model, grid, neighbourhood,
-                                                    kriging)
+        from scipy.linalg import solve_triangular
+        coords3, scores, _, ordinary, model = check_inputs(data_coords, data_scores, model, grid,
+                                                           neighbourhood, kriging)
         labels = data_labels(sample_ids, len(scores))
         n = scores.shape[0]
         nodes = grid.coords()
@@ -94,22 +95,21 @@ class ExactEngine:
         c = model.cov_matrix(points)
         c12 = c[:n, n:].copy() if ordinary else None
         factor = _lapack_cholesky(c, labels, n)
+        active_flat = np.flatnonzero(grid.mask.ravel())
         empty = np.zeros((0, 0))
         if ordinary:
-            from scipy.linalg import solve_triangular
             l11 = factor[:n, :n]
             sk = solve_triangular(l11, solve_triangular(l11, c12, lower=True), lower=True, trans="T")
             ones = solve_triangular(l11, solve_triangular(l11, np.ones(n), lower=True), lower=True, trans="T")
             # ordinary kriging weights: simple-kriging weights plus the unbiasedness correction
             mu = (1.0 - sk.sum(axis=0)) / ones.sum()
             weights = (sk + np.outer(ones, mu)).T
-            return ExactPlan(grid.shape, np.flatnonzero(grid.mask.ravel()), free, fixed, scores[fixed_data],
+            return ExactPlan(grid.shape, active_flat, free, fixed, scores[fixed_data],
                              np.ascontiguousarray(factor[n:]), np.ascontiguousarray(l11), np.zeros(0),
                              np.ascontiguousarray(weights), scores, True)
-        from scipy.linalg import solve_triangular
         a = solve_triangular(factor[:n, :n], scores, lower=True) if n else np.zeros(0)
         mean = factor[n:, :n] @ a
-        return ExactPlan(grid.shape, np.flatnonzero(grid.mask.ravel()), free, fixed, scores[fixed_data],
+        return ExactPlan(grid.shape, active_flat, free, fixed, scores[fixed_data],
                          np.ascontiguousarray(factor[n:, n:]), empty, mean, empty, scores, False)
 
     def realize(self, plan: ExactPlan, rng: np.random.Generator) -> np.ndarray:

@@ -109,8 +109,8 @@ class SequentialEngine:
                 kriging: str = "simple", multigrid: int | None = None, max_template: int = 20_000,
                 sample_ids=None, hole_ids=None, pivot_tol: float = 1e-10) -> SequentialPlan:
         """Build the search template, covariance table and data neighbour lists."""
-        coords3, scores, nb, ordinary, model = check_inputs(data_coords, data_scores, model, grid, neighbourhood,
-                                                     kriging)
+        coords3, scores, nb, ordinary, model = check_inputs(data_coords, data_scores, model, grid,
+                                                            neighbourhood, kriging)
         if nb.ranges is None and not any(s.kind != "nugget" for s in model.structures):
             # a pure nugget has no range: one cell is all an uncorrelated field needs
             nb = replace(nb, ranges=(max(grid.cell),) * 3)
@@ -120,7 +120,8 @@ class SequentialEngine:
             np.zeros((0, 3), dtype=np.int64)
         cm = model.compiled()
         table, centre = covariance_table(cm, offsets, step)
-        if table is not None:
+        use_table = table is not None
+        if use_table:
             strides = np.array([table.shape[1] * table.shape[2], table.shape[2], 1], dtype=np.int64)
             table_lin, table_zero, table = offsets @ strides, int(centre @ strides), table.ravel()
         else:
@@ -136,7 +137,7 @@ class SequentialEngine:
             levels=path_levels(grid, offsets, multigrid)[free], fixed_flat=active_flat[fixed_pos],
             fixed_data=fixed_data, offsets=offsets,
             lags=np.ascontiguousarray(offset_lags(offsets, step)),
-            table=table, table_lin=table_lin, table_zero=table_zero, use_table=table.size > 1,
+            table=table, table_lin=table_lin, table_zero=table_zero, use_table=use_table,
             data_cov=data_cov, origin=origin, step=step, shape3=shape3,
             data_coords=coords3, data_scores=scores, data_neighbours=neighbours,
             data_labels=data_labels(sample_ids, len(scores)), max_nodes=int(nb.max_nodes),
