@@ -410,13 +410,13 @@ def _check_engine_entry(name, obj, package):
     missing = [m for m in ("prepare", "realize") if not callable(getattr(obj, m, None))]
     if missing:
         return f"an engine needs prepare() and realize(); missing: {', '.join(missing)}", ""
-    return None, ""
+    return None, "built-in" if package == OWN_PACKAGE else ""
 
 
 def _check_writer_entry(name, obj, package):
     if not callable(obj) or not callable(getattr(obj, "finish", None)):
         return "a writer must be a class whose instances are called per realization and have finish()", ""
-    return None, ""
+    return None, "built-in" if package == OWN_PACKAGE else ""
 
 
 _CHECKS = {"structures": _check_structure_entry, "engines": _check_engine_entry,

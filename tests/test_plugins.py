@@ -5,7 +5,8 @@ folder put on ``sys.path`` (so the shared environment is never changed), and its
 entry points are then read by :mod:`importlib.metadata` exactly as for any
 installed package.  It adds a hole-effect structure with a compiled form
 ("wave"), a numpy-only structure ("cauchy"), an invalid structure ("boxcar"), a
-structure under a built-in's name, a module that fails to import and a writer.
+structure under a built-in's name, a module that fails to import, an engine
+("marginal") and a writer ("npy").
 """
 from __future__ import annotations
 
@@ -167,7 +168,9 @@ def test_plugin_structures_are_checked_at_load(plugin):
     # the built-in keeps its name; the usable set gains exactly the two valid plugin structures
     assert plugins.get("structures", "exponential") is BUILTIN_STRUCTURES["exponential"]
     assert set(plugins.available("structures")) == set(BUILTIN_STRUCTURES) | {"wave", "cauchy"}
-    assert _info("npy", "writers").usable
+    assert _info("npy", "writers").usable and _info("marginal", "engines").usable
+    own = [i for i in plugins.installed("engines") if i.package == "geosim"]
+    assert own and all(i.detail == "built-in" for i in own)
 
 
 def test_each_problem_is_one_warning_naming_package_and_entry_point(plugin):
@@ -371,6 +374,26 @@ def test_sequential_engine_on_workers_writes_rasters(wells, tmp_path):
         np.testing.assert_array_equal(written, field.astype(np.float32))
         assert np.isfinite(field).all()
         np.testing.assert_array_equal(field.ravel()[on_nodes], z[-3:])
+
+
+def test_third_party_engine_runs_through_the_runner(wells):
+    xy, z, model = wells
+    assert _info("marginal", "engines").usable
+    grid = geosim.Grid(200.0, 200.0, (100.0, 100.0), (5, 5))
+    n = 300
+    fields = geosim.simulate(xy, z, model, grid, n_realizations=n, seed=6, engine="marginal", workers=1)
+    stack = np.array(fields).reshape(n, -1)
+    c = model.cov_matrix(xy)
+    c0 = model.cov_matrix(xy, grid.coords())
+    w = np.linalg.solve(c, c0)
+    mean, var = w.T @ z, model.sill - np.sum(w * c0, axis=0)
+    # as for the exact engine: 4.5 standard errors of the mean and of the variance (chi-square)
+    assert np.all(np.abs(stack.mean(axis=0) - mean) < 4.5 * np.sqrt(var / n))
+    assert np.all(np.abs(stack.var(axis=0, ddof=1) / var - 1.0) < 4.5 * np.sqrt(2.0 / (n - 1)))
+    # realization i depends only on (seed, i), whoever the engine is
+    again = geosim.simulate(xy, z, model, grid, n_realizations=n, seed=6, engine="marginal", workers=1,
+                            indices=[7])
+    np.testing.assert_array_equal(again[0], fields[7])
 
 
 def test_third_party_writer_as_sink(wells, tmp_path):

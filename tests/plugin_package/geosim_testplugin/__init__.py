@@ -1,1 +1,1 @@
-"""Test plugin for geosim: covariance structures and a writer registered through entry points."""
+"""Test plugin for geosim: covariance structures, an engine and a writer registered through entry points."""
