@@ -353,13 +353,15 @@ def check_structure(cls: type, *, seed: int = 20261202) -> None:
         _checking = False
     cov_matrix_into(compiled, points, points, kernel_values)
     worst = float(np.max(np.abs(kernel_values - model.cov_matrix(points))))
-    # a linear table of 4097 points errs by at most step^2/8 * max|rho''|, ~1e-5 for any
-    # shape smooth enough to be a covariance; 1e-3 flags only a wrong evaluation
+    # a linear table of 4097 points errs by at most step^2/8 * max|rho''|, ~1e-5 for shapes
+    # with a bounded second derivative away from 0; 1e-3 flags a wrong evaluation
     if not worst <= 1e-3:
+        cause = (f"its code {cls.code} is reserved for built-in structures (leave the default -1)"
+                 if 0 <= cls.code < 100 else
+                 "its correlation changes too sharply for the kernels' linear table of 4097 points")
         raise InvalidStructureError(
             f"structure {name!r}: the compiled kernels evaluate it differently from its correlation() "
-            f"(by up to {worst:.3g}); its code {cls.code} may belong to a built-in structure: leave "
-            f"code at its default (-1) so the kernels tabulate it")
+            f"(by up to {worst:.3g}): {cause}")
 
 
 def _evaluate(function, r, name, what):
@@ -449,7 +451,10 @@ def _load(group: str) -> tuple[dict[str, object], list[PluginInfo]]:
                 info = PluginInfo(group, ep.name, ep.value, package, version, IMPORT_FAILED,
                                   f"{type(exc).__name__}: {exc}")
             else:
-                problem, note = _CHECKS[group](ep.name, obj, package)
+                try:
+                    problem, note = _CHECKS[group](ep.name, obj, package)
+                except Exception as exc:  # a check tripping over a plugin's code is the plugin's failure
+                    problem, note = f"its check failed: {type(exc).__name__}: {exc}", ""
                 status = REJECTED if problem else OK
                 info = PluginInfo(group, ep.name, ep.value, package, version, status, problem or note)
                 if not problem:
