@@ -252,3 +252,30 @@ def test_any_configuration_matches_the_dense_system(n, k, sectors, ordinary, see
         assert res.estimate[i] == pytest.approx(est, abs=1e-8)
         assert res.variance[i] == pytest.approx(max(var, 0.0), abs=1e-8)
         assert 0.0 <= res.variance[i] <= model.sill + (np.inf if ordinary else 1e-12)
+
+
+def test_krige_grid_3d_from_drillhole_composites():
+    from shapely.geometry import box
+
+    # three invented vertical holes, 2 m composites, per-hole limit 3
+    z = np.arange(1.0, 20.0, 2.0)
+    holes = np.repeat(["AX-1", "AX-2", "AX-3"], z.size)
+    xyz = np.column_stack([np.repeat([12.0, 35.0, 22.0], z.size), np.repeat([10.0, 18.0, 33.0], z.size),
+                           np.tile(z, 3)])
+    vals = np.random.default_rng(3).lognormal(size=xyz.shape[0])
+    model = geosim.Nugget(0.1) + geosim.Spherical(0.9, Anisotropy((40.0, 40.0, 8.0)))
+    grid = geosim.Grid(0.0, 0.0, (5.0, 5.0, 2.0), (10, 9, 9), zmin=0.0)
+    nb = Neighbourhood(max_samples=9, max_per_hole=3)
+    est, var = krige_grid(xyz, vals, grid, model, domain=box(0, 0, 30, 45), method="ordinary",
+                          neighbourhood=nb, hole_ids=holes)
+    inside = grid.clip_to_polygon(box(0, 0, 30, 45)).mask
+    assert est.shape == (10, 9, 9) and np.all(np.isnan(est[~inside]))
+    ref = krige(xyz, vals, grid.with_mask(inside).coords(), model, method="ordinary", neighbourhood=nb,
+                hole_ids=holes, return_weights=True)
+    assert np.array_equal(est[inside], ref.estimate, equal_nan=True)
+    assert np.array_equal(var[inside], ref.variance, equal_nan=True)
+    assert ref.n_used.max() == 9
+    hole_code = np.unique(holes, return_inverse=True)[1]
+    used = ref.n_used > 0
+    for row, count in zip(ref.neighbours[used], ref.n_used[used]):
+        assert np.bincount(hole_code[row[:count]]).max() <= 3
