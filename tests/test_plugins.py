@@ -111,10 +111,15 @@ def _install(target: Path) -> str:
     """pip-install the test plugin into ``target``; returns how it was registered."""
     source = target.parent / "plugin_source"
     shutil.copytree(PLUGIN_SOURCE, source)  # building writes into the source tree: keep tests/ clean
-    cmd = [sys.executable, "-m", "pip", "install", "--quiet", "--no-deps", "--target", str(target), str(source)]
-    done = subprocess.run(cmd, capture_output=True, text=True)
-    if done.returncode == 0:
-        return "pip"
+    cmd = [sys.executable, "-m", "pip", "install", "--quiet", "--no-deps", "--disable-pip-version-check",
+           "--retries", "1", "--timeout", "15", "--target", str(target), str(source)]
+    try:
+        if subprocess.run(cmd, capture_output=True, text=True, timeout=300).returncode == 0:
+            return "pip"
+    except subprocess.TimeoutExpired:
+        pass
+    shutil.rmtree(target, ignore_errors=True)
+    target.mkdir(parents=True)
     # no build backend reachable (offline CI): register the same package by hand, the way pip
     # lays it out, so importlib.metadata still reads real entry points
     shutil.copytree(source / "geosim_testplugin", target / "geosim_testplugin")
