@@ -134,10 +134,10 @@ def simulate(data_coords, data_scores, model, grid, *, n_realizations: int, seed
     if outside:
         raise ValueError(f"realization indices {outside[:5]} are outside 0..{n_realizations - 1}")
     eng = resolve_engine(engine)
-    prepared = eng.prepare(data_coords, data_scores, model, grid, neighbourhood=neighbourhood,
-                           kriging=kriging, **engine_options)
     if not todo:
         return []
+    prepared = eng.prepare(data_coords, data_scores, model, grid, neighbourhood=neighbourhood,
+                           kriging=kriging, **engine_options)
     if client is not None:
         results = _run_dask(client, eng, prepared, sink, seed, todo, progress)
     else:
