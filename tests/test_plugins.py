@@ -471,3 +471,19 @@ plots = false
     for tif in tifs:
         with rasterio.open(tif) as src:
             assert any("wave" in v for v in src.tags().values()), (tif, src.tags())
+
+
+def test_fitting_honours_a_plugin_parameter_range(plugin):
+    # a noise-free experimental variogram of cauchy(shape=12): the fit can only recover the
+    # shape because the class widens the fitting range to (0.2, 20) beyond the default (0.1, 5)
+    from geosim.variogram import ExperimentalVariogram, fit_model
+    cauchy = plugins.get("structures", "cauchy")
+    assert cauchy.param_bounds == (0.2, 20.0)
+    truth = Model([cauchy(1.0, 150.0, param=12.0)])
+    lags = np.arange(1, 21) * 15.0
+    gamma = truth.semivariance(np.column_stack([lags, 0.0 * lags]))
+    ev = ExperimentalVariogram(centres=lags, lags=lags, gamma=gamma, npairs=np.full(20, 500), lag=15.0,
+                               lag_tol=7.5, kind="omnidirectional", direction=None, estimator="matheron",
+                               variance=1.0, extent=3000.0, dim=2, nsamples=600)
+    fit = fit_model(ev, Model([cauchy(1.0, 150.0, param=2.0)]), fixed=["0.sill", "0.major"])
+    assert fit.params_["0.shape"] == pytest.approx(12.0, rel=1e-3)

@@ -149,7 +149,8 @@ def fit_model(experimental: ExperimentalVariogram | Sequence[ExperimentalVariogr
     bounds : mapping, optional
         ``name -> (low, high)`` overriding the defaults: sills in
         ``[0, 10 x max(variance, max gamma)]``, ranges in
-        ``[shortest lag / 10, 10 x data extent]``, smoothness in ``[0.1, 5]``.
+        ``[shortest lag / 10, 10 x data extent]``, smoothness in ``[0.1, 5]`` (a structure
+        class may set ``param_bounds = (low, high)`` for its shape parameter).
     total_sill : float, optional
         Constrain the sills to add up to this (1.0 for normal scores).
     min_pairs : int
@@ -396,7 +397,8 @@ def _default_bounds(template: Model, gmax: float, shortest: float, extent: float
             for axis in ("major", "minor", "vertical"):
                 lo[f"{j}.{axis}"], hi[f"{j}.{axis}"] = r_lo, r_hi
         if s.param_name:
-            lo[f"{j}.{s.param_name}"], hi[f"{j}.{s.param_name}"] = 0.1, 5.0
+            # a plugin structure may state its own range for its shape parameter
+            lo[f"{j}.{s.param_name}"], hi[f"{j}.{s.param_name}"] = getattr(type(s), "param_bounds", (0.1, 5.0))
     return lo, hi
 
 

@@ -50,6 +50,7 @@ class Cauchy(Structure):
     kind = "cauchy"
     param: float = 1.0
     param_name = "shape"
+    param_bounds = (0.2, 20.0)  # what fitting may try
 
     def __post_init__(self):
         super().__post_init__()
