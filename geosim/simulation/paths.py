@@ -13,6 +13,7 @@ import math
 import numpy as np
 from numba import njit
 
+from ..errors import InputError
 from ..variogram import Anisotropy
 from ..variogram.compiled import cov_lag
 
@@ -84,8 +85,8 @@ def node_template(grid, search: Anisotropy, *, limit: int = 20_000) -> np.ndarra
     ext_k = 0 if d == 2 else min(int(math.floor(half[2] / step[2] + 1e-9)), shape3[0] - 1)
     box = (2 * ext_k + 1) * (2 * ext_i + 1) * (2 * ext_j + 1)
     if box > 60_000_000:
-        raise ValueError(f"search ellipsoid spans {box} grid nodes; give the neighbourhood smaller ranges "
-                         "or use a coarser grid")
+        raise InputError(f"the search ellipsoid spans {box} grid nodes", field="neighbourhood.ranges",
+                         fix="give the neighbourhood smaller ranges or use a coarser grid")
     kk, ii, jj = np.meshgrid(np.arange(-ext_k, ext_k + 1), np.arange(-ext_i, ext_i + 1),
                              np.arange(-ext_j, ext_j + 1), indexing="ij")
     offsets = np.column_stack([kk.ravel(), ii.ravel(), jj.ravel()]).astype(np.int64)
