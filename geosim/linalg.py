@@ -90,11 +90,12 @@ def backward_t_inplace(l, n, b):
             b[j] -= row[j] * bi
 
 
-# From this order on, cholesky() hands the matrix to LAPACK (scipy): called from
-# Python, dpotrf beat the compiled loop from n = 32 up (1.6x at 32, 2.3-2.5x at 64,
-# 5x at 128, single-threaded BLAS) in tests/benchmarks/bench_kriging.py.  Inside
-# compiled kernels chol_inplace stays the choice for the small local systems.
-LAPACK_ORDER = 32
+# From this order on, cholesky() hands the matrix to LAPACK (scipy).  Measured in
+# tests/benchmarks/bench_kriging.py with single-threaded BLAS (OPENBLAS_NUM_THREADS=1):
+# the compiled loop was faster at n = 32 (LAPACK/compiled time 1.2), LAPACK dpotrf
+# called from Python faster from n = 64 (1.2-1.8x), 3x at 128, 5x at 256.  Threaded
+# BLAS on a busy machine was erratic from n = 128 (its threads compete for the cores).
+LAPACK_ORDER = 64
 
 
 def cholesky(a: np.ndarray, *, tol: float = 0.0, ids=None, context: str | None = None) -> np.ndarray:
