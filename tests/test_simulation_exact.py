@@ -55,6 +55,11 @@ def test_prepared_moments_equal_simple_kriging():
     mean, var = _sklearn_simple_kriging(DATA_XY, DATA_Z, grid.coords())
     np.testing.assert_allclose(plan.mean, mean, atol=1e-9)
     np.testing.assert_allclose(plan.variance, var, atol=1e-9)
+    # and geosim's own kriging with a global neighbourhood gives the same moments
+    from geosim.kriging import krige
+    result = krige(DATA_XY, DATA_Z, grid.coords(), _model(), method="simple", neighbourhood="global")
+    np.testing.assert_allclose(plan.mean, result.estimate, atol=1e-9)
+    np.testing.assert_allclose(plan.variance, result.variance, atol=1e-9)
 
 
 def test_ensemble_mean_and_variance_match_simple_kriging():
@@ -107,6 +112,10 @@ def test_ordinary_kriging_option_matches_bordered_system():
     engine = ExactEngine()
     plan = engine.prepare(DATA_XY, shifted, model, grid, kriging="ordinary")
     mean, var = _ordinary_kriging(model, DATA_XY, shifted, grid.coords())
+    from geosim.kriging import krige
+    result = krige(DATA_XY, shifted, grid.coords(), model, method="ordinary", neighbourhood="global")
+    np.testing.assert_allclose(result.estimate, mean, atol=1e-9)
+    np.testing.assert_allclose(result.variance, var, atol=1e-9)
     r = 3000
     vals = np.array([engine.realize(plan, geosim.simulation.realization_rng(2, i))[grid.mask] for i in range(r)])
     assert np.all(np.abs(vals.mean(axis=0) - mean) <= Z * np.sqrt(var / r))
