@@ -23,6 +23,13 @@ Steps, in the order :func:`run` calls them:
                             plots and the JSON run report
 ==========================  =========================================================
 
+Output folders
+--------------
+A folder belongs to one run spec.  Every step that writes (``out_dir=...``) first
+checks the folder is new, empty, or holds a run of the same spec, and then
+replaces its own earlier outputs there; ``overwrite=True`` takes over a folder
+holding another spec's run or other files.
+
 Resume
 ------
 The output folder holds ``run-state/``: ``run.json`` (the spec's hashes, seed,
@@ -281,6 +288,14 @@ def _folder(out_dir) -> Path:
     return out_dir
 
 
+def _claim(spec: RunSpec, out_dir, overwrite: bool) -> Path:
+    """Create ``out_dir`` and check it belongs to this spec (see :func:`open_output`); the
+    step may then replace its own earlier outputs there."""
+    out_dir = _folder(out_dir)
+    open_output(spec, out_dir, overwrite=overwrite, resume=True)
+    return out_dir
+
+
 # -- variogram ---------------------------------------------------------------------------------
 
 @dataclass
@@ -363,14 +378,13 @@ def variogram_model(spec: RunSpec, data: PreparedData | None = None, *, out_dir:
         result = VariogramResult(fit.model_, experimental, fit, source="fitted")
     if out_dir is not None:
         from .variogram.modelfile import save_model
-        out_dir = _folder(out_dir)
-        result.files["model"] = [str(save_model(result.model, out_dir / "variogram_model.toml",
-                                                overwrite=overwrite))]
+        out_dir = _claim(spec, out_dir, overwrite)
+        result.files["model"] = [str(save_model(result.model, out_dir / "variogram_model.toml", overwrite=True))]
         if result.experimental and spec["outputs.plots"]:
             from .variogram.plots import plot_variogram
             result.files["variogram_plot"] = [str(plot_variogram(result.experimental, result.model,
                                                                  path=out_dir / "variogram.png",
-                                                                 overwrite=overwrite))]
+                                                                 overwrite=True))]
     return result
 
 
@@ -408,12 +422,12 @@ def cross_validate(spec: RunSpec, data: PreparedData | None = None, model=None, 
     cv = CrossValidation(result, result.summary())
     if out_dir is not None:
         from .io.crossval import plot_crossval, write_crossval_csv
-        out_dir = _folder(out_dir)
+        out_dir = _claim(spec, out_dir, overwrite)
         cv.files["cross_validation"] = [str(write_crossval_csv(result, out_dir / "cross_validation.csv",
-                                                               overwrite=overwrite))]
+                                                               overwrite=True))]
         if spec["outputs.plots"]:
             cv.files["cross_validation"].append(str(plot_crossval(result, out_dir / "cross_validation.png",
-                                                                  overwrite=overwrite)))
+                                                                  overwrite=True)))
     return cv
 
 
@@ -498,8 +512,8 @@ def estimate(spec: RunSpec, data: PreparedData | None = None, model=None, grid=N
         bands = np.stack([est.mean, np.sqrt(est.variance), est.scores_mean, est.scores_variance])
         descriptions = [(f"conditional mean{u}", units), (f"conditional standard deviation{u}", units),
                         ("kriged normal score", ""), ("kriging variance of the normal score", "")]
-        written = write_raster(_folder(out_dir) / "estimate.tif", bands, grid, descriptions=descriptions,
-                               tags=provenance_tags(spec, data, model), overwrite=overwrite)
+        written = write_raster(_claim(spec, out_dir, overwrite) / "estimate.tif", bands, grid,
+                               descriptions=descriptions, tags=provenance_tags(spec, data, model), overwrite=True)
         est.files["estimate"] = [str(p) for p in written]
     return est
 
@@ -882,7 +896,7 @@ def run(spec: RunSpec | str | os.PathLike, out_dir: str | os.PathLike, *, overwr
     grid = timed("grid and domain", make_grid, spec, data)
     # claim the folder (or fail on another run's) before anything is written into it
     open_output(spec, _folder(out_dir), overwrite=overwrite, resume=resume)
-    mine = dict(out_dir=out_dir, overwrite=True, progress=progress)
+    mine = dict(out_dir=out_dir, progress=progress)
     vg = timed("variogram", variogram_model, spec, data, **mine)
     files = dict(vg.files)
     extra: dict[str, Any] = {"variogram": {"model": str(vg.model), "source": vg.source}}
