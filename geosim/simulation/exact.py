@@ -36,7 +36,7 @@ class ExactPlan:
     free: np.ndarray          # active positions that are simulated (not on a datum)
     fixed: np.ndarray         # active positions on a datum
     fixed_scores: np.ndarray  # and their scores
-    rows: np.ndarray          # L[n:, :] (simple: L[n:, n:]) of the joint factor
+    rows: np.ndarray          # L[n:, :] (simple: L[n:, n:]) of the joint factor, a view (no copy)
     data_rows: np.ndarray     # L[:n, :n] (ordinary only, else empty)
     mean: np.ndarray          # simple-kriging mean L21 L11^-1 z at the free nodes (simple only)
     weights: np.ndarray       # (F, n) ordinary-kriging weights (ordinary only, else empty)
@@ -92,7 +92,7 @@ class ExactEngine:
         if ordinary and n == 0:
             raise InputError("ordinary kriging needs at least one datum", field="kriging",
                              fix="use kriging='simple' for an unconditional simulation")
-        c = model.cov_matrix(points)
+        c = model.cov_matrix(points, chunk=256)  # small chunks: lag temporaries stay ~100 MB
         c12 = c[:n, n:].copy() if ordinary else None
         factor = _lapack_cholesky(c, labels, n)
         active_flat = np.flatnonzero(grid.mask.ravel())
@@ -105,12 +105,12 @@ class ExactEngine:
             mu = (1.0 - sk.sum(axis=0)) / ones.sum()
             weights = (sk + np.outer(ones, mu)).T
             return ExactPlan(grid.shape, active_flat, free, fixed, scores[fixed_data],
-                             np.ascontiguousarray(factor[n:]), np.ascontiguousarray(l11), np.zeros(0),
+                             factor[n:], np.ascontiguousarray(l11), np.zeros(0),
                              np.ascontiguousarray(weights), scores, True)
         a = solve_triangular(factor[:n, :n], scores, lower=True) if n else np.zeros(0)
         mean = factor[n:, :n] @ a
         return ExactPlan(grid.shape, active_flat, free, fixed, scores[fixed_data],
-                         np.ascontiguousarray(factor[n:, n:]), empty, mean, empty, scores, False)
+                         factor[n:, n:], empty, mean, empty, scores, False)
 
     def realize(self, plan: ExactPlan, rng: np.random.Generator) -> np.ndarray:
         """One realization: normal scores of ``grid.shape``, NaN outside the mask."""

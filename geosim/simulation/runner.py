@@ -97,7 +97,9 @@ def simulate(data_coords, data_scores, model, grid, *, n_realizations: int, seed
         Simple kriging with mean 0 (the default for normal scores) or ordinary kriging.
     workers : int, optional
         Local processes; None uses ``os.cpu_count()`` when there is more than one
-        realization to compute, 1 runs in this process.
+        realization to compute, 1 runs in this process.  Workers are started with
+        "spawn", so a script that calls this with several workers needs the usual
+        ``if __name__ == "__main__":`` guard.
     client : dask.distributed.Client or str, optional
         Run on this Dask cluster (a client or a scheduler address) instead.
     sink : callable, optional
