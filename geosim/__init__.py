@@ -93,6 +93,10 @@ _LAZY = {
     "plot_histogram_reproduction": "geosim.io.plots",
     "plot_variogram_reproduction": "geosim.io.plots",
     "plot_decision_spread": "geosim.io.plots",
+    "RunSpec": "geosim.io.runspec",
+    "load_spec": "geosim.io.runspec",
+    "RunResult": "geosim.pipeline",
+    "run": "geosim.pipeline",
 }
 
 __all__ = ["CAUTION", "GeosimError", "GeosimWarning", "InputError", "NotPositiveDefiniteError",
