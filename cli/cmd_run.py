@@ -19,7 +19,8 @@ from .report import crossval_text, decision_text, files_text, seconds
 @overwrite_option
 @click.option("--no-resume", is_flag=True,
               help="Recompute every realization even if an interrupted run of this spec left some.")
-@click.option("--check", "check_only", is_flag=True, help="Validate the spec and read the inputs, then stop.")
+@click.option("--check", "check_only", is_flag=True,
+              help="Validate the spec and read the inputs and domain, then stop (as `geosim check`).")
 @click.pass_context
 def run(ctx, spec, out_dir, overrides, workers, cluster, overwrite, no_resume, check_only):
     """Read the data, fit the variogram, cross-validate, krige, simulate and summarize, as the
@@ -35,8 +36,10 @@ def run(ctx, spec, out_dir, overrides, workers, cluster, overwrite, no_resume, c
     progress = reporter(ctx)
     if check_only:
         data = geosim.pipeline.prepare_data(run_spec, progress)
-        table(geosim.pipeline.describe_spec(run_spec) + geosim.pipeline.describe_data(data),
-              title="run spec and inputs are valid; nothing was computed")
+        grid = geosim.pipeline.make_grid(run_spec, data)
+        rows = geosim.pipeline.describe_spec(run_spec) + geosim.pipeline.describe_data(data)
+        rows.append(("grid", " x ".join(map(str, grid.shape)) + f" nodes, {grid.n_active} inside the domain"))
+        table(rows, title="run spec and inputs are valid; nothing was computed")
         return
     start = time.perf_counter()
     result = geosim.pipeline.run(run_spec, out_dir, overwrite=overwrite, resume=not no_resume, progress=progress)
