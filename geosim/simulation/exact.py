@@ -21,6 +21,7 @@ from __future__ import annotations
 from dataclasses import dataclass
 
 import numpy as np
+from numba import njit
 
 from ..errors import InputError, NotPositiveDefiniteError
 from ..search import Neighbourhood
@@ -117,14 +118,42 @@ class ExactEngine:
         if plan.ordinary:
             n = plan.scores.shape[0]
             w = rng.standard_normal(plan.rows.shape[1])
-            u_data = plan.data_rows @ w[:n]
-            values = plan.rows @ w + plan.weights @ (plan.scores - u_data)
+            residual = plan.scores - matvec(plan.data_rows, w[:n])
+            values = matvec(plan.rows, w) + matvec(plan.weights, residual)
         else:
-            values = plan.mean + plan.rows @ rng.standard_normal(plan.rows.shape[1])
+            values = plan.mean + matvec(plan.rows, rng.standard_normal(plan.rows.shape[1]))
         out = np.full(int(np.prod(plan.shape)), np.nan)
         out[plan.active_flat[plan.free]] = values
         out[plan.active_flat[plan.fixed]] = plan.fixed_scores
         return out.reshape(plan.shape)
+
+
+def matvec(a: np.ndarray, x: np.ndarray) -> np.ndarray:
+    """``a @ x`` summed in a fixed order whatever the memory layout, BLAS or machine.
+
+    BLAS may sum in a different order for a strided view than for the contiguous copy a
+    worker unpickles, or on another CPU; realizations must be bit-identical everywhere.
+    """
+    out = np.zeros(a.shape[0])
+    _matvec(a, np.ascontiguousarray(x, dtype=np.float64), out, a.strides[0] <= a.strides[1])
+    return out
+
+
+@njit(cache=True, nogil=True)
+def _matvec(a, x, out, by_columns):
+    # both loop orders add a[i, 0] x[0], a[i, 1] x[1], ... to out[i] in the same sequence
+    m, n = a.shape
+    if by_columns:
+        for j in range(n):
+            xj = x[j]
+            for i in range(m):
+                out[i] += a[i, j] * xj
+    else:
+        for i in range(m):
+            acc = 0.0
+            for j in range(n):
+                acc += a[i, j] * x[j]
+            out[i] = acc
 
 
 def _lapack_cholesky(c: np.ndarray, labels: tuple, n: int) -> np.ndarray:
