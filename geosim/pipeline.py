@@ -61,10 +61,12 @@ from .io.runspec import RunSpec, canonical_json, load_spec
 
 Progress = Callable[[int, int, str], None]
 
-__all__ = ["PreparedData", "VariogramResult", "EstimateResult", "SimulationResult", "RunResult",
-           "TransformChain", "load_samples", "decluster", "fit_transform", "prepare_data", "make_grid",
-           "read_domain_geometry", "neighbourhood", "variogram_model", "cross_validate", "estimate",
-           "simulate", "summarize", "run", "describe_spec", "describe_data", "resume_key", "STATE_DIR"]
+__all__ = ["PreparedData", "VariogramResult", "CrossValidation", "EstimateResult", "SimulationResult",
+           "RunResult", "TransformChain", "RecordingSink", "load_samples", "decluster", "fit_transform",
+           "prepare_data", "make_grid", "read_domain_geometry", "neighbourhood", "experimental_variograms",
+           "variogram_model", "cross_validate", "multigaussian_moments", "estimate", "simulate", "summarize",
+           "run", "decision_spread", "provenance_tags", "open_output", "completed_realizations", "resume_key",
+           "describe_spec", "describe_data", "STATE_DIR"]
 
 STATE_DIR = "run-state"
 _STATE_FORMAT = 1
@@ -168,7 +170,7 @@ def load_samples(spec: RunSpec):
     return composite(holes, comp["length"], min_fraction=comp["min_fraction"], residual=comp["residual"])
 
 
-def decluster(spec: RunSpec, samples):
+def decluster(spec: RunSpec, samples, progress: Progress | None = None):
     """Cell declustering of the samples as the spec asks, or None for ``method = "none"``."""
     dc = spec["declustering"]
     if dc["method"] == "none" or len(samples) < 3:
@@ -177,7 +179,8 @@ def decluster(spec: RunSpec, samples):
     values = samples.column(spec["data.value"])
     sizes = None if dc["sizes"] is None else np.linspace(dc["sizes"][0], dc["sizes"][1], dc["count"])
     return cell_declustering(samples.coords, values, sizes=sizes, n_sizes=dc["count"],
-                             n_offsets=dc["offsets"], objective=dc["objective"])
+                             n_offsets=dc["offsets"], objective=dc["objective"],
+                             progress=_relabel(progress, "declustering sizes"))
 
 
 def fit_transform(spec: RunSpec, values: np.ndarray, weights: np.ndarray | None = None) -> TransformChain:
@@ -199,16 +202,14 @@ def fit_transform(spec: RunSpec, values: np.ndarray, weights: np.ndarray | None 
 def prepare_data(spec: RunSpec, progress: Progress | None = None) -> PreparedData:
     """Read, decluster and transform the samples (:func:`load_samples`, :func:`decluster`,
     :func:`fit_transform`)."""
-    samples = load_samples(spec)
     name = spec["data.value"]
-    if hasattr(samples, "complete"):
-        samples = samples.complete(name)
+    samples = load_samples(spec).complete(name)  # composites may lack the value over a gap
     values = samples.column(name)
     if len(values) < 3:
         raise InputError(f"only {len(values)} usable samples of {name!r}; simulation needs at least 3",
                          file=", ".join(samples.source) or None, field=name,
                          fix="check the value column and the composite settings")
-    dc = decluster(spec, samples)
+    dc = decluster(spec, samples, progress)
     weights = None if dc is None else np.asarray(dc.weights, dtype=float)
     transform = fit_transform(spec, values, weights)
     scores = transform.transform(values)
