@@ -6,10 +6,20 @@ import click
 from .common import load, reporter, set_option, spec_argument, table
 
 
+def _print_keys(ctx, param, value):
+    if not value or ctx.resilient_parsing:
+        return
+    import geosim.io.runspec
+    click.echo(geosim.io.runspec.reference())
+    ctx.exit(0)
+
+
 @click.command("check", short_help="Validate a run spec and its input files; compute nothing.")
 @spec_argument
 @set_option
 @click.option("--spec-only", is_flag=True, help="Check the spec file only; do not read the input tables.")
+@click.option("--keys", is_flag=True, is_eager=True, expose_value=False, callback=_print_keys,
+              help="Print every run-spec key with its expected form and default, and exit.")
 @click.pass_context
 def check(ctx, spec, overrides, spec_only):
     """Validate the run spec SPEC completely, listing every problem with its key path.
@@ -19,9 +29,9 @@ def check(ctx, spec, overrides, spec_only):
     run can start; 2 lists what to fix.
 
     A run spec has the sections [data], [declustering], [transform], [variogram],
-    [grid], [domain], [search], [simulation] and [outputs]; the README's Usage section
-    lists their keys, `python -m pydoc geosim.io.runspec` describes each, and the
-    sample fields' run.toml files are complete examples.
+    [grid], [domain], [search], [simulation] and [outputs]; `geosim check --keys`
+    lists every key with its expected form and default, and the sample fields'
+    run.toml files are complete examples.
     """
     import geosim.pipeline
 

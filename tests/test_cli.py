@@ -64,6 +64,12 @@ def test_help_lists_the_commands_loaded_through_entry_points():
     assert BUILT_IN <= listed
 
 
+def test_check_keys_prints_the_reference_without_a_spec():
+    result = invoke("check", "--keys")
+    assert result.exit_code == 0
+    assert "[simulation]" in result.stdout and "  seed  an integer >= 0" in result.stdout
+
+
 def test_unknown_command_suggests_the_closest():
     result = invoke("simulat")
     assert result.exit_code == 2

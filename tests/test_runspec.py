@@ -178,6 +178,18 @@ def test_spec_from_dict_validates_too(folder):
         spec_from_dict(values, folder)
 
 
+def test_reference_lists_every_key_with_its_form():
+    from geosim.io.runspec import SCHEMA, reference
+    text = reference()
+    for section, keys in SCHEMA.items():
+        assert f"[{section}]" in text
+        block = text.split(f"[{section}]", 1)[1].split("\n[", 1)[0]
+        for name in keys:
+            assert f"\n  {name}  " in block, (section, name)
+    assert '  realizations  an integer >= 1 and <= 100000 (required)' in text
+    assert '  engine  non-empty text (default "sequential")' in text
+
+
 def test_sample_field_specs_are_valid():
     from pathlib import Path
     root = Path(__file__).resolve().parent.parent / "sample_fields"

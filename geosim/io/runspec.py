@@ -8,39 +8,14 @@ validates it *completely* before any work starts: every problem is collected
 and reported at once in one :class:`~geosim.errors.SpecError`, each as
 ``key.path: expected ..., found ...``.
 
-Paths inside a spec are relative to the spec file's folder.  The layout,
-section by section (``*`` marks required keys)::
-
-    title = "free text"
-
-    [data]                      # point samples ...
-    points = "wells.csv"        #   a CSV of points; or, for drillholes:
-    collars = "collars.csv"     #   collar, survey and interval tables
-    surveys = "surveys.csv"     #   (optional: holes without surveys are vertical)
-    intervals = "assays.csv"
-    x = "lon"  y = "lat"  z = "elev"   # coordinate columns of a points file
-    id = "well_id"              # sample or hole identifier column (optional)
-    value = "k_ms"              # * the variable to model
-    crs = "EPSG:4326"           # * CRS of the coordinates (EPSG code, WKT, PROJ)
-    working_crs = "auto"        # projected CRS to work in; "auto" = UTM zone of the data
-    units = "m/s"               # units of the value, for rasters and reports
-    columns = {hole_id = "HOLE"}   # drillholes: rename default column names
-    [data.composites]           # drillholes: fixed-length compositing
-    length = 2.0  min_fraction = 0.5  residual = "merge" | "drop"
-
-    [declustering]  method = "cells" | "none", sizes = [min, max], count, offsets, objective = "min" | "max"
-    [transform]     log = false, lower = .., upper = .., upper_tail = "linear" | "hyperbolic", tail_power = ..
-    [variogram]     fit = true, structures = [{kind, sill, ranges, azimuth, dip, rake, ...}, ...] or
-                    model_file = "model.toml"; lag, lag_count, directions = [{azimuth, dip, tolerance,
-                    bandwidth}], weighting = "cressie" | "pairs"
-    [grid]          * cell = [dx, dy] or [dx, dy, dz]; bounds = [xmin, ymin, xmax, ymax]; z_range = [lo, hi];
-                    padding = 0.0
-    [domain]        polygon = "domain.geojson"  or  raster = "mask.tif"
-    [search]        max_samples, min_samples, max_nodes, sectors, max_per_sector, max_per_hole
-    [simulation]    engine = "sequential", * realizations, * seed, kriging = "simple" | "ordinary",
-                    workers = N, cluster = "tcp://host:port"
-    [outputs]       cutoffs = [...], above = true, density, thickness, keep_realizations, plots,
-                    cross_validation, estimate
+Paths inside a spec are relative to the spec file's folder.  The sections are
+``[data]`` (points, or drillhole collars/surveys/intervals with
+``[data.composites]``), ``[declustering]``, ``[transform]``, ``[variogram]``,
+``[grid]``, ``[domain]``, ``[search]``, ``[simulation]`` and ``[outputs]``;
+:func:`reference` lists every key with its expected form and default (the
+command line prints it with ``geosim check --keys``), generated from
+:data:`SCHEMA` so it is always current.  The sample fields' ``run.toml`` files
+are complete examples.
 
 Examples
 --------
@@ -83,7 +58,7 @@ from typing import Any
 
 from ..errors import SpecError
 
-__all__ = ["RunSpec", "load_spec", "spec_from_dict", "parse_overrides", "SCHEMA", "EXECUTION_KEYS"]
+__all__ = ["RunSpec", "load_spec", "spec_from_dict", "parse_overrides", "reference", "SCHEMA", "EXECUTION_KEYS"]
 
 # Keys that change how a run executes but not what it computes; they are left out
 # of the spec hash so that a run resumed with more workers keeps its realizations.
@@ -272,7 +247,7 @@ SCHEMA: dict[str, dict[str, Key]] = {
     "variogram.directions": {
         "azimuth": Key(_number(-360.0, 360.0), default=0.0),
         "dip": Key(_number(-90.0, 90.0), default=0.0),
-        "tolerance": Key(_number(0.0, 90.0), default=22.5, help="angular tolerance in degrees"),
+        "tolerance": Key(_number(0.0, 90.0, lo_open=True), default=22.5, help="angular tolerance in degrees"),
         "bandwidth": Key(_number(0.0, lo_open=True), help="largest distance off the direction line"),
     },
     "grid": {
@@ -315,6 +290,38 @@ SCHEMA: dict[str, dict[str, Key]] = {
 TOP_LEVEL = {"title": Key(_text, default="")}
 SUBTABLES = {"data": ("composites",)}
 TABLE_LISTS = {"variogram": ("structures", "directions")}
+
+
+def reference() -> str:
+    """Every run-spec key, section by section, with its expected form and default.
+
+    Examples
+    --------
+    >>> import geosim.io.runspec
+    >>> print(geosim.io.runspec.reference().splitlines()[1])
+      title  non-empty text (default "")
+    """
+    lines = ["(top level)"]
+    for k, key in TOP_LEVEL.items():
+        lines.append(_reference_line(k, key))
+    for section, keys in SCHEMA.items():
+        kind = "list of tables" if section.split(".")[-1] in {t for v in TABLE_LISTS.values() for t in v} else "table"
+        lines.append(f"[{section}]" + (f" ({kind}: [[{section}]] or {section.split('.')[-1]} = [{{...}}])"
+                                       if kind != "table" else ""))
+        lines += [_reference_line(k, key) for k, key in keys.items()]
+    return "\n".join(lines)
+
+
+def _reference_line(name: str, key: Key) -> str:
+    _, expected = key.check(object())
+    if key.required:
+        tail = "required"
+    elif key.default is None or key.default == {} or key.default == []:
+        tail = "optional"
+    else:
+        tail = "default " + json.dumps(key.default)
+    text = f"  {name}  {expected} ({tail})"
+    return text + (f": {key.help}" if key.help else "")
 
 
 @dataclass(frozen=True)
