@@ -24,12 +24,9 @@ def variogram(ctx, spec, out_dir, overrides, overwrite):
     run_spec = load(ctx, spec, overrides)
     result = geosim.pipeline.variogram_model(run_spec, out_dir=out_dir, overwrite=overwrite,
                                              progress=reporter(ctx))
-    rows = []
     for ev in result.experimental:
-        pairs = ", ".join(f"{lag:.0f} m: {g:.3f} ({n})" for lag, g, n in zip(ev.lags, ev.gamma, ev.npairs) if n)
-        rows.append((ev.label, pairs))
-    if rows:
-        table(rows, title="experimental semivariograms of the normal scores (lag: gamma (pairs))")
+        table([(f"{lag:.0f} m", f"{g:.3f}  ({n} pairs)") for lag, g, n in zip(ev.lags, ev.gamma, ev.npairs) if n],
+              title=f"experimental semivariogram of the normal scores, {ev.label} (mean lag: gamma)")
     rows = [("model", str(result.model).strip()), ("source", result.source)]
     if result.fit is not None:
         rows.append(("fit RMSE", f"{result.fit.rmse_:.4g} over {result.fit.nbins_} bins"))
