@@ -69,6 +69,8 @@ __all__ = ["PreparedData", "VariogramResult", "CrossValidation", "EstimateResult
            "describe_spec", "describe_data", "STATE_DIR"]
 
 STATE_DIR = "run-state"
+# a guard against a mistyped cell size (one realization of 2e8 float64 nodes is 1.6 GB)
+MAX_NODES = 200_000_000
 _STATE_FORMAT = 1
 # keys a resumed run may change: realization i depends only on the seed and i
 _RESUMABLE_CHANGES = ("simulation.realizations",)
@@ -254,6 +256,11 @@ def make_grid(spec: RunSpec, data: PreparedData | None = None):
         else:
             raise InputError("a 3-D grid needs z_range = [bottom, top] for 2-D samples", file=spec.name,
                              field="grid.z_range", fix="give grid.z_range or a 2-D cell [dx, dy]")
+    extent = [bounds[2] - bounds[0], bounds[3] - bounds[1]] + ([zrange[1] - zrange[0]] if zrange else [])
+    nodes = math.prod(math.ceil((e + 2 * g["padding"]) / c) for e, c in zip(extent, g["cell"]))
+    if nodes > MAX_NODES:
+        raise InputError(f"the grid would have {nodes:.3g} nodes (more than {MAX_NODES:.0e})", file=spec.name,
+                         field="grid.cell", fix="choose larger cells or smaller grid.bounds")
     grid = Grid.covering(bounds, g["cell"], crs=data.crs, zrange=zrange, pad=g["padding"])
     if geometry is not None:
         grid = grid.clip_to_polygon(geometry)

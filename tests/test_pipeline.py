@@ -67,6 +67,12 @@ def test_prepared_data_is_metric_declustered_and_standard_normal(prepared):
     assert grid.ndim == 2 and 0 < grid.n_active < grid.size  # clipped to the valley polygon
 
 
+def test_a_mistyped_cell_size_is_refused_before_allocating(prepared):
+    data, _, _ = prepared
+    with pytest.raises(InputError, match=r"grid.cell.*9\.6\de\+08 nodes"):
+        pipeline.make_grid(small_spec("grid.cell=[0.2, 0.2]"), data)
+
+
 def realization_values(out_dir, grid, n):
     return [read_realization([Path(out_dir) / "realizations" / f"r{i:04d}.tif"], grid) for i in range(n)]
 
