@@ -42,6 +42,7 @@ class ProgressReporter:
         self.width = width
         self._what = None
         self._start = 0.0
+        self._first = 0
         self._last_draw = 0.0
         self._open_line = False
 
@@ -51,7 +52,7 @@ class ProgressReporter:
         now = time.monotonic()
         if what != self._what:
             self._close_line()
-            self._what, self._start, self._last_draw = what, now, 0.0
+            self._what, self._start, self._last_draw, self._first = what, now, 0.0, done
         finished = total > 0 and done >= total
         if self.interactive:
             if finished or now - self._last_draw >= 0.1:
@@ -81,7 +82,9 @@ class ProgressReporter:
             frac = min(max(done / total, 0.0), 1.0)
             filled = int(round(frac * self.width))
             bar = "#" * filled + "." * (self.width - filled)
-            eta = f" eta {_clock(elapsed * (1 - frac) / frac)}" if 0 < frac < 1 else ""
+            # the rate since the first report: work done before it took unknown time
+            rate = (done - self._first) / elapsed if elapsed > 0 else 0.0
+            eta = f" eta {_clock((total - done) / rate)}" if rate > 0 and done < total else ""
             text = f"{self._what:<16} [{bar}] {done}/{total} {_clock(elapsed)}{eta}"
         else:
             text = f"{self._what:<16} {done} {_clock(elapsed)}"
