@@ -86,7 +86,8 @@ class SequentialEngine:
         A Cholesky pivot ``<= pivot_tol * sill`` counts as failure (default 1e-10).
 
     ``neighbourhood.min_samples`` does not apply: simulation draws every node, with or
-    without data nearby.
+    without data nearby.  With ``kriging="ordinary"`` a node with no conditioning point
+    at all is drawn from N(0, sill), as simple kriging would.
 
     Examples
     --------
