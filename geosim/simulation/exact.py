@@ -55,7 +55,8 @@ class ExactEngine:
 
     Options: ``max_size`` (largest ``n + N`` accepted, default 16,000), ``sample_ids``
     (labels of the data rows for error messages).  The neighbourhood is ignored: every
-    datum conditions every node.
+    datum conditions every node (so ``hole_ids`` is accepted, as by the sequential
+    engine, and has no effect).
 
     Examples
     --------
@@ -73,7 +74,7 @@ class ExactEngine:
     name = "exact"
 
     def prepare(self, data_coords, data_scores, model, grid, *, neighbourhood: Neighbourhood | None = None,
-                kriging: str = "simple", max_size: int = 16_000, sample_ids=None) -> ExactPlan:
+                kriging: str = "simple", max_size: int = 16_000, sample_ids=None, hole_ids=None) -> ExactPlan:
         """Factor the joint covariance of data and active nodes once."""
         from scipy.linalg import solve_triangular
         coords3, scores, _, ordinary, model = check_inputs(data_coords, data_scores, model, grid,
