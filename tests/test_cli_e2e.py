@@ -28,7 +28,10 @@ ORE = SAMPLES / "ore_prospect" / "run.toml"
 # 60 realizations on a 100 m grid: a few seconds of simulation, long enough to kill a run midway
 AQUIFER_SMALL = ["--set", "grid.cell=[100.0, 100.0]", "--set", "simulation.realizations=60",
                  "--set", "outputs.plots=false", "--set", "simulation.workers=1"]
-GEOSIM = [sys.executable, "-c", "import sys; from geosim_cli.main import main; sys.exit(main())"]
+# the installed console script beside this interpreter; the same entry point through -c otherwise
+_SCRIPT = Path(sys.executable).with_name("geosim")
+GEOSIM = [str(_SCRIPT)] if _SCRIPT.is_file() else [
+    sys.executable, "-c", "import sys; from geosim_cli.main import main; sys.exit(main())"]
 
 
 def geosim_cmd(*args, **kwargs):
