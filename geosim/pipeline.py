@@ -743,12 +743,14 @@ def simulate(spec: RunSpec, data: PreparedData | None = None, model=None, grid=N
     writer = _writer(spec, data, model, grid, out_dir)
     sink = RecordingSink(writer, out_dir / STATE_DIR, header["resume_key"], header["seed"])
     sim = spec["simulation"]
+    # hole ids only when the search limits samples per hole: a plugin engine need not take them
+    options = {"hole_ids": data.samples.hole_ids} if spec["search.max_per_hole"] else {}
     records = dict(kept)
     if missing:
         new = run_engine(data.coords, data.scores, model, grid, n_realizations=n, seed=sim["seed"],
                          engine=sim["engine"], neighbourhood=neighbourhood(spec), kriging=sim["kriging"],
                          workers=sim["workers"], client=sim["cluster"], sink=sink, indices=missing,
-                         progress=progress)
+                         progress=progress, **options)
         records.update(zip(missing, new))
     elif progress is not None:
         progress(n, n, "realizations")

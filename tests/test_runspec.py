@@ -117,13 +117,10 @@ def test_drillholes_need_intervals_composites_and_a_3d_cell(folder):
     assert any(p.startswith("grid.cell: expected [dx, dy, dz] for drillhole data") for p in problems)
 
 
-def test_unknown_engine_and_sequential_search_limits(folder):
-    text = MINIMAL.replace("seed = 11", 'seed = 11\nengine = "fastest"') + "[search]\nmax_per_hole = 3\n"
+def test_unknown_engine(folder):
+    text = MINIMAL.replace("seed = 11", 'seed = 11\nengine = "fastest"')
     problems = problems_of(write(folder, text))
     assert any(p.startswith("simulation.engine: expected one of") and "sequential" in p for p in problems)
-    spec_text = MINIMAL + "[search]\nmax_per_hole = 3\n"
-    assert any(p.startswith("search.max_per_hole: the sequential engine") for p in problems_of(
-        write(folder, spec_text)))
 
 
 def test_overrides_are_validated_like_the_file(folder):

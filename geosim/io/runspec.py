@@ -660,12 +660,6 @@ def _check_combinations(spec: dict, problems: list[str]) -> None:
     engines = _installed("engines")
     if sim["engine"] is not None and engines is not None and sim["engine"] not in engines:
         problems.append(f"simulation.engine: expected one of {', '.join(engines)}, found {sim['engine']!r}")
-    if sim["engine"] == "sequential":
-        # known before any work starts: the sequential engine refuses these (geosim.simulation)
-        for key in ("sectors", "max_per_sector", "max_per_hole"):
-            if search[key]:
-                problems.append(f"search.{key}: the sequential engine does not apply sectors or per-hole "
-                                f"limits, expected it left out, found {search[key]!r}")
     if sim["workers"] is not None and sim["cluster"] is not None:
         problems.append("simulation: expected workers or cluster, found both")
 
