@@ -152,11 +152,6 @@ def _warning_printer(session: Session):
     return show
 
 
-def _version() -> str:
-    import geosim
-    return geosim.__version__
-
-
 @click.group("geosim", cls=EntryPointGroup, context_settings={"help_option_names": ["-h", "--help"]})
 @click.option("--debug", is_flag=True, help="Show tracebacks of errors.")
 @click.option("-q", "--quiet", is_flag=True, help="No progress bars or step lines; errors and the caution only.")
@@ -185,7 +180,7 @@ def main(argv: list[str] | None = None) -> int:
         return EXIT_INTERRUPTED
     except click.ClickException as exc:
         exc.show()
-        return EXIT_INPUT if exc.exit_code == 2 else exc.exit_code
+        return exc.exit_code  # usage errors are 2, the code of bad input
     return result if isinstance(result, int) else EXIT_OK
 
 
