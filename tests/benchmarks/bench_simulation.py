@@ -150,27 +150,19 @@ def rss_ratio():
 
 
 def two_worker_speedup(n_real=16, shape=(600, 600)):
-    """Wall time of a 1-process and a 2-process pool on the same realizations (start-up included).
-
-    Also returns the pools' CPU seconds (children's rusage) per wall second: about 2 for the
-    2-process pool on an idle machine, less when other jobs hold a core.
-    """
-    import resource
+    """Wall time of a 1-process and a 2-process pool on the same realizations (start-up included)."""
     grid = geosim.Grid(0.0, 0.0, (CELL, CELL), shape)
     xy, z = _data(grid, 500)
     engine = resolve_engine("sequential")
     plan = engine.prepare(xy, z, MODEL, grid, neighbourhood=_nb(16))
-    times, busy = {}, {}
+    times = {}
     with tempfile.TemporaryDirectory() as tmp:
         sink = DropToDisk(tmp)
         for workers in (1, 2):
-            before = resource.getrusage(resource.RUSAGE_CHILDREN)
             t = time.perf_counter()
             _run_pool(workers, engine, plan, sink, 5, list(range(n_real)), None)
             times[workers] = time.perf_counter() - t
-            after = resource.getrusage(resource.RUSAGE_CHILDREN)
-            busy[workers] = (after.ru_utime + after.ru_stime - before.ru_utime - before.ru_stime) / times[workers]
-    return times[1] / times[2], times, busy
+    return times[1] / times[2], times
 
 
 def _spin(n):
@@ -223,9 +215,8 @@ def main(quick=False):
     else:
         capacity = machine_two_process_speedup()
         print(f"machine right now: two CPU-bound processes run {capacity:.2f} times as fast as one")
-        speedup, times, busy = two_worker_speedup()
-        print(f"pool of 1: {times[1]:.2f} s, pool of 2: {times[2]:.2f} s, speed-up {speedup:.2f} "
-              f"(CPU seconds per wall second: {busy[1]:.2f} and {busy[2]:.2f})")
+        speedup, times = two_worker_speedup()
+        print(f"pool of 1: {times[1]:.2f} s, pool of 2: {times[2]:.2f} s, speed-up {speedup:.2f}")
         ratio, peaks = rss_ratio()
         print(f"peak RSS 5 realizations {peaks[5] / 1024:.1f} MiB, 20 realizations {peaks[20] / 1024:.1f} MiB")
     print(f"cpu count {os.cpu_count()}, load average {os.getloadavg()[0]:.2f} (shared machine)")
