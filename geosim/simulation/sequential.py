@@ -18,8 +18,8 @@ The second form is the ordinary kriging system solved by elimination of the Lagr
 multiplier (e.g. Chiles and Delfiner 2012, Geostatistics: Modeling Spatial
 Uncertainty, 2nd ed., section 3.4, from memory).
 
-Reference for the algorithm: Deutsch and Journel 1998, GSLIB (2nd ed.), section V.2.3
-on sequential Gaussian simulation (the method, not the program).
+Reference for the algorithm: Chiles and Delfiner 2012, section 7.3 on sequential
+simulation (from memory); multi-grid paths are common practice, no source.
 """
 from __future__ import annotations
 
