@@ -163,13 +163,38 @@ def load_samples(spec: RunSpec):
         from .points import read_points
         return read_points(spec.resolve(d["points"]), x=d["x"], y=d["y"], z=d["z"], values=d["value"],
                            hole=d["id"], crs=d["crs"], target_crs=target)
-    from .drillholes import composite, read_drillholes
-    holes = read_drillholes(spec.resolve(d["collars"]),
-                            None if d["surveys"] is None else spec.resolve(d["surveys"]),
-                            spec.resolve(d["intervals"]), values=d["value"], crs=d["crs"], target_crs=target,
-                            columns=d["columns"] or None)
+    from .drillholes import composite
     comp = d["composites"]
-    return composite(holes, comp["length"], min_fraction=comp["min_fraction"], residual=comp["residual"])
+    return composite(read_holes(spec), comp["length"], min_fraction=comp["min_fraction"],
+                     residual=comp["residual"])
+
+
+def read_holes(spec: RunSpec):
+    """The drillhole tables the spec names (:class:`geosim.drillholes.Drillholes`), in metres."""
+    from .drillholes import read_drillholes
+    d = spec["data"]
+    target = None if d["working_crs"] == "auto" else d["working_crs"]
+    return read_drillholes(spec.resolve(d["collars"]),
+                           None if d["surveys"] is None else spec.resolve(d["surveys"]),
+                           spec.resolve(d["intervals"]), values=d["value"], crs=d["crs"], target_crs=target,
+                           columns=d["columns"] or None)
+
+
+def below_surface(grid, points: np.ndarray) -> np.ndarray:
+    """Mask of the 3-D ``grid`` nodes below the surface through ``points`` (x, y, z).
+
+    The surface is linear between the points (Delaunay triangles) and takes the nearest
+    point's elevation outside their hull: a ground surface through drillhole collars.
+    """
+    from scipy.interpolate import LinearNDInterpolator, NearestNDInterpolator
+    z, y, x = grid.axes()
+    xx, yy = np.meshgrid(x, y)
+    xy = np.column_stack([xx.ravel(), yy.ravel()])
+    top = LinearNDInterpolator(points[:, :2], points[:, 2])(xy)
+    outside = np.isnan(top)
+    if outside.any():
+        top[outside] = NearestNDInterpolator(points[:, :2], points[:, 2])(xy[outside])
+    return z[:, None, None] <= top.reshape(grid.ny, grid.nx)[None, :, :]
 
 
 def decluster(spec: RunSpec, samples, progress: Progress | None = None):
@@ -268,6 +293,8 @@ def make_grid(spec: RunSpec, data: PreparedData | None = None):
         from .domain import read_domain_raster
         mask = read_domain_raster(spec.resolve(spec["domain.raster"]), grid)
         grid = grid.with_mask(grid.mask & np.broadcast_to(mask, grid.shape))
+    if spec["domain.below_collars"] and grid.ndim == 3:
+        grid = grid.with_mask(grid.mask & below_surface(grid, read_holes(spec).collars))
     if grid.n_active == 0:
         raise InputError("no grid node falls inside the domain", file=spec.name, field="domain",
                          fix="check the domain file, its CRS and grid.bounds")

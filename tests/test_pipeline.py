@@ -159,3 +159,32 @@ def test_estimate_is_consistent_with_its_normal_scores(prepared):
     lo, hi = data.transform.inverse(np.array([-8.0, 8.0]))
     assert np.all((est.mean[inside] > lo) & (est.mean[inside] < hi))
     assert np.all(est.scores_variance[inside] <= model.sill + 1e-9)
+
+
+ORE = AQUIFER.parent.parent / "ore_prospect" / "run.toml"
+
+
+def test_below_collars_keeps_only_nodes_under_the_ground_surface():
+    spec = load_spec(ORE, ["grid.cell=[40.0, 40.0, 10.0]", "domain.below_collars=true"])
+    grid = pipeline.make_grid(spec, pipeline.prepare_data(spec))
+    open_top = pipeline.make_grid(load_spec(ORE, ["grid.cell=[40.0, 40.0, 10.0]", "domain.below_collars=false"]))
+    collars = pipeline.read_holes(spec).collars
+    z = grid.coords()[:, 2]
+    # no kept node is above the highest collar; every node below the lowest collar is kept
+    assert z.max() <= collars[:, 2].max()
+    low = open_top.coords()[:, 2] <= collars[:, 2].min()
+    assert grid.mask[open_top.mask].sum() >= low.sum() > 0
+    assert grid.n_active < open_top.n_active
+    # at a collar's column the surface passes through the collar: the node just above it is cut
+    zc, yc, xc = grid.axes()
+    x0, y0, z0 = collars[0]
+    j, i = np.argmin(abs(xc - x0)), np.argmin(abs(yc - y0))
+    above, below = zc > z0 + 0.6 * grid.cell[2], zc < z0 - 0.6 * grid.cell[2]
+    inside = open_top.mask[:, i, j]
+    if inside.any():
+        assert not grid.mask[above & inside, i, j].any() and grid.mask[below & inside, i, j].all()
+
+
+def test_below_collars_is_refused_for_point_data():
+    with pytest.raises(geosim.SpecError, match="domain.below_collars"):
+        small_spec("domain.below_collars=true")

@@ -186,6 +186,10 @@ class Key:
 
 # section -> key -> Key.  Nested tables (data.composites) and lists of tables
 # (variogram.structures, variogram.directions) are described by their own entries.
+# the keys whose values name input files (checked to exist, hashed into the provenance)
+INPUT_FILE_KEYS = (("data", ("points", "collars", "surveys", "intervals")),
+                   ("variogram", ("model_file",)), ("domain", ("polygon", "raster")))
+
 SCHEMA: dict[str, dict[str, Key]] = {
     "data": {
         "points": Key(_path, help="CSV file of point samples"),
@@ -259,6 +263,8 @@ SCHEMA: dict[str, dict[str, Key]] = {
     "domain": {
         "polygon": Key(_path, help="GeoJSON outline"),
         "raster": Key(_path, help="raster mask, nonzero inside"),
+        "below_collars": Key(_bool, default=False,
+                             help="3-D drillholes: keep only nodes below the ground surface through the collars"),
     },
     "search": {
         "max_samples": Key(_int(1, 256), default=16),
@@ -374,8 +380,7 @@ class RunSpec:
     def input_files(self) -> dict[str, Path]:
         """Every input file the spec names, by dotted key."""
         out = {}
-        for section, keys in (("data", ("points", "collars", "surveys", "intervals")),
-                              ("variogram", ("model_file",)), ("domain", ("polygon", "raster"))):
+        for section, keys in INPUT_FILE_KEYS:
             for key in keys:
                 value = self.values[section].get(key)
                 if value is not None:
@@ -621,6 +626,9 @@ def _check_combinations(spec: dict, problems: list[str]) -> None:
                         f"found {b}")
     if spec["domain"]["polygon"] is not None and spec["domain"]["raster"] is not None:
         problems.append("domain: expected polygon or raster, found both")
+    if spec["domain"]["below_collars"] and data["collars"] is None:
+        problems.append("domain.below_collars: only for drillhole data (it needs collar elevations), "
+                        "found it beside data.points")
     if decl["method"] == "none" and decl["sizes"] is not None:
         problems.append('declustering.sizes: only with method = "cells", found it with method = "none"')
 
@@ -681,8 +689,7 @@ def _installed(group: str) -> list[str] | None:
 
 
 def _check_files(spec: dict, base: Path, problems: list[str]) -> None:
-    for section, keys in (("data", ("points", "collars", "surveys", "intervals")),
-                          ("variogram", ("model_file",)), ("domain", ("polygon", "raster"))):
+    for section, keys in INPUT_FILE_KEYS:
         for key in keys:
             value = spec[section].get(key)
             if value is None:
