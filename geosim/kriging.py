@@ -34,7 +34,7 @@ import numpy as np
 from numba import njit
 
 from .errors import GeosimWarning, InputError, NotPositiveDefiniteError
-from .linalg import backward_t_inplace, chol_inplace, forward_inplace
+from .linalg import PANEL, backward_t_inplace, chol_inplace, forward_inplace
 from .search import DataSearch, Neighbourhood, as_xyz, exclusion_arrays, select_neighbours
 from .variogram.compiled import cov_lag
 
@@ -300,7 +300,7 @@ def _krige_rows(rows, cand, xyz, frame, z, holes, txyz, tframe, excl_index, excl
     """Select, build, factor and solve for each target in ``rows``; -1 or the failing row position."""
     k = max_samples
     a = np.empty((k, k))
-    work = np.empty(k)
+    work = np.empty(PANEL * k)
     c = np.empty(k)
     y1 = np.empty(k)
     sel = np.empty(k, dtype=np.int64)

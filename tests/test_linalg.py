@@ -20,7 +20,7 @@ def test_cholesky_matches_scipy(n):
     a = _spd(n, seed=n)
     ref = scipy.linalg.cholesky(a, lower=True)
     buf = a.copy()
-    assert gl.chol_inplace(buf, n, np.empty(n), 0.0) == -1
+    assert gl.chol_inplace(buf, n, np.empty(4 * n), 0.0) == -1
     for ours in (np.tril(buf), gl.cholesky(a)):
         assert np.allclose(ours, ref, rtol=1e-12, atol=1e-12 * np.abs(ref).max())
         assert np.array_equal(np.triu(ours, 1), np.zeros((n, n)))
@@ -30,7 +30,7 @@ def test_chol_inplace_on_larger_buffer_leaves_rest_alone():
     a = _spd(6, seed=3)
     buf = np.full((9, 9), 7.0)
     buf[:6, :6] = a
-    k = gl.chol_inplace(buf, 6, np.empty(9), 0.0)
+    k = gl.chol_inplace(buf, 6, np.empty(36), 0.0)
     assert k == -1
     assert np.allclose(np.tril(buf[:6, :6]), scipy.linalg.cholesky(a, lower=True), rtol=1e-12)
     assert np.all(buf[6:, :] == 7.0) and np.all(buf[:, 6:] == 7.0)
@@ -62,7 +62,7 @@ def test_indefinite_matrix_raises_with_pivot_and_id(n):
     assert err.value.pivot == 4
     assert err.value.value == pytest.approx(1.0 - 4.0)
     assert "S4" in str(err.value) and "unit test" in str(err.value)
-    assert gl.chol_inplace(a.copy(), n, np.empty(n), 0.0) == 4
+    assert gl.chol_inplace(a.copy(), n, np.empty(4 * n), 0.0) == 4
 
 
 def test_singular_and_nan_are_failures():
@@ -72,13 +72,13 @@ def test_singular_and_nan_are_failures():
     assert err.value.pivot == 1
     bad = np.eye(3)
     bad[2, 2] = np.nan
-    assert gl.chol_inplace(bad, 3, np.empty(3), 0.0) == 2
+    assert gl.chol_inplace(bad, 3, np.empty(12), 0.0) == 2
 
 
 def test_tolerance_rejects_tiny_pivots():
     a = np.array([[1.0, 1.0 - 1e-14], [1.0 - 1e-14, 1.0]])
-    assert gl.chol_inplace(a.copy(), 2, np.empty(2), 0.0) == -1
-    assert gl.chol_inplace(a.copy(), 2, np.empty(2), 1e-10) == 1
+    assert gl.chol_inplace(a.copy(), 2, np.empty(8), 0.0) == -1
+    assert gl.chol_inplace(a.copy(), 2, np.empty(8), 1e-10) == 1
 
 
 @pytest.mark.parametrize("n", [5, gl.LAPACK_ORDER + 8])
@@ -89,3 +89,18 @@ def test_public_cholesky_applies_tolerance_in_both_branches(n):
     with pytest.raises(NotPositiveDefiniteError) as err:
         gl.cholesky(a, tol=1e-10)
     assert err.value.pivot == 3 and 0.0 < err.value.value < 1e-10
+
+
+@pytest.mark.parametrize("n", [1, 3, 4, 5, 8, 9, 16, 31])
+def test_panel_edges_match_scipy(n):
+    # orders around the four-column panels (a last panel of 1 to 4 columns), against scipy
+    a = _spd(n, seed=100 + n)
+    buf = a.copy()
+    assert gl.chol_inplace(buf, n, np.empty(gl.PANEL * n), 0.0) == -1
+    ref = scipy.linalg.cholesky(a, lower=True)
+    assert np.allclose(np.tril(buf), ref, rtol=1e-12, atol=1e-12 * np.abs(ref).max())
+
+
+def test_short_work_buffer_is_refused():
+    with pytest.raises(ValueError, match="work"):
+        gl.chol_inplace(np.eye(4), 4, np.empty(4), 0.0)

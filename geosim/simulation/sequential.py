@@ -30,7 +30,7 @@ import numpy as np
 from numba import njit
 
 from ..errors import InputError, NotPositiveDefiniteError
-from ..linalg import chol_inplace, forward_inplace
+from ..linalg import PANEL, chol_inplace, forward_inplace
 from ..search import DataSearch, Neighbourhood, search_ellipsoid
 from ..variogram.compiled import cov_lag
 from .paths import covariance_table, grid_axes, node_template, offset_lags, path_levels, random_path
@@ -225,7 +225,7 @@ def _sgs_kernel(field, active_flat, path, normals, shape3, origin, step, offsets
     rhs = np.empty(kmax)
     zv = np.empty(kmax)
     uv = np.empty(kmax)
-    work = np.empty(kmax)
+    work = np.empty(PANEL * kmax)
     rel = np.empty((kmax, 3))  # conditioning points relative to the node being simulated
     lin = np.empty(kmax, dtype=np.int64)
     use_data_cov = data_cov.shape[0] > 0

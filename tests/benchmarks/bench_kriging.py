@@ -24,7 +24,7 @@ from numba import njit
 
 import geosim
 from geosim.kriging import krige
-from geosim.linalg import chol_inplace
+from geosim.linalg import PANEL, chol_inplace
 from geosim.search import DataSearch, Neighbourhood
 
 
@@ -60,7 +60,7 @@ def _cholesky_table(orders=(16, 32, 64, 128, 256)) -> None:
     for n in orders:
         x = rng.normal(size=(n, n))
         a = x @ x.T + n * np.eye(n)
-        buf, work = np.empty_like(a), np.empty(n)
+        buf, work = np.empty_like(a), np.empty(PANEL * n)
         reps = max(20, 2_000_000 // (n * n))
         _factor_many(a, buf, work, 1)
         t0 = time.perf_counter()
