@@ -860,7 +860,8 @@ def _summary_plots(spec: RunSpec, data: PreparedData, model, grid, out_dir: Path
     with rasterio.open(level_paths(out_dir / "summary.tif", grid)[k]) as src:
         summary = dict(zip(summary_band_names(spec["outputs.cutoffs"]), src.read().astype(float)))
     prefix = "" if grid.ndim == 2 else f"z{k:03d}_"
-    written = list(plots.plot_summary_maps(summary, g2, out_dir, units=units, prefix=prefix, overwrite=True))
+    written = list(plots.plot_summary_maps(summary, g2, out_dir, units=units, prefix=prefix,
+                                           log=spec["transform.log"], overwrite=True))
     quantiles = [r["checks"]["quantiles"] for r in records if r.get("checks") and "quantiles" in r["checks"]]
     if quantiles:
         written.append(plots.plot_histogram_reproduction(

@@ -61,6 +61,22 @@ def test_cells_outside_the_domain_are_not_painted(tmp_path):
     assert 0.4 < counts[1] / counts[0] < 0.6
 
 
+def test_log_colours_spread_a_log_normal_field(tmp_path):
+    # conductivity-like field: 1e-7 on the west half, 1e-6 on the east half and one cell of 1e-3.
+    # On a linear scale both halves sit at the bottom colour; on a log scale (1e-7 to 1e-3,
+    # four decades) the east half sits a quarter of the way up the colour map.
+    g = _grid()
+    k = np.where(np.arange(g.nx) < 30, 1e-7, 1e-6)[None, :].repeat(g.ny, axis=0)
+    k[0, 0] = 1e-3
+    quarter = np.array(matplotlib.colormaps["viridis"](0.25)[:3])
+    counts = {}
+    for log in (False, True):
+        img = imread(plot_map(k, g, tmp_path / f"k{log}.png", title="K", units="m/s", log=log))[..., :3]
+        counts[log] = int(np.all(np.abs(img - quarter) < 0.02, axis=-1).sum())
+    # the east half covers tens of thousands of pixels; on the linear map only the colour bar shows it
+    assert counts[False] < 1000 < 20000 < counts[True]
+
+
 def test_summary_maps_one_file_per_band(tmp_path):
     g = _grid()
     rng = np.random.default_rng(1)

@@ -84,8 +84,12 @@ def _scale_bar(ax, grid) -> None:
 
 def plot_map(values: np.ndarray, grid, path: str | os.PathLike, *, title: str, units: str = "",
              cmap: str = VALUE_CMAP, vmin: float | None = None, vmax: float | None = None,
-             overwrite: bool = False) -> Path:
+             log: bool = False, overwrite: bool = False) -> Path:
     """A north-up map of one 2-D array on ``grid`` (one level of a 3-D grid: use its level grid).
+
+    With ``log=True`` the colours follow the logarithm of the values (for log-normal
+    variables such as hydraulic conductivity, whose few high values would otherwise
+    leave the rest of the map in one colour); values <= 0 are left transparent.
 
     Examples
     --------
@@ -99,13 +103,19 @@ def plot_map(values: np.ndarray, grid, path: str | os.PathLike, *, title: str, u
     """
     import matplotlib
     check_writable(path, overwrite)
-    a = np.ma.masked_invalid(np.where(grid.mask, np.asarray(values, dtype=float), np.nan))
+    a = np.where(grid.mask, np.asarray(values, dtype=float), np.nan)
+    norm = None
+    if log:
+        from matplotlib.colors import LogNorm
+        a = np.where(a > 0, a, np.nan)
+        norm, vmin, vmax = LogNorm(vmin=vmin, vmax=vmax), None, None
+    a = np.ma.masked_invalid(a)
     colours = matplotlib.colormaps[cmap].with_extremes(bad=(0.0, 0.0, 0.0, 0.0))
     ratio = (grid.ymax - grid.ymin) / (grid.xmax - grid.xmin)
     fig = _figure((7.0, float(np.clip(5.2 * ratio + 1.6, 3.0, 10.0))))
     ax = fig.add_subplot()
     im = ax.imshow(a, extent=(grid.xmin, grid.xmax, grid.ymin, grid.ymax), origin="upper", cmap=colours,
-                   vmin=vmin, vmax=vmax, interpolation="nearest")
+                   vmin=vmin, vmax=vmax, norm=norm, interpolation="nearest")
     ax.set_aspect("equal")
     ax.ticklabel_format(useOffset=False, style="plain")
     ax.tick_params(axis="both", labelsize=8)
@@ -120,7 +130,8 @@ def plot_map(values: np.ndarray, grid, path: str | os.PathLike, *, title: str, u
 
 
 def plot_summary_maps(summary: Mapping[str, np.ndarray], grid, folder: str | os.PathLike, *,
-                      units: str = "", prefix: str = "", overwrite: bool = False) -> list[Path]:
+                      units: str = "", prefix: str = "", log: bool = False,
+                      overwrite: bool = False) -> list[Path]:
     """Maps of mean, standard deviation, P10, P90 and every exceedance probability.
 
     Parameters
@@ -136,7 +147,8 @@ def plot_summary_maps(summary: Mapping[str, np.ndarray], grid, folder: str | os.
         ``p90.png`` and ``prob_above_<cutoff>.png``.
 
     Each value map spans its own range (skewed grades would leave a shared
-    scale dark on the low maps); probabilities span 0 to 1.
+    scale dark on the low maps), on a logarithmic colour scale with ``log=True``;
+    probabilities span 0 to 1.
     """
     folder = Path(folder)
     u = f" ({units})" if units else ""
@@ -153,7 +165,8 @@ def plot_summary_maps(summary: Mapping[str, np.ndarray], grid, folder: str | os.
     for band, fname, title, cmap, vmin, vmax, unit in jobs:
         if band in summary:
             out.append(plot_map(summary[band], grid, folder / f"{prefix}{fname}", title=title, units=unit,
-                                cmap=cmap, vmin=vmin, vmax=vmax, overwrite=overwrite))
+                                cmap=cmap, vmin=vmin, vmax=vmax, log=log and not band.startswith("P(>"),
+                                overwrite=overwrite))
     return out
 
 
@@ -286,6 +299,8 @@ def plot_decision_spread(figures: Sequence[Mapping[str, np.ndarray]], path: str 
             label = f"mean grade above cut-off ({units})" if units else "mean grade above cut-off"
         ax.set_ylabel(label)
         ax.set_xlabel(f"{key.replace('_', ' ')} ({units})" if units else key.replace("_", " "))
+        if np.all(x > 0) and x.max() >= 100.0 * x.min():  # cut-offs spanning decades (conductivity)
+            ax.set_xscale("log")
         ax.ticklabel_format(axis="y", style="sci", scilimits=(-3, 4))
         ax.grid(alpha=0.3)
     axes[0].legend(fontsize=8)
