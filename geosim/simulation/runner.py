@@ -177,20 +177,25 @@ def _pool_context(*modules):
 def _run_pool(n_workers, eng, prepared, sink, seed, todo, progress) -> dict:
     from concurrent.futures import ProcessPoolExecutor, as_completed
     ctx = _pool_context(type(eng).__module__, type(sink).__module__ if sink is not None else None)
-    results = {}
     with ProcessPoolExecutor(n_workers, mp_context=ctx, initializer=_pool_init,
                              initargs=(eng, prepared, sink)) as pool:
         futures = [pool.submit(_pool_task, seed, i) for i in todo]
-        try:
-            for done, fut in enumerate(as_completed(futures), 1):
-                i, value = fut.result()
-                results[i] = value
-                if progress is not None:
-                    progress(done, len(todo), "realizations")
-        except BaseException:
-            for fut in futures:
-                fut.cancel()
-            raise
+        results = _collect(futures, as_completed, lambda: [fut.cancel() for fut in futures], progress)
+    return results
+
+
+def _collect(futures, as_completed, cancel, progress) -> dict:
+    """Results by realization index as the futures finish; the rest cancelled on any error."""
+    results = {}
+    try:
+        for done, fut in enumerate(as_completed(futures), 1):
+            i, value = fut.result()
+            results[i] = value
+            if progress is not None:
+                progress(done, len(futures), "realizations")
+    except BaseException:
+        cancel()
+        raise
     return results
 
 
@@ -202,17 +207,7 @@ def _run_dask(client, eng, prepared, sink, seed, todo, progress) -> dict:
     try:
         shared = client.scatter(prepared, broadcast=True)
         futures = [client.submit(_dask_task, eng, shared, sink, seed, i, pure=False) for i in todo]
-        results = {}
-        try:
-            for done, fut in enumerate(as_completed(futures), 1):
-                i, value = fut.result()
-                results[i] = value
-                if progress is not None:
-                    progress(done, len(todo), "realizations")
-        except BaseException:
-            client.cancel(futures)
-            raise
-        return results
+        return _collect(futures, as_completed, lambda: client.cancel(futures), progress)
     finally:
         if own:
             client.close()
