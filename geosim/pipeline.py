@@ -714,14 +714,22 @@ def _figures(spec: RunSpec, grid):
     if out["density"] is not None:
         thickness = out["thickness"] if grid.ndim == 2 else None
         return functools.partial(_grade_tonnage, grid=grid, cutoffs=tuple(out["cutoffs"]),
-                                 density=out["density"], thickness=thickness)
+                                 density=out["density"], thickness=thickness, metal_factor=metal_factor(spec))
     func = summaries.fraction_above if out["above"] else summaries.fraction_below
     return functools.partial(func, grid=grid, thresholds=tuple(out["cutoffs"]))
 
 
-def _grade_tonnage(field, *, grid, cutoffs, density, thickness):
+def _grade_tonnage(field, *, grid, cutoffs, density, thickness, metal_factor):
     from .summaries import grade_tonnage
-    return grade_tonnage(field, grid, cutoffs, density, thickness)
+    return grade_tonnage(field, grid, cutoffs, density, thickness, metal_factor)
+
+
+def metal_factor(spec: RunSpec) -> float:
+    """Metal per tonne of ore per grade unit: ``outputs.metal_factor``, else 0.01 for %
+    grades (metal in tonnes) and 1 otherwise (g/t grades give grams)."""
+    if spec["outputs.metal_factor"] is not None:
+        return spec["outputs.metal_factor"]
+    return 0.01 if "%" in (spec["data.units"] or "") else 1.0
 
 
 def _checks(data: PreparedData, model, grid):

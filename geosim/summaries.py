@@ -213,7 +213,7 @@ def _field(field, grid) -> np.ndarray:
 
 
 def grade_tonnage(field: np.ndarray, grid, cutoffs: Sequence[float], density: float | np.ndarray,
-                  thickness: float | np.ndarray | None = None) -> dict[str, np.ndarray]:
+                  thickness: float | np.ndarray | None = None, metal_factor: float = 1.0) -> dict[str, np.ndarray]:
     """Tonnage, mean grade and metal at or above each cut-off, for one realization.
 
     Parameters
@@ -228,13 +228,16 @@ def grade_tonnage(field: np.ndarray, grid, cutoffs: Sequence[float], density: fl
         Dry bulk density in t/m^3.
     thickness : float or array of ``grid.shape``, 2-D grids only
         Thickness in metres.
+    metal_factor : float
+        Metal per tonne of ore per unit of grade: 1 for g/t grades (metal in grams),
+        0.01 for % grades (metal in tonnes).
 
     Returns
     -------
     dict of arrays (one value per cut-off)
         ``cutoff``; ``tonnage`` (t); ``mean_grade`` (tonnage-weighted, grade
-        units; NaN where nothing is above); ``metal`` = tonnage x mean grade
-        (grade units x t: grams for g/t; divide by 100 for % grades).
+        units; NaN where nothing is above); ``metal`` = tonnage x mean grade x
+        ``metal_factor``.
 
     Examples
     --------
@@ -258,7 +261,7 @@ def grade_tonnage(field: np.ndarray, grid, cutoffs: Sequence[float], density: fl
         metal[k] = (tv[above] * fv[above]).sum()
     with np.errstate(invalid="ignore", divide="ignore"):
         mean_grade = np.where(tonnage > 0, metal / np.where(tonnage > 0, tonnage, 1.0), np.nan)
-    return {"cutoff": cut, "tonnage": tonnage, "mean_grade": mean_grade, "metal": metal}
+    return {"cutoff": cut, "tonnage": tonnage, "mean_grade": mean_grade, "metal": metal * metal_factor}
 
 
 def _fractions(field, grid, thresholds, above: bool) -> dict[str, np.ndarray]:

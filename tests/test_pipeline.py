@@ -188,3 +188,9 @@ def test_below_collars_keeps_only_nodes_under_the_ground_surface():
 def test_below_collars_is_refused_for_point_data():
     with pytest.raises(geosim.SpecError, match="domain.below_collars"):
         small_spec("domain.below_collars=true")
+
+
+def test_metal_of_percent_grades_is_in_tonnes():
+    assert pipeline.metal_factor(load_spec(ORE)) == 0.01          # data.units = "% Cu"
+    assert pipeline.metal_factor(load_spec(ORE, ['data.units="g/t"'])) == 1.0
+    assert pipeline.metal_factor(load_spec(ORE, ["outputs.metal_factor=0.5"])) == 0.5

@@ -119,6 +119,9 @@ def test_grade_tonnage_by_hand_2d_and_3d():
     gt3 = grade_tonnage(f3, g3, [2.5], density=density)
     assert gt3["tonnage"][0] == pytest.approx(2 * 50.0 * 3.0)
     assert gt3["mean_grade"][0] == pytest.approx(3.5)
+    # % grades: 300 t at 3.5 % Cu hold 10.5 t of copper
+    pct = grade_tonnage(f3, g3, [2.5], density=density, metal_factor=0.01)
+    assert pct["metal"][0] == pytest.approx(300.0 * 3.5 / 100.0) and pct["tonnage"][0] == gt3["tonnage"][0]
 
 
 def test_grade_tonnage_asks_for_thickness_in_2d_only():

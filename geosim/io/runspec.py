@@ -286,6 +286,8 @@ SCHEMA: dict[str, dict[str, Key]] = {
         "cutoffs": Key(_number_list(), default=[], help="thresholds in data units"),
         "above": Key(_bool, default=True, help="decision figures above (true) or below the cut-offs"),
         "density": Key(_number(0.0, lo_open=True), help="t/m3, for tonnage above cut-off"),
+        "metal_factor": Key(_number(0.0, lo_open=True),
+                            help="metal per tonne per grade unit (default: 0.01 when data.units has %, else 1)"),
         "thickness": Key(_number(0.0, lo_open=True), help="metres, for volumes of a 2-D grid"),
         "keep_realizations": Key(_bool, default=True, help="keep one GeoTIFF per realization"),
         "plots": Key(_bool, default=True),
