@@ -34,8 +34,87 @@ PANEL = 4  # columns factored per sweep of the trailing block
 
 
 @njit(cache=True, nogil=True, fastmath={"contract"})
+def chol_partial(a, n, k, work, tol):
+    """Factor the first ``k`` pivots of the leading ``n x n`` block of ``a`` (right-looking).
+
+    Columns ``0 .. k-1`` of the lower triangle become those of ``L``; the trailing
+    lower triangle (rows and columns ``k .. n-1``) becomes the Schur complement
+    ``A22 - L21 L21^T``.  Bordering a covariance matrix ``C`` (order ``k``) with extra
+    rows, say ``c^T`` and ``z^T``, therefore gives in one sweep ``L^{-1} c`` and
+    ``L^{-1} z`` in those rows and, in the trailing block, ``a_kk - |L^{-1} c|^2`` and
+    ``-(L^{-1} z)^T (L^{-1} c)``: a simple-kriging variance and (minus) its estimate,
+    without separate triangular solves.
+
+    Parameters
+    ----------
+    a : float64[:, ::1]
+        Symmetric matrix; only the lower triangle is read and written; the strict
+        upper triangle is left untouched.
+    n : int
+        Order of the bordered system (``a`` may be larger, as a reusable buffer).
+    k : int
+        Pivots to factor, ``0 <= k <= n``.
+    work : float64[::1]
+        Scratch vector of length >= ``4 * n`` (:data:`PANEL` contiguous column copies).
+    tol : float
+        A pivot ``<= tol`` stops the factorization (use 0.0 for the strict test).
+
+    Returns
+    -------
+    int
+        -1 on success, otherwise the index ``c`` of the first pivot that was
+        ``<= tol`` (or NaN); its value (the Schur-complement pivot) is left in
+        ``a[c, c]`` and rows ``< c`` hold the factor of the leading block.
+    """
+    if work.shape[0] < PANEL * n:
+        raise ValueError("chol_partial: work must hold at least 4 * n values")
+    w = work[:PANEL * n].reshape((PANEL, n))
+    start = 0
+    while start < k:
+        e = min(start + PANEL, k)
+        # factor the panel's columns, each updating the later panel columns (right-looking)
+        for c in range(start, e):
+            p = a[c, c]
+            if not (p > tol):  # also catches NaN
+                return c
+            d = math.sqrt(p)
+            a[c, c] = d
+            inv = 1.0 / d
+            wc = w[c - start]
+            for i in range(c + 1, n):
+                v = a[i, c] * inv
+                a[i, c] = v
+                wc[i] = v
+            for c2 in range(c + 1, e):
+                lc = wc[c2]
+                for i in range(c2, n):
+                    a[i, c2] -= wc[i] * lc
+        if e == n:
+            return -1
+        for r in range(e - start, PANEL):  # a short last panel: unused copies contribute zero
+            for i in range(e, n):
+                w[r, i] = 0.0
+        w0 = w[0]
+        w1 = w[1]
+        w2 = w[2]
+        w3 = w[3]
+        for i in range(e, n):
+            u0 = w0[i]
+            u1 = w1[i]
+            u2 = w2[i]
+            u3 = w3[i]
+            row = a[i]
+            for j in range(e, i + 1):
+                row[j] -= u0 * w0[j] + u1 * w1[j] + u2 * w2[j] + u3 * w3[j]
+        start = e
+    return -1
+
+
+@njit(cache=True, nogil=True)
 def chol_inplace(a, n, work, tol):
     """Factor the leading ``n x n`` block of ``a`` in place (lower triangle, right-looking).
+
+    The whole factorization of :func:`chol_partial` (``k = n``).
 
     Parameters
     ----------
@@ -56,48 +135,7 @@ def chol_inplace(a, n, work, tol):
         ``<= tol`` (or NaN); its value (the Schur-complement pivot) is left in
         ``a[k, k]`` and rows ``< k`` hold the factor of the leading block.
     """
-    if work.shape[0] < PANEL * n:
-        raise ValueError("chol_inplace: work must hold at least 4 * n values")
-    w = work[:PANEL * n].reshape((PANEL, n))
-    k = 0
-    while k < n:
-        e = min(k + PANEL, n)
-        # factor the panel's columns, each updating the later panel columns (right-looking)
-        for c in range(k, e):
-            p = a[c, c]
-            if not (p > tol):  # also catches NaN
-                return c
-            d = math.sqrt(p)
-            a[c, c] = d
-            inv = 1.0 / d
-            wc = w[c - k]
-            for i in range(c + 1, n):
-                v = a[i, c] * inv
-                a[i, c] = v
-                wc[i] = v
-            for c2 in range(c + 1, e):
-                lc = wc[c2]
-                for i in range(c2, n):
-                    a[i, c2] -= wc[i] * lc
-        if e == n:
-            return -1
-        for r in range(e - k, PANEL):  # a short last panel: unused copies contribute zero
-            for i in range(e, n):
-                w[r, i] = 0.0
-        w0 = w[0]
-        w1 = w[1]
-        w2 = w[2]
-        w3 = w[3]
-        for i in range(e, n):
-            u0 = w0[i]
-            u1 = w1[i]
-            u2 = w2[i]
-            u3 = w3[i]
-            row = a[i]
-            for j in range(e, i + 1):
-                row[j] -= u0 * w0[j] + u1 * w1[j] + u2 * w2[j] + u3 * w3[j]
-        k = e
-    return -1
+    return chol_partial(a, n, n, work, tol)
 
 
 @njit(cache=True, nogil=True)

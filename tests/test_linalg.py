@@ -104,3 +104,22 @@ def test_panel_edges_match_scipy(n):
 def test_short_work_buffer_is_refused():
     with pytest.raises(ValueError, match="work"):
         gl.chol_inplace(np.eye(4), 4, np.empty(4), 0.0)
+
+
+@pytest.mark.parametrize("n", [1, 4, 7, 16])
+def test_partial_factor_of_a_bordered_system_gives_kriging_mean_and_variance(n):
+    # simple kriging of value z at a target with covariance vector c and variance c0:
+    # mean c^T C^-1 z, variance c0 - c^T C^-1 c (reference: scipy.linalg.solve)
+    rng = np.random.default_rng(n)
+    full = _spd(n + 1, seed=200 + n)
+    cmat, c, c0 = full[:n, :n], full[n, :n], full[n, n]
+    z = rng.normal(size=n)
+    a = np.zeros((n + 2, n + 2))
+    a[:n, :n] = cmat
+    a[n, :n], a[n, n] = c, c0
+    a[n + 1, :n] = z
+    assert gl.chol_partial(a, n + 2, n, np.empty(gl.PANEL * (n + 2)), 0.0) == -1
+    weights = scipy.linalg.solve(cmat, c, assume_a="pos")
+    assert a[n, n] == pytest.approx(c0 - c @ weights, rel=1e-10, abs=1e-12)
+    assert -a[n + 1, n] == pytest.approx(weights @ z, rel=1e-10, abs=1e-12)
+    assert np.allclose(np.tril(a[:n, :n]), scipy.linalg.cholesky(cmat, lower=True), rtol=1e-12)

@@ -7,10 +7,12 @@ simulated nodes found by scanning a template of offsets sorted by anisotropic
 distance.  Simple kriging with mean 0 (or ordinary kriging) of that set gives the
 mean and variance of the local Gaussian conditional distribution, from which the node
 value is drawn.  The whole per-node loop is one compiled numba kernel; the local
-covariance matrix is factored by :func:`geosim.linalg.chol_inplace` and both the
-weights and the variance come from the one factor:
+covariance matrix, bordered by the right-hand side ``c``, the values ``z`` (and a row
+of ones for ordinary kriging), is factored by :func:`geosim.linalg.chol_partial`, and
+both the weights and the variance come from that one factor:
 
-* simple kriging: ``y = L^-1 c``, ``v = L^-1 z``; mean ``y.v``, variance ``C(0) - y.y``;
+* simple kriging: ``y = L^-1 c``, ``v = L^-1 z`` (the bordering rows after the sweep);
+  mean ``y.v``, variance ``C(0) - y.y`` (both left in the trailing block);
 * ordinary kriging adds, with ``u = L^-1 1``, ``mu = (1 - u.y) / u.u``:
   mean ``y.v + mu u.v``, variance ``C(0) - y.y + (1 - u.y)^2 / u.u``.
 
@@ -30,7 +32,7 @@ import numpy as np
 from numba import njit
 
 from ..errors import InputError, NotPositiveDefiniteError
-from ..linalg import PANEL, chol_inplace, forward_inplace
+from ..linalg import PANEL, chol_partial
 from ..search import DataSearch, Neighbourhood, search_ellipsoid
 from ..variogram.compiled import cov_lag
 from .paths import covariance_table, grid_axes, node_template, offset_lags, path_levels, random_path
@@ -152,7 +154,7 @@ class SequentialEngine:
         kmax = plan.data_neighbours.shape[1] + plan.max_nodes
         ids = np.zeros(max(kmax, 1), dtype=np.int64)
         fail = np.zeros(4, dtype=np.int64)
-        a = np.zeros((max(kmax, 1), max(kmax, 1)))
+        a = np.zeros((kmax + 3, kmax + 3))  # the system bordered by up to three rows
         status = _sgs_kernel(field, plan.active_flat, path, normals, np.array(plan.shape3, dtype=np.int64),
                              plan.origin, plan.step, plan.offsets, plan.lags, plan.table, plan.table_lin,
                              plan.table_zero, plan.use_table, plan.data_cov,
@@ -224,7 +226,6 @@ def _sgs_kernel(field, active_flat, path, normals, shape3, origin, step, offsets
     c0 = cov_lag(cm, 0.0, 0.0, 0.0)
     rhs = np.empty(kmax)
     zv = np.empty(kmax)
-    uv = np.empty(kmax)
     work = np.empty(PANEL * kmax)
     rel = np.empty((kmax, 3))  # conditioning points relative to the node being simulated
     lin = np.empty(kmax, dtype=np.int64)
@@ -294,31 +295,39 @@ def _sgs_kernel(field, active_flat, path, normals, shape3, origin, step, offsets
         mean = 0.0
         var = c0
         if m > 0:
-            bad = chol_inplace(a, m, work, tol)
+            # border the system with the right-hand side, the values (and a row of ones for
+            # ordinary kriging): factoring its first m pivots leaves the variance and the
+            # estimate in the trailing block, with no separate triangular solves
+            rc = a[m]
+            rz = a[m + 1]
+            for r in range(m):
+                rc[r] = rhs[r]
+                rz[r] = zv[r]
+            rc[m] = c0
+            rz[m] = 0.0
+            rz[m + 1] = 0.0
+            order = m + 2
+            if ordinary:
+                ru = a[m + 2]
+                for r in range(m):
+                    ru[r] = 1.0
+                ru[m] = 0.0
+                ru[m + 1] = 0.0
+                ru[m + 2] = 0.0
+                order = m + 3
+            bad = chol_partial(a, order, m, work, tol)
             if bad >= 0:
                 fail[0] = p
                 fail[1] = bad
                 fail[2] = nd
                 fail[3] = m
                 return p
-            forward_inplace(a, m, rhs)
-            forward_inplace(a, m, zv)
-            yy = 0.0
-            for r in range(m):
-                mean += rhs[r] * zv[r]
-                yy += rhs[r] * rhs[r]
-            var = c0 - yy
+            var = a[m, m]
+            mean = -a[m + 1, m]
             if ordinary:
-                for r in range(m):
-                    uv[r] = 1.0
-                forward_inplace(a, m, uv)
-                uu = 0.0
-                uy = 0.0
-                uz = 0.0
-                for r in range(m):
-                    uu += uv[r] * uv[r]
-                    uy += uv[r] * rhs[r]
-                    uz += uv[r] * zv[r]
+                uy = -a[m + 2, m]
+                uz = -a[m + 2, m + 1]
+                uu = -a[m + 2, m + 2]
                 mu = (1.0 - uy) / uu
                 mean += mu * uz
                 var += (1.0 - uy) * (1.0 - uy) / uu
