@@ -114,26 +114,9 @@ def chol_partial(a, n, k, work, tol):
 def chol_inplace(a, n, work, tol):
     """Factor the leading ``n x n`` block of ``a`` in place (lower triangle, right-looking).
 
-    The whole factorization of :func:`chol_partial` (``k = n``).
-
-    Parameters
-    ----------
-    a : float64[:, ::1]
-        Symmetric matrix; only the lower triangle is read.  On success the lower
-        triangle holds ``L``; the strict upper triangle is left untouched.
-    n : int
-        Order of the system (``a`` may be larger, as a reusable buffer).
-    work : float64[::1]
-        Scratch vector of length >= ``4 * n`` (:data:`PANEL` contiguous column copies).
-    tol : float
-        A pivot ``<= tol`` stops the factorization (use 0.0 for the strict test).
-
-    Returns
-    -------
-    int
-        -1 on success, otherwise the index ``k`` of the first pivot that was
-        ``<= tol`` (or NaN); its value (the Schur-complement pivot) is left in
-        ``a[k, k]`` and rows ``< k`` hold the factor of the leading block.
+    The whole factorization of :func:`chol_partial` (``k = n``), with the same
+    arguments, work size (``4 * n``) and return value: -1 on success, else the
+    first pivot ``<= tol``.  On success the lower triangle holds ``L``.
     """
     return chol_partial(a, n, n, work, tol)
 
