@@ -138,13 +138,8 @@ def _numbers(sizes: tuple[int, ...], lo=None, lo_open=False, ascending=False, wh
             ", ascending" if ascending else "")
         if not isinstance(value, list) or len(value) not in sizes:
             return None, wanted
-        out = []
-        for v in value:
-            v, err = one(v)
-            if err:
-                return None, wanted
-            out.append(v)
-        if ascending and any(b <= a for a, b in zip(out, out[1:])):
+        out = _each(one, value)
+        if out is None or (ascending and any(b <= a for a, b in zip(out, out[1:]))):
             return None, wanted
         return out, None
     return check
@@ -155,16 +150,20 @@ def _number_list(lo=None):
 
     def check(value):
         wanted = "a list of numbers" + (f" >= {lo:g}" if lo is not None else "")
-        if not isinstance(value, list):
-            return None, wanted
-        out = []
-        for v in value:
-            v, err = one(v)
-            if err:
-                return None, wanted
-            out.append(v)
-        return out, None
+        out = _each(one, value) if isinstance(value, list) else None
+        return (None, wanted) if out is None else (out, None)
     return check
+
+
+def _each(one, values: list):
+    """``values`` checked one by one with the element check ``one``; None if any fails."""
+    out = []
+    for v in values:
+        v, err = one(v)
+        if err:
+            return None
+        out.append(v)
+    return out
 
 
 def _str_map(value):
