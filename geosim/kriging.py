@@ -34,7 +34,7 @@ import numpy as np
 from numba import njit
 
 from .errors import GeosimWarning, InputError, NotPositiveDefiniteError
-from .linalg import PANEL, backward_t_inplace, chol_inplace, forward_inplace
+from .linalg import backward_t_inplace, chol_inplace, forward_inplace
 from .search import DataSearch, Neighbourhood, as_xyz, exclusion_arrays, select_neighbours
 from .variogram.compiled import cov_lag
 
@@ -300,7 +300,6 @@ def _krige_rows(rows, cand, xyz, frame, z, holes, txyz, tframe, excl_index, excl
     """Select, build, factor and solve for each target in ``rows``; -1 or the failing row position."""
     k = max_samples
     a = np.empty((k, k))
-    work = np.empty(PANEL * k)
     c = np.empty(k)
     y1 = np.empty(k)
     sel = np.empty(k, dtype=np.int64)
@@ -337,7 +336,7 @@ def _krige_rows(rows, cand, xyz, frame, z, holes, txyz, tframe, excl_index, excl
                     a[p, q] = cov_lag(cm, xyz[ip, 0] - xyz[iq, 0], xyz[ip, 1] - xyz[iq, 1],
                                       xyz[ip, 2] - xyz[iq, 2])
                 a[p, p] = c0 * (1.0 + reg) if attempt == 1 else c0
-            piv = chol_inplace(a, count, work, tol)
+            piv = chol_inplace(a, count, tol)
             if piv < 0:
                 if attempt == 1:
                     n_reg[r] = 1

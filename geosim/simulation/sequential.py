@@ -32,7 +32,7 @@ import numpy as np
 from numba import njit
 
 from ..errors import InputError, NotPositiveDefiniteError
-from ..linalg import PANEL, chol_partial
+from ..linalg import chol_partial
 from ..search import DataSearch, Neighbourhood, search_ellipsoid
 from ..variogram.compiled import cov_lag
 from .paths import covariance_table, grid_axes, node_template, offset_lags, path_levels, random_path
@@ -226,7 +226,6 @@ def _sgs_kernel(field, active_flat, path, normals, shape3, origin, step, offsets
     c0 = cov_lag(cm, 0.0, 0.0, 0.0)
     rhs = np.empty(kmax)
     zv = np.empty(kmax)
-    work = np.empty(PANEL * kmax)
     rel = np.empty((kmax, 3))  # conditioning points relative to the node being simulated
     lin = np.empty(kmax, dtype=np.int64)
     use_data_cov = data_cov.shape[0] > 0
@@ -271,51 +270,47 @@ def _sgs_kernel(field, active_flat, path, normals, shape3, origin, step, offsets
                     if m - nd == max_nodes:
                         break
         for r in range(m):
-            row = a[r]
             if r < nd:
                 dr = ids[r]
                 rhs[r] = cov_lag(cm, rel[r, 0], rel[r, 1], rel[r, 2])
                 for s in range(r + 1):
                     if use_data_cov:
-                        row[s] = data_cov[dr, ids[s]]
+                        a[r, s] = data_cov[dr, ids[s]]
                     else:
-                        row[s] = cov_lag(cm, rel[r, 0] - rel[s, 0], rel[r, 1] - rel[s, 1], rel[r, 2] - rel[s, 2])
+                        a[r, s] = cov_lag(cm, rel[r, 0] - rel[s, 0], rel[r, 1] - rel[s, 1], rel[r, 2] - rel[s, 2])
                 continue
             for s in range(nd):
-                row[s] = cov_lag(cm, rel[r, 0] - rel[s, 0], rel[r, 1] - rel[s, 1], rel[r, 2] - rel[s, 2])
+                a[r, s] = cov_lag(cm, rel[r, 0] - rel[s, 0], rel[r, 1] - rel[s, 1], rel[r, 2] - rel[s, 2])
             if use_table:
                 base = table_zero + lin[r]
                 rhs[r] = table[base]
                 for s in range(nd, r + 1):
-                    row[s] = table[base - lin[s]]
+                    a[r, s] = table[base - lin[s]]
             else:
                 rhs[r] = cov_lag(cm, rel[r, 0], rel[r, 1], rel[r, 2])
                 for s in range(nd, r + 1):
-                    row[s] = cov_lag(cm, rel[r, 0] - rel[s, 0], rel[r, 1] - rel[s, 1], rel[r, 2] - rel[s, 2])
+                    a[r, s] = cov_lag(cm, rel[r, 0] - rel[s, 0], rel[r, 1] - rel[s, 1], rel[r, 2] - rel[s, 2])
         mean = 0.0
         var = c0
         if m > 0:
             # border the system with the right-hand side, the values (and a row of ones for
             # ordinary kriging): factoring its first m pivots leaves the variance and the
             # estimate in the trailing block, with no separate triangular solves
-            rc = a[m]
-            rz = a[m + 1]
             for r in range(m):
-                rc[r] = rhs[r]
-                rz[r] = zv[r]
-            rc[m] = c0
-            rz[m] = 0.0
-            rz[m + 1] = 0.0
+                a[m, r] = rhs[r]
+                a[m + 1, r] = zv[r]
+            a[m, m] = c0
+            a[m + 1, m] = 0.0
+            a[m + 1, m + 1] = 0.0
             order = m + 2
             if ordinary:
-                ru = a[m + 2]
                 for r in range(m):
-                    ru[r] = 1.0
-                ru[m] = 0.0
-                ru[m + 1] = 0.0
-                ru[m + 2] = 0.0
+                    a[m + 2, r] = 1.0
+                a[m + 2, m] = 0.0
+                a[m + 2, m + 1] = 0.0
+                a[m + 2, m + 2] = 0.0
                 order = m + 3
-            bad = chol_partial(a, order, m, work, tol)
+            bad = chol_partial(a, order, m, tol)
             if bad >= 0:
                 fail[0] = p
                 fail[1] = bad
