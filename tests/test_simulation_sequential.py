@@ -16,7 +16,9 @@ import geosim
 from geosim.search import Neighbourhood
 from geosim.simulation import realization_rng
 from geosim.simulation.exact import ExactEngine
+from geosim.simulation.paths import random_path
 from geosim.simulation.sequential import SequentialEngine
+from geosim.variogram.compiled import cov_matrix_into
 
 Z = 4.5
 KS_001 = stats.kstwobign.isf(1e-3)  # sqrt(n) D exceeds this with probability 0.001 (about 1.95)
@@ -229,3 +231,61 @@ def test_data_search_limits_apply():
     for row in per_hole.data_neighbours:
         used = row[row >= 0]
         assert len(used) == 3 and np.bincount(holes[used], minlength=2)[0] == 2
+
+
+_ANISO2 = geosim.Anisotropy((70.0, 35.0), azimuth=40.0)
+_ANISO3 = geosim.Anisotropy((70.0, 35.0, 15.0), azimuth=40.0, dip=20.0, rake=10.0)
+
+
+@pytest.mark.parametrize("grid,model,data", [
+    (geosim.Grid(10.0, 10.0, (15.0, 15.0), (2, 3)), geosim.Nugget(0.2) + geosim.Spherical(0.8, _ANISO2), "2d"),
+    (geosim.Grid(10.0, 10.0, (15.0, 15.0), (2, 3)), geosim.Exponential(0.5, _ANISO2)
+     + geosim.Gaussian(0.5, geosim.Anisotropy.isotropic(50.0)), "2d"),
+    (geosim.Grid(10.0, 10.0, (15.0, 15.0), (2, 3)), geosim.Nugget(0.1) + geosim.Cubic(0.9, _ANISO2), "2d"),
+    (geosim.Grid(10.0, 10.0, (15.0, 15.0), (2, 3)), geosim.Nugget(0.1) + geosim.Matern(0.9, _ANISO2, 1.5), "2d"),
+    (geosim.Grid(10.0, 10.0, (15.0, 15.0, 5.0), (2, 2, 2), zmin=200.0),
+     geosim.Nugget(0.1) + geosim.Spherical(0.9, _ANISO3), "3d"),
+    # cells so small (1e-6 m) that a node within the 1e-4-cell tolerance of a datum would be at a
+    # zero lag for the nugget: the kernel then checks every node-to-datum pair for the nugget
+    (geosim.Grid(1e-5, 1e-5, (1.5e-6, 1.5e-6), (2, 3)),
+     geosim.Nugget(0.2) + geosim.Spherical(0.8, geosim.Anisotropy((7e-6, 3.5e-6), azimuth=40.0)), "tiny"),
+])
+def test_every_node_is_the_simple_kriging_draw_given_data_and_earlier_nodes(grid, model, data):
+    # Deterministic check of the compiled local systems (data-data, node-data and node-node
+    # covariances, factor, bordered solve) for every structure kind: with a neighbourhood that
+    # takes every datum and every earlier node, node p must equal mean + sd * normal[p] of
+    # simple kriging given the data and the nodes before it on the path (reference: numpy
+    # solves with covariances from cov_lag, which Model.cov_matrix uses for closed forms and
+    # test_variogram_structures checks against the numpy formulas; the Matern structure, read
+    # from a table by the kernels, through cov_matrix_into).  Rounding only: tolerance 1e-9.
+    scale = 1e-6 if data == "tiny" else 1.0
+    xy = np.array([[14.0, 31.0], [52.0, 22.0], [33.0, 47.0], [61.0, 9.0], [23.0, 12.0]]) * scale
+    if data == "3d":
+        xy = np.column_stack([xy, [201.0, 206.0, 203.5, 208.0, 204.0]])
+    scores = np.array([1.2, -0.7, 0.4, -1.5, 0.9])
+    ranges = (1e-3, 1e-3) if data == "tiny" else (1e3,) * grid.ndim
+    engine = SequentialEngine()
+    plan = engine.prepare(xy, scores, model, grid, multigrid=0,
+                          neighbourhood=Neighbourhood(max_samples=5, max_nodes=grid.n_active, ranges=ranges))
+    assert plan.nugget_node_data == (data == "tiny")
+    field = engine.realize(plan, realization_rng(5, 2))
+    rng = realization_rng(5, 2)  # the same draws in the same order as the engine's
+    path = plan.free[random_path(plan.levels, rng)]
+    normals = rng.standard_normal(path.shape[0])
+    nodes = grid.coords()
+    values = field.ravel()[np.flatnonzero(grid.mask.ravel())]
+    cov = model.cov_matrix
+    if isinstance(model.structures[-1], geosim.Matern):
+        def cov(a, b=None):
+            b = a if b is None else b
+            a3, b3 = (np.column_stack([v, np.zeros(len(v))]) for v in (a, b))
+            out = np.empty((len(a), len(b)))
+            cov_matrix_into(model.compiled(), a3, b3, out)
+            return out
+    pts, z = xy, scores
+    for p, pos in enumerate(path):
+        c = cov(pts, nodes[pos:pos + 1])[:, 0]
+        w = np.linalg.solve(cov(pts), c)
+        mean, var = w @ z, model.sill - w @ c
+        assert values[pos] == pytest.approx(mean + np.sqrt(max(var, 0.0)) * normals[p], abs=1e-9)
+        pts, z = np.vstack([pts, nodes[pos]]), np.append(z, values[pos])

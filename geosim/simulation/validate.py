@@ -62,7 +62,11 @@ def data_labels(sample_ids, n: int) -> tuple:
     return labels
 
 
-def coincident_nodes(coords3: np.ndarray, grid, rel_tol: float = 1e-4):
+#: A node closer to a datum than this fraction of the smallest cell lies "on" the datum.
+COINCIDENT_REL_TOL = 1e-4
+
+
+def coincident_nodes(coords3: np.ndarray, grid, rel_tol: float = COINCIDENT_REL_TOL):
     """Active nodes lying on a datum (closer than ``rel_tol`` of the smallest cell).
 
     Returns ``(positions among the active nodes in C order, data ids)``.  Such a node

@@ -12,7 +12,41 @@ from numba import njit
 
 from .structures import CUBIC, EXPONENTIAL, GAUSSIAN, NUGGET, SPHERICAL, TABULATED
 
-_ZERO_LAG2 = 1e-18  # squared metres: lags shorter than 1 nm are "the same place"
+ZERO_LAG2 = 1e-18  # squared metres: lags shorter than 1 nm are "the same place"
+
+
+@njit(cache=True, nogil=True, inline="always")
+def analytic_correlation(code, r):
+    """Unit correlation of a built-in closed-form structure at reduced distance ``r``.
+
+    Spherical, exponential, gaussian and cubic; 0.0 for any other code (the nugget and
+    tabulated structures are handled by the callers).  Scalars only, so that inlining it
+    into a loop adds no reference counting.
+    """
+    if code == SPHERICAL:
+        if r < 1.0:
+            return 1.0 - r * (1.5 - 0.5 * r * r)
+    elif code == EXPONENTIAL:
+        return math.exp(-3.0 * r)
+    elif code == GAUSSIAN:
+        return math.exp(-3.0 * r * r)
+    elif code == CUBIC:
+        if r < 1.0:
+            r2 = r * r
+            return 1.0 - r2 * (7.0 - r * (8.75 - r2 * (3.5 - 0.75 * r2)))
+    return 0.0
+
+
+@njit(cache=True, nogil=True, inline="always")
+def tabulated_correlation(tables, steps, j, r):
+    """Correlation of tabulated structure ``j`` at reduced distance ``r`` (linear interpolation)."""
+    t = r / steps[j]
+    i = int(t)
+    last = tables.shape[1] - 1
+    if i >= last:
+        return tables[j, last]
+    f = t - i
+    return (1.0 - f) * tables[j, i] + f * tables[j, i + 1]
 
 
 # inline="always": kernels call this per matrix entry; a real call costs a reference-count
@@ -22,7 +56,7 @@ def cov_lag(cm, dx, dy, dz):
     """Covariance of the compiled model ``cm`` at the lag vector (dx, dy, dz)."""
     codes, sills, mats, params, tables, steps = cm
     c = 0.0
-    zero = dx * dx + dy * dy + dz * dz <= _ZERO_LAG2
+    zero = dx * dx + dy * dy + dz * dz <= ZERO_LAG2
     for j in range(codes.shape[0]):
         code = codes[j]
         s = sills[j]
@@ -30,31 +64,14 @@ def cov_lag(cm, dx, dy, dz):
             if zero:
                 c += s
             continue
-        m = mats[j]
-        u = m[0, 0] * dx + m[0, 1] * dy + m[0, 2] * dz
-        v = m[1, 0] * dx + m[1, 1] * dy + m[1, 2] * dz
-        w = m[2, 0] * dx + m[2, 1] * dy + m[2, 2] * dz
+        u = mats[j, 0, 0] * dx + mats[j, 0, 1] * dy + mats[j, 0, 2] * dz
+        v = mats[j, 1, 0] * dx + mats[j, 1, 1] * dy + mats[j, 1, 2] * dz
+        w = mats[j, 2, 0] * dx + mats[j, 2, 1] * dy + mats[j, 2, 2] * dz
         r = math.sqrt(u * u + v * v + w * w)
-        if code == SPHERICAL:
-            if r < 1.0:
-                c += s * (1.0 - r * (1.5 - 0.5 * r * r))
-        elif code == EXPONENTIAL:
-            c += s * math.exp(-3.0 * r)
-        elif code == GAUSSIAN:
-            c += s * math.exp(-3.0 * r * r)
-        elif code == CUBIC:
-            if r < 1.0:
-                r2 = r * r
-                c += s * (1.0 - r2 * (7.0 - r * (8.75 - r2 * (3.5 - 0.75 * r2))))
-        elif code == TABULATED:
-            t = r / steps[j]
-            i = int(t)
-            last = tables.shape[1] - 1
-            if i >= last:
-                c += s * tables[j, last]
-            else:
-                f = t - i
-                c += s * ((1.0 - f) * tables[j, i] + f * tables[j, i + 1])
+        if code == TABULATED:
+            c += s * tabulated_correlation(tables, steps, j, r)
+        else:
+            c += s * analytic_correlation(code, r)
     return c
 
 
