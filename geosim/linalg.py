@@ -171,9 +171,10 @@ def backward_t_inplace(l, n, b):
 
 # From this order on, cholesky() hands the matrix to LAPACK (scipy).  Measured in
 # tests/benchmarks/bench_kriging.py with single-threaded BLAS (OPENBLAS_NUM_THREADS=1):
-# the compiled loop was faster at n = 32 (LAPACK/compiled time 1.2), LAPACK dpotrf
-# called from Python faster from n = 64 (1.2-1.8x), 3x at 128, 5x at 256.  Threaded
-# BLAS on a busy machine was erratic from n = 128 (its threads compete for the cores).
+# the compiled tiles were faster up to n = 32 (LAPACK/compiled time 4.5 at 16, 1.6 at
+# 32, call overhead included), LAPACK dpotrf called from Python faster from n = 64
+# (1.2x), 2x at 128, 3.4x at 256.  Threaded BLAS on a busy machine was erratic from
+# n = 128 (its threads compete for the cores).
 LAPACK_ORDER = 64
 
 
