@@ -75,21 +75,27 @@ def chol_partial(a, n, k, tol):
     pivots are taken one at a time.
     """
     o = 0
-    while o + TILE <= k:
-        # the diagonal tile, column by column
-        for c in range(o, o + TILE):
+    while o < k:
+        e = min(o + TILE, k)
+        full = e - o == TILE
+        # the diagonal tile, column by column; a short last tile (k not a multiple of 4)
+        # updates every row below it the same way and ends the factorization
+        end = e if full else n
+        for c in range(o, e):
             p = a[c, c]
             if not (p > tol):  # also catches NaN
                 return c
             d = math.sqrt(p)
             a[c, c] = d
             inv = 1.0 / d
-            for i in range(c + 1, o + TILE):
+            for i in range(c + 1, end):
                 a[i, c] *= inv
-            for i in range(c + 1, o + TILE):
+            for i in range(c + 1, end):
                 lic = a[i, c]
                 for j in range(c + 1, i + 1):
                     a[i, j] -= lic * a[j, c]
+        if not full:
+            break
         l10 = a[o + 1, o]
         l20 = a[o + 2, o]
         l21 = a[o + 2, o + 1]
@@ -100,7 +106,6 @@ def chol_partial(a, n, k, tol):
         i1 = 1.0 / a[o + 1, o + 1]
         i2 = 1.0 / a[o + 2, o + 2]
         i3 = 1.0 / a[o + 3, o + 3]
-        e = o + TILE
         # the rows below: x L_tile^T = row, by forward substitution
         for r in range(e, n):
             x0 = a[r, o] * i0
@@ -119,20 +124,6 @@ def chol_partial(a, n, k, tol):
             for j in range(e, r + 1):
                 a[r, j] -= u0 * a[j, o] + u1 * a[j, o + 1] + u2 * a[j, o + 2] + u3 * a[j, o + 3]
         o = e
-    # the last pivots when k is not a multiple of TILE: one at a time
-    for c in range(o, k):
-        p = a[c, c]
-        if not (p > tol):
-            return c
-        d = math.sqrt(p)
-        a[c, c] = d
-        inv = 1.0 / d
-        for i in range(c + 1, n):
-            a[i, c] *= inv
-        for i in range(c + 1, n):
-            lic = a[i, c]
-            for j in range(c + 1, i + 1):
-                a[i, j] -= lic * a[j, c]
     return -1
 
 
