@@ -98,3 +98,34 @@ def test_worker_errors_reach_the_caller(dask_cluster):
     with pytest.raises(geosim.NotPositiveDefiniteError, match="sample 5|sample 1"):
         simulate(xy, np.append(SCORES, 0.0), MODEL.structures[1] + geosim.Nugget(0.0), GRID, n_realizations=2,
                  seed=1, client=dask_cluster[1], neighbourhood=NB)
+
+
+# Connects its own client to the test cluster and calls simulate on the same data over and
+# over, as a notebook session does. Run in a child process so that a hang fails the test
+# (timeout) instead of stalling the suite.
+_BACK_TO_BACK = """
+import sys
+import numpy as np
+from dask.distributed import Client
+sys.path.insert(0, {tests!r})
+from test_simulation_runner import _run
+with Client({address!r}) as client:
+    first = _run(client=client, n_realizations=2)
+    for _ in range(10):
+        again = _run(client=client, n_realizations=2)
+        assert all(np.array_equal(a, b) for a, b in zip(first, again))
+print("ok")
+"""
+
+
+def test_repeated_calls_on_one_client_neither_hang_nor_lose_the_shared_data(dask_cluster):
+    # Before each call scattered its data under a fresh key, a call could ask for the key
+    # an earlier call of the same data was still releasing: the tasks waited forever or
+    # were cancelled with "lost dependencies" (seen within two calls in a loop of ten).
+    import os
+    import subprocess
+    import sys
+    script = _BACK_TO_BACK.format(tests=os.path.dirname(__file__), address=dask_cluster[0].scheduler_address)
+    done = subprocess.run([sys.executable, "-c", script], capture_output=True, text=True, timeout=180)
+    assert done.returncode == 0, done.stderr[-2000:]
+    assert done.stdout.strip().endswith("ok")

@@ -205,7 +205,10 @@ def _run_dask(client, eng, prepared, sink, seed, todo, progress) -> dict:
     if own:
         client = Client(client)
     try:
-        shared = client.scatter(prepared, broadcast=True)
+        # hash=False: a fresh key per call. A content-hashed key is shared with an earlier
+        # call's scatter of the same data, which the scheduler may still be releasing when
+        # this call's tasks ask for it ("lost dependencies").
+        shared = client.scatter(prepared, broadcast=True, hash=False)
         futures = [client.submit(_dask_task, eng, shared, sink, seed, i, pure=False) for i in todo]
         return _collect(futures, as_completed, lambda: client.cancel(futures), progress)
     finally:
