@@ -458,8 +458,9 @@ def cross_validate(spec: RunSpec, data: PreparedData | None = None, model=None, 
     if out_dir is not None:
         from .io.crossval import plot_crossval, write_crossval_csv
         out_dir = _claim(spec, out_dir, overwrite)
-        cv.files["cross_validation"] = [str(write_crossval_csv(result, out_dir / "cross_validation.csv",
-                                                               overwrite=True))]
+        cv.files["cross_validation"] = [str(write_crossval_csv(
+            result, out_dir / "cross_validation.csv", overwrite=True, units="normal score",
+            provenance=provenance_tags(spec, data, model)))]
         if spec["outputs.plots"]:
             cv.files["cross_validation"].append(str(plot_crossval(result, out_dir / "cross_validation.png",
                                                                   overwrite=True)))
@@ -732,6 +733,17 @@ def metal_factor(spec: RunSpec) -> float:
     return 0.01 if "%" in (spec["data.units"] or "") else 1.0
 
 
+def metal_unit(spec: RunSpec) -> str:
+    """Unit of the metal figure: tonnes for % grades at factor 0.01, grams for g/t at factor 1,
+    else the product written out."""
+    units, factor = spec["data.units"] or "", metal_factor(spec)
+    if "%" in units and factor == 0.01:
+        return "t"
+    if units.replace(" ", "") in ("g/t", "gpt") and factor == 1.0:
+        return "g"
+    return f"t x {units or 'grade unit'} x {factor:g}"
+
+
 def _checks(data: PreparedData, model, grid):
     """The per-realization reproduction checks of :mod:`geosim.validation`."""
     from .validation import RunChecks
@@ -743,7 +755,7 @@ def _writer(spec: RunSpec, data: PreparedData, model, grid, out_dir: Path):
     # overwrite=True: the folder was checked to belong to this run before anything is written
     return RealizationWriter(out_dir, grid, tags=provenance_tags(spec, data, model), units=spec["data.units"],
                              back_transform=data.transform.inverse, figures=_figures(spec, grid),
-                             measure=_checks(data, model, grid), overwrite=True)
+                             measure=_checks(data, model, grid), metal_unit=metal_unit(spec), overwrite=True)
 
 
 def simulate(spec: RunSpec, data: PreparedData | None = None, model=None, grid=None, *,

@@ -34,6 +34,26 @@ GEOSIM = [str(_SCRIPT)] if _SCRIPT.is_file() else [
     sys.executable, "-c", "import sys; from geosim_cli.main import main; sys.exit(main())"]
 
 
+def assert_plain_tables(out, expected):
+    """Every CSV of a run reads with ``pandas.read_csv`` defaults into the columns its CSVW
+    sidecar documents, with the caution there and no comment line in the table."""
+    pd = pytest.importorskip("pandas")
+    csvw = pytest.importorskip("csvw")
+    found = sorted(p.relative_to(out).as_posix() for p in out.rglob("*.csv"))
+    assert found == sorted(expected)
+    for name in found:
+        frame = pd.read_csv(out / name)
+        meta = json.loads((out / (name + "-metadata.json")).read_text())
+        assert meta["dc:description"] == geosim.CAUTION and meta["url"] == Path(name).name
+        columns = [c["name"] for c in meta["tableSchema"]["columns"]]
+        assert list(frame.columns) == columns, name
+        assert len(frame) > 0 and not frame.columns[0].startswith("#")
+        numeric = [c["name"] for c in meta["tableSchema"]["columns"] if c["datatype"] != "string"]
+        assert all(frame[c].dtype.kind in "if" for c in numeric), name
+        checked = csvw.CSVW(str(out / name), validate=True)
+        assert checked.is_valid, [str(w.message) for w in checked.warnings]
+
+
 def geosim_cmd(*args, **kwargs):
     return subprocess.run(GEOSIM + [str(a) for a in args], capture_output=True, text=True, timeout=300,
                           **kwargs)
@@ -71,6 +91,7 @@ def test_run_writes_described_outputs(reference):
     assert report["caution"] == geosim.CAUTION
     assert report["realizations"]["count"] == 60 and report["run_spec_sha256"]
     assert (out / "run-state" / "run.json").is_file()
+    assert_plain_tables(out, ["cross_validation.csv", "decision_figures.csv", "decision_spread.csv"])
 
 
 def test_killed_run_resumes_and_equals_an_uninterrupted_run(tmp_path, reference):
@@ -171,6 +192,7 @@ def test_ore_prospect_3d_run(tmp_path):
         assert src.crs.to_epsg() == 32750 and "z_bottom" in src.tags()
     spread = (out / "decision_spread.csv").read_text()
     assert "tonnage" in spread and "mean_grade" in spread
+    assert_plain_tables(out, ["cross_validation.csv", "decision_figures.csv", "decision_spread.csv"])
     assert "tonnage at cutoff 0.3" in result.stdout
 
 

@@ -16,6 +16,7 @@ from shapely.geometry import Polygon
 import geosim
 from geosim.cautions import CAUTION
 from geosim.errors import InputError
+from geosim.io.csvw import read_csv_metadata
 from geosim.io.geotiff import (RealizationWriter, read_realization, tile_size, verify_realization,
                                write_raster)
 from geosim.io.report import provenance
@@ -150,9 +151,9 @@ def test_realization_writer_end_to_end(tmp_path):
 
     # decision figures: the CSV holds each realization's tonnage, computed from the data-unit field
     lines = (tmp_path / "out" / "decision_figures.csv").read_text().splitlines()
-    assert lines[0] == "# " + CAUTION
-    header = lines[1].split(",")
-    first = dict(zip(header, lines[2].split(",")))
+    assert read_csv_metadata(tmp_path / "out" / "decision_figures.csv")["dc:description"] == CAUTION
+    header = lines[0].split(",")
+    first = dict(zip(header, lines[1].split(",")))
     assert first["realization"] == "0" and float(first["cutoff"]) == 0.5
     expect = grade_tonnage(np.exp(scores[0]), grid, [0.5], density=2.7, thickness=5.0)["tonnage"][0]
     assert float(first["tonnage"]) == pytest.approx(expect, rel=1e-9)

@@ -6,6 +6,7 @@ import pytest
 
 import geosim
 from geosim.io.crossval import plot_crossval, write_crossval_csv
+from geosim.io.csvw import read_csv_metadata
 from geosim.kriging import cross_validate
 from geosim.search import Neighbourhood
 from geosim.variogram import Anisotropy
@@ -24,11 +25,15 @@ def cv():
 
 def test_csv_round_trip(cv, tmp_path):
     assert np.isnan(cv.estimate).any() and np.isfinite(cv.estimate).any()
-    out = write_crossval_csv(cv, tmp_path / "cv.csv")
+    out = write_crossval_csv(cv, tmp_path / "cv.csv", units="g/t")
     lines = out.read_text(encoding="utf-8").splitlines()
-    assert lines[1] == "# " + geosim.CAUTION
-    assert any(line.startswith("# summary:") and "rmse=" in line for line in lines)
-    rows = list(csv.DictReader(line for line in lines if not line.startswith("#")))
+    assert not any(line.startswith("#") for line in lines)
+    meta = read_csv_metadata(out)
+    assert meta["dc:description"] == geosim.CAUTION and meta["url"] == "cv.csv"
+    assert any(n.startswith("summary:") and "rmse=" in n for n in meta["notes"])
+    units = {c["name"]: c.get("schema:unitText") for c in meta["tableSchema"]["columns"]}
+    assert units["estimate"] == "g/t" and units["kriging_variance"] == "(g/t)^2" and units["x"] == "m"
+    rows = list(csv.DictReader(lines))
     assert len(rows) == 40
     assert rows[0]["sample_id"] == cv.sample_ids[0] == "sample 0 (hole RC000)"
     for i, row in enumerate(rows):
@@ -41,8 +46,9 @@ def test_csv_round_trip(cv, tmp_path):
                 (cv.estimate[i] - cv.values[i]) / np.sqrt(cv.variance[i]), rel=1e-8, abs=1e-12)
         else:
             assert row["estimate"] == row["error"] == row["kriging_variance"] == ""
-    table = np.genfromtxt(out, delimiter=",", comments="#", skip_header=5, usecols=(3, 4))
+    table = np.genfromtxt(out, delimiter=",", skip_header=1, usecols=(3, 4))
     assert table.shape == (40, 2)
+    assert [c["name"] for c in meta["tableSchema"]["columns"]] == lines[0].split(",")
 
 
 def test_existing_files_are_not_replaced(cv, tmp_path):
@@ -52,13 +58,13 @@ def test_existing_files_are_not_replaced(cv, tmp_path):
         write_crossval_csv(cv, target)
     assert target.read_text() == "keep me"
     write_crossval_csv(cv, target, overwrite=True)
-    assert target.read_text().startswith("# geosim")
+    assert target.read_text().startswith("sample_id,")
     png = tmp_path / "cv.png"
     png.write_bytes(b"old")
     with pytest.raises(geosim.InputError):
         plot_crossval(cv, png)
     assert png.read_bytes() == b"old"
-    assert sorted(p.name for p in tmp_path.iterdir()) == ["cv.csv", "cv.png"]
+    assert sorted(p.name for p in tmp_path.iterdir()) == ["cv.csv", "cv.csv-metadata.json", "cv.png"]
 
 
 def test_plot_is_a_png_carrying_the_caution(cv, tmp_path):

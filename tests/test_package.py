@@ -12,10 +12,11 @@ ROOT = Path(__file__).resolve().parents[1]
 
 
 def test_import_loads_no_heavy_dependency():
-    # "import geosim compiles nothing": numba, scipy, matplotlib, rasterio and dask must not be
-    # imported until a feature that needs them is used.
+    # "import geosim compiles nothing": numba, scipy, matplotlib, rasterio, dask and the optional
+    # table, vector and cube libraries must not be imported until a feature that needs them is used.
     code = ("import sys, geosim; heavy = [m for m in ('numba', 'scipy', 'matplotlib', 'rasterio', "
-            "'dask', 'distributed') if m in sys.modules]; print(','.join(heavy))")
+            "'dask', 'distributed', 'pandas', 'geopandas', 'pyarrow', 'pyogrio', 'xarray', 'netCDF4', "
+            "'h5netcdf', 'zarr', 'tqdm', 'shapely', 'pyproj') if m in sys.modules]; print(','.join(heavy))")
     out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, check=True)
     assert out.stdout.strip() == ""
 

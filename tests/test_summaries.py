@@ -9,6 +9,7 @@ from scipy.stats.mstats import mquantiles
 import geosim
 from geosim.cautions import CAUTION
 from geosim.errors import InputError
+from geosim.io.csvw import read_csv_metadata
 from geosim.io.geotiff import write_raster
 from geosim.summaries import (decision_rows, decision_spread, fraction_above, fraction_below, grade_tonnage,
                               summarize_ensemble, summarize_realizations, summary_band_names,
@@ -163,10 +164,13 @@ def test_decision_spread_matches_numpy_and_skips_nan():
 
 def test_decision_csv_carries_the_caution_and_reads_back(tmp_path):
     figs = [{"cutoff": np.array([1.0]), "tonnage": np.array([10.0 * i])} for i in range(5)]
-    p = write_decision_csv(tmp_path / "spread.csv", decision_spread(figs))
+    p = write_decision_csv(tmp_path / "spread.csv", decision_spread(figs), units="%")
     lines = p.read_text().splitlines()
-    assert lines[0] == "# " + CAUTION
-    rows = list(csv.DictReader(lines[1:]))
+    assert lines[0] == "cutoff,figure,n,mean,P10,P50,P90"
+    meta = read_csv_metadata(p)
+    assert meta["dc:description"] == CAUTION
+    assert meta["tableSchema"]["columns"][0]["schema:unitText"] == "%"
+    rows = list(csv.DictReader(lines))
     assert float(rows[0]["P50"]) == pytest.approx(20.0)
     with pytest.raises(InputError, match="overwrite"):
         write_decision_csv(p, decision_spread(figs))

@@ -1,20 +1,19 @@
 """Cross-validation table (CSV) and figure (PNG).
 
-The table has a few ``#`` comment lines (the caution, the method, the model
-and the summary) and then one row per sample::
+The table is plain CSV, a header and one row per sample::
 
     sample_id,x,y[,z],value,estimate,kriging_variance,error,standardized_error,samples_used
 
 ``error = estimate - value``; empty cells mark samples that got no estimate.
-Readers that understand comment lines (``pandas.read_csv(path, comment="#")``,
-``numpy.genfromtxt``) read it directly.  The PNG carries the caution in its
-``Disclaimer`` text chunk.  Both are written atomically and never replace an
-existing file unless ``overwrite=True``.
+``pandas.read_csv(path)`` reads it with its defaults.  The caution, the
+method, the model, the summary and the columns' meaning and units are in the
+"CSV on the Web" sidecar ``cross_validation.csv-metadata.json``
+(:mod:`geosim.io.csvw`).  The PNG carries the caution in its ``Disclaimer``
+text chunk.  All are written atomically and never replace an existing file
+unless ``overwrite=True``.
 """
 from __future__ import annotations
 
-import csv
-import math
 import os
 from pathlib import Path
 
@@ -26,16 +25,13 @@ from .atomic import atomic_output
 __all__ = ["write_crossval_csv", "plot_crossval"]
 
 
-def _cell(v: float) -> str:
-    return "" if not math.isfinite(v) else f"{v:.10g}"
-
-
 def _summary_line(result) -> str:
     return ", ".join(f"{k}={v:.6g}" if isinstance(v, float) else f"{k}={v}"
                      for k, v in result.summary().items())
 
 
-def write_crossval_csv(result, path: str | os.PathLike, overwrite: bool = False) -> Path:
+def write_crossval_csv(result, path: str | os.PathLike, overwrite: bool = False, *, units: str = "",
+                       provenance: dict | None = None) -> Path:
     """Write a :class:`geosim.kriging.CrossValidationResult` as a CSV table.
 
     Parameters
@@ -45,6 +41,10 @@ def write_crossval_csv(result, path: str | os.PathLike, overwrite: bool = False)
         Output file; its folder must exist.
     overwrite : bool
         Replace an existing file.
+    units : str
+        Units of the values cross-validated (``"normal score"`` for scores).
+    provenance : dict, optional
+        The run's provenance (:func:`geosim.io.report.provenance`) for the sidecar.
 
     Returns
     -------
@@ -62,27 +62,30 @@ def write_crossval_csv(result, path: str | os.PathLike, overwrite: bool = False)
     >>> model = geosim.Spherical(1.0, geosim.Anisotropy((100.0, 100.0)))
     >>> cv = cross_validate(xy, [1.0, 2.0, 3.0, 4.0], model)
     >>> out = write_crossval_csv(cv, pathlib.Path(tempfile.mkdtemp()) / "cv.csv")
-    >>> out.read_text().splitlines()[4]
+    >>> out.read_text().splitlines()[0]
     'sample_id,x,y,value,estimate,kriging_variance,error,standardized_error,samples_used'
     """
-    d = result.coords.shape[1]
-    axes = ["x", "y", "z"][:d]
-    with atomic_output(path, overwrite) as tmp:
-        with open(tmp, "w", newline="", encoding="utf-8") as f:
-            f.write(f"# geosim leave-one-{result.leave_out}-out cross-validation\n")
-            f.write(f"# {CAUTION}\n")
-            model_text = " ".join(result.model_text.split())
-            f.write(f"# method: {result.method} kriging; left out: {result.leave_out}; model: {model_text}\n")
-            f.write(f"# summary: {_summary_line(result)}\n")
-            w = csv.writer(f, lineterminator="\n")
-            w.writerow(["sample_id", *axes, "value", "estimate", "kriging_variance", "error",
-                        "standardized_error", "samples_used"])
-            err, serr = result.error, result.standardized_error
-            for i in range(result.values.shape[0]):
-                w.writerow([result.sample_ids[i], *(f"{c:.10g}" for c in result.coords[i]),
-                            _cell(result.values[i]), _cell(result.estimate[i]), _cell(result.variance[i]),
-                            _cell(err[i]), _cell(serr[i]), int(result.n_used[i])])
-    return Path(path)
+    from .csvw import Column, write_csv_table
+
+    axes = ["x", "y", "z"][:result.coords.shape[1]]
+    sq = f"({units})^2" if units else ""
+    columns = [Column("sample_id", "sample label (or index) as given", "string"),
+               *(Column(a, f"{a} coordinate of the sample (metric CRS of the run)", unit="m") for a in axes),
+               Column("value", "the sample's value", unit=units),
+               Column("estimate", "kriged estimate at the sample with it left out (empty: no estimate)",
+                      unit=units),
+               Column("kriging_variance", "kriging variance of that estimate", unit=sq),
+               Column("error", "estimate - value", unit=units),
+               Column("standardized_error", "error / kriging standard deviation"),
+               Column("samples_used", "samples in the kriging system", "integer")]
+    model_text = " ".join(result.model_text.split())
+    rows = zip(result.sample_ids, *result.coords.T, result.values, result.estimate, result.variance,
+               result.error, result.standardized_error, result.n_used)
+    return write_csv_table(
+        path, columns, rows, title=f"geosim leave-one-{result.leave_out}-out cross-validation",
+        provenance=provenance, overwrite=overwrite,
+        notes=[f"method: {result.method} kriging; left out: {result.leave_out}; model: {model_text}",
+               f"summary: {_summary_line(result)}"])
 
 
 def plot_crossval(result, path: str | os.PathLike, overwrite: bool = False, *, title: str | None = None,

@@ -303,6 +303,8 @@ class RealizationWriter:
     measure : callable, optional
         ``measure(normal_scores, values) -> dict`` of per-realization validation
         statistics (see :class:`geosim.validation.RunChecks`).
+    metal_unit : str
+        Unit of the ``metal`` decision figure, for the decision tables' metadata.
     overwrite : bool
         Replace existing outputs.
 
@@ -316,7 +318,8 @@ class RealizationWriter:
     def __init__(self, folder: str | os.PathLike, grid, *, tags: Mapping[str, str] | None = None,
                  units: str = "", back_transform: Callable[[np.ndarray], np.ndarray] | None = None,
                  figures: Callable[[np.ndarray], dict] | None = None,
-                 measure: Callable[[np.ndarray, np.ndarray], dict] | None = None, overwrite: bool = False):
+                 measure: Callable[[np.ndarray, np.ndarray], dict] | None = None, metal_unit: str = "",
+                 overwrite: bool = False):
         self.folder = Path(folder)
         self.grid = grid
         self.tags = dict(tags or {})
@@ -324,6 +327,7 @@ class RealizationWriter:
         self.back_transform = back_transform
         self.figures = figures
         self.measure = measure
+        self.metal_unit = metal_unit
         self.overwrite = overwrite
 
     def realization_paths(self, index: int) -> list[Path]:
@@ -410,8 +414,10 @@ class RealizationWriter:
         figures = [r["figures"] for r in records]
         if all(f is not None for f in figures):
             rows = decision_rows(figures, indices)
-            p1 = write_decision_csv(self.folder / "decision_figures.csv", rows, self.overwrite)
-            p2 = write_decision_csv(self.folder / "decision_spread.csv", decision_spread(figures), self.overwrite)
+            meta = {"units": self.units, "metal_unit": self.metal_unit, "provenance": self.tags}
+            p1 = write_decision_csv(self.folder / "decision_figures.csv", rows, self.overwrite, **meta)
+            p2 = write_decision_csv(self.folder / "decision_spread.csv", decision_spread(figures), self.overwrite,
+                                    **meta)
             out["decision"] = [str(p1), str(p2)]
         if plots:
             out["plots"] = [str(p) for p in self._plots(records, cutoffs, out["summary"])]
