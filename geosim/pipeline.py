@@ -102,10 +102,23 @@ class TransformChain:
         self.steps = list(steps)
 
     def fit(self, values, weights=None) -> TransformChain:
+        """Fit every step in turn; ``data_scores_`` keeps the data's scores in input order.
+
+        The last step's own ``fit_transform`` gives tied data distinct scores (the
+        normal score transform's seeded tie order), where :meth:`transform` maps a
+        tie to its mean score; fitting, conditioning and validation use ``data_scores_``.
+        """
         v = np.asarray(values, dtype=float)
-        for step in self.steps:
+        for step in self.steps[:-1]:
             v = step.fit(v, weights).transform(v)
+        last = self.steps[-1]
+        v = last.fit_transform(v, weights) if hasattr(last, "fit_transform") else last.fit(v, weights).transform(v)
+        self.data_scores_ = np.asarray(v, dtype=float)
         return self
+
+    def fit_transform(self, values, weights=None) -> np.ndarray:
+        """Fit, then return the data's scores in input order (ties distinct)."""
+        return self.fit(values, weights).data_scores_.copy()
 
     def transform(self, values) -> np.ndarray:
         v = np.asarray(values, dtype=float)
@@ -135,7 +148,7 @@ class PreparedData:
     weights: np.ndarray | None   # declustering weights summing to 1, or None
     declustering: Any            # the declustering result (with its scan), or None
     transform: Any               # fitted transform, data units -> normal scores
-    scores: np.ndarray           # (n,) normal scores of the samples
+    scores: np.ndarray           # (n,) normal scores of the samples (ties distinct)
     notes: list[str] = field(default_factory=list)
 
     @property
@@ -239,7 +252,7 @@ def prepare_data(spec: RunSpec, progress: Progress | None = None) -> PreparedDat
     dc = decluster(spec, samples, progress)
     weights = None if dc is None else np.asarray(dc.weights, dtype=float)
     transform = fit_transform(spec, values, weights)
-    scores = transform.transform(values)
+    scores = transform.data_scores_  # ties distinct, as the transform documents
     notes = list(samples.notes) + ([dc.describe()] if dc is not None else [])
     return PreparedData(samples, values, weights, dc, transform, np.asarray(scores, dtype=float), notes)
 
