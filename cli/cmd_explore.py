@@ -23,5 +23,5 @@ def explore(ctx, spec, overrides):
     dc = data.declustering
     if dc is not None:
         rows = [(f"{size:g} m", f"{mean:.4g}" + ("  <- chosen" if size == dc.cell_size else ""))
-                for size, mean in zip(dc.sizes, dc.means)]
+                for size, mean in zip(dc.cell_sizes, dc.means)]
         table(rows, title="declustering scan (cell size: declustered mean)")

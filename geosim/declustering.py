@@ -7,9 +7,9 @@ from memory): cover the samples with a grid of cells of size
 ``s``; a sample in a cell holding ``n_c`` samples, among ``L`` occupied cells, gets
 the weight ``1 / (L n_c)``, so every occupied cell carries the same total weight
 and the weights sum to 1.  Because the result depends on where the grid starts,
-the weights are averaged over ``n_offsets`` grid origins shifted along the
-diagonal by ``s * i / n_offsets`` (``i = 0 .. n_offsets-1``) from the lower corner
-of the data.
+the weights are averaged over ``origin_shifts`` grid origins shifted along the
+diagonal by ``s * i / origin_shifts`` (``i = 0 .. origin_shifts-1``) from the lower
+corner of the data.
 
 The cell size is chosen by scanning sizes and taking the one that minimizes the
 declustered mean (when highs were drilled preferentially, the usual case in
@@ -24,6 +24,10 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from .retired import accepts_retired
+
+PICK_MEAN = ("lowest", "highest")
+
 
 @dataclass(frozen=True)
 class DeclusteringResult:
@@ -36,7 +40,7 @@ class DeclusteringResult:
     cell_size : float
         The chosen horizontal cell size (m); the vertical size is
         ``cell_size * vertical_ratio`` for 3-D data.
-    sizes : (m,) ndarray
+    cell_sizes : (m,) ndarray
         Cell sizes scanned.
     means : (m,) ndarray
         Declustered mean at each scanned size.
@@ -44,27 +48,28 @@ class DeclusteringResult:
         Equal-weight mean of the values.
     declustered_mean : float
         Weighted mean at the chosen size.
-    objective : str
-        ``"min"`` or ``"max"``.
+    pick_mean : str
+        ``"lowest"`` or ``"highest"``: which declustered mean chose the size.
     """
 
     weights: np.ndarray
     cell_size: float
-    sizes: np.ndarray
+    cell_sizes: np.ndarray
     means: np.ndarray
     naive_mean: float
     declustered_mean: float
-    objective: str
+    pick_mean: str
 
     def describe(self) -> str:
-        return (f"cell declustering: cell {self.cell_size:g} m chosen to {self.objective}imize the mean "
-                f"over {len(self.sizes)} sizes {self.sizes[0]:g}-{self.sizes[-1]:g} m; mean "
+        return (f"cell declustering: cell {self.cell_size:g} m, the size with the {self.pick_mean} mean "
+                f"over {len(self.cell_sizes)} sizes {self.cell_sizes[0]:g}-{self.cell_sizes[-1]:g} m; mean "
                 f"{self.naive_mean:.4g} -> {self.declustered_mean:.4g}")
 
 
-def cell_weights(coords: np.ndarray, size: float, *, n_offsets: int = 8,
+@accepts_retired("cell_weights")
+def cell_weights(coords: np.ndarray, size: float, *, origin_shifts: int = 8,
                  vertical_ratio: float = 1.0) -> np.ndarray:
-    """Cell declustering weights at one cell size, averaged over ``n_offsets`` origins.
+    """Cell declustering weights at one cell size, averaged over ``origin_shifts`` origins.
 
     Parameters
     ----------
@@ -72,7 +77,7 @@ def cell_weights(coords: np.ndarray, size: float, *, n_offsets: int = 8,
         Sample coordinates (m).
     size : float
         Horizontal cell size (m).
-    n_offsets : int
+    origin_shifts : int
         Number of grid origins averaged.
     vertical_ratio : float
         Vertical cell size as a fraction of ``size`` (3-D data only).
@@ -86,7 +91,7 @@ def cell_weights(coords: np.ndarray, size: float, *, n_offsets: int = 8,
     --------
     >>> import numpy, geosim.declustering as d
     >>> xy = numpy.array([[0.0, 0.0], [0.1, 0.0], [10.0, 0.0]])   # two close samples, one apart
-    >>> d.cell_weights(xy, 5.0, n_offsets=1).tolist()
+    >>> d.cell_weights(xy, 5.0, origin_shifts=1).tolist()
     [0.25, 0.25, 0.5]
     """
     xyz = _coords(coords)
@@ -98,8 +103,8 @@ def cell_weights(coords: np.ndarray, size: float, *, n_offsets: int = 8,
     low = xyz.min(axis=0)
     n = len(xyz)
     total = np.zeros(n)
-    for i in range(n_offsets):
-        origin = low - cell * (i / n_offsets)
+    for i in range(origin_shifts):
+        origin = low - cell * (i / origin_shifts)
         idx = np.floor((xyz - origin) / cell).astype(np.int64)
         keys, n_keys = _cell_keys(idx)
         if n_keys <= 16 * n:  # dense enough to count by cell number directly
@@ -112,9 +117,11 @@ def cell_weights(coords: np.ndarray, size: float, *, n_offsets: int = 8,
     return total / total.sum()
 
 
-def cell_declustering(coords, values, *, sizes: float | Sequence[float] | None = None,
-                      n_sizes: int = 24, n_offsets: int = 8, objective: str = "min",
-                      vertical_ratio: float = 1.0, progress=None) -> DeclusteringResult:
+@accepts_retired("cell_declustering")
+def cell_declustering(coords, values, *, size_range: Sequence[float] | None = None, size_count: int = 20,
+                      cell_sizes: float | Sequence[float] | None = None, origin_shifts: int = 8,
+                      pick_mean: str = "lowest", vertical_ratio: float = 1.0,
+                      progress=None) -> DeclusteringResult:
     """Declustering weights with the cell size chosen by a scan.
 
     Parameters
@@ -123,17 +130,19 @@ def cell_declustering(coords, values, *, sizes: float | Sequence[float] | None =
         Sample coordinates in metres.
     values : (n,) array_like
         The variable whose declustered mean steers the choice (finite values).
-    sizes : float or sequence of float, optional
-        One size (no scan) or the sizes to scan.  Default: ``n_sizes`` sizes evenly
-        spaced from ``D / (2 n_sizes)`` to ``D / 2``, ``D`` the larger horizontal
-        extent of the data (common practice, no source).
-    n_sizes : int
-        Number of sizes in the default scan.
-    n_offsets : int
+    size_range : (smallest, largest), optional
+        Scan ``size_count`` sizes evenly spaced over this range (metres).  Default:
+        from ``D / (2 size_count)`` to ``D / 2``, ``D`` the larger horizontal extent
+        of the data (common practice, no source).
+    size_count : int
+        Number of sizes scanned over ``size_range``.
+    cell_sizes : float or sequence of float, optional
+        Instead of a range: one size (no scan) or the exact sizes to scan.
+    origin_shifts : int
         Grid origins averaged at each size.
-    objective : {"min", "max"}
-        Choose the size with the smallest declustered mean (highs were sampled
-        preferentially) or the largest (lows were).
+    pick_mean : {"lowest", "highest"}
+        Choose the size with the lowest declustered mean (highs were sampled
+        preferentially) or the highest (lows were).
     vertical_ratio : float
         Vertical cell size as a fraction of the horizontal size (3-D data).
     progress : callable, optional
@@ -147,7 +156,7 @@ def cell_declustering(coords, values, *, sizes: float | Sequence[float] | None =
     --------
     >>> import numpy, geosim
     >>> xy = numpy.array([[0.0, 0.0], [0.1, 0.0], [0.2, 0.0], [10.0, 0.0], [20.0, 0.0]])
-    >>> r = geosim.cell_declustering(xy, [5.0, 5.0, 5.0, 1.0, 1.0], sizes=[0.05, 5.0], n_offsets=1)
+    >>> r = geosim.cell_declustering(xy, [5.0, 5.0, 5.0, 1.0, 1.0], cell_sizes=[0.05, 5.0], origin_shifts=1)
     >>> r.cell_size, round(r.declustered_mean, 6)   # the cluster counts once at 5 m
     (5.0, 2.333333)
     """
@@ -157,32 +166,41 @@ def cell_declustering(coords, values, *, sizes: float | Sequence[float] | None =
         raise ValueError(f"values must have one entry per sample ({len(xyz)}), got {v.shape}")
     if not np.isfinite(v).all():
         raise ValueError("values must be finite; remove samples without a value first")
-    if objective not in ("min", "max"):
-        raise ValueError(f"objective must be 'min' or 'max', got {objective!r}")
-    if n_offsets < 1:
-        raise ValueError("n_offsets must be at least 1")
-    if sizes is None:
+    if pick_mean not in PICK_MEAN:
+        raise ValueError(f"pick_mean must be 'lowest' or 'highest', got {pick_mean!r}")
+    if origin_shifts < 1:
+        raise ValueError("origin_shifts must be at least 1")
+    if size_count < 1:
+        raise ValueError("size_count must be at least 1")
+    if cell_sizes is not None and size_range is not None:
+        raise ValueError("give size_range or cell_sizes, not both")
+    if cell_sizes is not None:
+        scan = np.atleast_1d(np.asarray(cell_sizes, dtype=np.float64))
+        if scan.ndim != 1 or not (scan > 0).all():
+            raise ValueError(f"cell sizes must be positive, got {cell_sizes}")
+        scan = np.sort(scan)
+    elif size_range is not None:
+        lo, hi = (float(s) for s in size_range)
+        if not 0 < lo <= hi:
+            raise ValueError(f"size_range must be (smallest, largest) with 0 < smallest <= largest, got {size_range}")
+        scan = np.linspace(lo, hi, size_count)
+    else:
         extent = float(np.ptp(xyz[:, :2], axis=0).max())
         if not extent > 0:
             raise ValueError("all samples share one horizontal position; nothing to decluster")
-        scan = np.linspace(extent / (2 * n_sizes), extent / 2, n_sizes)
-    else:
-        scan = np.atleast_1d(np.asarray(sizes, dtype=np.float64))
-        if scan.ndim != 1 or not (scan > 0).all():
-            raise ValueError(f"cell sizes must be positive, got {sizes}")
-        scan = np.sort(scan)
+        scan = np.linspace(extent / (2 * size_count), extent / 2, size_count)
     means = np.empty(len(scan))
     all_weights = []
     for k, s in enumerate(scan):
-        w = cell_weights(xyz, s, n_offsets=n_offsets, vertical_ratio=vertical_ratio)
+        w = cell_weights(xyz, s, origin_shifts=origin_shifts, vertical_ratio=vertical_ratio)
         all_weights.append(w)
         means[k] = float(w @ v)
         if progress is not None:
             progress(k + 1, len(scan), "declustering cell sizes")
     # ties between sizes go to the smallest size, the least smoothing
-    best = int(np.argmin(means) if objective == "min" else np.argmax(means))
+    best = int(np.argmin(means) if pick_mean == "lowest" else np.argmax(means))
     return DeclusteringResult(all_weights[best], float(scan[best]), scan, means, float(v.mean()),
-                              float(means[best]), objective)
+                              float(means[best]), pick_mean)
 
 
 def _cell_keys(idx: np.ndarray) -> tuple[np.ndarray, int]:

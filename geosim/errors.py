@@ -16,6 +16,14 @@ class GeosimWarning(UserWarning):
     """Something geosim changed or chose for the user (merged duplicates, a picked CRS)."""
 
 
+class RetiredNameWarning(GeosimWarning, FutureWarning):
+    """An old spelling of a setting was used; it still works for this release only.
+
+    The message names the new key or keyword.  A :class:`FutureWarning` too, so Python
+    shows it by default (it is meant for the people who write run specs and scripts).
+    """
+
+
 class InputError(GeosimError, ValueError):
     """Bad user input: a file, a row, a field, and what would fix it.
 

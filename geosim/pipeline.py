@@ -217,9 +217,8 @@ def decluster(spec: RunSpec, samples, progress: Progress | None = None):
         return None
     from .declustering import cell_declustering
     values = samples.column(spec["data.value"])
-    sizes = None if dc["sizes"] is None else np.linspace(dc["sizes"][0], dc["sizes"][1], dc["count"])
-    return cell_declustering(samples.coords, values, sizes=sizes, n_sizes=dc["count"],
-                             n_offsets=dc["offsets"], objective=dc["objective"],
+    return cell_declustering(samples.coords, values, size_range=dc["size_range"], size_count=dc["size_count"],
+                             origin_shifts=dc["origin_shifts"], pick_mean=dc["pick_mean"],
                              progress=_relabel(progress, "declustering sizes"))
 
 
@@ -234,8 +233,10 @@ def fit_transform(spec: RunSpec, values: np.ndarray, weights: np.ndarray | None 
         steps.append(LogTransform(base=10.0, name=name))
         lower = None if lower is None else math.log10(lower)
         upper = None if upper is None else math.log10(upper)
-    steps.append(NormalScoreTransform(lower=lower, upper=upper, upper_tail=tr["upper_tail"],
-                                      upper_omega=tr["tail_power"], seed=spec["simulation.seed"], name=name))
+    steps.append(NormalScoreTransform(lower=lower, upper=upper, lower_tail=tr["lower_tail"],
+                                      upper_tail=tr["upper_tail"], lower_exponent=tr["lower_exponent"],
+                                      upper_exponent=tr["upper_exponent"], seed=spec["simulation.seed"],
+                                      name=name))
     return TransformChain(steps).fit(values, weights)
 
 
@@ -388,8 +389,10 @@ def experimental_variograms(spec: RunSpec, data: PreparedData, progress: Progres
         # half the diagonal of the data's horizontal extent, split into lag_count bins
         # (common practice, no source)
         lag = float(np.hypot(*np.ptp(data.coords[:, :2], axis=0))) / 2.0 / vg["lag_count"]
-    directions = [Direction(d["azimuth"], d["dip"], azimuth_tol=d["tolerance"], dip_tol=d["tolerance"],
-                            bandwidth_h=d["bandwidth"] or np.inf, bandwidth_v=d["bandwidth"] or np.inf)
+    directions = [Direction(d["azimuth"], d["dip"], horizontal_half_angle=d["horizontal_half_angle"],
+                            vertical_half_angle=d["vertical_half_angle"],
+                            horizontal_max_offset=d["horizontal_max_offset"] or np.inf,
+                            vertical_max_offset=d["vertical_max_offset"] or np.inf)
                   for d in spec["variogram.directions"]] or [None]
     return directional_variograms(data.coords, data.scores, directions, lag=lag, nlags=vg["lag_count"],
                                   progress=progress)

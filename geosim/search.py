@@ -25,6 +25,8 @@ from numba import njit
 _BLOCK_ENTRIES = 1 << 21
 # a sample lying exactly on the search ellipsoid counts as inside
 _RADIUS_SLACK = 1e-9
+# sector settings by name -> number of parts
+SECTORS = {"off": 0, "quadrants": 4, "octants": 8}
 
 
 @dataclass(frozen=True)
@@ -43,8 +45,10 @@ class Neighbourhood:
     azimuth, dip, rake : float or None
         Orientation of the search ellipsoid (degrees, the convention of
         :mod:`geosim.variogram.anisotropy`). None takes the model's.
-    sectors : int
-        0 for no sectors, 4 for quadrants (2-D), 8 for octants (3-D).
+    sectors : {"off", "quadrants", "octants"} or {0, 4, 8}
+        Split the search around the node into quadrants (sign patterns along the
+        ellipsoid's major and minor axes) or octants (and along its third axis),
+        or not at all.  Stored as the number of parts (0, 4 or 8).
     max_per_sector : int or None
         Most samples taken from one sector.  With ``sectors`` set and this left
         None, ``ceil(max_samples / sectors)`` is used, so the samples spread
@@ -68,17 +72,21 @@ class Neighbourhood:
     azimuth: float | None = None
     dip: float | None = None
     rake: float | None = None
-    sectors: int = 0
+    sectors: int | str = 0
     max_per_sector: int | None = None
     max_per_hole: int | None = None
     max_nodes: int = 16
 
     def __post_init__(self):
+        if isinstance(self.sectors, str):
+            if self.sectors not in SECTORS:
+                raise ValueError(f"sectors must be 'off', 'quadrants' or 'octants', got {self.sectors!r}")
+            object.__setattr__(self, "sectors", SECTORS[self.sectors])
         if self.max_samples < 1 or self.min_samples < 0 or self.min_samples > self.max_samples:
             raise ValueError(f"need 0 <= min_samples <= max_samples and max_samples >= 1, got "
                              f"{self.min_samples} and {self.max_samples}")
         if self.sectors not in (0, 4, 8):
-            raise ValueError(f"sectors must be 0, 4 or 8, got {self.sectors}")
+            raise ValueError(f"sectors must be 'off', 'quadrants' or 'octants' (0, 4 or 8), got {self.sectors}")
         if self.max_nodes < 0:
             raise ValueError(f"max_nodes must be >= 0, got {self.max_nodes}")
         for name in ("max_per_sector", "max_per_hole"):

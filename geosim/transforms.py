@@ -22,33 +22,49 @@ equal to a tied data value map to the weighted mean score of the tie.
 
 Between the smallest and the largest datum the back-transform interpolates
 linearly between the points ``(y_i, v_i)``.  Outside, with ``P = Phi(y)``,
-``p_1``, ``p_n`` the first and last plotting positions and ``v_1``, ``v_n`` the
-extreme data:
+``p_1``, ``p_n`` the first and last plotting positions, ``v_1``, ``v_n`` the
+extreme data and ``k`` the tail's ``exponent``, the tails are named after the
+distribution the values beyond the extreme datum follow:
 
-* lower ``"linear"``:  ``v = lo + (v_1 - lo) * P / p_1`` (``lo`` = ``lower``)
-* lower ``"power"``:   ``v = lo + (v_1 - lo) * (P / p_1) ** (1 / omega)``
-* upper ``"linear"``:  ``v = v_n + (hi - v_n) * (P - p_n) / (1 - p_n)`` (``hi`` = ``upper``)
-* upper ``"power"``:   ``v = v_n + (hi - v_n) * ((P - p_n) / (1 - p_n)) ** (1 / omega)``
-* upper ``"hyperbolic"``: ``1 - F(v) = (1 - p_n) (v_n / v) ** omega`` for ``v > v_n``, i.e.
-  ``v = v_n * ((1 - p_n) / (1 - P)) ** (1 / omega)``, unbounded, for positively
-  skewed grades; ``omega >= 1``, larger is a thinner tail, and the tail has a
-  finite mean only for ``omega > 1`` (default 1.5).
+* lower ``"uniform"``: ``v = lo + (v_1 - lo) * P / p_1`` (``lo`` = ``lower``): values
+  spread evenly between the bound and the smallest datum;
+* lower ``"power"``:   ``v = lo + (v_1 - lo) * (P / p_1) ** (1 / k)``, i.e.
+  ``F(v) = p_1 ((v - lo) / (v_1 - lo)) ** k``, a power-function distribution;
+* upper ``"uniform"``: ``v = v_n + (hi - v_n) * (P - p_n) / (1 - p_n)`` (``hi`` = ``upper``);
+* upper ``"power"``:   ``v = v_n + (hi - v_n) * ((P - p_n) / (1 - p_n)) ** (1 / k)``;
+* upper ``"pareto"``:  ``1 - F(v) = (1 - p_n) (v_n / v) ** k`` for ``v > v_n``, i.e.
+  ``v = v_n * ((1 - p_n) / (1 - P)) ** (1 / k)``: a Pareto (power-law) tail with
+  tail index ``k``, unbounded, for positively skewed grades.  Its mean is finite
+  only for ``k > 1`` and its variance only for ``k > 2``; with ``k <= 2`` the
+  largest simulated values grow without limit as more nodes are simulated, so
+  the transform warns (the Pareto distribution's moments: Johnson, Kotz and
+  Balakrishnan 1994, Continuous Univariate Distributions, vol. 1, 2nd ed., Wiley,
+  chapter 20, from memory).
 
-The linear tails are the power tails with ``omega = 1``.  These are the tail
-models of Deutsch and Journel (1998), GSLIB: Geostatistical Software Library and
-User's Guide, 2nd ed., Oxford University Press, chapter V, tail extrapolation
-(from memory, section not checked; the formulas above are the ones implemented).  The forward transform of values outside
-the data range inverts the same tail model, so ``inverse(transform(v)) == v``.
+The uniform tails are the power tails with ``k = 1``.  Default exponents: 1 for
+``"uniform"``, 1.5 for ``"power"`` (values crowd towards the bound less than
+uniformly) and 3 for ``"pareto"`` (a finite variance).  Tail extrapolation of the
+normal score transform follows Goovaerts (1997), Geostatistics for Natural
+Resources Evaluation, Oxford University Press, section 7.2 (from memory, section
+not checked; the formulas above are the ones implemented).  The forward
+transform of values outside the data range inverts the same tail model, so
+``inverse(transform(v)) == v``.
 """
 from __future__ import annotations
 
+import warnings
 from collections.abc import Mapping
 
 import numpy as np
 
-from .errors import InputError
+from .errors import GeosimWarning, InputError, RetiredNameWarning
+from .retired import accepts_retired
 
 _TINY = 1e-12  # probabilities are kept in [_TINY, 1 - _TINY] so scores stay finite
+LOWER_TAILS = ("uniform", "power")
+UPPER_TAILS = ("uniform", "power", "pareto")
+# the exponent each tail takes when none is given (module docstring)
+DEFAULT_EXPONENT = {"uniform": 1.0, "power": 1.5, "pareto": 3.0}
 
 
 def _ndtr(y):
@@ -170,6 +186,16 @@ class LogTransform:
         return {"kind": self.kind, "base": self.base, "offset": self.offset, "name": self.name}
 
 
+def infinite_variance_note(exponent: float, name: str | None = None) -> str:
+    """The warning for a Pareto upper tail without a finite variance (``exponent <= 2``)."""
+    who = f" of {name}" if name else ""
+    return (f"the Pareto upper tail{who} with exponent {exponent:g} has an infinite variance (it needs "
+            f"an exponent above 2): realization maxima can lie far above the largest datum and "
+            f"standard deviations in data units become unstable; give an exponent above 2, or a "
+            f"bounded tail (\"uniform\" or \"power\" up to an upper value)")
+
+
+@accepts_retired("NormalScoreTransform")
 class NormalScoreTransform:
     """Transform to standard normal scores by matching quantiles, with tail models.
 
@@ -179,13 +205,16 @@ class NormalScoreTransform:
     Parameters
     ----------
     lower, upper : float, optional
-        Bounds of the linear/power tails.  Default: the data minimum and maximum
-        extended by 10 % of the data range, and ``lower`` not below 0 when every
-        datum is >= 0.
-    lower_tail : {"linear", "power"}
-    upper_tail : {"linear", "power", "hyperbolic"}
-    lower_omega, upper_omega : float
-        Exponents of the power and hyperbolic tails (``>= 1`` for hyperbolic).
+        Bounds of the uniform and power tails.  Default: the data minimum and
+        maximum extended by 10 % of the data range, and ``lower`` not below 0 when
+        every datum is >= 0.
+    lower_tail : {"uniform", "power"}
+    upper_tail : {"uniform", "power", "pareto"}
+    lower_exponent, upper_exponent : float, optional
+        The tails' exponents ``k`` (module docstring); default 1 for a uniform,
+        1.5 for a power and 3 for a Pareto tail.  A Pareto tail needs ``k >= 1``
+        and warns (:class:`~geosim.errors.GeosimWarning`) for ``k <= 2``, where its
+        variance is infinite.
     ties : {"random", "order"}
         How equal values are ordered before scores are assigned.
     seed : int
@@ -219,21 +248,26 @@ class NormalScoreTransform:
     kind = "normal_score"
 
     def __init__(self, *, lower: float | None = None, upper: float | None = None,
-                 lower_tail: str = "linear", upper_tail: str = "linear", lower_omega: float = 1.0,
-                 upper_omega: float = 1.5, ties: str = "random", seed: int = 0, name: str | None = None):
-        if lower_tail not in ("linear", "power"):
-            raise ValueError(f"lower_tail must be 'linear' or 'power', got {lower_tail!r}")
-        if upper_tail not in ("linear", "power", "hyperbolic"):
-            raise ValueError(f"upper_tail must be 'linear', 'power' or 'hyperbolic', got {upper_tail!r}")
-        if not lower_omega > 0 or not upper_omega > 0:
+                 lower_tail: str = "uniform", upper_tail: str = "uniform", lower_exponent: float | None = None,
+                 upper_exponent: float | None = None, ties: str = "random", seed: int = 0,
+                 name: str | None = None):
+        if lower_tail not in LOWER_TAILS:
+            raise ValueError(f"lower_tail must be 'uniform' or 'power', got {lower_tail!r}")
+        if upper_tail not in UPPER_TAILS:
+            raise ValueError(f"upper_tail must be 'uniform', 'power' or 'pareto', got {upper_tail!r}")
+        lower_exponent = DEFAULT_EXPONENT[lower_tail] if lower_exponent is None else float(lower_exponent)
+        upper_exponent = DEFAULT_EXPONENT[upper_tail] if upper_exponent is None else float(upper_exponent)
+        if not lower_exponent > 0 or not upper_exponent > 0:
             raise ValueError("tail exponents must be positive")
-        if upper_tail == "hyperbolic" and upper_omega < 1.0:
-            raise ValueError(f"the hyperbolic tail needs upper_omega >= 1, got {upper_omega}")
+        if upper_tail == "pareto" and upper_exponent < 1.0:
+            raise ValueError(f"the Pareto tail needs upper_exponent >= 1 (a finite mean), got {upper_exponent}")
+        if upper_tail == "pareto" and upper_exponent <= 2.0:
+            warnings.warn(infinite_variance_note(upper_exponent, name), GeosimWarning, stacklevel=3)
         if ties not in ("random", "order"):
             raise ValueError(f"ties must be 'random' or 'order', got {ties!r}")
         self.lower, self.upper = lower, upper
         self.lower_tail, self.upper_tail = lower_tail, upper_tail
-        self.lower_omega, self.upper_omega = float(lower_omega), float(upper_omega)
+        self.lower_exponent, self.upper_exponent = lower_exponent, upper_exponent
         self.ties, self.seed, self.name = ties, int(seed), name
 
     # fitting -----------------------------------------------------------------
@@ -265,9 +299,9 @@ class NormalScoreTransform:
         data_scores = np.empty(n)
         data_scores[order] = y
         lo, hi = self._bounds(vs)
-        if self.upper_tail == "hyperbolic" and not vs[-1] > 0:
-            raise InputError("the hyperbolic upper tail needs a positive largest value", field=self.name,
-                             fix="use upper_tail='linear' or 'power'")
+        if self.upper_tail == "pareto" and not vs[-1] > 0:
+            raise InputError("the Pareto upper tail needs a positive largest value", field=self.name,
+                             fix="use upper_tail='uniform' or 'power'")
         self.values_, self.scores_, self.probabilities_, self.weights_ = vs, y, p, ws
         self.data_scores_ = data_scores
         self.lower_, self.upper_ = lo, hi
@@ -284,7 +318,7 @@ class NormalScoreTransform:
         if lo > vs[0]:
             raise InputError(f"lower bound {lo} is above the smallest value {vs[0]}", field=self.name,
                              fix="set lower at or below the data minimum")
-        if self.upper_tail != "hyperbolic" and hi < vs[-1]:
+        if self.upper_tail != "pareto" and hi < vs[-1]:
             raise InputError(f"upper bound {hi} is below the largest value {vs[-1]}", field=self.name,
                              fix="set upper at or above the data maximum")
         return float(lo), float(hi)
@@ -315,14 +349,14 @@ class NormalScoreTransform:
             if low.any():
                 frac = np.clip((v[low] - self.lower_) / (v1 - self.lower_), 0.0, 1.0) if v1 > self.lower_ \
                     else np.zeros(low.sum())
-                om = self.lower_omega if self.lower_tail == "power" else 1.0
+                om = self.lower_exponent if self.lower_tail == "power" else 1.0
                 out[low] = _ndtri(np.clip(p1 * frac ** om, _TINY, p1))
             high = v > vn
             if high.any():
-                if self.upper_tail == "hyperbolic":
-                    q = (1.0 - pn) * (vn / v[high]) ** self.upper_omega
+                if self.upper_tail == "pareto":
+                    q = (1.0 - pn) * (vn / v[high]) ** self.upper_exponent
                 else:
-                    om = self.upper_omega if self.upper_tail == "power" else 1.0
+                    om = self.upper_exponent if self.upper_tail == "power" else 1.0
                     frac = np.clip((v[high] - vn) / (self.upper_ - vn), 0.0, 1.0) if self.upper_ > vn \
                         else np.ones(high.sum())
                     q = (1.0 - pn) * (1.0 - frac ** om)
@@ -341,15 +375,15 @@ class NormalScoreTransform:
         low = y < self.scores_[0]
         if low.any():
             frac = _ndtr(y[low]) / p1
-            om = self.lower_omega if self.lower_tail == "power" else 1.0
+            om = self.lower_exponent if self.lower_tail == "power" else 1.0
             out[low] = self.lower_ + (v1 - self.lower_) * frac ** (1.0 / om)
         high = y > self.scores_[-1]
         if high.any():
             q = _ndtr(-y[high])  # 1 - Phi(y) without cancellation in the far tail
-            if self.upper_tail == "hyperbolic":
-                out[high] = vn * ((1.0 - pn) / np.maximum(q, 1e-300)) ** (1.0 / self.upper_omega)
+            if self.upper_tail == "pareto":
+                out[high] = vn * ((1.0 - pn) / np.maximum(q, 1e-300)) ** (1.0 / self.upper_exponent)
             else:
-                om = self.upper_omega if self.upper_tail == "power" else 1.0
+                om = self.upper_exponent if self.upper_tail == "power" else 1.0
                 frac = np.clip(1.0 - q / (1.0 - pn), 0.0, 1.0)
                 out[high] = vn + (self.upper_ - vn) * frac ** (1.0 / om)
         out[np.isnan(y)] = np.nan
@@ -362,13 +396,14 @@ class NormalScoreTransform:
     # reporting ---------------------------------------------------------------
     def describe(self) -> str:
         self._check_fitted()
-        lower = (f"lower tail {self.lower_tail} to {self.lower_:g}"
-                 + (f" (omega {self.lower_omega:g})" if self.lower_tail == "power" else ""))
-        if self.upper_tail == "hyperbolic":
-            upper = f"upper tail hyperbolic (omega {self.upper_omega:g})"
+        lower = (f"lower tail {self.lower_tail} down to {self.lower_:g}"
+                 + (f" (exponent {self.lower_exponent:g})" if self.lower_tail == "power" else ""))
+        if self.upper_tail == "pareto":
+            finite = "finite variance" if self.upper_exponent > 2.0 else "infinite variance"
+            upper = f"upper tail pareto, unbounded (exponent {self.upper_exponent:g}, {finite})"
         else:
-            upper = (f"upper tail {self.upper_tail} to {self.upper_:g}"
-                     + (f" (omega {self.upper_omega:g})" if self.upper_tail == "power" else ""))
+            upper = (f"upper tail {self.upper_tail} up to {self.upper_:g}"
+                     + (f" (exponent {self.upper_exponent:g})" if self.upper_tail == "power" else ""))
         weighted = "declustering weights" if not np.allclose(self.weights_, self.weights_[0]) else "equal weights"
         who = f" of {self.name}" if self.name else ""
         return (f"normal score transform{who}: {len(self.values_)} values ({weighted}), data range "
@@ -379,7 +414,7 @@ class NormalScoreTransform:
         self._check_fitted()
         return {"kind": self.kind, "name": self.name,
                 "lower_tail": self.lower_tail, "upper_tail": self.upper_tail,
-                "lower_omega": self.lower_omega, "upper_omega": self.upper_omega,
+                "lower_exponent": self.lower_exponent, "upper_exponent": self.upper_exponent,
                 "lower": self.lower_, "upper": self.upper_, "ties": self.ties, "seed": self.seed,
                 "values": self.values_.tolist(), "weights": self.weights_.tolist()}
 
@@ -387,9 +422,13 @@ class NormalScoreTransform:
     def from_dict(cls, d: Mapping) -> NormalScoreTransform:
         """Rebuild from :meth:`to_dict`: the same mapping both ways (``data_scores_`` then
         follow the stored, sorted order, since the input order is not stored)."""
-        t = cls(lower=d["lower"], upper=d["upper"], lower_tail=d["lower_tail"], upper_tail=d["upper_tail"],
-                lower_omega=d["lower_omega"], upper_omega=d["upper_omega"], ties="order",
-                seed=d.get("seed", 0), name=d.get("name"))
+        # a dictionary written before the renames carries lower_omega/upper_omega
+        exponents = {k: d[k] for k in ("lower_exponent", "upper_exponent", "lower_omega", "upper_omega") if k in d}
+        with warnings.catch_warnings():  # the tail was judged when the transform was first made
+            warnings.simplefilter("ignore", GeosimWarning)
+            warnings.simplefilter("default", RetiredNameWarning)
+            t = cls(lower=d["lower"], upper=d["upper"], lower_tail=d["lower_tail"], upper_tail=d["upper_tail"],
+                    ties="order", seed=d.get("seed", 0), name=d.get("name"), **exponents)
         # the stored values are already in their broken-tie order, so "order" reproduces the table
         t.fit(d["values"], d["weights"])
         t.ties = d.get("ties", "random")

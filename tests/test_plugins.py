@@ -483,7 +483,7 @@ def test_fitting_honours_a_plugin_parameter_range(plugin):
     lags = np.arange(1, 21) * 15.0
     gamma = truth.semivariance(np.column_stack([lags, 0.0 * lags]))
     ev = ExperimentalVariogram(centres=lags, lags=lags, gamma=gamma, npairs=np.full(20, 500), lag=15.0,
-                               lag_tol=7.5, kind="omnidirectional", direction=None, estimator="matheron",
+                               lag_half_width=7.5, kind="omnidirectional", direction=None, estimator="matheron",
                                variance=1.0, extent=3000.0, dim=2, nsamples=600)
     fit = fit_model(ev, Model([cauchy(1.0, 150.0, param=2.0)]), fixed=["0.sill", "0.major"])
     assert fit.params_["0.shape"] == pytest.approx(12.0, rel=1e-3)

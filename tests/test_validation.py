@@ -29,7 +29,7 @@ def test_axis_semivariogram_matches_the_scattered_pair_engine():
     # east along array axis 1 (2 m steps); geosim.variogram.experimental with a tight cone is the reference
     gam, npairs = axis_semivariogram(field, 1, [1, 3, 5])
     ev = experimental_variogram(xy, field.ravel(), lag=2.0, nlags=6,
-                                direction=Direction(azimuth=90.0, azimuth_tol=1.0, bandwidth_h=0.5))
+                                direction=Direction(azimuth=90.0, horizontal_half_angle=1.0, horizontal_max_offset=0.5))
     np.testing.assert_allclose(gam, ev.gamma[[1, 3, 5]], rtol=1e-10)
     np.testing.assert_array_equal(npairs, ev.npairs[[1, 3, 5]])
 

@@ -9,7 +9,7 @@ from geosim.variogram import (Direction, directional_variograms, downhole_variog
                               experimental_variogram, variogram_map)
 
 
-def brute_force(coords, values, lag, nlags, lag_tol, direction=None, robust=False, holes=None):
+def brute_force(coords, values, lag, nlags, lag_half_width, direction=None, robust=False, holes=None):
     """Plain double loop written straight from the definitions in the module docstring."""
     c = np.zeros((len(values), 3))
     c[:, :coords.shape[1]] = coords
@@ -33,16 +33,16 @@ def brute_force(coords, values, lag, nlags, lag_tol, direction=None, robust=Fals
                 continue
             if direction is not None:
                 a, b, cc = abs(h @ u), abs(h @ v), abs(h @ w)
-                if direction.azimuth_tol < 90 and math.degrees(math.atan2(b, a)) > direction.azimuth_tol:
+                if direction.horizontal_half_angle < 90 and math.degrees(math.atan2(b, a)) > direction.horizontal_half_angle:
                     continue
-                if coords.shape[1] == 3 and direction.dip_tol < 90 and \
-                        math.degrees(math.atan2(cc, a)) > direction.dip_tol:
+                if coords.shape[1] == 3 and direction.vertical_half_angle < 90 and \
+                        math.degrees(math.atan2(cc, a)) > direction.vertical_half_angle:
                     continue
-                if b > direction.bandwidth_h or cc > direction.bandwidth_v:
+                if b > direction.horizontal_max_offset or cc > direction.vertical_max_offset:
                     continue
             for k in range(nlags):
                 centre = k * lag
-                if centre - lag_tol <= d < centre + lag_tol:
+                if centre - lag_half_width <= d < centre + lag_half_width:
                     counts[k] += 1
                     dist[k] += d
                     diff = values[j] - values[i]
@@ -64,17 +64,17 @@ def data3d():
 
 @pytest.mark.parametrize("direction", [
     None,
-    Direction(30.0, 0.0, azimuth_tol=20.0, dip_tol=15.0),
-    Direction(120.0, 25.0, azimuth_tol=30.0, dip_tol=10.0, bandwidth_h=15.0, bandwidth_v=5.0),
-    Direction(0.0, 90.0, azimuth_tol=90.0, dip_tol=30.0),
+    Direction(30.0, 0.0, horizontal_half_angle=20.0, vertical_half_angle=15.0),
+    Direction(120.0, 25.0, horizontal_half_angle=30.0, vertical_half_angle=10.0, horizontal_max_offset=15.0, vertical_max_offset=5.0),
+    Direction(0.0, 90.0, horizontal_half_angle=90.0, vertical_half_angle=30.0),
 ])
 @pytest.mark.parametrize("robust", [False, True])
-@pytest.mark.parametrize("lag_tol", [None, 9.0])
-def test_matches_brute_force_3d(data3d, direction, robust, lag_tol):
+@pytest.mark.parametrize("lag_half_width", [None, 9.0])
+def test_matches_brute_force_3d(data3d, direction, robust, lag_half_width):
     coords, values = data3d
-    ev = experimental_variogram(coords, values, lag=10.0, nlags=8, lag_tol=lag_tol, direction=direction,
+    ev = experimental_variogram(coords, values, lag=10.0, nlags=8, lag_half_width=lag_half_width, direction=direction,
                                 estimator="cressie-hawkins" if robust else "matheron")
-    n, lags, gamma = brute_force(coords, values, 10.0, 8, 5.0 if lag_tol is None else lag_tol,
+    n, lags, gamma = brute_force(coords, values, 10.0, 8, 5.0 if lag_half_width is None else lag_half_width,
                                  direction, robust)
     assert n.sum() > 0
     np.testing.assert_array_equal(ev.npairs, n)
@@ -87,7 +87,7 @@ def test_directions_in_one_pass_match_single_calls_2d():
     rng = np.random.default_rng(3)
     xy = rng.uniform(0, 200, (150, 2))
     z = np.sin(xy[:, 0] / 40) + rng.normal(scale=0.2, size=150)
-    dirs = [None, Direction(0.0), Direction(45.0, azimuth_tol=10.0, bandwidth_h=20.0), Direction(90.0)]
+    dirs = [None, Direction(0.0), Direction(45.0, horizontal_half_angle=10.0, horizontal_max_offset=20.0), Direction(90.0)]
     many = directional_variograms(xy, z, dirs, lag=15.0, nlags=10)
     for d, ev in zip(dirs, many):
         n, lags, gamma = brute_force(xy, z, 15.0, 10, 7.5, d)
@@ -126,7 +126,7 @@ def test_downhole_matches_brute_force_and_axis():
 def test_hand_worked_line():
     # z = x on a line with unit spacing: gamma(k) = k^2 / 2 for the pairs k apart
     x = np.arange(6.0)
-    ev = experimental_variogram(np.column_stack([x, 0 * x]), x, lag=2.0, nlags=3, lag_tol=0.5)
+    ev = experimental_variogram(np.column_stack([x, 0 * x]), x, lag=2.0, nlags=3, lag_half_width=0.5)
     # bins [-0.5, 0.5), [1.5, 2.5), [3.5, 4.5) hold the lags 2 and 4 only
     assert ev.npairs.tolist() == [0, 4, 2]
     np.testing.assert_allclose(ev.gamma[1:], [2.0, 8.0])
@@ -210,11 +210,11 @@ def test_realization_on_a_grid_against_array_shifts():
     grid = Grid(1000.0, 2000.0, (cell, cell), (ny, nx), mask=mask)
     field = np.cumsum(rng.normal(size=(ny, nx)), axis=1)  # a random walk along rows
     field[~mask] = np.nan
-    east = Direction(90.0, azimuth_tol=1.0, bandwidth_h=cell / 10)
-    a = experimental_variogram(grid.coords(), field[grid.mask], lag=cell, nlags=6, lag_tol=cell / 10,
+    east = Direction(90.0, horizontal_half_angle=1.0, horizontal_max_offset=cell / 10)
+    a = experimental_variogram(grid.coords(), field[grid.mask], lag=cell, nlags=6, lag_half_width=cell / 10,
                                direction=east)
     b = experimental_variogram(grid.coords(active_only=False), field.ravel(), lag=cell, nlags=6,
-                               lag_tol=cell / 10, direction=east)
+                               lag_half_width=cell / 10, direction=east)
     np.testing.assert_array_equal(a.npairs, b.npairs)
     np.testing.assert_allclose(a.gamma, b.gamma, rtol=1e-12, equal_nan=True)
     for k in range(1, 6):

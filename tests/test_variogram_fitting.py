@@ -115,7 +115,7 @@ def test_joint_fit_recovers_anisotropic_model():
     xy = rng.uniform(0, 1000, (500, 2))
     truth = Nugget(0.2) + Spherical(0.8, Anisotropy((300.0, 100.0), azimuth=60.0))
     fields = _field(truth, xy, 12, 7)
-    dirs = [Direction(60.0, azimuth_tol=20.0), Direction(150.0, azimuth_tol=20.0)]
+    dirs = [Direction(60.0, horizontal_half_angle=20.0), Direction(150.0, horizontal_half_angle=20.0)]
     template = Nugget(0.3) + Spherical(0.7, Anisotropy((200.0, 200.0), azimuth=60.0))
     fitted = []
     with warnings.catch_warnings():
@@ -161,7 +161,7 @@ def test_aquifer_sample_fit_within_spread_of_same_design():
     """
     xy, ys = _aquifer()
     truth = Nugget(0.1) + Exponential(0.9, Anisotropy((1500.0, 300.0, 1500.0), azimuth=30.0))
-    dirs = [Direction(30.0, azimuth_tol=22.5), Direction(120.0, azimuth_tol=22.5)]
+    dirs = [Direction(30.0, horizontal_half_angle=22.5), Direction(120.0, horizontal_half_angle=22.5)]
     template = Nugget(0.2) + Exponential(0.8, Anisotropy((1000.0, 500.0, 1000.0), azimuth=30.0))
     names = ["0.sill", "1.major", "1.minor"]
 
@@ -208,9 +208,9 @@ def test_ore_prospect_joint_fit_with_downhole_variogram():
     y = (np.log(cu) - (math.log(0.6) - sigma**2 / 2)) / sigma
 
     truth = Nugget(0.15) + Spherical(0.85, Anisotropy((180.0, 90.0, 40.0), azimuth=60.0))
-    dirs = [Direction(60.0, 0.0, azimuth_tol=22.5, dip_tol=10.0, bandwidth_v=10.0),
-            Direction(150.0, 0.0, azimuth_tol=22.5, dip_tol=10.0, bandwidth_v=10.0),
-            Direction(0.0, 90.0, azimuth_tol=90.0, dip_tol=15.0)]
+    dirs = [Direction(60.0, 0.0, horizontal_half_angle=22.5, vertical_half_angle=10.0, vertical_max_offset=10.0),
+            Direction(150.0, 0.0, horizontal_half_angle=22.5, vertical_half_angle=10.0, vertical_max_offset=10.0),
+            Direction(0.0, 90.0, horizontal_half_angle=90.0, vertical_half_angle=15.0)]
     template = Nugget(0.2) + Spherical(0.8, Anisotropy((120.0, 120.0, 60.0), azimuth=60.0))
     names = ["0.sill", "1.major", "1.minor", "1.vertical"]
 

@@ -51,12 +51,14 @@ import json
 import math
 import os
 import tomllib
+import warnings
 from collections.abc import Callable, Iterable, Mapping
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
 
-from ..errors import SpecError
+from ..errors import RetiredNameWarning, SpecError
+from ..retired import retire_spec_names
 
 __all__ = ["RunSpec", "load_spec", "spec_from_dict", "parse_overrides", "reference", "SCHEMA", "EXECUTION_KEYS"]
 
@@ -212,18 +214,26 @@ SCHEMA: dict[str, dict[str, Key]] = {
     },
     "declustering": {
         "method": Key(_choice("cells", "none"), default="cells"),
-        "sizes": Key(_numbers((2,), lo=0.0, lo_open=True, ascending=True), help="[smallest, largest] cell"),
-        "count": Key(_int(2, 200), default=20, help="cell sizes scanned"),
-        "offsets": Key(_int(1, 100), default=8, help="grid origin offsets averaged"),
-        "objective": Key(_choice("min", "max"), default="min",
-                         help='"min" when highs were sampled preferentially, "max" for lows'),
+        "size_range": Key(_numbers((2,), lo=0.0, lo_open=True, ascending=True),
+                          help="[smallest, largest] cell size scanned, metres (default: up to half the data extent)"),
+        "size_count": Key(_int(2, 200), default=20, help="number of cell sizes scanned"),
+        "origin_shifts": Key(_int(1, 100), default=8, help="grid origins averaged at each size"),
+        "pick_mean": Key(_choice("lowest", "highest"), default="lowest",
+                         help='"lowest" when highs were sampled preferentially, "highest" when lows were'),
     },
     "transform": {
         "log": Key(_bool, default=False, help="take log10 before the normal-score transform"),
         "lower": Key(_number(), help="lower bound of the back-transform (data units)"),
         "upper": Key(_number(), help="upper bound of the back-transform (data units)"),
-        "upper_tail": Key(_choice("linear", "hyperbolic"), default="linear"),
-        "tail_power": Key(_number(1.0, lo_open=True), default=1.5, help="hyperbolic upper-tail parameter"),
+        "lower_tail": Key(_choice("uniform", "power"), default="uniform",
+                          help="values below the smallest datum, down to lower"),
+        "upper_tail": Key(_choice("uniform", "power", "pareto"), default="uniform",
+                          help='values above the largest datum: up to upper, or "pareto" (unbounded)'),
+        "lower_exponent": Key(_number(0.0, lo_open=True),
+                              help="exponent of the lower tail (default 1 uniform, 1.5 power)"),
+        "upper_exponent": Key(_number(0.0, lo_open=True),
+                              help="exponent of the upper tail (default 1 uniform, 1.5 power, 3 pareto; "
+                                   "a pareto tail needs more than 2 for a finite variance)"),
     },
     "variogram": {
         "fit": Key(_bool, default=True, help="fit the structures to experimental variograms"),
@@ -249,9 +259,16 @@ SCHEMA: dict[str, dict[str, Key]] = {
     },
     "variogram.directions": {
         "azimuth": Key(_number(-360.0, 360.0), default=0.0),
-        "dip": Key(_number(-90.0, 90.0), default=0.0),
-        "tolerance": Key(_number(0.0, 90.0, lo_open=True), default=22.5, help="angular tolerance in degrees"),
-        "bandwidth": Key(_number(0.0, lo_open=True), help="largest distance off the direction line"),
+        "dip": Key(_number(-90.0, 90.0), default=0.0, help="degrees below horizontal"),
+        "horizontal_half_angle": Key(_number(0.0, 90.0, lo_open=True), default=22.5,
+                                     help="half-width of the window in the direction's horizontal plane, degrees"),
+        "vertical_half_angle": Key(_number(0.0, 90.0, lo_open=True),
+                                   help="half-width in its vertical plane, degrees (default: 5 for a "
+                                        "near-horizontal direction, else horizontal_half_angle)"),
+        "horizontal_max_offset": Key(_number(0.0, lo_open=True),
+                                     help="largest horizontal distance of a pair off the direction line, metres"),
+        "vertical_max_offset": Key(_number(0.0, lo_open=True),
+                                   help="largest vertical distance of a pair off the direction line, metres"),
     },
     "grid": {
         "cell": Key(_numbers((2, 3), lo=0.0, lo_open=True), required=True, help="cell size [dx, dy(, dz)]"),
@@ -269,7 +286,8 @@ SCHEMA: dict[str, dict[str, Key]] = {
         "max_samples": Key(_int(1, 256), default=16),
         "min_samples": Key(_int(0, 256), default=1),
         "max_nodes": Key(_int(0, 256), default=16),
-        "sectors": Key(_choice(0, 4, 8), default=0),
+        "sectors": Key(_choice("off", "quadrants", "octants"), default="off",
+                       help="split the search around each node and take samples from each part"),
         "max_per_sector": Key(_int(1, 256)),
         "max_per_hole": Key(_int(1, 256)),
     },
@@ -499,6 +517,8 @@ def spec_from_dict(values: Mapping, base: str | os.PathLike = ".", *,
                 node[parts[-1]] = value
 
     base = Path(base)
+    problems += retire_spec_names(
+        values, lambda text: warnings.warn(f"{name}: {text}", RetiredNameWarning, stacklevel=4))
     out = _check_sections(values, problems)
     _check_combinations(out, problems)
     if check_files:
@@ -630,13 +650,19 @@ def _check_combinations(spec: dict, problems: list[str]) -> None:
     if spec["domain"]["below_collars"] and data["collars"] is None:
         problems.append("domain.below_collars: only for drillhole data (it needs collar elevations), "
                         "found it beside data.points")
-    if decl["method"] == "none" and decl["sizes"] is not None:
-        problems.append('declustering.sizes: only with method = "cells", found it with method = "none"')
+    if decl["method"] == "none" and decl["size_range"] is not None:
+        problems.append('declustering.size_range: only with method = "cells", found it with method = "none"')
 
     tr = spec["transform"]
     if tr["lower"] is not None and tr["upper"] is not None and tr["lower"] >= tr["upper"]:
         problems.append(f"transform.lower: expected a number below transform.upper ({tr['upper']:g}), "
                         f"found {tr['lower']:g}")
+    if tr["upper_tail"] == "pareto" and tr["upper"] is not None:
+        problems.append('transform.upper: a "pareto" upper tail is unbounded, found upper = '
+                        f'{tr["upper"]:g}; remove upper or choose upper_tail = "uniform" or "power"')
+    if tr["upper_tail"] == "pareto" and tr["upper_exponent"] is not None and tr["upper_exponent"] < 1.0:
+        problems.append(f'transform.upper_exponent: expected a number >= 1 for a "pareto" tail (below 1 it has '
+                        f'no mean), found {tr["upper_exponent"]:g}')
     if tr["log"] and tr["lower"] is not None and tr["lower"] <= 0:
         problems.append(f"transform.lower: expected a positive number with log = true, found {tr['lower']:g}")
 

@@ -5,19 +5,25 @@ Definitions used throughout (stated once here):
 * A pair ``(i, j)`` has lag vector ``h = x_j - x_i`` and distance ``|h|``;
   coincident samples (``|h| < 1 nm``) are skipped.
 * Lag bin ``b`` (``b = 0 .. nlags - 1``) is centred at ``b * lag`` and takes
-  distances in ``[centre - lag_tol, centre + lag_tol)``; the default
-  ``lag_tol = lag / 2`` gives contiguous bins, and bin 0 holds only the pairs
+  distances in ``[centre - lag_half_width, centre + lag_half_width)``; the default
+  ``lag_half_width = lag / 2`` gives contiguous bins, and bin 0 holds only the pairs
   closer than half a lag.  Centres on multiples of the lag keep regularly spaced
   data (grids, composites) in the middle of their bins, away from the edges.  A
-  larger tolerance makes bins overlap (a pair then counts in each bin it falls
+  larger half-width makes bins overlap (a pair then counts in each bin it falls
   in).
 * A :class:`Direction` is an axis (``azimuth`` clockwise from north, ``dip``
   positive downward: the convention of :mod:`geosim.variogram.anisotropy`) with
   its own frame ``u`` (the axis), ``v`` (horizontal, 90 degrees clockwise) and
   ``w`` (the third axis).  A pair belongs to the direction when, with
-  ``a = |h.u|``, ``b = |h.v|``, ``c = |h.w|``: ``b <= a tan(azimuth_tol)``,
-  ``c <= a tan(dip_tol)``, ``b <= bandwidth_h`` and ``c <= bandwidth_v``.
-  Directions are axes: ``h`` and ``-h`` are the same pair.
+  ``a = |h.u|``, ``b = |h.v|``, ``c = |h.w|``: ``b <= a tan(horizontal_half_angle)``,
+  ``c <= a tan(vertical_half_angle)``, ``b <= horizontal_max_offset`` and
+  ``c <= vertical_max_offset``: an angular half-window and a largest offset from
+  the direction line in each of the direction's two planes.  Directions are
+  axes: ``h`` and ``-h`` are the same pair.  In 3-D a near-horizontal direction
+  (``|dip| < 45``) gets a thin vertical window by default
+  (``vertical_half_angle`` :data:`FLAT_VERTICAL_HALF_ANGLE`), so its pairs stay
+  near the horizontal and the short vertical ranges of layered deposits do not
+  leak into the horizontal variograms; a steep direction gets a round cone.
 * The classical estimator is ``gamma = sum (z_j - z_i)^2 / (2 N)``
   (Matheron 1962).  The robust estimator of Cressie and Hawkins (1980) is
   ``gamma = [mean |z_j - z_i|^(1/2)]^4 / (2 (0.457 + 0.494 / N))``
@@ -40,13 +46,17 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from ..errors import InputError
+from ..retired import accepts_retired
 from .anisotropy import axes
 
 ESTIMATORS = ("matheron", "cressie-hawkins")
 _WORKERS = min(4, os.cpu_count() or 1)  # threads for the pair loop
 _CHUNK = 512  # rows of the outer pair loop per task (progress is reported between tasks)
+# default vertical half-window of a near-horizontal direction (degrees; see the module docstring)
+FLAT_VERTICAL_HALF_ANGLE = 5.0
 
 
+@accepts_retired("Direction")
 @dataclass(frozen=True)
 class Direction:
     """A direction for directional variograms.
@@ -57,40 +67,50 @@ class Direction:
         Degrees clockwise from north.
     dip : float
         Degrees below the horizontal (3-D data only).
-    azimuth_tol : float
-        Half-angle of the cone in the direction's horizontal plane, degrees;
+    horizontal_half_angle : float
+        Half-angle of the window in the direction's horizontal plane, degrees;
         90 or more switches the test off.
-    dip_tol : float
-        Half-angle of the cone in the direction's vertical plane, degrees; 90 or
-        more switches the test off.
-    bandwidth_h, bandwidth_v : float
-        Largest offset (metres) of a pair from the axis in the horizontal and
-        vertical planes of the direction; ``inf`` for none.
+    vertical_half_angle : float, optional
+        Half-angle of the window in the direction's vertical plane, degrees; 90
+        or more switches the test off.  Default: :data:`FLAT_VERTICAL_HALF_ANGLE`
+        (or ``horizontal_half_angle`` if smaller) for a near-horizontal direction
+        (``|dip| < 45``), so its pairs stay near the horizontal in 3-D; the same
+        as ``horizontal_half_angle`` for a steep one.  2-D data have no vertical
+        offsets, so it does not matter there.
+    horizontal_max_offset, vertical_max_offset : float
+        Largest offset (metres) of a pair from the direction line in the
+        direction's horizontal and vertical planes; ``inf`` (default) for none.
 
     Examples
     --------
     >>> from geosim.variogram import Direction
-    >>> Direction(45.0, azimuth_tol=22.5, bandwidth_h=50.0).azimuth
-    45.0
+    >>> d = Direction(45.0, horizontal_half_angle=22.5, horizontal_max_offset=50.0)
+    >>> d.azimuth, d.vertical_half_angle, Direction(0.0, 90.0).vertical_half_angle
+    (45.0, 5.0, 22.5)
     """
 
     azimuth: float
     dip: float = 0.0
-    azimuth_tol: float = 22.5
-    dip_tol: float = 22.5
-    bandwidth_h: float = np.inf
-    bandwidth_v: float = np.inf
+    horizontal_half_angle: float = 22.5
+    vertical_half_angle: float | None = None
+    horizontal_max_offset: float = np.inf
+    vertical_max_offset: float = np.inf
 
     def __post_init__(self):
-        for name in ("azimuth", "dip", "azimuth_tol", "dip_tol", "bandwidth_h", "bandwidth_v"):
+        if self.vertical_half_angle is None:
+            flat = abs(float(self.dip)) < 45.0
+            half = float(self.horizontal_half_angle)
+            object.__setattr__(self, "vertical_half_angle", min(half, FLAT_VERTICAL_HALF_ANGLE) if flat else half)
+        for name in ("azimuth", "dip", "horizontal_half_angle", "vertical_half_angle", "horizontal_max_offset",
+                     "vertical_max_offset"):
             v = float(getattr(self, name))
-            if np.isnan(v) or (np.isinf(v) and not name.startswith("bandwidth")):
+            if np.isnan(v) or (np.isinf(v) and not name.endswith("max_offset")):
                 raise ValueError(f"direction {name} must be a finite number, got {v!r}")
             object.__setattr__(self, name, v)
-        if not (0.0 < self.azimuth_tol and 0.0 < self.dip_tol):
-            raise ValueError("direction tolerances must be > 0 degrees")
-        if not (self.bandwidth_h > 0 and self.bandwidth_v > 0):
-            raise ValueError("direction bandwidths must be > 0 metres")
+        if not (0.0 < self.horizontal_half_angle and 0.0 < self.vertical_half_angle):
+            raise ValueError("direction half-angles must be > 0 degrees")
+        if not (self.horizontal_max_offset > 0 and self.vertical_max_offset > 0):
+            raise ValueError("direction max offsets must be > 0 metres")
 
     def vector(self) -> np.ndarray:
         """Unit vector of the axis in (east, north, up)."""
@@ -98,9 +118,17 @@ class Direction:
 
     def _row(self) -> np.ndarray:
         r = axes(self.azimuth, self.dip)
-        tan_az = np.tan(np.radians(self.azimuth_tol)) if self.azimuth_tol < 90.0 else -1.0
-        tan_dip = np.tan(np.radians(self.dip_tol)) if self.dip_tol < 90.0 else -1.0
-        return np.concatenate([[0.0], r.ravel(), [tan_az, tan_dip, self.bandwidth_h, self.bandwidth_v]])
+        tan_h = np.tan(np.radians(self.horizontal_half_angle)) if self.horizontal_half_angle < 90.0 else -1.0
+        tan_v = np.tan(np.radians(self.vertical_half_angle)) if self.vertical_half_angle < 90.0 else -1.0
+        return np.concatenate([[0.0], r.ravel(), [tan_h, tan_v, self.horizontal_max_offset,
+                                                  self.vertical_max_offset]])
+
+    def to_dict(self) -> dict:
+        """The direction and its windows (JSON-safe: no limit is null)."""
+        return {"azimuth": self.azimuth, "dip": self.dip, "horizontal_half_angle": self.horizontal_half_angle,
+                "vertical_half_angle": self.vertical_half_angle,
+                "horizontal_max_offset": _json_float(self.horizontal_max_offset),
+                "vertical_max_offset": _json_float(self.vertical_max_offset)}
 
 
 @dataclass(frozen=True, eq=False)  # holds arrays: compare fields explicitly
@@ -117,7 +145,7 @@ class ExperimentalVariogram:
         Semivariance in each bin; NaN for empty bins.
     npairs : ndarray of int
         Pairs in each bin.
-    lag, lag_tol : float
+    lag, lag_half_width : float
         Lag spacing and half-width of a bin (metres).
     kind : str
         ``"omnidirectional"``, ``"directional"`` or ``"downhole"``.
@@ -141,7 +169,7 @@ class ExperimentalVariogram:
     gamma: np.ndarray
     npairs: np.ndarray
     lag: float
-    lag_tol: float
+    lag_half_width: float
     kind: str
     direction: Direction | None
     estimator: str
@@ -174,11 +202,8 @@ class ExperimentalVariogram:
         d = self.direction
         return {
             "label": self.label, "kind": self.kind, "estimator": self.estimator,
-            "lag": self.lag, "lag_tol": self.lag_tol,
-            "direction": None if d is None else {
-                "azimuth": d.azimuth, "dip": d.dip, "azimuth_tol": d.azimuth_tol,
-                "dip_tol": d.dip_tol, "bandwidth_h": _json_float(d.bandwidth_h),
-                "bandwidth_v": _json_float(d.bandwidth_v)},
+            "lag": self.lag, "lag_half_width": self.lag_half_width,
+            "direction": None if d is None else d.to_dict(),
             "centres": self.centres.tolist(),
             "lags": [_json_float(x) for x in self.lags],
             "gamma": [_json_float(x) for x in self.gamma],
@@ -206,7 +231,8 @@ class VariogramMap:
     variance: float
 
 
-def experimental_variogram(coords, values, *, lag: float, nlags: int, lag_tol: float | None = None,
+@accepts_retired("experimental_variogram")
+def experimental_variogram(coords, values, *, lag: float, nlags: int, lag_half_width: float | None = None,
                            direction: Direction | None = None, estimator: str = "matheron",
                            progress: Callable[[int, int, str], None] | None = None
                            ) -> ExperimentalVariogram:
@@ -221,7 +247,7 @@ def experimental_variogram(coords, values, *, lag: float, nlags: int, lag_tol: f
         NaN outside the domain can be passed as it is.
     lag, nlags : float, int
         Lag spacing (metres) and number of lag bins.
-    lag_tol : float, optional
+    lag_half_width : float, optional
         Half-width of a bin; default ``lag / 2``.
     direction : Direction, optional
         None (default) for omnidirectional.
@@ -245,11 +271,12 @@ def experimental_variogram(coords, values, *, lag: float, nlags: int, lag_tol: f
     >>> ev.centres.tolist(), ev.npairs.tolist(), ev.gamma[1:].tolist()
     ([0.0, 1.0, 2.0, 3.0], [0, 9, 8, 7], [0.5, 2.0, 4.5])
     """
-    return _compute(coords, values, lag, nlags, lag_tol, [direction], estimator, None, progress)[0]
+    return _compute(coords, values, lag, nlags, lag_half_width, [direction], estimator, None, progress)[0]
 
 
+@accepts_retired("directional_variograms")
 def directional_variograms(coords, values, directions: Sequence[Direction | None], *, lag: float,
-                           nlags: int, lag_tol: float | None = None, estimator: str = "matheron",
+                           nlags: int, lag_half_width: float | None = None, estimator: str = "matheron",
                            progress: Callable[[int, int, str], None] | None = None
                            ) -> list[ExperimentalVariogram]:
     """Experimental semivariograms in several directions, from one pass over the pairs.
@@ -271,10 +298,12 @@ def directional_variograms(coords, values, directions: Sequence[Direction | None
     """
     if len(directions) == 0:
         raise ValueError("give at least one direction")
-    return _compute(coords, values, lag, nlags, lag_tol, list(directions), estimator, None, progress)
+    return _compute(coords, values, lag, nlags, lag_half_width, list(directions), estimator, None, progress)
 
 
-def downhole_variogram(coords, values, hole_ids, *, lag: float, nlags: int, lag_tol: float | None = None,
+@accepts_retired("downhole_variogram")
+def downhole_variogram(coords, values, hole_ids, *, lag: float, nlags: int,
+                       lag_half_width: float | None = None,
                        estimator: str = "matheron",
                        progress: Callable[[int, int, str], None] | None = None) -> ExperimentalVariogram:
     """Semivariogram of pairs within the same drill hole (the usual way to read the nugget).
@@ -306,11 +335,12 @@ def downhole_variogram(coords, values, hole_ids, *, lag: float, nlags: int, lag_
     if hole_ids.ndim != 1:
         raise InputError("hole ids must be a one-dimensional array", field="hole_ids",
                          fix="pass one identifier per sample")
-    return _compute(coords, values, lag, nlags, lag_tol, [None], estimator, hole_ids, progress)[0]
+    return _compute(coords, values, lag, nlags, lag_half_width, [None], estimator, hole_ids, progress)[0]
 
 
+@accepts_retired("variogram_map")
 def variogram_map(coords, values, *, cell: float, ncells: int, min_pairs: int = 5,
-                  bandwidth_v: float = np.inf, estimator: str = "matheron",
+                  vertical_max_offset: float = np.inf, estimator: str = "matheron",
                   progress: Callable[[int, int, str], None] | None = None) -> VariogramMap:
     """Variogram map: semivariance on a square grid of horizontal lag vectors.
 
@@ -322,7 +352,7 @@ def variogram_map(coords, values, *, cell: float, ncells: int, min_pairs: int = 
         Cells on each side of the zero lag: the map is ``2 ncells + 1`` square.
     min_pairs : int
         Cells with fewer pairs are NaN.
-    bandwidth_v : float
+    vertical_max_offset : float
         For 3-D data, pairs more than this apart vertically are left out.
 
     Examples
@@ -349,7 +379,7 @@ def variogram_map(coords, values, *, cell: float, ncells: int, min_pairs: int = 
 
     def task(i0, i1):
         acc = np.zeros((2, size, size))
-        accumulate_map(xyz, z, i0, i1, float(cell), ncells, float(bandwidth_v), robust, acc[0], acc[1])
+        accumulate_map(xyz, z, i0, i1, float(cell), ncells, float(vertical_max_offset), robust, acc[0], acc[1])
         return acc
 
     out_n, out_g = _run_chunks(len(z), task, (2, size, size), progress, "variogram map pairs")
@@ -385,7 +415,7 @@ def _prepare(coords, values, estimator):
     return xyz, v[keep], c.shape[1], keep
 
 
-def _compute(coords, values, lag, nlags, lag_tol, directions, estimator, hole_ids, progress):
+def _compute(coords, values, lag, nlags, lag_half_width, directions, estimator, hole_ids, progress):
     from .pairs import accumulate_directional
 
     xyz, z, dim, keep = _prepare(coords, values, estimator)
@@ -396,9 +426,9 @@ def _compute(coords, values, lag, nlags, lag_tol, directions, estimator, hole_id
     nlags = int(nlags)
     if not (np.isfinite(lag) and lag > 0) or nlags < 1:
         raise ValueError(f"lag must be > 0 and nlags >= 1, got lag={lag!r}, nlags={nlags!r}")
-    lag_tol = lag / 2 if lag_tol is None else float(lag_tol)
-    if not (np.isfinite(lag_tol) and lag_tol > 0):
-        raise ValueError(f"lag_tol must be > 0, got {lag_tol!r}")
+    half = lag / 2 if lag_half_width is None else float(lag_half_width)
+    if not (np.isfinite(half) and half > 0):
+        raise ValueError(f"lag_half_width must be > 0, got {lag_half_width!r}")
     for d in directions:
         if d is not None and dim == 2 and d.dip != 0.0:
             raise ValueError("2-D data: directions must have dip 0")
@@ -421,13 +451,13 @@ def _compute(coords, values, lag, nlags, lag_tol, directions, estimator, hole_id
         hole_axis = _mean_hole_axis(xyz[order], codes)
     xyz = np.ascontiguousarray(xyz[order])
     z = np.ascontiguousarray(z[order])
-    dmax = (nlags - 1) * lag + lag_tol
+    dmax = (nlags - 1) * lag + half
     k = len(directions)
     robust = estimator == "cressie-hawkins"
 
     def task(i0, i1):
         acc = np.zeros((3, k, nlags))
-        accumulate_directional(xyz, z, group_end, i0, i1, dirs, lag, lag_tol, nlags, dmax, robust,
+        accumulate_directional(xyz, z, group_end, i0, i1, dirs, lag, half, nlags, dmax, robust,
                                acc[0], acc[1], acc[2])
         return acc
 
@@ -446,7 +476,7 @@ def _compute(coords, values, lag, nlags, lag_tol, directions, estimator, hole_id
         else:
             kind = "omnidirectional" if d is None else "directional"
         out.append(ExperimentalVariogram(centres.copy(), mean_lag, gamma, out_n[j].astype(np.int64), lag,
-                                         lag_tol, kind, d, estimator, var, extent, dim, n))
+                                         half, kind, d, estimator, var, extent, dim, n))
     return out
 
 

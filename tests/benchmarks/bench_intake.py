@@ -55,7 +55,7 @@ def main() -> None:
         dc = timed("cell_declustering (24 sizes x 8 offsets)",
                    lambda: geosim.cell_declustering(comps.coords, values, vertical_ratio=0.1))
     t = timed("NormalScoreTransform.fit (weighted)",
-              lambda: geosim.NormalScoreTransform(upper_tail="hyperbolic").fit(values, dc.weights))
+              lambda: geosim.NormalScoreTransform(upper_tail="pareto").fit(values, dc.weights))
     y = rng.standard_normal(1_000_000)
     timed("inverse of 1e6 scores", lambda: t.inverse(y))
 

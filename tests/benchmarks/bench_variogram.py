@@ -50,7 +50,7 @@ def numpy_blocks(coords, values, lag, nlags, block=500):
 
 def main(n=10_000):
     rng = np.random.default_rng(0)
-    four = [Direction(a, azimuth_tol=22.5) for a in (0.0, 45.0, 90.0, 135.0)]
+    four = [Direction(a, horizontal_half_angle=22.5) for a in (0.0, 45.0, 90.0, 135.0)]
     print(f"experimental variograms, n = {n} samples, 15 lags reaching half the field")
     print(f"{'case':34s} {'time (s)':>9s} {'peak (MiB)':>11s} {'pairs counted':>14s}")
     for dim in (2, 3):
