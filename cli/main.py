@@ -13,8 +13,13 @@ code  meaning
 3     geosim could not do what was asked with this input (e.g. a covariance
       model that is not positive definite)
 4     internal error (a bug); rerun with ``--debug`` for the traceback
+5     the machine's limits: the disk is full or the job needs more memory than
+      there is (free space or memory, or ask for less, and rerun)
 130   interrupted (Ctrl-C)
 ====  ===========================================================================
+
+An output folder that cannot be written is bad input (2, naming the folder), never
+an internal error; so is an output folder another run is using.
 
 The caution text is printed on stderr at the end of every command that started
 work, whether it succeeded or failed.
@@ -22,6 +27,8 @@ work, whether it succeeded or failed.
 from __future__ import annotations
 
 import difflib
+import errno
+import os
 import sys
 import traceback
 import warnings
@@ -31,11 +38,11 @@ from importlib.metadata import entry_points
 import click
 
 from geosim.cautions import CAUTION
-from geosim.errors import GeosimError, GeosimWarning, InputError, SpecError
+from geosim.errors import GeosimError, GeosimWarning, InputError, ResourceError, SpecError
 
 COMMAND_GROUP = "geosim.commands"
 
-EXIT_OK, EXIT_INPUT, EXIT_GEOSIM, EXIT_INTERNAL, EXIT_INTERRUPTED = 0, 2, 3, 4, 130
+EXIT_OK, EXIT_INPUT, EXIT_GEOSIM, EXIT_INTERNAL, EXIT_RESOURCES, EXIT_INTERRUPTED = 0, 2, 3, 4, 5, 130
 
 
 @dataclass
@@ -118,9 +125,17 @@ def _report(exc: BaseException, debug: bool) -> int:
         for problem in exc.problems:
             _say(f"  {problem}")
         return EXIT_INPUT
+    if isinstance(exc, OSError):
+        exc = _environment_error(exc)
+    if isinstance(exc, MemoryError):
+        exc = ResourceError("the job ran out of memory", fix="use larger cells, a smaller grid or fewer "
+                            "workers, then rerun the same command (finished realizations are kept)")
     if isinstance(exc, InputError):
         _say(f"error: {exc}")
         return EXIT_INPUT
+    if isinstance(exc, ResourceError):
+        _say(f"error: {exc}")
+        return EXIT_RESOURCES
     if isinstance(exc, GeosimError):
         _say(f"error: {exc}")
         return EXIT_GEOSIM
@@ -133,6 +148,22 @@ def _report(exc: BaseException, debug: bool) -> int:
     if not debug:
         _say("this is a bug in geosim or a plugin; rerun with --debug for the traceback and report it")
     return EXIT_INTERNAL
+
+
+def _environment_error(exc: OSError) -> BaseException:
+    """A full disk or a refused file as geosim's own error; other OS errors as they are.
+
+    The library explains the files it writes itself; this catches the rest (a plugin's
+    writer, a read the operating system refused).
+    """
+    where = exc.filename
+    if exc.errno in (errno.ENOSPC, errno.EDQUOT):
+        return ResourceError("the disk is full", folder=None if where is None else os.path.dirname(where),
+                             fix="free space on that disk, then rerun the same command")
+    if exc.errno in (errno.EACCES, errno.EPERM, errno.EROFS) and where is not None:
+        return InputError(f"the operating system refused access ({exc.strerror})", file=where,
+                          fix="check the permissions of the file and its folder, or choose another")
+    return exc
 
 
 def _say(text: str) -> None:

@@ -43,6 +43,10 @@ class InputError(GeosimError, ValueError):
         self.fix = fix
         super().__init__(str(self))
 
+    def __reduce__(self):
+        # rebuilt from its fields, so file, row and fix survive the trip back from a worker
+        return _rebuild_input_error, (type(self), self.message, self.file, self.row, self.field, self.fix)
+
     def __str__(self) -> str:
         where = []
         if self.file is not None:
@@ -57,6 +61,12 @@ class InputError(GeosimError, ValueError):
         return text
 
 
+def _rebuild_input_error(cls, message, file, row, field, fix):
+    error = InputError.__new__(cls)
+    InputError.__init__(error, message, file=file, row=row, field=field, fix=fix)
+    return error
+
+
 class SpecError(InputError):
     """A run spec with one or more problems, each with its key path and the expected form."""
 
@@ -66,6 +76,59 @@ class SpecError(InputError):
             f"{len(self.problems)} problem(s) in the run spec: " + "; ".join(self.problems),
             file=file,
         )
+
+    def __reduce__(self):
+        return type(self), (self.file, self.problems)
+
+
+class ResourceError(GeosimError):
+    """The machine cannot do what was asked: the disk is full or memory too small.
+
+    Not a fault of the input and not a bug: free space or memory, or ask for less
+    (larger cells, fewer workers), and rerun.  ``folder`` is where writing failed,
+    ``needed`` and ``available`` are byte counts when known.
+
+    Examples
+    --------
+    >>> str(ResourceError("the disk is full", folder="out", needed=3_000_000, available=1_000_000,
+    ...                   fix="free space on that disk"))
+    'out: the disk is full (needed about 3.0 MB, 1.0 MB available); fix: free space on that disk'
+    """
+
+    def __init__(self, message: str, *, folder: str | None = None, needed: int | None = None,
+                 available: int | None = None, fix: str | None = None):
+        self.message = message
+        self.folder = None if folder is None else str(folder)
+        self.needed = needed
+        self.available = available
+        self.fix = fix
+        text = (f"{self.folder}: " if self.folder else "") + message
+        sizes = []
+        if needed is not None:
+            sizes.append(f"needed about {format_bytes(needed)}")
+        if available is not None:
+            sizes.append(f"{format_bytes(available)} available")
+        if sizes:
+            text += f" ({', '.join(sizes)})"
+        if fix:
+            text += f"; fix: {fix}"
+        super().__init__(text)
+
+    def __reduce__(self):
+        return type(self), (self.message,), {"folder": self.folder, "needed": self.needed,
+                                             "available": self.available, "fix": self.fix}
+
+    def __setstate__(self, state):
+        self.__init__(self.message, **state)
+
+
+def format_bytes(n: float) -> str:
+    """A byte count for messages, in decimal units (``1.5 GB``)."""
+    for unit in ("B", "kB", "MB", "GB", "TB"):
+        if abs(n) < 1000 or unit == "TB":
+            return f"{n:.0f} {unit}" if unit == "B" else f"{n:.1f} {unit}"
+        n /= 1000.0
+    return f"{n:.1f} TB"
 
 
 class NotPositiveDefiniteError(GeosimError, ArithmeticError):

@@ -25,7 +25,9 @@ Steps, in the order :func:`run` calls them:
 
 Output folders
 --------------
-A folder belongs to one run spec.  Every step that writes (``out_dir=...``) first
+A folder belongs to one run spec, and to one run at a time: every step that writes
+holds the folder's lock (:mod:`geosim.io.lock`), so a second concurrent run into
+it is refused.  Every step that writes (``out_dir=...``) first
 checks the folder is new, empty, or holds a run of the same spec, and then
 replaces its own earlier outputs there; ``overwrite=True`` takes over a folder
 holding another spec's run or other files.
@@ -57,6 +59,7 @@ import numpy as np
 
 from .errors import InputError
 from .io.atomic import atomic_output
+from .io.lock import LOCK_NAME
 from .io.runspec import RunSpec, canonical_json, load_spec
 
 Progress = Callable[[int, int, str], None]
@@ -297,6 +300,10 @@ def make_grid(spec: RunSpec, data: PreparedData | None = None):
                              field="grid.z_range", fix="give grid.z_range or a 2-D cell [dx, dy]")
     extent = [bounds[2] - bounds[0], bounds[3] - bounds[1]] + ([zrange[1] - zrange[0]] if zrange else [])
     nodes = math.prod(math.ceil((e + 2 * g["padding"]) / c) for e, c in zip(extent, g["cell"]))
+    from .resources import check_memory
+    from .simulation.runner import REALIZATION_BYTES_PER_NODE
+    check_memory(nodes * REALIZATION_BYTES_PER_NODE, f"one realization of a grid of {nodes:,} nodes",
+                 fix="choose larger grid.cell or smaller grid.bounds, or run on a machine with more memory")
     if nodes > MAX_NODES:
         raise InputError(f"the grid would have {nodes:.3g} nodes (more than {MAX_NODES:.0e})", file=spec.name,
                          field="grid.cell", fix="choose larger cells or smaller grid.bounds")
@@ -329,6 +336,24 @@ def _relabel(progress: Progress | None, label: str) -> Progress | None:
     if progress is None:
         return None
     return lambda done, total, what: progress(done, total, label)
+
+
+def _locked(step):
+    """Hold the output folder's lock (:mod:`geosim.io.lock`) while ``step`` writes into its
+    ``out_dir``: one run per folder."""
+    import functools
+    import inspect
+    signature = inspect.signature(step)
+
+    @functools.wraps(step)
+    def locked(*args, **kwargs):
+        out_dir = signature.bind(*args, **kwargs).arguments.get("out_dir")
+        if out_dir is None:
+            return step(*args, **kwargs)
+        from .io.lock import folder_lock
+        with folder_lock(out_dir):
+            return step(*args, **kwargs)
+    return locked
 
 
 def _folder(out_dir) -> Path:
@@ -398,6 +423,7 @@ def experimental_variograms(spec: RunSpec, data: PreparedData, progress: Progres
                                   progress=progress)
 
 
+@_locked
 def variogram_model(spec: RunSpec, data: PreparedData | None = None, *, out_dir: str | os.PathLike | None = None,
                     overwrite: bool = False, progress: Progress | None = None) -> VariogramResult:
     """The covariance model of the normal scores: from a model file, from the spec's
@@ -454,6 +480,7 @@ class CrossValidation:
     files: dict[str, list[str]] = field(default_factory=dict)
 
 
+@_locked
 def cross_validate(spec: RunSpec, data: PreparedData | None = None, model=None, *,
                    out_dir: str | os.PathLike | None = None, overwrite: bool = False,
                    progress: Progress | None = None) -> CrossValidation:
@@ -535,6 +562,7 @@ def multigaussian_moments(transform, mean: np.ndarray, variance: np.ndarray,
     return out_mean, out_var
 
 
+@_locked
 def estimate(spec: RunSpec, data: PreparedData | None = None, model=None, grid=None, *,
              out_dir: str | os.PathLike | None = None, overwrite: bool = False,
              progress: Progress | None = None) -> EstimateResult:
@@ -632,7 +660,7 @@ def open_output(spec: RunSpec, out_dir: Path, *, overwrite: bool, resume: bool) 
             # the folder is this run's to replace: forget the old records and realization files
             shutil.rmtree(state_dir)
             shutil.rmtree(out_dir / "realizations", ignore_errors=True)
-    elif out_dir.is_dir() and any(out_dir.iterdir()) and not overwrite:
+    elif out_dir.is_dir() and any(p.name != LOCK_NAME for p in out_dir.iterdir()) and not overwrite:
         raise InputError("the output folder is not empty and holds no geosim run state", file=str(out_dir),
                          fix="choose a new or empty --out folder, or pass --overwrite")
     state_dir.mkdir(parents=True, exist_ok=True)
@@ -774,6 +802,7 @@ def _writer(spec: RunSpec, data: PreparedData, model, grid, out_dir: Path):
                              measure=_checks(data, model, grid), metal_unit=metal_unit(spec), overwrite=True)
 
 
+@_locked
 def simulate(spec: RunSpec, data: PreparedData | None = None, model=None, grid=None, *,
              out_dir: str | os.PathLike, overwrite: bool = False, resume: bool = True,
              progress: Progress | None = None) -> SimulationResult:
@@ -822,6 +851,7 @@ def simulate(spec: RunSpec, data: PreparedData | None = None, model=None, grid=N
 
 # -- summaries and report -----------------------------------------------------------------------
 
+@_locked
 def summarize(spec: RunSpec, out_dir: str | os.PathLike, *, data: PreparedData | None = None, model=None,
               grid=None, simulation: SimulationResult | None = None, extra: Mapping[str, Any] | None = None,
               progress: Progress | None = None) -> dict[str, list[str]]:
@@ -932,6 +962,7 @@ class RunResult:
     notes: list[str]
 
 
+@_locked
 def run(spec: RunSpec | str | os.PathLike, out_dir: str | os.PathLike, *, overwrite: bool = False,
         resume: bool = True, progress: Progress | None = None) -> RunResult:
     """Run the whole job of a run spec into ``out_dir``.

@@ -36,6 +36,9 @@ def check_writable(path: str | os.PathLike, overwrite: bool = False) -> Path:
     if not parent.is_dir():
         raise InputError(f"the output folder {str(parent)!r} does not exist", file=str(path),
                          fix="create the folder first or choose another output path")
+    if not os.access(parent, os.W_OK | os.X_OK):
+        raise InputError("cannot write into the output folder (permission denied)", file=str(parent),
+                         fix="choose an output folder you can write to, or change its permissions")
     return path
 
 
@@ -59,7 +62,10 @@ def atomic_output(path: str | os.PathLike, overwrite: bool = False) -> Iterator[
         suffix (so writers that infer a format from the extension work).  Write
         the whole file there.  On normal exit it is renamed to ``path`` with
         :func:`os.replace`; on any exception it is removed and the exception
-        propagates.
+        propagates, except that a full disk becomes a
+        :class:`~geosim.errors.ResourceError` and a write the file system refuses an
+        :class:`~geosim.errors.InputError`, both naming the folder
+        (:func:`geosim.resources.explain_os_error`).
 
     Examples
     --------
@@ -82,7 +88,13 @@ def atomic_output(path: str | os.PathLike, overwrite: bool = False) -> Iterator[
             raise FileNotFoundError(f"nothing was written to the temporary file {tmp} for {path}")
         check_writable(path, overwrite)
         os.replace(tmp, path)
-    except BaseException:
+    except BaseException as exc:
+        error = None
+        if isinstance(exc, OSError):  # judged before the partial file frees its space
+            from ..resources import explain_os_error
+            error = explain_os_error(exc, path)
         with contextlib.suppress(FileNotFoundError):
             tmp.unlink()
+        if error is not None:
+            raise error from exc
         raise

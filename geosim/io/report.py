@@ -8,7 +8,9 @@ Provenance keys (also the GeoTIFF tag names)
 --------------------------------------------
 ``caution``         :data:`geosim.cautions.CAUTION`
 ``geosim_version``  the installed geosim version
-``created_utc``     creation time, UTC, ISO 8601 to the second
+``created_utc``     creation time, UTC, ISO 8601 to the second; the time in the
+                    ``SOURCE_DATE_EPOCH`` environment variable when it is set
+                    (:func:`output_time`), so a rerun writes byte-identical files
 ``seed``            the run's seed
 ``engine``          the simulation engine's name
 ``variogram_model`` ``str(model)``, the model's text form
@@ -17,6 +19,14 @@ Provenance keys (also the GeoTIFF tag names)
 ``units``           units of the simulated values (e.g. ``g/t``, ``m/s``)
 
 Keys whose value is not given are left out; extra keys can be added.
+
+Reproducible outputs
+--------------------
+``SOURCE_DATE_EPOCH`` is the reproducible-builds convention
+(https://reproducible-builds.org/specs/source-date-epoch/): an integer count of
+seconds since 1970-01-01 UTC that tools use instead of the current time.  With it
+set, the same spec and seed give byte-identical rasters.  The JSON run report still
+records the real time (``created_utc``) and the pinned one (``source_date_epoch_utc``).
 """
 from __future__ import annotations
 
@@ -34,7 +44,9 @@ import numpy as np
 from ..cautions import CAUTION
 from .atomic import atomic_output
 
-__all__ = ["file_sha256", "provenance", "write_report", "read_report", "utc_now"]
+__all__ = ["file_sha256", "provenance", "write_report", "read_report", "utc_now", "output_time"]
+
+SOURCE_DATE_EPOCH = "SOURCE_DATE_EPOCH"
 
 
 def file_sha256(path: str | os.PathLike, chunk: int = 1 << 20) -> str:
@@ -56,9 +68,42 @@ def file_sha256(path: str | os.PathLike, chunk: int = 1 << 20) -> str:
     return digest.hexdigest()
 
 
+def _iso(moment: _dt.datetime) -> str:
+    return moment.replace(microsecond=0).isoformat().replace("+00:00", "Z")
+
+
 def utc_now() -> str:
     """The current UTC time as ISO 8601 to the second, e.g. ``2026-01-31T09:15:00Z``."""
-    return _dt.datetime.now(_dt.timezone.utc).replace(microsecond=0).isoformat().replace("+00:00", "Z")
+    return _iso(_dt.datetime.now(_dt.timezone.utc))
+
+
+def output_time() -> str:
+    """The time outputs are stamped with: ``SOURCE_DATE_EPOCH`` when set, else now (UTC, ISO 8601).
+
+    Raises
+    ------
+    InputError
+        When ``SOURCE_DATE_EPOCH`` is set but is not a whole number of seconds.
+
+    Examples
+    --------
+    >>> import os
+    >>> import geosim.io.report
+    >>> os.environ["SOURCE_DATE_EPOCH"] = "1767225600"
+    >>> geosim.io.report.output_time()
+    '2026-01-01T00:00:00Z'
+    >>> del os.environ["SOURCE_DATE_EPOCH"]
+    """
+    text = os.environ.get(SOURCE_DATE_EPOCH, "").strip()
+    if not text:
+        return utc_now()
+    try:
+        return _iso(_dt.datetime.fromtimestamp(int(text), _dt.timezone.utc))
+    except (ValueError, OverflowError, OSError):
+        from ..errors import InputError
+        raise InputError(f"the environment variable {SOURCE_DATE_EPOCH} is {text!r}, not a count of seconds",
+                         field=SOURCE_DATE_EPOCH, fix="set it to whole seconds since 1970-01-01 UTC, e.g. "
+                         "$(git log -1 --format=%ct), or unset it") from None
 
 
 def _version() -> str:
@@ -84,7 +129,7 @@ def provenance(*, seed: int | None = None, engine: str | None = None, model: Any
         Input files; paths are hashed here, a mapping ``{name: sha256}`` is taken as is.
     units : str, optional
     created : str, optional
-        Creation time; defaults to now (:func:`utc_now`).
+        Creation time; defaults to :func:`output_time` (now, or ``SOURCE_DATE_EPOCH``).
     extra : mapping, optional
         More keys; non-string values are stored as JSON.
 
@@ -99,7 +144,7 @@ def provenance(*, seed: int | None = None, engine: str | None = None, model: Any
         hashes = {str(k): str(v) for k, v in inputs.items()}
     else:
         hashes = {str(p): file_sha256(p) for p in inputs}
-    tags = {"caution": CAUTION, "geosim_version": _version(), "created_utc": created or utc_now()}
+    tags = {"caution": CAUTION, "geosim_version": _version(), "created_utc": created or output_time()}
     if seed is not None:
         tags["seed"] = str(int(seed))
     if engine is not None:
@@ -142,7 +187,8 @@ def write_report(path: str | os.PathLike, report: Mapping[str, Any], overwrite: 
 
     ``report`` is typically ``{**provenance(...), "parameters": {...},
     "validation": {...}, "outputs": {...}}``.  The caution, geosim version and
-    creation time are added when missing, and the caution comes first.  NumPy
+    real creation time are set, and the caution comes first; with ``SOURCE_DATE_EPOCH``
+    set, ``source_date_epoch_utc`` records the time the other outputs carry.  NumPy
     values become plain JSON; NaN and infinities become ``null``.
 
     Examples
@@ -155,9 +201,12 @@ def write_report(path: str | os.PathLike, report: Mapping[str, Any], overwrite: 
     >>> list(d)[0], d["seed"], d["validation"]["ks"]
     ('caution', 7, None)
     """
-    body = {"caution": CAUTION, "geosim_version": _version(), "created_utc": utc_now()}
+    body = {"caution": CAUTION, "geosim_version": _version()}
     body.update(_plain(dict(report)))
     body["caution"] = CAUTION
+    body["created_utc"] = utc_now()
+    if os.environ.get(SOURCE_DATE_EPOCH, "").strip():
+        body["source_date_epoch_utc"] = output_time()
     text = json.dumps(body, indent=2, allow_nan=False) + "\n"
     with atomic_output(path, overwrite) as tmp:
         tmp.write_text(text, encoding="utf-8")

@@ -7,10 +7,17 @@ missing indices.  The engine's prepared state is built once in the calling proce
 shipped once per worker (a pool initializer; a Dask broadcast scatter).  Pool workers
 start from a fork server (spawn where there is none), never by forking this process.  Each finished
 field goes to the sink in the worker, so only the sink's small results travel back.
+
+A pool worker watches the main process: when that is killed, even with SIGKILL, its
+workers exit at once instead of finishing and writing their realizations
+(:func:`watch_process`); the fork server then ends with its last worker.
 """
 from __future__ import annotations
 
 import os
+import select
+import threading
+import time
 from collections.abc import Callable, Iterable
 
 import numpy as np
@@ -19,6 +26,13 @@ from .. import plugins
 
 # per-process state of pool workers, set once by the initializer
 _WORKER: dict = {}
+# memory one realization in flight takes in a worker, per grid node: counted from the arrays
+# the sequential engine and the realization writer hold at once (random path and normal
+# deviates, the float64 field, its data-unit copy and the back-transform's temporaries, the
+# float32 level written), rounded up
+REALIZATION_BYTES_PER_NODE = 64
+# how often a worker looks for the main process where it cannot wait on a pidfd
+PARENT_POLL_SECONDS = 0.2
 
 
 def realization_rng(seed: int, index: int) -> np.random.Generator:
@@ -57,7 +71,46 @@ def run_one(engine, prepared, sink, seed: int, index: int):
     return field if sink is None else sink(index, field)
 
 
-def _pool_init(engine, prepared, sink) -> None:
+def watch_process(pid: int, interval: float = PARENT_POLL_SECONDS) -> threading.Thread:
+    """Exit this process at once when process ``pid`` (the main process) ends.
+
+    A daemon thread waits on a Linux pidfd of ``pid``, which becomes readable the moment
+    that process ends (before it is reaped, and immune to the pid being reused); where
+    there is none it checks every ``interval`` seconds that ``pid`` still exists.  The
+    parent pid is no guide: a worker's parent is the fork server, which lives as long as
+    its workers do.  The exit is ``os._exit``: no cleanup handlers and no further file
+    written (a file half-written at that moment is a hidden temporary the next run
+    sweeps away).  The compiled kernels release the GIL, so the thread runs while a
+    realization is computed.
+    """
+    try:
+        fd = os.pidfd_open(pid)
+    except ProcessLookupError:  # gone before the watch began
+        os._exit(70)
+    except (AttributeError, OSError):
+        fd = None
+
+    def watch():
+        if fd is not None:
+            select.select([fd], [], [])
+        else:
+            while True:
+                try:
+                    os.kill(pid, 0)
+                except ProcessLookupError:
+                    break
+                except PermissionError:  # exists, owned by someone else
+                    pass
+                time.sleep(interval)
+        os._exit(70)  # EX_SOFTWARE; nobody is left to read it
+
+    thread = threading.Thread(target=watch, name="geosim-main-watch", daemon=True)
+    thread.start()
+    return thread
+
+
+def _pool_init(main_pid, engine, prepared, sink) -> None:
+    watch_process(main_pid)
     _WORKER["state"] = (engine, prepared, sink)
 
 
@@ -145,7 +198,7 @@ def simulate(data_coords, data_scores, model, grid, *, n_realizations: int, seed
         results = _run_dask(client, eng, prepared, sink, seed, todo, progress)
     else:
         n_workers = (os.cpu_count() or 1) if workers is None else int(workers)
-        n_workers = max(1, min(n_workers, len(todo)))
+        n_workers = fitting_workers(grid, prepared, max(1, min(n_workers, len(todo))))
         if n_workers == 1:
             results = {}
             for done, i in enumerate(todo, 1):
@@ -155,6 +208,48 @@ def simulate(data_coords, data_scores, model, grid, *, n_realizations: int, seed
         else:
             results = _run_pool(n_workers, eng, prepared, sink, seed, todo, progress)
     return [results[i] for i in todo]
+
+
+def plan_bytes(prepared) -> int:
+    """Bytes of the arrays an engine's prepared plan holds (its own attributes)."""
+    return sum(v.nbytes for v in getattr(prepared, "__dict__", {}).values() if isinstance(v, np.ndarray))
+
+
+def fitting_workers(grid, prepared, n_workers: int, available: int | None = None) -> int:
+    """The number of local workers (at most ``n_workers``) whose realizations fit in memory.
+
+    Each worker holds a copy of the plan and one realization in flight
+    (:data:`REALIZATION_BYTES_PER_NODE` a node); this process holds the plan too.
+
+    Raises
+    ------
+    ResourceError
+        When not even one realization fits, with the estimate and the fix.
+
+    Warns
+    -----
+    GeosimWarning
+        When fewer workers than asked are used.
+    """
+    from ..errors import GeosimWarning, ResourceError
+    from ..resources import available_memory
+    available = available_memory() if available is None else available
+    if available is None:
+        return n_workers
+    plan = plan_bytes(prepared)
+    per_worker = grid.size * REALIZATION_BYTES_PER_NODE + (plan if n_workers > 1 else 0)
+    fit = (available - plan) // per_worker
+    if fit < 1:
+        raise ResourceError(f"one realization of the {grid.size:,}-node grid needs more memory than this "
+                            "machine has available", needed=int(plan + per_worker), available=int(available),
+                            fix="use larger cells or a smaller grid.bounds, or run on a machine with more memory")
+    if fit < n_workers:
+        import warnings
+        warnings.warn(f"{n_workers} workers would need about {(plan + n_workers * per_worker) / 1e9:.1f} GB of "
+                      f"memory, {available / 1e9:.1f} GB are available: using {fit} worker(s)", GeosimWarning,
+                      stacklevel=3)
+        return int(fit)
+    return n_workers
 
 
 def _pool_context(*modules):
@@ -178,7 +273,7 @@ def _run_pool(n_workers, eng, prepared, sink, seed, todo, progress) -> dict:
     from concurrent.futures import ProcessPoolExecutor, as_completed
     ctx = _pool_context(type(eng).__module__, type(sink).__module__ if sink is not None else None)
     with ProcessPoolExecutor(n_workers, mp_context=ctx, initializer=_pool_init,
-                             initargs=(eng, prepared, sink)) as pool:
+                             initargs=(os.getpid(), eng, prepared, sink)) as pool:
         futures = [pool.submit(_pool_task, seed, i) for i in todo]
         results = _collect(futures, as_completed, lambda: [fut.cancel() for fut in futures], progress)
     return results

@@ -1,0 +1,150 @@
+"""One run per output folder: an exclusive lock on the folder while a step writes there.
+
+The lock is an operating-system lock (``flock`` on POSIX, ``msvcrt.locking`` on
+Windows) on the hidden file ``.geosim-lock`` in the folder.  The kernel releases it
+when the holding process ends in any way, SIGKILL included, so a lock left by a dead
+process never blocks anyone: the next run takes it over (and says so).  The file
+records who holds the lock (process id, host, start time) for the message a second
+run gets.  Within one process the lock is re-entrant, so :func:`geosim.pipeline.run`
+and the steps it calls share it.
+"""
+from __future__ import annotations
+
+import contextlib
+import json
+import os
+import socket
+import threading
+import warnings
+from collections.abc import Iterator
+from pathlib import Path
+
+from ..errors import GeosimWarning, InputError
+
+__all__ = ["LOCK_NAME", "folder_lock", "lock_holder"]
+
+LOCK_NAME = ".geosim-lock"
+
+_HELD: dict[Path, list] = {}  # folder -> [file descriptor, depth]
+_GUARD = threading.Lock()
+
+try:
+    import fcntl
+
+    def _try_lock(fd: int) -> bool:
+        try:
+            fcntl.flock(fd, fcntl.LOCK_EX | fcntl.LOCK_NB)
+        except BlockingIOError:
+            return False
+        return True
+
+    def _unlock(fd: int) -> None:
+        fcntl.flock(fd, fcntl.LOCK_UN)
+except ImportError:  # Windows
+    import msvcrt
+
+    def _try_lock(fd: int) -> bool:
+        os.lseek(fd, 0, os.SEEK_SET)
+        try:
+            msvcrt.locking(fd, msvcrt.LK_NBLCK, 1)
+        except OSError:
+            return False
+        return True
+
+    def _unlock(fd: int) -> None:
+        os.lseek(fd, 0, os.SEEK_SET)
+        msvcrt.locking(fd, msvcrt.LK_UNLCK, 1)
+
+
+def lock_holder(folder: str | os.PathLike) -> dict | None:
+    """What the lock file of ``folder`` says about its holder (``pid``, ``host``,
+    ``started_utc``), or None when it records none (free, or released cleanly)."""
+    try:
+        text = (Path(folder) / LOCK_NAME).read_text(encoding="utf-8")
+        return json.loads(text) if text.strip() else None
+    except (OSError, ValueError):
+        return None
+
+
+def _describe(holder: dict | None) -> str:
+    if not holder:
+        return "another geosim run"
+    return (f"geosim process {holder.get('pid')} on {holder.get('host')}, started "
+            f"{holder.get('started_utc')}")
+
+
+def _acquire(folder: Path) -> int:
+    from .report import utc_now
+    try:
+        fd = os.open(folder / LOCK_NAME, os.O_RDWR | os.O_CREAT, 0o644)
+    except OSError as exc:
+        from ..resources import explain_os_error
+        raise (explain_os_error(exc, folder / LOCK_NAME) or exc) from exc
+    if not _try_lock(fd):
+        os.close(fd)
+        raise InputError(f"the output folder is in use by {_describe(lock_holder(folder))}", file=str(folder),
+                         fix="wait for that run to finish, or choose another --out folder")
+    previous = lock_holder(folder)
+    if previous:
+        warnings.warn(f"took over the output folder {folder} from {_describe(previous)}, which ended "
+                      "without releasing it (killed or crashed)", GeosimWarning, stacklevel=4)
+    me = json.dumps({"pid": os.getpid(), "host": socket.gethostname(), "started_utc": utc_now()})
+    os.ftruncate(fd, 0)
+    os.pwrite(fd, me.encode(), 0)
+    return fd
+
+
+def _release(fd: int) -> None:
+    try:
+        os.ftruncate(fd, 0)  # an empty file: released cleanly, nobody to report
+        _unlock(fd)
+    finally:
+        os.close(fd)
+
+
+@contextlib.contextmanager
+def folder_lock(folder: str | os.PathLike) -> Iterator[Path]:
+    """Hold the exclusive lock of output folder ``folder`` (created if missing).
+
+    Raises
+    ------
+    InputError
+        When another process holds the lock (naming it), or the folder cannot be
+        created or written.
+
+    Warns
+    -----
+    GeosimWarning
+        When the lock file names a holder that ended without releasing it.
+
+    Examples
+    --------
+    >>> import pathlib, tempfile
+    >>> import geosim.io.lock
+    >>> folder = pathlib.Path(tempfile.mkdtemp()) / "run"
+    >>> with geosim.io.lock.folder_lock(folder):
+    ...     with geosim.io.lock.folder_lock(folder):  # re-entrant in one process
+    ...         pass
+    >>> geosim.io.lock.lock_holder(folder) is None  # released cleanly
+    True
+    """
+    folder = Path(folder)
+    try:
+        folder.mkdir(parents=True, exist_ok=True)
+    except OSError as exc:
+        from ..resources import explain_os_error
+        raise (explain_os_error(exc, folder / LOCK_NAME) or exc) from exc
+    key = folder.resolve()
+    with _GUARD:
+        held = _HELD.get(key)
+        if held is None:
+            held = _HELD[key] = [_acquire(key), 0]
+        held[1] += 1
+    try:
+        yield folder
+    finally:
+        with _GUARD:
+            held[1] -= 1
+            if held[1] == 0:
+                del _HELD[key]
+                _release(held[0])
