@@ -85,11 +85,16 @@ def _errnos(exc: BaseException):
         exc = exc.__cause__ or exc.__context__
 
 
+def _write_failure(exc: BaseException) -> bool:
+    """An OS error, or one of the errors GDAL raises through rasterio when a write fails."""
+    return isinstance(exc, OSError) or type(exc).__module__.startswith("rasterio")
+
+
 def explain_os_error(exc: BaseException, path: str | os.PathLike, needed: int | None = None) -> GeosimError | None:
     """The geosim error a failed write of ``path`` stands for, or None if it is not the
     environment's fault.
 
-    A full disk (``ENOSPC``, ``EDQUOT``, or any write failure with under
+    A full disk (``ENOSPC``, ``EDQUOT``, or an OS or GDAL write failure with under
     :data:`DISK_FULL_MARGIN` left) becomes a :class:`~geosim.errors.ResourceError`
     naming the folder; a refused write (``EACCES``, ``EPERM``, ``EROFS``) an
     :class:`~geosim.errors.InputError` naming the folder.
@@ -97,14 +102,14 @@ def explain_os_error(exc: BaseException, path: str | os.PathLike, needed: int | 
     folder = Path(path).parent
     codes = set(_errnos(exc))
     free = free_space(folder)
-    if codes & _FULL or (isinstance(exc, OSError) and free is not None and free < DISK_FULL_MARGIN):
-        return ResourceError(f"the disk is full: cannot write {Path(path).name} into this folder",
-                             folder=str(folder), needed=needed, available=free,
-                             fix="free space on that disk or choose an output folder on another disk, "
-                                 "then rerun the same command (finished realizations are kept)")
     if codes & _DENIED:
         reason = "the file system is read-only" if errno.EROFS in codes else "permission denied"
         return InputError(f"cannot write into the output folder ({reason})", file=str(folder),
                           fix="choose an output folder you can write to, or change its permissions")
+    if codes & _FULL or (_write_failure(exc) and free is not None and free < DISK_FULL_MARGIN):
+        return ResourceError(f"the disk is full: cannot write {Path(path).name} into this folder",
+                             folder=str(folder), needed=needed, available=free,
+                             fix="free space on that disk or choose an output folder on another disk, "
+                                 "then rerun the same command (finished realizations are kept)")
     return None
 

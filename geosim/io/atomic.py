@@ -90,7 +90,7 @@ def atomic_output(path: str | os.PathLike, overwrite: bool = False) -> Iterator[
         os.replace(tmp, path)
     except BaseException as exc:
         error = None
-        if isinstance(exc, OSError):  # judged before the partial file frees its space
+        if isinstance(exc, Exception):  # judged before the partial file frees its space
             from ..resources import explain_os_error
             error = explain_os_error(exc, path)
         with contextlib.suppress(FileNotFoundError):

@@ -160,7 +160,7 @@ def write_bands(out_path: str | os.PathLike, grid, n_bands: int, windows: Callab
                     dst.update_tags(**{k: str(v) for k, v in tags.items()})
             # the tiled stage feeds GDAL's COG driver, which adds overviews and orders the file
             rasterio.shutil.copy(stage, final, driver="COG", BLOCKSIZE=block, **_COG_OPTIONS)
-        except OSError as exc:  # judged while the stage still holds its space
+        except Exception as exc:  # judged while the stage still holds its space
             error = explain_os_error(exc, out_path, needed=n_bands * grid.size * 4)
             if error is None:
                 raise
