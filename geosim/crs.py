@@ -117,7 +117,7 @@ def centroid_lonlat(lon: np.ndarray, lat: np.ndarray) -> tuple[float, float]:
 
 
 def to_projected(coords: np.ndarray, crs: CrsLike | None, target: CrsLike | None = None,
-                 *, file: str | None = None) -> tuple[np.ndarray, CRS | None, str | None]:
+                 *, file: str | None = None, rows=None) -> tuple[np.ndarray, CRS | None, str | None]:
     """Coordinates in metres of a projected CRS.
 
     Parameters
@@ -133,6 +133,8 @@ def to_projected(coords: np.ndarray, crs: CrsLike | None, target: CrsLike | None
         is returned unchanged and geographic input goes to the UTM zone of its centroid.
     file : str, optional
         Input file, for error messages.
+    rows : (n,) array_like of int, optional
+        The file row of each point, for error messages (point numbers otherwise).
 
     Returns
     -------
@@ -148,8 +150,10 @@ def to_projected(coords: np.ndarray, crs: CrsLike | None, target: CrsLike | None
     ------
     InputError
         For a CRS pyproj cannot read, a target that is not projected in metres,
-        a projected CRS in other units without a target, or latitudes/longitudes out
-        of range.
+        a projected CRS in other units without a target, latitudes/longitudes out
+        of range (projected coordinates declared geographic), or longitudes/latitudes
+        declared in a projected CRS: every point within +-180, +-90 and, read as metres
+        of that CRS, outside the CRS's area of use.
 
     Warns
     -----
@@ -187,7 +191,7 @@ def to_projected(coords: np.ndarray, crs: CrsLike | None, target: CrsLike | None
     source = parse_crs(crs, file=file, field="CRS")
     h = _horizontal(source)
     if h.is_geographic:
-        _check_lonlat(xyz, file)
+        _check_lonlat(xyz, file, rows)
     elif not h.is_projected:
         raise InputError(f"CRS {_crs_name(source)} is neither geographic nor projected", file=file,
                          field="CRS", fix="give the horizontal CRS of the coordinates (geographic or projected)")
@@ -196,6 +200,7 @@ def to_projected(coords: np.ndarray, crs: CrsLike | None, target: CrsLike | None
             unit = h.axis_info[0].unit_name
             raise InputError(f"CRS {_crs_name(source)} measures in {unit}, geosim computes in metres",
                              file=file, field="CRS", fix="name a projected target CRS in metres")
+        _check_projected(xyz, h, file, rows)
         if target_crs is None:
             _warn_if_degrees(xyz, source)
             return xyz, source, None
@@ -211,8 +216,9 @@ def to_projected(coords: np.ndarray, crs: CrsLike | None, target: CrsLike | None
     bad = ~np.isfinite(out[:, :2]).all(axis=1)
     if bad.any():
         i = int(np.argmax(bad))
-        raise InputError(f"point {i + 1} ({xyz[i, 0]}, {xyz[i, 1]}) cannot be reprojected to "
-                         f"{_crs_name(target_crs)}", file=file, fix="check the coordinates and the CRS")
+        where, row = _point(i, rows)
+        raise InputError(f"{where}({xyz[i, 0]}, {xyz[i, 1]}) cannot be reprojected to {_crs_name(target_crs)}",
+                         file=file, row=row, fix="check the coordinates and the CRS")
     note = f"reprojected {_crs_name(source)} -> {_crs_name(target_crs)}"
     if chosen_for_user:
         note += " (UTM zone of the data centroid)"
@@ -220,7 +226,12 @@ def to_projected(coords: np.ndarray, crs: CrsLike | None, target: CrsLike | None
     return out, target_crs, note
 
 
-def _check_lonlat(xyz: np.ndarray, file: str | None) -> None:
+def _point(i: int, rows) -> tuple[str, int | None]:
+    """How a message names point ``i``: by its file row when known."""
+    return ("", int(rows[i])) if rows is not None else (f"point {i + 1} ", None)
+
+
+def _check_lonlat(xyz: np.ndarray, file: str | None, rows=None) -> None:
     lon, lat = xyz[:, 0], xyz[:, 1]
     bad_lat = ~(np.abs(lat) <= 90.0)
     bad_lon = ~(np.abs(lon) <= 180.0)
@@ -229,8 +240,41 @@ def _check_lonlat(xyz: np.ndarray, file: str | None) -> None:
         swapped = bool(np.all(np.abs(lon) <= 90.0) and bad_lat.any() and not bad_lon.any())
         fix = ("longitude and latitude look swapped: x is the longitude, y the latitude" if swapped
                else "the coordinates are not degrees: name the projected CRS they are in")
-        raise InputError(f"point {i + 1} ({lon[i]}, {lat[i]}) is not a longitude/latitude in degrees",
-                         file=file, field="CRS", fix=fix)
+        where, row = _point(i, rows)
+        raise InputError(f"{where}({lon[i]}, {lat[i]}) is not a longitude/latitude in degrees, as the "
+                         "geographic CRS declared says", file=file, row=row, field="CRS", fix=fix)
+
+
+# degrees beyond the edges of a CRS's area of use still counted as inside it
+_AREA_MARGIN = 1.0
+
+
+def _check_projected(xyz: np.ndarray, crs: CRS, file: str | None, rows=None) -> None:
+    """Refuse longitude/latitude declared in a projected CRS.
+
+    Numbers within +-180 and +-90 are rarely metres of a projected CRS: read as such they
+    lie within 200 m of its false origin, which for most CRSs (every UTM zone, for one)
+    is far outside the area the CRS is defined for.  When every point lands outside that
+    area of use (with a margin of a degree) the numbers are degrees.
+    """
+    x, y = xyz[:, 0], xyz[:, 1]
+    area = crs.area_of_use
+    if area is None or not (np.all(np.abs(x) <= 180.0) and np.all(np.abs(y) <= 90.0)):
+        return
+    lon, lat = Transformer.from_crs(crs, crs.geodetic_crs, always_xy=True).transform(x, y, errcheck=False)
+    lon, lat = np.asarray(lon, dtype=float), np.asarray(lat, dtype=float)
+    west, east = area.west - _AREA_MARGIN, area.east + _AREA_MARGIN
+    in_lon = (lon >= west) & (lon <= east) if west <= east else (lon >= west) | (lon <= east)
+    inside = in_lon & (lat >= area.south - _AREA_MARGIN) & (lat <= area.north + _AREA_MARGIN)
+    if inside.any():
+        return
+    where, row = _point(0, rows)
+    raise InputError(f"the coordinates look like longitude/latitude, not metres of {_crs_name(crs)}: "
+                     f"{where}({x[0]}, {y[0]}) read as metres of that CRS lies at longitude {lon[0]:.3f}, "
+                     f"latitude {lat[0]:.3f}, outside its area of use (longitude {area.west:g} to {area.east:g}, "
+                     f"latitude {area.south:g} to {area.north:g})", file=file, row=row,
+                     field="CRS", fix="declare the geographic CRS of the coordinates, e.g. 'EPSG:4326' "
+                     "(x = longitude, y = latitude); geosim then works in their UTM zone")
 
 
 def _warn_if_degrees(xyz: np.ndarray, crs: CRS | None) -> None:

@@ -335,7 +335,7 @@ def read_drillholes(collars: str | os.PathLike, surveys: str | os.PathLike | Non
         if not depth[i] > 0:
             raise InputError(f"total depth {depth[i]:g} is not positive", file=ct.path, row=ct.lines[i],
                              field=ct.header[ct.index(cc["depth"])], fix="give the hole's length in metres")
-    xyz, out_crs, note = to_projected(xyz, crs, target_crs, file=ct.path)
+    xyz, out_crs, note = to_projected(xyz, crs, target_crs, file=ct.path, rows=ct.lines)
     if note:
         notes.append(note)
 

@@ -196,7 +196,8 @@ def read_points(path: str | os.PathLike, *, x: str, y: str, z: str | None = None
         cols.append(table.numbers(z, role="z coordinate"))
     vals = np.column_stack([table.numbers(v, role="value") for v in names])
     ids = None if hole is None else table.text(hole, role="hole id")
-    coords, out_crs, note = to_projected(np.column_stack(cols), crs, target_crs, file=table.path)
+    coords, out_crs, note = to_projected(np.column_stack(cols), crs, target_crs, file=table.path,
+                                         rows=table.lines)
     notes = [] if note is None else [note]
     points = PointSet(coords, vals, tuple(table.header[table.index(v)] for v in names), out_crs, ids,
                       {"row": np.array(table.lines, dtype=np.int64)}, (table.path,), tuple(notes))

@@ -139,11 +139,32 @@ def test_degrees_out_of_range_and_swapped_axes():
 
 
 def test_projected_coordinates_that_look_like_degrees_warn():
+    # EPSG:3857 covers the world, so small numbers are possible metres there: only a hint
     with pytest.warns(GeosimWarning, match="look like degrees"):
-        to_projected(np.array([[15.12345, 48.21234], [15.2, 48.3]]), "EPSG:32633")
+        to_projected(np.array([[15.12345, 48.21234], [15.2, 48.3]]), "EPSG:3857")
     with warnings.catch_warnings():
         warnings.simplefilter("error")  # a small survey in metres with round coordinates is fine
-        to_projected(np.array([[15.1, 48.2], [15.2, 48.3]]), "EPSG:32633")
+        to_projected(np.array([[15.1, 48.2], [15.2, 48.3]]), "EPSG:3857")
+
+
+def test_degrees_declared_projected_are_refused_naming_the_row():
+    # (15.2 E, 48.1 N) read as metres of UTM 33 N lie 500 km west of its central meridian
+    # at the equator, about longitude 10.5: outside the zone's 12-18 E (EPSG area of use)
+    with pytest.raises(InputError, match="look like longitude/latitude") as err:
+        to_projected(np.array([[15.2, 48.1], [15.3, 48.2]]), "EPSG:32633", file="wells.csv", rows=[7, 8])
+    assert err.value.file == "wells.csv" and err.value.row == 7 and "EPSG:4326" in err.value.fix
+    # New Zealand Transverse Mercator (EPSG:2193): 172.5, -43.5 as metres is off New Zealand
+    with pytest.raises(InputError, match="look like longitude/latitude"):
+        to_projected(np.array([[172.5, -43.5]]), "EPSG:2193")
+    # the same place in real UTM metres passes untouched
+    xy = np.array([[480000.0, 5300000.0]])
+    assert np.array_equal(to_projected(xy, "EPSG:32633")[0], xy)
+
+
+def test_projected_declared_geographic_names_the_row():
+    with pytest.raises(InputError, match="not a longitude/latitude") as err:
+        to_projected(np.array([[1.0, 2.0], [512000.0, 5300000.0]]), "EPSG:4326", file="wells.csv", rows=[2, 3])
+    assert err.value.row == 3 and "point" not in err.value.message
 
 
 def test_no_warning_when_target_given():
