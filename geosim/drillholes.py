@@ -244,16 +244,53 @@ def desurvey(collar, survey_depths, azimuths, dips, depths) -> np.ndarray:
     return out
 
 
-def _columns(columns: Mapping | None) -> dict:
+def column_names(columns: Mapping | None) -> dict[str, dict[str, str]]:
+    """The column name of every role of every table, after the renames in ``columns``.
+
+    ``columns`` maps a default column name to the name in the files, for every table
+    that has it (``{"hole_id": "HOLE", "from": "FROM_M"}``), or a table name to such a
+    mapping for that table alone (``{"collar": {"depth": "EOH"}}``); both forms mix.
+    ``depth`` is a role of the collar table (total depth) and of the survey table, so
+    rename it per table when the two differ.
+
+    Raises
+    ------
+    InputError
+        For an unknown table or role (with a suggestion) or a name that is not text.
+
+    Examples
+    --------
+    >>> from geosim.drillholes import column_names
+    >>> names = column_names({"hole_id": "HOLE", "collar": {"depth": "EOH"}})
+    >>> names["collar"]["hole_id"], names["intervals"]["hole_id"], names["collar"]["depth"], names["survey"]["depth"]
+    ('HOLE', 'HOLE', 'EOH', 'depth')
+    """
     names = {table: dict(cols) for table, cols in DEFAULT_COLUMNS.items()}
-    for table, renames in (columns or {}).items():
-        if table not in names:
-            raise ValueError(f"columns: unknown table {table!r}; expected one of {', '.join(names)}")
-        for role, col in renames.items():
-            if role not in names[table]:
-                raise ValueError(f"columns[{table!r}]: unknown role {role!r}; "
-                                 f"expected one of {', '.join(names[table])}")
-            names[table][role] = col
+    roles = sorted({role for cols in names.values() for role in cols})
+    renames = []
+    for key, value in (columns or {}).items():
+        if isinstance(value, Mapping):
+            if key not in names:
+                raise InputError(f"unknown drillhole table {key!r}", field=f"columns.{key}",
+                                 fix=(suggest(key, list(names)) + " " if suggest(key, list(names)) else "")
+                                 + f"tables are {', '.join(names)}")
+            renames += [(key, role, col, f"columns.{key}.{role}") for role, col in value.items()]
+        else:
+            tables = [t for t in names if key in names[t]]
+            if not tables:
+                hint = suggest(key, roles + list(names))
+                raise InputError(f"{key!r} is not a drillhole column role", field=f"columns.{key}",
+                                 fix=(hint + " " if hint else "") + f"roles are {', '.join(roles)}")
+            renames += [(t, key, value, f"columns.{key}") for t in tables]
+    for table, role, col, where in renames:
+        if role not in names[table]:
+            hint = suggest(role, list(names[table]))
+            raise InputError(f"the {table} table has no column role {role!r}", field=where,
+                             fix=(hint + " " if hint else "") + f"its roles are {', '.join(names[table])}")
+        if not isinstance(col, str) or not col.strip():
+            raise InputError(f"the column name must be text, found {col!r}", field=where,
+                             fix='write the name of the column in the file, e.g. "HOLE"')
+        names[table][role] = col
     return names
 
 
@@ -289,8 +326,9 @@ def read_drillholes(collars: str | os.PathLike, surveys: str | os.PathLike | Non
     target_crs : CRS-like, optional
         Projected CRS in metres to work in.
     columns : mapping, optional
-        Column renames per table, e.g. ``{"collar": {"x": "east", "y": "north"},
-        "intervals": {"from": "depth_from"}}``; roles are those of
+        Column renames (:func:`column_names`): default name -> name in the files for
+        every table, e.g. ``{"hole_id": "HOLE", "from": "FROM_M"}``, and/or per table,
+        e.g. ``{"collar": {"x": "east", "y": "north"}}``; roles are those of
         :data:`DEFAULT_COLUMNS`.
 
     Returns
@@ -313,7 +351,7 @@ def read_drillholes(collars: str | os.PathLike, surveys: str | os.PathLike | Non
         When every dip is positive (holes drilled upward): usually a file whose
         dips are positive downward.
     """
-    cols = _columns(columns)
+    cols = column_names(columns)
     names = (values,) if isinstance(values, str) else tuple(values)
     if not names:
         raise ValueError("name at least one value column")

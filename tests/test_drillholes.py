@@ -169,8 +169,9 @@ def test_renamed_columns(tmp_path):
                         columns={"collar": {"hole_id": "BHID", "x": "E", "y": "N", "z": "RL", "depth": "EOH"},
                                  "intervals": {"hole_id": "BHID", "from": "top", "to": "base"}})
     assert h.surveys == {} and composite(h, 5.0).column().tolist() == [2.0, 2.0]
-    with pytest.raises(ValueError, match="unknown role"):
+    with pytest.raises(InputError, match="no column role 'easting'") as err:
         read_drillholes(col, None, itv, values="zn", crs=None, columns={"collar": {"easting": "E"}})
+    assert err.value.field == "columns.collar.easting"
 
 
 def test_geographic_collars_are_reprojected(tmp_path):

@@ -19,6 +19,9 @@ import numpy as np
 import pytest
 
 import geosim
+import geosim.io.geotiff
+import geosim.io.runspec
+import geosim.pipeline
 from geosim.errors import GeosimWarning, InputError, ResourceError
 from geosim.grid import Grid
 from geosim.io.lock import LOCK_NAME, folder_lock, lock_holder

@@ -57,7 +57,7 @@ from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
 
-from ..errors import RetiredNameWarning, SpecError
+from ..errors import InputError, RetiredNameWarning, SpecError
 from ..retired import retire_spec_names
 
 __all__ = ["RunSpec", "load_spec", "spec_from_dict", "parse_overrides", "reference", "SCHEMA", "EXECUTION_KEYS"]
@@ -168,11 +168,17 @@ def _each(one, values: list):
     return out
 
 
-def _str_map(value):
-    if isinstance(value, dict) and all(isinstance(k, str) and isinstance(v, str) and v.strip()
-                                       for k, v in value.items()):
-        return dict(value), None
-    return None, 'a table of column names, e.g. {hole_id = "HOLE", from = "FROM_M"}'
+def _column_map(value):
+    wanted = ('a table of column names, e.g. {hole_id = "HOLE", from = "FROM_M"}, and/or one per '
+              'drillhole table, e.g. collar = {depth = "EOH"}')
+    if not isinstance(value, dict):
+        return None, wanted
+    from ..drillholes import column_names
+    try:
+        column_names(value)
+    except InputError as exc:
+        return None, f"{wanted} ({exc.field}: {exc.message}; {exc.fix})"
+    return dict(value), None
 
 
 @dataclass(frozen=True)
@@ -205,7 +211,9 @@ SCHEMA: dict[str, dict[str, Key]] = {
         "crs": Key(_text, required=True, help="CRS of the input coordinates"),
         "working_crs": Key(_text, default="auto", help='projected CRS to work in, or "auto"'),
         "units": Key(_text, default="", help="units of the value"),
-        "columns": Key(_str_map, default={}, help="drillholes: default column name -> name in the files"),
+        "columns": Key(_column_map, default={},
+                       help="drillholes: default column name -> name in the files (all tables), or "
+                            "collar/survey/intervals = {name = ...} for one table"),
     },
     "data.composites": {
         "length": Key(_number(0.0, lo_open=True), required=True, help="composite length in metres"),
