@@ -196,13 +196,27 @@ def read_holes(spec: RunSpec):
                            columns=d["columns"] or None)
 
 
-def below_surface(grid, points: np.ndarray) -> np.ndarray:
+def below_surface(grid, points: np.ndarray, *, file: str | None = None) -> np.ndarray:
     """Mask of the 3-D ``grid`` nodes below the surface through ``points`` (x, y, z).
 
     The surface is linear between the points (Delaunay triangles) and takes the nearest
     point's elevation outside their hull: a ground surface through drillhole collars.
+
+    Raises
+    ------
+    InputError
+        With fewer than three points, or points all in one line (no triangle to span
+        a surface); ``file`` names the run spec in the message.
     """
     from scipy.interpolate import LinearNDInterpolator, NearestNDInterpolator
+    xy = np.unique(np.asarray(points, dtype=float)[:, :2], axis=0)
+    spread = np.linalg.svd(xy - xy.mean(axis=0), compute_uv=False) if len(xy) >= 3 else np.zeros(2)
+    if len(xy) < 3 or spread[1] <= 1e-9 * spread[0]:
+        found = f"{len(xy)} collar position(s)" if len(xy) < 3 else f"{len(xy)} collars in one line"
+        raise InputError(f"the ground surface through the collars needs at least three collars that are not "
+                         f"in one line; found {found}", file=file, field="domain.below_collars",
+                         fix="set below_collars = false (and bound the grid with grid.z_range or a domain), "
+                             "or add the collars of more holes")
     z, y, x = grid.axes()
     xx, yy = np.meshgrid(x, y)
     xy = np.column_stack([xx.ravel(), yy.ravel()])
@@ -315,7 +329,7 @@ def make_grid(spec: RunSpec, data: PreparedData | None = None):
         mask = read_domain_raster(spec.resolve(spec["domain.raster"]), grid)
         grid = grid.with_mask(grid.mask & np.broadcast_to(mask, grid.shape))
     if spec["domain.below_collars"] and grid.ndim == 3:
-        grid = grid.with_mask(grid.mask & below_surface(grid, read_holes(spec).collars))
+        grid = grid.with_mask(grid.mask & below_surface(grid, read_holes(spec).collars, file=spec.name))
     if grid.n_active == 0:
         raise InputError("no grid node falls inside the domain", file=spec.name, field="domain",
                          fix="check the domain file, its CRS and grid.bounds")

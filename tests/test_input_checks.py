@@ -52,3 +52,34 @@ def test_bad_column_mapping_is_a_spec_problem(columns, said):
         geosim.io.runspec.load_spec(ORE / "run.toml", {"data.columns": columns})
     assert len(err.value.problems) == 1
     assert err.value.problems[0].startswith("data.columns:") and said in err.value.problems[0]
+
+
+def _ore_holes(folder: Path, holes: int, in_line: bool = False) -> Path:
+    """The ore prospect cut to its first ``holes`` holes (collars moved onto one line if asked)."""
+    collars = (ORE / "collars.csv").read_text().splitlines()
+    keep = collars[1:holes + 1]
+    if in_line:
+        keep = [",".join([r.split(",")[0], f"{454700 + 40 * i:.2f}", f"{5459900 + 30 * i:.2f}", *r.split(",")[3:]])
+                for i, r in enumerate(keep)]
+    ids = {r.split(",")[0] for r in keep}
+    (folder / "collars.csv").write_text("\n".join([collars[0], *keep]) + "\n")
+    for name in ("surveys.csv", "assays.csv"):
+        lines = (ORE / name).read_text().splitlines()
+        (folder / name).write_text("\n".join([lines[0], *[r for r in lines[1:] if r.split(",")[0] in ids]]) + "\n")
+    for name in ("run.toml", "domain.geojson"):
+        shutil.copy(ORE / name, folder / name)
+    return folder / "run.toml"
+
+
+@pytest.mark.parametrize("holes, in_line, said", [(2, False, "found 2 collar position(s)"),
+                                                  (4, True, "found 4 collars in one line")])
+def test_below_collars_needs_three_collars_not_in_a_line(tmp_path, holes, in_line, said):
+    spec = geosim.io.runspec.load_spec(_ore_holes(tmp_path, holes, in_line),
+                                       {"domain.below_collars": True, "domain.polygon": None,
+                                        "grid.cell": [40.0, 40.0, 20.0], "declustering.method": "none",
+                                        "declustering.sizes": None})
+    data = geosim.pipeline.prepare_data(spec)
+    with pytest.raises(InputError, match="at least three collars") as err:
+        geosim.pipeline.make_grid(spec, data)
+    assert said in err.value.message and err.value.field == "domain.below_collars"
+    assert err.value.file == spec.name
