@@ -76,8 +76,7 @@ def _ore_holes(folder: Path, holes: int, in_line: bool = False) -> Path:
 def test_below_collars_needs_three_collars_not_in_a_line(tmp_path, holes, in_line, said):
     spec = geosim.io.runspec.load_spec(_ore_holes(tmp_path, holes, in_line),
                                        {"domain.below_collars": True, "domain.polygon": None,
-                                        "grid.cell": [40.0, 40.0, 20.0], "declustering.method": "none",
-                                        "declustering.sizes": None})
+                                        "grid.cell": [40.0, 40.0, 20.0]})
     data = geosim.pipeline.prepare_data(spec)
     with pytest.raises(InputError, match="at least three collars") as err:
         geosim.pipeline.make_grid(spec, data)

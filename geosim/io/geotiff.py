@@ -50,7 +50,7 @@ from typing import Any
 import numpy as np
 
 from ..errors import InputError
-from ..resources import explain_os_error
+from ..resources import DISK_FULL_MARGIN, explain_os_error, free_space
 from .atomic import atomic_output, check_writable
 from .report import file_sha256
 
@@ -160,6 +160,8 @@ def write_bands(out_path: str | os.PathLike, grid, n_bands: int, windows: Callab
                     dst.update_tags(**{k: str(v) for k, v in tags.items()})
             # the tiled stage feeds GDAL's COG driver, which adds overviews and orders the file
             rasterio.shutil.copy(stage, final, driver="COG", BLOCKSIZE=block, **_COG_OPTIONS)
+            if (free_space(final.parent) or 0) < DISK_FULL_MARGIN:
+                _read_back(final)  # GDAL's COG driver can report success on a full disk
         except Exception as exc:  # judged while the stage still holds its space
             error = explain_os_error(exc, out_path, needed=n_bands * grid.size * 4)
             if error is None:
@@ -168,6 +170,14 @@ def write_bands(out_path: str | os.PathLike, grid, n_bands: int, windows: Callab
         finally:
             stage.unlink(missing_ok=True)
     return out_path
+
+
+def _read_back(path: Path) -> None:
+    """Read every block of a written GeoTIFF, so a truncated file raises."""
+    import rasterio
+    with rasterio.open(path) as src:
+        for _, window in src.block_windows(1):
+            src.read(window=window)
 
 
 def write_raster(path: str | os.PathLike, data: np.ndarray, grid, *,

@@ -25,7 +25,7 @@ __all__ = ["LOCK_NAME", "folder_lock", "lock_holder"]
 
 LOCK_NAME = ".geosim-lock"
 
-_HELD: dict[Path, list] = {}  # folder -> [file descriptor, depth]
+_HELD: dict[Path, list] = {}  # folder -> [file descriptor, depth, whether the lock created the folder]
 _GUARD = threading.Lock()
 
 try:
@@ -94,9 +94,15 @@ def _acquire(folder: Path) -> int:
     return fd
 
 
-def _release(fd: int) -> None:
+def _release(fd: int, created: Path | None) -> None:
+    """Unlock; a folder the lock created and nothing else wrote into is removed again
+    (while still locked, so no other run can be inside it)."""
     try:
         os.ftruncate(fd, 0)  # an empty file: released cleanly, nobody to report
+        if created is not None and [p.name for p in created.iterdir()] == [LOCK_NAME]:
+            (created / LOCK_NAME).unlink()
+            with contextlib.suppress(OSError):
+                created.rmdir()
         _unlock(fd)
     finally:
         os.close(fd)
@@ -104,7 +110,8 @@ def _release(fd: int) -> None:
 
 @contextlib.contextmanager
 def folder_lock(folder: str | os.PathLike) -> Iterator[Path]:
-    """Hold the exclusive lock of output folder ``folder`` (created if missing).
+    """Hold the exclusive lock of output folder ``folder`` (created if missing, and
+    removed again if nothing was written into it).
 
     Raises
     ------
@@ -129,6 +136,7 @@ def folder_lock(folder: str | os.PathLike) -> Iterator[Path]:
     True
     """
     folder = Path(folder)
+    created = not folder.exists()
     try:
         folder.mkdir(parents=True, exist_ok=True)
     except OSError as exc:
@@ -138,7 +146,7 @@ def folder_lock(folder: str | os.PathLike) -> Iterator[Path]:
     with _GUARD:
         held = _HELD.get(key)
         if held is None:
-            held = _HELD[key] = [_acquire(key), 0]
+            held = _HELD[key] = [_acquire(key), 0, created]
         held[1] += 1
     try:
         yield folder
@@ -147,4 +155,4 @@ def folder_lock(folder: str | os.PathLike) -> Iterator[Path]:
             held[1] -= 1
             if held[1] == 0:
                 del _HELD[key]
-                _release(held[0])
+                _release(held[0], key if held[2] else None)
