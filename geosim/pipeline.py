@@ -856,7 +856,7 @@ def simulate(spec: RunSpec, data: PreparedData | None = None, model=None, grid=N
         new = run_engine(data.coords, data.scores, model, grid, n_realizations=n, seed=sim["seed"],
                          engine=sim["engine"], neighbourhood=neighbourhood(spec), kriging=sim["kriging"],
                          workers=sim["workers"], client=sim["cluster"], sink=sink, indices=missing,
-                         progress=progress, **options)
+                         progress=progress, realizations_per_path=sim["realizations_per_path"], **options)
         records.update(zip(missing, new))
     elif progress is not None:
         progress(n, n, "realizations")

@@ -304,6 +304,9 @@ SCHEMA: dict[str, dict[str, Key]] = {
         "realizations": Key(_int(1, 100000), required=True),
         "seed": Key(_int(0, 2 ** 63 - 1), required=True),
         "kriging": Key(_choice("simple", "ordinary"), default="simple"),
+        "realizations_per_path": Key(_int(1, 1000), default=1,
+                                     help="realizations sharing one random path (sequential engine; "
+                                          "10 simulates several times faster)"),
         "workers": Key(_int(1, 1024)),
         "cluster": Key(_text, help="Dask scheduler address, e.g. tcp://10.0.0.5:8786"),
     },
@@ -705,6 +708,9 @@ def _check_combinations(spec: dict, problems: list[str]) -> None:
         problems.append(f"simulation.engine: expected one of {', '.join(engines)}, found {sim['engine']!r}")
     if sim["workers"] is not None and sim["cluster"] is not None:
         problems.append("simulation: expected workers or cluster, found both")
+    if sim["engine"] == "exact" and sim["realizations_per_path"] != 1:
+        problems.append("simulation.realizations_per_path: expected 1 with the exact engine (it has no path), "
+                        f"found {sim['realizations_per_path']}")
 
     out = spec["outputs"]
     if out["density"] is not None and ndim == 2 and out["thickness"] is None:

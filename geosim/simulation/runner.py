@@ -3,7 +3,9 @@
 Realization ``i`` of a run with seed ``s`` draws only from
 ``numpy.random.default_rng(numpy.random.SeedSequence(s, spawn_key=(i,)))``, so a field
 is bit-identical whichever way it was computed, and a resumed run can compute just the
-missing indices.  The engine's prepared state is built once in the calling process and
+missing indices.  When ``realizations_per_path = p > 1``, realizations ``i`` with the same
+``i // p`` share one random path drawn from :func:`path_rng` (engines with a
+``realize_batch`` method), and still depend on nothing but ``s`` and ``i``.  The engine's prepared state is built once in the calling process and
 shipped once per worker (a pool initializer; a Dask broadcast scatter).  Pool workers
 start from a fork server (spawn where there is none), never by forking this process.  Each finished
 field goes to the sink in the worker, so only the sink's small results travel back.
@@ -31,6 +33,9 @@ _WORKER: dict = {}
 # deviates, the float64 field, its data-unit copy and the back-transform's temporaries, the
 # float32 level written), rounded up
 REALIZATION_BYTES_PER_NODE = 64
+# and for each further member of a group sharing a path (its column of the float64 field,
+# of the normal deviates, and its float64 field handed to the sink)
+MEMBER_BYTES_PER_NODE = 24
 # how often a worker looks for the main process where it cannot wait on a pidfd
 PARENT_POLL_SECONDS = 0.2
 
@@ -48,6 +53,15 @@ def realization_rng(seed: int, index: int) -> np.random.Generator:
     True
     """
     return np.random.default_rng(np.random.SeedSequence(int(seed), spawn_key=(int(index),)))
+
+
+#: First spawn-key word of the path streams; realization streams have one-word keys.
+PATH_STREAM = 0x70617468
+
+
+def path_rng(seed: int, group: int) -> np.random.Generator:
+    """The generator of the random path shared by realization group ``group`` of a run with ``seed``."""
+    return np.random.default_rng(np.random.SeedSequence(int(seed), spawn_key=(PATH_STREAM, int(group))))
 
 
 def resolve_engine(engine):
@@ -109,24 +123,41 @@ def watch_process(pid: int, interval: float = PARENT_POLL_SECONDS) -> threading.
     return thread
 
 
+def run_group(engine, prepared, sink, seed: int, indices: list[int], per_path: int) -> list[tuple]:
+    """``[(index, sink result or field)]`` for realizations of one path group (one index when ``per_path`` is 1)."""
+    if per_path == 1:
+        return [(i, run_one(engine, prepared, sink, seed, i)) for i in indices]
+    fields = engine.realize_batch(prepared, path_rng(seed, indices[0] // per_path),
+                                  [realization_rng(seed, i) for i in indices])
+    out = []
+    for i in indices:
+        field = fields.pop(0)  # hand each field over and let it go before the next one
+        out.append((i, field if sink is None else sink(i, field)))
+    return out
+
+
+def _groups(todo: list[int], per_path: int) -> list[list[int]]:
+    """The requested indices by path group, in index order (singletons when ``per_path`` is 1)."""
+    groups: dict[int, list[int]] = {}
+    for i in todo:
+        groups.setdefault(i // per_path if per_path > 1 else i, []).append(i)
+    return list(groups.values())
+
+
 def _pool_init(main_pid, engine, prepared, sink) -> None:
     watch_process(main_pid)
     _WORKER["state"] = (engine, prepared, sink)
 
 
-def _pool_task(seed: int, index: int):
+def _pool_task(seed: int, indices: list[int], per_path: int):
     engine, prepared, sink = _WORKER["state"]
-    return index, run_one(engine, prepared, sink, seed, index)
-
-
-def _dask_task(engine, prepared, sink, seed: int, index: int):
-    return index, run_one(engine, prepared, sink, seed, index)
+    return run_group(engine, prepared, sink, seed, indices, per_path)
 
 
 def simulate(data_coords, data_scores, model, grid, *, n_realizations: int, seed: int,
              engine="sequential", neighbourhood=None, kriging: str = "simple", workers: int | None = None,
              client=None, sink: Callable | None = None, indices: Iterable[int] | None = None,
-             progress: Callable | None = None, **engine_options) -> list:
+             progress: Callable | None = None, realizations_per_path: int = 1, **engine_options) -> list:
     """Conditional realizations of a Gaussian field on a grid (normal scores).
 
     Parameters
@@ -162,7 +193,13 @@ def simulate(data_coords, data_scores, model, grid, *, n_realizations: int, seed
     indices : iterable of int, optional
         Compute only these realizations (e.g. the ones missing from a resumed run).
     progress : callable, optional
-        ``progress(done, total, "realizations")`` after each realization.
+        ``progress(done, total, "realizations")`` after each realization (or group).
+    realizations_per_path : int
+        Realizations ``i`` with equal ``i // realizations_per_path`` share one random
+        path, so the engine's ``realize_batch`` computes each node's kriging weights once
+        for all of them (several times faster per realization).  Each is still a valid
+        realization that depends only on ``(seed, i)``; 1 (the default) gives every
+        realization its own path.  Part of what is computed: changing it changes the fields.
     **engine_options
         Passed to the engine's ``prepare`` (e.g. ``multigrid``, ``max_size``).
 
@@ -190,23 +227,33 @@ def simulate(data_coords, data_scores, model, grid, *, n_realizations: int, seed
     if outside:
         raise ValueError(f"realization indices {outside[:5]} are outside 0..{n_realizations - 1}")
     eng = resolve_engine(engine)
+    per_path = int(realizations_per_path)
+    if per_path < 1:
+        raise ValueError(f"realizations_per_path must be >= 1, got {per_path}")
+    if per_path > 1 and not hasattr(eng, "realize_batch"):
+        from ..errors import InputError
+        raise InputError(f"engine {getattr(eng, 'name', type(eng).__name__)!r} cannot share a path between "
+                         "realizations", field="realizations_per_path",
+                         fix="use 1, or an engine with realize_batch (the sequential engine)")
     if not todo:
         return []
     prepared = eng.prepare(data_coords, data_scores, model, grid, neighbourhood=neighbourhood,
                            kriging=kriging, **engine_options)
+    groups = _groups(todo, per_path)
     if client is not None:
-        results = _run_dask(client, eng, prepared, sink, seed, todo, progress)
+        results = _run_dask(client, eng, prepared, sink, seed, groups, per_path, progress)
     else:
         n_workers = (os.cpu_count() or 1) if workers is None else int(workers)
-        n_workers = fitting_workers(grid, prepared, max(1, min(n_workers, len(todo))))
+        n_workers = fitting_workers(grid, prepared, max(1, min(n_workers, len(groups))),
+                                    members=max(map(len, groups)))
         if n_workers == 1:
             results = {}
-            for done, i in enumerate(todo, 1):
-                results[i] = run_one(eng, prepared, sink, seed, i)
+            for group in groups:
+                results.update(run_group(eng, prepared, sink, seed, group, per_path))
                 if progress is not None:
-                    progress(done, len(todo), "realizations")
+                    progress(len(results), len(todo), "realizations")
         else:
-            results = _run_pool(n_workers, eng, prepared, sink, seed, todo, progress)
+            results = _run_pool(n_workers, eng, prepared, sink, seed, groups, per_path, progress)
     return [results[i] for i in todo]
 
 
@@ -215,11 +262,12 @@ def plan_bytes(prepared) -> int:
     return sum(v.nbytes for v in getattr(prepared, "__dict__", {}).values() if isinstance(v, np.ndarray))
 
 
-def fitting_workers(grid, prepared, n_workers: int, available: int | None = None) -> int:
+def fitting_workers(grid, prepared, n_workers: int, available: int | None = None, members: int = 1) -> int:
     """The number of local workers (at most ``n_workers``) whose realizations fit in memory.
 
     Each worker holds a copy of the plan and one realization in flight
-    (:data:`REALIZATION_BYTES_PER_NODE` a node); this process holds the plan too.
+    (:data:`REALIZATION_BYTES_PER_NODE` a node, plus :data:`MEMBER_BYTES_PER_NODE` for each
+    further one of ``members`` sharing a path); this process holds the plan too.
 
     Raises
     ------
@@ -237,7 +285,8 @@ def fitting_workers(grid, prepared, n_workers: int, available: int | None = None
     if available is None:
         return n_workers
     plan = plan_bytes(prepared)
-    per_worker = grid.size * REALIZATION_BYTES_PER_NODE + (plan if n_workers > 1 else 0)
+    per_worker = (grid.size * (REALIZATION_BYTES_PER_NODE + MEMBER_BYTES_PER_NODE * (members - 1))
+                  + (plan if n_workers > 1 else 0))
     fit = (available - plan) // per_worker
     if fit < 1:
         raise ResourceError(f"one realization of the {grid.size:,}-node grid needs more memory than this "
@@ -269,32 +318,32 @@ def _pool_context(*modules):
     return ctx
 
 
-def _run_pool(n_workers, eng, prepared, sink, seed, todo, progress) -> dict:
+def _run_pool(n_workers, eng, prepared, sink, seed, groups, per_path, progress) -> dict:
     from concurrent.futures import ProcessPoolExecutor, as_completed
     ctx = _pool_context(type(eng).__module__, type(sink).__module__ if sink is not None else None)
     with ProcessPoolExecutor(n_workers, mp_context=ctx, initializer=_pool_init,
                              initargs=(os.getpid(), eng, prepared, sink)) as pool:
-        futures = [pool.submit(_pool_task, seed, i) for i in todo]
-        results = _collect(futures, as_completed, lambda: [fut.cancel() for fut in futures], progress)
+        futures = [pool.submit(_pool_task, seed, g, per_path) for g in groups]
+        results = _collect(futures, as_completed, lambda: [fut.cancel() for fut in futures], progress,
+                           sum(map(len, groups)))
     return results
 
 
-def _collect(futures, as_completed, cancel, progress) -> dict:
-    """Results by realization index as the futures finish; the rest cancelled on any error."""
+def _collect(futures, as_completed, cancel, progress, total: int) -> dict:
+    """Results by realization index as the futures (one per group) finish; the rest cancelled on any error."""
     results = {}
     try:
-        for done, fut in enumerate(as_completed(futures), 1):
-            i, value = fut.result()
-            results[i] = value
+        for fut in as_completed(futures):
+            results.update(fut.result())
             if progress is not None:
-                progress(done, len(futures), "realizations")
+                progress(len(results), total, "realizations")
     except BaseException:
         cancel()
         raise
     return results
 
 
-def _run_dask(client, eng, prepared, sink, seed, todo, progress) -> dict:
+def _run_dask(client, eng, prepared, sink, seed, groups, per_path, progress) -> dict:
     from dask.distributed import Client, as_completed
     own = isinstance(client, str)
     if own:
@@ -304,8 +353,8 @@ def _run_dask(client, eng, prepared, sink, seed, todo, progress) -> dict:
         # call's scatter of the same data, which the scheduler may still be releasing when
         # this call's tasks ask for it ("lost dependencies").
         shared = client.scatter(prepared, broadcast=True, hash=False)
-        futures = [client.submit(_dask_task, eng, shared, sink, seed, i, pure=False) for i in todo]
-        return _collect(futures, as_completed, lambda: client.cancel(futures), progress)
+        futures = [client.submit(run_group, eng, shared, sink, seed, g, per_path, pure=False) for g in groups]
+        return _collect(futures, as_completed, lambda: client.cancel(futures), progress, sum(map(len, groups)))
     finally:
         if own:
             client.close()

@@ -32,7 +32,7 @@ import numpy as np
 from numba import njit
 
 from ..errors import InputError, NotPositiveDefiniteError
-from ..linalg import chol_partial
+from ..linalg import backward_t_inplace, chol_partial
 from ..search import DataSearch, Neighbourhood, search_ellipsoid
 from ..variogram.compiled import ZERO_LAG2, analytic_correlation, cov_lag, tabulated_correlation
 from ..variogram.structures import NUGGET, TABULATED
@@ -152,8 +152,28 @@ class SequentialEngine:
     def realize(self, plan: SequentialPlan, rng: np.random.Generator) -> np.ndarray:
         """One realization: normal scores of ``grid.shape``, NaN outside the mask."""
         path = plan.free[random_path(plan.levels, rng)]
-        normals = rng.standard_normal(path.shape[0])
-        field = np.full(int(np.prod(plan.shape3)), np.nan)
+        return self._run(plan, path, rng.standard_normal(path.shape[0])[:, None], single=True)[0]
+
+    def realize_batch(self, plan: SequentialPlan, path_rng: np.random.Generator,
+                      rngs: list[np.random.Generator]) -> list[np.ndarray]:
+        """Realizations that share one random path, one per generator in ``rngs``.
+
+        The path comes from ``path_rng``, each member's normal deviates from its own
+        generator.  Along a shared path every node has the same conditioning points in
+        every member, so the kriging weights are computed once per node and applied to
+        each member's values: the cost of the search and the factor is shared.  Each
+        member is a valid sequential realization; members differ in their values only,
+        so a member does not depend on which others are computed with it.
+        """
+        path = plan.free[random_path(plan.levels, path_rng)]
+        normals = np.empty((path.shape[0], len(rngs)))
+        for b, rng in enumerate(rngs):
+            normals[:, b] = rng.standard_normal(path.shape[0])
+        return self._run(plan, path, normals, single=False)
+
+    def _run(self, plan: SequentialPlan, path: np.ndarray, normals: np.ndarray, single: bool) -> list[np.ndarray]:
+        """Simulate along ``path`` with ``normals (len(path), members)``; one field per member."""
+        field = np.full((int(np.prod(plan.shape3)), normals.shape[1]), np.nan)
         kmax = plan.data_neighbours.shape[1] + plan.max_nodes
         ids = np.zeros(max(kmax, 1), dtype=np.int64)
         fail = np.zeros(4, dtype=np.int64)
@@ -162,12 +182,12 @@ class SequentialEngine:
                              plan.origin, plan.step, plan.offsets, plan.lags, plan.table, plan.table_lin,
                              plan.table_zero, plan.use_table, plan.data_cov,
                              plan.data_coords, plan.data_scores, plan.data_neighbours, plan.cm,
-                             plan.max_nodes, plan.ordinary, plan.tol, plan.nugget_node_data, a, ids, fail)
+                             plan.max_nodes, plan.ordinary, plan.tol, plan.nugget_node_data, single, a, ids, fail)
         if status >= 0:
             raise _pivot_error(plan, path, a, ids, fail)
         # nodes on a datum stay out of the node search (the datum itself is found) and take its score
-        field[plan.fixed_flat] = plan.data_scores[plan.fixed_data]
-        return field.reshape(plan.grid.shape)
+        field[plan.fixed_flat] = plan.data_scores[plan.fixed_data][:, None]
+        return [np.ascontiguousarray(field[:, b]).reshape(plan.grid.shape) for b in range(field.shape[1])]
 
 
 #: Most data for which the data-to-data covariances are kept as a matrix (32 MiB).
@@ -215,8 +235,13 @@ def _data_neighbours(coords: np.ndarray, node_coords: np.ndarray, nb: Neighbourh
 @njit(cache=True, nogil=True)
 def _sgs_kernel(field, active_flat, path, normals, shape3, origin, step, offsets, lags, table, table_lin,
                 table_zero, use_table, data_cov, dcoords, dscores, dnbr, cm, max_nodes, ordinary, tol,
-                nugget_node_data, a, ids, fail):
-    """Simulate every node of ``path`` into ``field`` (flat, NaN = not yet simulated).
+                nugget_node_data, single, a, ids, fail):
+    """Simulate every node of ``path`` into ``field`` (flat nodes x members, NaN = not yet simulated).
+
+    The members (columns of ``field`` and ``normals``) share the path.  ``single`` (one
+    member) borders the factored system with the values; otherwise the weights are
+    solved for once per node and applied to each member, so that a member's bits do
+    not depend on how many others are computed with it.
 
     Returns -1, or the path position where a local covariance matrix failed to factor
     (then ``fail = [position, pivot, n_data, n_total]`` and ``ids`` holds the data ids
@@ -238,6 +263,9 @@ def _sgs_kernel(field, active_flat, path, normals, shape3, origin, step, offsets
         if codes[jj] == NUGGET:
             nugget += sills[jj]
     tr = np.empty((kd, 3))  # the data's positions in one structure's reduced coordinates
+    nb = field.shape[1]  # realizations sharing this path
+    lin_node = np.empty(kmax, dtype=np.int64)  # flat index of each simulated neighbour
+    wts = np.empty(kmax)
     for p in range(path.shape[0]):
         pos = path[p]
         flat = active_flat[pos]
@@ -267,9 +295,11 @@ def _sgs_kernel(field, active_flat, path, normals, shape3, origin, step, offsets
                 jj = j + offsets[t, 2]
                 if kk < 0 or kk >= nz or ii < 0 or ii >= ny or jj < 0 or jj >= nx:
                     continue
-                v = field[(kk * ny + ii) * nx + jj]
+                node = (kk * ny + ii) * nx + jj
+                v = field[node, 0]
                 if v == v:
                     ids[m] = t
+                    lin_node[m] = node
                     lin[m] = table_lin[t]
                     zv[m] = v
                     rel[m, 0] = lags[t, 0]
@@ -332,23 +362,28 @@ def _sgs_kernel(field, active_flat, path, normals, shape3, origin, step, offsets
         mean = 0.0
         var = c0
         if m > 0:
-            # border the system with the right-hand side, the values (and a row of ones for
-            # ordinary kriging): factoring its first m pivots leaves the variance and the
-            # estimate in the trailing block, with no separate triangular solves
+            # border the system with the right-hand side, the values of a single realization
+            # (and a row of ones for ordinary kriging): factoring its first m pivots leaves the
+            # variance and the estimate in the trailing block, with no separate triangular
+            # solves.  A batch sharing the path borders no values: its weights are solved for
+            # once below and applied to every member's values.
             for r in range(m):
                 a[m, r] = rhs[r]
-                a[m + 1, r] = zv[r]
             a[m, m] = c0
-            a[m + 1, m] = 0.0
-            a[m + 1, m + 1] = 0.0
-            order = m + 2
+            order = m + 1
+            if single:
+                for r in range(m):
+                    a[order, r] = zv[r]
+                a[order, m] = 0.0
+                a[order, order] = 0.0
+                order += 1
+            one = order
             if ordinary:
                 for r in range(m):
-                    a[m + 2, r] = 1.0
-                a[m + 2, m] = 0.0
-                a[m + 2, m + 1] = 0.0
-                a[m + 2, m + 2] = 0.0
-                order = m + 3
+                    a[one, r] = 1.0
+                for s in range(m, one + 1):
+                    a[one, s] = 0.0
+                order += 1
             bad = chol_partial(a, order, m, tol)
             if bad >= 0:
                 fail[0] = p
@@ -357,17 +392,35 @@ def _sgs_kernel(field, active_flat, path, normals, shape3, origin, step, offsets
                 fail[3] = m
                 return p
             var = a[m, m]
-            mean = -a[m + 1, m]
+            mu = 0.0
+            if single:
+                mean = -a[m + 1, m]
             if ordinary:
-                uy = -a[m + 2, m]
-                uz = -a[m + 2, m + 1]
-                uu = -a[m + 2, m + 2]
+                uy = -a[one, m]
+                uu = -a[one, one]
                 mu = (1.0 - uy) / uu
-                mean += mu * uz
+                if single:
+                    mean += mu * -a[one, m + 1]
                 var += (1.0 - uy) * (1.0 - uy) / uu
+            if not single:
+                # weights L^-T (y + mu u): the rows of y = L^-1 c and u = L^-1 1
+                for r in range(m):
+                    wts[r] = a[m, r] + (mu * a[one, r] if ordinary else 0.0)
+                backward_t_inplace(a, m, wts)
+                mean = 0.0
+                for r in range(nd):
+                    mean += wts[r] * zv[r]
         if var < 0.0:
             var = 0.0
-        field[flat] = mean + math.sqrt(var) * normals[p]
+        sd = math.sqrt(var)
+        if single:
+            field[flat, 0] = mean + sd * normals[p, 0]
+        else:
+            for b in range(nb):
+                mb = mean
+                for r in range(nd, m):
+                    mb += wts[r] * field[lin_node[r], b]
+                field[flat, b] = mb + sd * normals[p, b]
     return -1
 
 
