@@ -1032,8 +1032,23 @@ def run(spec: RunSpec | str | os.PathLike, out_dir: str | os.PathLike, *, overwr
                 progress=progress)
     files.update(timed("summaries and report", summarize, spec, out_dir, data=data, model=vg.model, grid=grid,
                        simulation=sim, extra=extra, progress=progress))
+    notes = list(data.notes)
+    checks = [r.get("checks") for r in sim.records]
+    if checks and all(c is not None and "extremes" in c for c in checks):
+        from .validation import extremes_summary
+        notes.append(extremes_note(extremes_summary(data.values, checks), spec["data.units"]))
     return RunResult(out_dir, spec.sha256, files, vg.model, sim.kept, sim.computed, crossval,
-                     decision_spread(sim), timings, list(data.notes))
+                     decision_spread(sim), timings, notes)
+
+
+def extremes_note(extremes: Mapping[str, Any], units: str | None = None) -> str:
+    """One line comparing the largest simulated value with the largest datum."""
+    u = f" {units}" if units else ""
+    ratio = extremes["largest_over_largest_datum"]
+    return (f"largest simulated value {extremes['largest_simulated']:.4g}{u} (realization "
+            f"{extremes['realization_of_largest']}) against the largest datum {extremes['largest_datum']:.4g}{u}"
+            + (f" ({ratio:.2f} times)" if ratio is not None else "")
+            + f"; {extremes['realizations_above_largest_datum']} realization(s) exceed the largest datum")
 
 
 def decision_spread(simulation: SimulationResult) -> list[dict]:
