@@ -240,6 +240,6 @@ def test_writer_with_checks_draws_plots_and_gives_the_validation_section(tmp_pat
     assert names == ["decision_spread.png", "histogram_reproduction.png", "mean.png", "p10.png", "p90.png",
                      "prob_above_1.png", "std.png", "variogram_reproduction.png"]
     section = writer.validation(records)
-    assert set(section) == {"histogram", "variogram", "data", "n_realizations"}
+    assert set(section) == {"histogram", "variogram", "data", "n_realizations", "extremes"}
     # the data sit at node centres but these fields ignore them: data reproduction must warn
     assert section["data"]["flag"] == "warn"
