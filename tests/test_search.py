@@ -3,15 +3,19 @@ import numpy as np
 import pytest
 
 import geosim
+import independent
 from geosim.search import DataSearch, Neighbourhood, search_ellipsoid
 from geosim.variogram import Anisotropy
 
 
 def _brute(coords, target, nb, ell, holes=None, exclude=-1):
-    """Plain-Python greedy selection: nearest first by reduced distance, then the limits."""
-    r = ell.reduced_distance(coords - target)
-    m = ell.matrix()[:, :coords.shape[1]]
-    lag = (coords - target) @ m.T
+    """Plain-Python greedy selection: nearest first by reduced distance, then the limits.
+
+    Distances and sector signs come from tests/independent.py (the ellipsoid's axes built by
+    hand from elementary rotations), not from geosim's anisotropy code.
+    """
+    lag = independent.reduced_lags(coords - target, ell.ranges, ell.azimuth, ell.dip, ell.rake)
+    r = np.linalg.norm(lag, axis=1)
     order = np.argsort(r, kind="stable")
     chosen, per_sector, per_hole = [], {}, {}
     for p in order:

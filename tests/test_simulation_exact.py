@@ -15,6 +15,7 @@ from sklearn.gaussian_process import GaussianProcessRegressor
 from sklearn.gaussian_process.kernels import ConstantKernel, Matern, WhiteKernel
 
 import geosim
+import independent
 from geosim.simulation.exact import ExactEngine
 
 Z = 4.5
@@ -90,19 +91,8 @@ def test_unconditional_covariance_matches_model():
 
 
 def _ordinary_kriging(model, xy, z, nodes):
-    """Ordinary kriging by the bordered system [[C, 1], [1', 0]] [w; mu] = [c; 1].
-
-    Journel and Huijbregts 1978, Mining Geostatistics, section V.A (from memory);
-    variance sigma^2 = C(0) - w'c - mu.
-    """
-    n = len(z)
-    a = np.zeros((n + 1, n + 1))
-    a[:n, :n] = model.cov_matrix(xy)
-    a[:n, n] = a[n, :n] = 1.0
-    b = np.vstack([model.cov_matrix(xy, nodes), np.ones(len(nodes))])
-    sol = np.linalg.solve(a, b)
-    w, mu = sol[:n], sol[n]
-    return w.T @ z, model.sill - np.sum(w * b[:n], axis=0) - mu
+    """Ordinary kriging by the bordered system, covariances rebuilt without geosim (tests/independent.py)."""
+    return independent.ordinary_kriging(model, xy, z, nodes)[:2]
 
 
 def test_ordinary_kriging_option_matches_bordered_system():
