@@ -53,11 +53,17 @@ def axes_by_hand(azimuth, dip=0.0, rake=0.0):
 
 
 def reduced_lags(h, ranges, azimuth, dip=0.0, rake=0.0):
-    """Lag vectors ``h`` (..., d) as components along the axes divided by the ranges."""
+    """Lag vectors ``h`` (..., d) as components along the axes divided by the ranges.
+
+    ``ranges`` as geosim takes them: one value (isotropic), (major, minor) with the third
+    equal to the major, or all three.
+    """
     h = np.asarray(h, dtype=float)
     h3 = np.zeros(h.shape[:-1] + (3,))
     h3[..., :h.shape[-1]] = h
-    return (h3 @ axes_by_hand(azimuth, dip, rake).T) / np.asarray(ranges, dtype=float)
+    r = np.atleast_1d(np.asarray(ranges, dtype=float))
+    r = np.resize(r, 3) if r.size == 1 else np.array([r[0], r[1], r[0]]) if r.size == 2 else r
+    return (h3 @ axes_by_hand(azimuth, dip, rake).T) / r
 
 
 def correlation(kind, r, nu=None):
@@ -127,3 +133,32 @@ def ordinary_kriging(model, xy, z, targets):
     sol = np.linalg.solve(a, b)
     w, mu = sol[:n], sol[n]
     return w.T @ np.asarray(z), sill(model) - np.sum(w * c, axis=0) - mu, w
+
+
+def select_samples(coords, target, *, max_samples, ranges, azimuth=0.0, dip=0.0, rake=0.0, sectors=0,
+                   sector_limit=0, holes=None, hole_limit=0, exclude=-1):
+    """Greedy neighbourhood selection in plain Python: nearest first by reduced distance.
+
+    A sample is inside when its reduced distance is <= 1; a quadrant (octant) is the sign
+    pattern of the lag along the major and minor (and third) axes; at most
+    ``sector_limit`` per sector and ``hole_limit`` per hole (0: no limit).  Returns the
+    chosen indices, nearest first.
+    """
+    lag = reduced_lags(np.asarray(coords) - target, ranges, azimuth, dip, rake)
+    r = np.linalg.norm(lag, axis=1)
+    chosen, per_sector, per_hole = [], {}, {}
+    for p in np.argsort(r, kind="stable"):
+        if r[p] > 1.0 + 1e-9 or len(chosen) == max_samples:
+            break
+        if p == exclude:
+            continue
+        s = (lag[p, 0] < 0, lag[p, 1] < 0, sectors == 8 and lag[p, 2] < 0)
+        if sector_limit and per_sector.get(s, 0) >= sector_limit:
+            continue
+        if hole_limit and per_hole.get(holes[p], 0) >= hole_limit:
+            continue
+        chosen.append(int(p))
+        per_sector[s] = per_sector.get(s, 0) + 1
+        if holes is not None:
+            per_hole[holes[p]] = per_hole.get(holes[p], 0) + 1
+    return chosen

@@ -9,33 +9,11 @@ from geosim.variogram import Anisotropy
 
 
 def _brute(coords, target, nb, ell, holes=None, exclude=-1):
-    """Plain-Python greedy selection: nearest first by reduced distance, then the limits.
-
-    Distances and sector signs come from tests/independent.py (the ellipsoid's axes built by
-    hand from elementary rotations), not from geosim's anisotropy code.
-    """
-    lag = independent.reduced_lags(coords - target, ell.ranges, ell.azimuth, ell.dip, ell.rake)
-    r = np.linalg.norm(lag, axis=1)
-    order = np.argsort(r, kind="stable")
-    chosen, per_sector, per_hole = [], {}, {}
-    for p in order:
-        if r[p] > 1.0 + 1e-9 or len(chosen) == nb.max_samples:
-            break
-        if p == exclude:
-            continue
-        if nb.sectors:
-            s = (lag[p, 0] < 0, lag[p, 1] < 0, nb.sectors == 8 and lag[p, 2] < 0)
-            if per_sector.get(s, 0) >= nb.sector_limit:
-                continue
-        if nb.max_per_hole is not None:
-            if per_hole.get(holes[p], 0) >= nb.max_per_hole:
-                continue
-        chosen.append(p)
-        if nb.sectors:
-            per_sector[s] = per_sector.get(s, 0) + 1
-        if nb.max_per_hole is not None:
-            per_hole[holes[p]] = per_hole.get(holes[p], 0) + 1
-    return chosen
+    """Plain-Python greedy selection (tests/independent.py: axes built by hand, not geosim's)."""
+    return independent.select_samples(coords, target, max_samples=nb.max_samples, ranges=ell.ranges,
+                                      azimuth=ell.azimuth, dip=ell.dip, rake=ell.rake, sectors=nb.sectors,
+                                      sector_limit=nb.sector_limit, holes=holes, hole_limit=nb.hole_limit,
+                                      exclude=exclude)
 
 
 def _check_all(search, targets, nb, ell, holes=None, exclude=None):

@@ -13,6 +13,7 @@ from sklearn.gaussian_process import GaussianProcessRegressor
 from sklearn.gaussian_process.kernels import ConstantKernel, Matern, WhiteKernel
 
 import geosim
+import independent
 from geosim.search import Neighbourhood
 from geosim.simulation import realization_rng
 from geosim.simulation.exact import ExactEngine
@@ -71,6 +72,27 @@ def test_one_node_ordinary_kriging_option():
     assert abs(vals.mean() - mean) <= Z * np.sqrt(var / r)
     assert abs(vals.var(ddof=1) / var - 1.0) <= Z * np.sqrt(2.0 / (r - 1))
     assert mean > 2.0  # simple kriging with mean 0 would be far below
+
+
+def test_ordinary_kriging_where_its_correction_is_large():
+    # Three clustered samples about 60 m from the node: the unknown mean costs ordinary kriging
+    # about 60 % more variance than simple kriging, and its mean follows the data (+2.5), so a
+    # sign or factor slip in either correction is far outside the sampling error.  Reference:
+    # the bordered system solved by numpy with covariances rebuilt in tests/independent.py.
+    grid = geosim.Grid(60.0, 60.0, (10.0, 10.0), (1, 1))
+    xy = np.array([[20.0, 22.0], [24.0, 21.0], [21.0, 26.0]])
+    scores = np.array([2.9, 2.1, 2.6])
+    model = geosim.Nugget(0.05) + geosim.Exponential(0.95, geosim.Anisotropy((90.0, 45.0), azimuth=30.0))
+    mean, var, _ = independent.ordinary_kriging(model, xy, scores, grid.coords())
+    _, sk_var = independent.simple_kriging(model, xy, scores, grid.coords())
+    assert var[0] / sk_var[0] > 1.4 and mean[0] > 2.0
+    engine = SequentialEngine()
+    plan = engine.prepare(xy, scores, model, grid, kriging="ordinary",
+                          neighbourhood=Neighbourhood(max_samples=3, ranges=(500.0, 500.0)))
+    r = 4000
+    vals = _ensemble(engine, plan, r, 12)[:, 0, 0]
+    assert abs(vals.mean() - mean[0]) <= Z * np.sqrt(var[0] / r)
+    assert abs(vals.var(ddof=1) / var[0] - 1.0) <= Z * np.sqrt(2.0 / (r - 1))
 
 
 @pytest.mark.parametrize("model", [geosim.Model([geosim.Spherical(1.0, geosim.Anisotropy.isotropic(40.0))]),
@@ -289,3 +311,136 @@ def test_every_node_is_the_simple_kriging_draw_given_data_and_earlier_nodes(grid
         mean, var = w @ z, model.sill - w @ c
         assert values[pos] == pytest.approx(mean + np.sqrt(max(var, 0.0)) * normals[p], abs=1e-9)
         pts, z = np.vstack([pts, nodes[pos]]), np.append(z, values[pos])
+
+
+# --- every node against a numpy reference with every limit binding ---------------------------------
+
+def _holes_2d(rng, n_holes, per_hole):
+    """Invented inclined holes seen in plan: samples 3 m apart along a random bearing."""
+    xy, holes = [], []
+    for h in range(n_holes):
+        start = rng.uniform(5.0, 115.0, 2)
+        bearing = rng.uniform(0.0, 2.0 * np.pi)
+        for q in range(per_hole):
+            xy.append(start + 3.0 * q * np.array([np.sin(bearing), np.cos(bearing)]))
+            holes.append(f"RC-{h:02d}")
+    return np.array(xy), np.array(holes)
+
+
+def _holes_3d(rng, n_holes, per_hole, top):
+    """Invented vertical holes: samples every 2.5 m down from ``top``."""
+    xy = rng.uniform(3.0, 57.0, size=(n_holes, 2))
+    z = top - 2.5 * np.arange(per_hole)
+    xyz = np.column_stack([np.repeat(xy, per_hole, axis=0), np.tile(z, n_holes)])
+    return xyz, np.repeat([f"DD-{h:02d}" for h in range(n_holes)], per_hole)
+
+
+def _node_by_node(grid, model, xy, scores, nb, kriging, holes=None, seed=7, index=3):
+    """Check every simulated node against a kriging system rebuilt with numpy.
+
+    The reference shares only the path and the node template with the engine: the data
+    neighbours come from the plain-Python selection of tests/independent.py (ellipsoid,
+    sectors, per-hole limit), the simulated-node neighbours from scanning the template in
+    order for nodes visited earlier until ``max_nodes`` are found, the covariances from
+    the independent formulas and rotation, and the weights from ``numpy.linalg.solve`` of
+    the (bordered, for ordinary kriging) system.  Rounding only: tolerance 1e-8.
+    Returns how often each limit bound, so a caller can prove the check covered them.
+    """
+    engine = SequentialEngine()
+    plan = engine.prepare(xy, scores, model, grid, neighbourhood=nb, kriging=kriging, hole_ids=holes)
+    field = engine.realize(plan, realization_rng(seed, index))
+    rng = realization_rng(seed, index)  # the engine's draws, in the engine's order
+    path = plan.free[random_path(plan.levels, rng)]
+    normals = rng.standard_normal(path.shape[0])
+    nodes = grid.coords()
+    values = field[grid.mask]
+    shape3 = (1,) + grid.shape if grid.ndim == 2 else grid.shape
+    where = np.full(shape3, -1)
+    where[grid.mask.reshape(shape3)] = np.arange(grid.n_active)
+    kji = np.argwhere(grid.mask.reshape(shape3))  # (level, row, column) of each active node
+    ell = (nb.ranges, nb.azimuth, nb.dip or 0.0, nb.rake or 0.0)
+    # the template holds every offset inside the search ellipsoid, nearest first
+    lags = np.column_stack([plan.offsets[:, 2] * grid.cell[0], -plan.offsets[:, 1] * grid.cell[1]]
+                           + ([plan.offsets[:, 0] * grid.cell[2]] if grid.ndim == 3 else []))
+    r = np.linalg.norm(independent.reduced_lags(lags, *ell), axis=1)
+    assert r.max() <= 1.0 + 1e-9 and np.all(np.diff(r) >= -1e-12)
+    box = np.stack(np.meshgrid(*[np.arange(-n + 1, n) for n in shape3], indexing="ij"), -1).reshape(-1, 3)
+    box_lags = np.column_stack([box[:, 2] * grid.cell[0], -box[:, 1] * grid.cell[1]]
+                               + ([box[:, 0] * grid.cell[2]] if grid.ndim == 3 else []))
+    inside = np.linalg.norm(independent.reduced_lags(box_lags, *ell), axis=1) <= 1.0 - 1e-9
+    inside &= np.abs(box).any(axis=1)
+    assert {tuple(o) for o in box[inside]} <= {tuple(o) for o in plan.offsets}
+    done = np.zeros(grid.n_active, dtype=bool)
+    bound = {"data": 0, "nodes": 0, "sectors": 0, "holes": 0}
+    sill = independent.sill(model)
+    for p, pos in enumerate(path):
+        target = nodes[pos]
+        data = independent.select_samples(xy, target, max_samples=nb.max_samples, ranges=nb.ranges,
+                                          azimuth=nb.azimuth, dip=ell[2], rake=ell[3], sectors=nb.sectors,
+                                          sector_limit=nb.sector_limit, holes=holes, hole_limit=nb.hole_limit)
+        near = np.linalg.norm(independent.reduced_lags(xy - target, *ell), axis=1) <= 1.0
+        bound["data"] += len(data) == nb.max_samples and near.sum() > nb.max_samples
+        free = independent.select_samples(xy, target, max_samples=len(xy), ranges=nb.ranges, azimuth=nb.azimuth,
+                                          dip=ell[2], rake=ell[3])
+        capped = independent.select_samples(xy, target, max_samples=len(xy), ranges=nb.ranges,
+                                            azimuth=nb.azimuth, dip=ell[2], rake=ell[3], sectors=nb.sectors,
+                                            sector_limit=nb.sector_limit)
+        bound["sectors"] += len(capped) < len(free)
+        bound["holes"] += len(independent.select_samples(
+            xy, target, max_samples=len(xy), ranges=nb.ranges, azimuth=nb.azimuth, dip=ell[2], rake=ell[3],
+            holes=holes, hole_limit=nb.hole_limit)) < len(free)
+        found, more = [], 0
+        k, i, j = kji[pos]
+        for dk, di, dj in plan.offsets:
+            kk, ii, jj = k + dk, i + di, j + dj
+            if not (0 <= kk < shape3[0] and 0 <= ii < shape3[1] and 0 <= jj < shape3[2]):
+                continue
+            q = where[kk, ii, jj]
+            if q >= 0 and done[q]:
+                if len(found) < nb.max_nodes:
+                    found.append(q)
+                else:
+                    more += 1
+        bound["nodes"] += more > 0
+        pts = np.vstack([xy[data], nodes[found]])
+        z = np.concatenate([scores[data], values[found]])
+        if len(z) == 0:
+            mean, var = 0.0, sill
+        elif kriging == "ordinary":
+            mean, var = (v[0] for v in independent.ordinary_kriging(model, pts, z, target[None, :])[:2])
+        else:
+            mean, var = (v[0] for v in independent.simple_kriging(model, pts, z, target[None, :]))
+        assert values[pos] == pytest.approx(mean + np.sqrt(max(var, 0.0)) * normals[p], abs=1e-8), (p, pos)
+        done[pos] = True
+    return bound
+
+
+@pytest.mark.parametrize("kriging", ["simple", "ordinary"])
+def test_every_node_matches_numpy_with_all_limits_binding_2d(kriging):
+    # 120 nodes, 30 samples in 10 invented holes; at most 5 data (2 per quadrant, 2 per hole) and
+    # 4 simulated nodes per node, in an oblique search ellipse (azimuth 30)
+    rng = np.random.default_rng(31)
+    xy, holes = _holes_2d(rng, 10, 3)
+    scores = rng.normal(size=len(xy)) + (1.5 if kriging == "ordinary" else 0.0)
+    grid = geosim.Grid(0.0, 0.0, (10.0, 10.0), (10, 12))
+    model = geosim.Nugget(0.1) + geosim.Spherical(0.9, geosim.Anisotropy((60.0, 25.0), azimuth=30.0))
+    nb = Neighbourhood(max_samples=5, ranges=(70.0, 35.0), azimuth=30.0, sectors=4, max_per_sector=2,
+                       max_per_hole=2, max_nodes=4)
+    bound = _node_by_node(grid, model, xy, scores, nb, kriging, holes)
+    # each limit changed the conditioning set at many nodes, so a slip in any of them shows
+    assert min(bound.values()) >= 10, bound
+
+
+@pytest.mark.parametrize("kriging", ["simple", "ordinary"])
+def test_every_node_matches_numpy_with_all_limits_binding_3d(kriging):
+    # octants, per-hole limit along vertical holes, a dipping oblique ellipsoid, node limit 6
+    rng = np.random.default_rng(32)
+    xyz, holes = _holes_3d(rng, 8, 5, top=119.0)
+    scores = rng.normal(size=len(xyz)) + (1.0 if kriging == "ordinary" else 0.0)
+    grid = geosim.Grid(0.0, 0.0, (10.0, 10.0, 4.0), (3, 6, 6), zmin=100.0)
+    an = geosim.Anisotropy((50.0, 30.0, 12.0), azimuth=30.0, dip=20.0, rake=10.0)
+    model = geosim.Nugget(0.05) + geosim.Exponential(0.95, an)
+    nb = Neighbourhood(max_samples=6, ranges=(55.0, 35.0, 14.0), azimuth=30.0, dip=20.0, rake=10.0, sectors=8,
+                       max_per_sector=2, max_per_hole=2, max_nodes=6)
+    bound = _node_by_node(grid, model, xyz, scores, nb, kriging, holes)
+    assert min(bound.values()) >= 10, bound
