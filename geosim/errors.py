@@ -131,6 +131,10 @@ def format_bytes(n: float) -> str:
     return f"{n:.1f} TB"
 
 
+class InvalidStructureError(GeosimError, ValueError):
+    """A covariance structure that fails geosim's checks (e.g. not positive definite)."""
+
+
 class NotPositiveDefiniteError(GeosimError, ArithmeticError):
     """A covariance matrix that Cholesky cannot factor (a pivot <= 0).
 

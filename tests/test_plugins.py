@@ -25,7 +25,9 @@ from click.testing import CliRunner
 
 import geosim
 import geosim.plugins as plugins
-from geosim.errors import GeosimWarning
+from geosim.errors import GeosimWarning, InvalidStructureError
+from geosim.variogram import plugin_forms
+from geosim.variogram.checks import check_structure
 from geosim.variogram import Anisotropy, Model, Nugget, Structure
 from geosim.variogram.structures import BUILTIN_STRUCTURES
 
@@ -54,13 +56,23 @@ def test_unknown_name_is_a_key_error_listing_what_exists():
         plugins.available("colours")
 
 
+def test_old_paths_of_the_moved_helpers_still_work_with_a_warning():
+    with pytest.warns(DeprecationWarning, match="geosim.variogram.checks.check_structure"):
+        assert plugins.check_structure is check_structure
+    with pytest.warns(DeprecationWarning, match="geosim.variogram.plugin_forms.evaluate_compiled"):
+        assert plugins.evaluate_compiled is plugin_forms.evaluate_compiled
+    assert plugins.InvalidStructureError is InvalidStructureError
+    with pytest.raises(AttributeError, match="no attribute 'nothing_here'"):
+        plugins.nothing_here
+
+
 # -- the load-time check --------------------------------------------------------
 
 @pytest.mark.parametrize("cls", list(BUILTIN_STRUCTURES.values()), ids=list(BUILTIN_STRUCTURES))
 def test_check_accepts_every_builtin_structure(cls):
     # all six are valid covariances in 3-D (Chiles and Delfiner 2012, Geostatistics:
     # Modeling Spatial Uncertainty, section 2.5, from memory), the Gaussian on a dense lattice too
-    plugins.check_structure(cls)
+    check_structure(cls)
 
 
 def _shape(kind, rho, code=-1):
@@ -80,16 +92,16 @@ def _shape(kind, rho, code=-1):
     ("holey", lambda r: np.where(r > 2.0, np.nan, np.exp(-r)), "not finite"),
 ])
 def test_check_rejects_invalid_shapes(kind, rho, reason):
-    with pytest.raises(plugins.InvalidStructureError, match=reason) as info:
-        plugins.check_structure(_shape(kind, rho))
+    with pytest.raises(InvalidStructureError, match=reason) as info:
+        check_structure(_shape(kind, rho))
     assert repr(kind) in str(info.value)
 
 
 def test_check_rejects_a_code_the_kernels_would_misread():
     # code 1 is the built-in spherical: the compiled kernels would evaluate this as spherical
     imposter = _shape("bumpy", lambda r: np.exp(-r), code=1)
-    with pytest.raises(plugins.InvalidStructureError, match="compiled kernels.*reserved for built-in"):
-        plugins.check_structure(imposter)
+    with pytest.raises(InvalidStructureError, match="compiled kernels.*reserved for built-in"):
+        check_structure(imposter)
 
 
 def test_check_rejects_a_compiled_form_that_disagrees_with_its_numpy_form():
@@ -101,8 +113,8 @@ def test_check_rejects_a_compiled_form_that_disagrees_with_its_numpy_form():
 
     cls = _shape("twofaced", lambda r: np.exp(-3.0 * r))
     cls.numba_correlation = other
-    with pytest.raises(plugins.InvalidStructureError, match="differ"):
-        plugins.check_structure(cls)
+    with pytest.raises(InvalidStructureError, match="differ"):
+        check_structure(cls)
 
 
 # -- a real third-party plugin ---------------------------------------------------
@@ -212,7 +224,7 @@ def test_compiled_form_matches_numpy_sinc(plugin):
     r = np.linspace(0.0, 7.0, 707)
     # numpy.sinc(x) = sin(pi x) / (pi x), the cardinal sine the plugin documents
     np.testing.assert_allclose(wave(1.0, 10.0).correlation(r), np.sinc(r), rtol=0, atol=1e-14)
-    np.testing.assert_allclose(plugins.evaluate_compiled(wave.numba_correlation, r.reshape(7, 101)),
+    np.testing.assert_allclose(plugin_forms.evaluate_compiled(wave.numba_correlation, r.reshape(7, 101)),
                                np.sinc(r).reshape(7, 101), rtol=0, atol=1e-14)
 
 

@@ -10,7 +10,7 @@ import math
 
 from numba import njit
 
-from .structures import CUBIC, EXPONENTIAL, GAUSSIAN, NUGGET, SPHERICAL, TABULATED
+from .codes import CUBIC, EXPONENTIAL, GAUSSIAN, NUGGET, SPHERICAL, TABULATED
 
 ZERO_LAG2 = 1e-18  # squared metres: lags shorter than 1 nm are "the same place"
 

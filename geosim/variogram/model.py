@@ -1,14 +1,83 @@
-"""Nested covariance models: a sum of structures, each with its own anisotropy."""
+"""Covariance structures and nested models: a sum of structures, each with its own anisotropy.
+
+:class:`Structure` (the base class of every structure, built-in or plugin) and
+:class:`Model` (their sum) refer to each other (``a + b`` of two structures is a
+model), so they share this module; the built-in shapes are in
+:mod:`geosim.variogram.structures`.
+"""
 from __future__ import annotations
 
 from collections.abc import Iterable, Sequence
+from dataclasses import dataclass, field, replace
 
 import numpy as np
 
 from .anisotropy import Anisotropy
-from .structures import BUILTIN_STRUCTURES, MATERN, TABULATED, Structure
+from .codes import MATERN, TABULATED
+from .plugin_forms import add_covariance, as3, evaluate_compiled, note_numpy_only
 
 _TABLE_POINTS = 4097
+
+
+@dataclass(frozen=True)
+class Structure:
+    """One covariance structure: a sill, an anisotropy and a correlation shape.
+
+    Subclasses define ``kind`` (the name used in model files and run specs),
+    ``code`` and :meth:`correlation`.  ``param`` carries one shape parameter
+    (the Matern smoothness); structures without one ignore it.
+    """
+
+    sill: float = 1.0
+    anisotropy: Anisotropy = field(default_factory=lambda: Anisotropy((1.0, 1.0, 1.0)))
+    param: float = 0.0
+
+    kind = "structure"
+    code = -1
+    param_name = None
+    numba_correlation = None  # optional compiled scalar form rho(r, param); see plugin_forms.py
+
+    def __post_init__(self):
+        if not np.isfinite(self.sill) or self.sill < 0:
+            raise ValueError(f"{self.kind}: sill must be a number >= 0, got {self.sill!r}")
+        if not isinstance(self.anisotropy, Anisotropy):
+            object.__setattr__(self, "anisotropy", _as_anisotropy(self.anisotropy))
+
+    def correlation(self, r: np.ndarray) -> np.ndarray:
+        """Correlation at reduced distances ``r >= 0`` (vectorized).
+
+        By default ``numba_correlation`` evaluated in one compiled loop; structures
+        without a compiled form override this method with numpy code.
+        """
+        function = type(self).numba_correlation
+        if function is None:
+            raise NotImplementedError(f"{self.kind}: define correlation(r) or numba_correlation(r, param)")
+        return evaluate_compiled(function, r, self.param)
+
+    def covariance(self, h: np.ndarray) -> np.ndarray:
+        """Covariance at lag vectors ``h`` of shape (..., d)."""
+        return self.sill * self.correlation(self.anisotropy.reduced_distance(h))
+
+    def with_(self, **changes) -> Structure:
+        return replace(self, **changes)
+
+    def __add__(self, other):
+        return Model([self]) + other
+
+    __radd__ = __add__
+
+
+def _as_anisotropy(value) -> Anisotropy:
+    if isinstance(value, Anisotropy):
+        return value
+    if np.isscalar(value):
+        return Anisotropy.isotropic(float(value))
+    return Anisotropy(tuple(value))
+
+
+BUILTIN_STRUCTURES: dict[str, type[Structure]] = {}
+"""geosim's own structure classes by ``kind``; :mod:`geosim.variogram.structures` fills it in."""
+
 
 
 class Model:
@@ -98,14 +167,13 @@ class Model:
         closed = [s for s, how in zip(self.structures, route) if how == "closed"]
         if closed:
             from .compiled import cov_matrix_into
-            cov_matrix_into(Model(closed).compiled(), _as3(a), _as3(b), out)
+            cov_matrix_into(Model(closed).compiled(), as3(a), as3(b), out)
         rest = [s for s, how in zip(self.structures, route) if how == "numpy"]
         if rest:
             for start in range(0, a.shape[0], chunk):
                 block = a[start:start + chunk]
                 out[start:start + chunk] += sum(s.covariance(block[:, None, :] - b[None, :, :]) for s in rest)
         if "plugin" in route:
-            from ..plugins import add_covariance
             for s, how in zip(self.structures, route):
                 if how == "plugin":
                     add_covariance(s, a, b, out)
@@ -130,7 +198,6 @@ class Model:
         need_table = [s.code == MATERN or s.code < 0 or s.code >= 100 for s in self.structures]
         for s in self.structures:
             if BUILTIN_STRUCTURES.get(s.kind) is not type(s):
-                from ..plugins import note_numpy_only
                 note_numpy_only(type(s))
         tables = np.zeros((m, _TABLE_POINTS if any(need_table) else 1))
         steps = np.ones(m)
@@ -207,12 +274,6 @@ def _route(s: Structure, d: int) -> str:
     if d > 1 and BUILTIN_STRUCTURES.get(s.kind) is type(s) and s.code != MATERN:
         return "closed"  # 1-D lags follow the major axis unrotated, which cov_lag does not do
     return "numpy"
-
-
-def _as3(points: np.ndarray) -> np.ndarray:
-    p3 = np.zeros((points.shape[0], 3))
-    p3[:, :points.shape[1]] = points
-    return p3
 
 
 def _table_extent(s: Structure) -> float:

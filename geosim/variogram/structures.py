@@ -17,78 +17,27 @@ matern          2^(1-nu)/Gamma(nu) (sqrt(2 nu) r)^nu   the *scale parameter*, no
                 K_nu(sqrt(2 nu) r)                     practical range
 ==============  =====================================  ==============================
 
-Every built-in structure has an integer ``code`` used by the compiled kernels in
-:mod:`geosim.variogram.compiled`.  Codes >= 100 belong to plugin structures.
+Every built-in structure has an integer ``code`` (:mod:`geosim.variogram.codes`)
+used by the compiled kernels in :mod:`geosim.variogram.compiled`.  Codes >= 100
+belong to plugin structures.  The base class :class:`Structure` lives with the
+sums of structures in :mod:`geosim.variogram.model` (``a + b`` makes a model);
+it is re-exported here.  The classes below register themselves in
+:data:`BUILTIN_STRUCTURES` and, like plugin structures, in the
+``geosim.structures`` entry-point group (``pyproject.toml``).
 """
 from __future__ import annotations
 
-from dataclasses import dataclass, field, replace
+from dataclasses import dataclass
 
 import numpy as np
 from scipy import special
 
-from .anisotropy import Anisotropy
+from .codes import CUBIC, EXPONENTIAL, GAUSSIAN, MATERN, NUGGET, SPHERICAL, TABULATED  # noqa: F401
+from .model import BUILTIN_STRUCTURES, Structure
 
-NUGGET, SPHERICAL, EXPONENTIAL, GAUSSIAN, CUBIC, MATERN = 0, 1, 2, 3, 4, 5
-TABULATED = 99  # correlation read from a table in the compiled model
-
-
-@dataclass(frozen=True)
-class Structure:
-    """One covariance structure: a sill, an anisotropy and a correlation shape.
-
-    Subclasses define ``kind`` (the name used in model files and run specs),
-    ``code`` and :meth:`correlation`.  ``param`` carries one shape parameter
-    (the Matern smoothness); structures without one ignore it.
-    """
-
-    sill: float = 1.0
-    anisotropy: Anisotropy = field(default_factory=lambda: Anisotropy((1.0, 1.0, 1.0)))
-    param: float = 0.0
-
-    kind = "structure"
-    code = -1
-    param_name = None
-    numba_correlation = None  # optional compiled scalar form rho(r, param); see geosim.plugins
-
-    def __post_init__(self):
-        if not np.isfinite(self.sill) or self.sill < 0:
-            raise ValueError(f"{self.kind}: sill must be a number >= 0, got {self.sill!r}")
-        if not isinstance(self.anisotropy, Anisotropy):
-            object.__setattr__(self, "anisotropy", _as_anisotropy(self.anisotropy))
-
-    def correlation(self, r: np.ndarray) -> np.ndarray:
-        """Correlation at reduced distances ``r >= 0`` (vectorized).
-
-        By default ``numba_correlation`` evaluated in one compiled loop; structures
-        without a compiled form override this method with numpy code.
-        """
-        function = type(self).numba_correlation
-        if function is None:
-            raise NotImplementedError(f"{self.kind}: define correlation(r) or numba_correlation(r, param)")
-        from ..plugins import evaluate_compiled
-        return evaluate_compiled(function, r, self.param)
-
-    def covariance(self, h: np.ndarray) -> np.ndarray:
-        """Covariance at lag vectors ``h`` of shape (..., d)."""
-        return self.sill * self.correlation(self.anisotropy.reduced_distance(h))
-
-    def with_(self, **changes) -> Structure:
-        return replace(self, **changes)
-
-    def __add__(self, other):
-        from .model import Model
-        return Model([self]) + other
-
-    __radd__ = __add__
-
-
-def _as_anisotropy(value) -> Anisotropy:
-    if isinstance(value, Anisotropy):
-        return value
-    if np.isscalar(value):
-        return Anisotropy.isotropic(float(value))
-    return Anisotropy(tuple(value))
+__all__ = ["Structure", "Nugget", "Spherical", "Exponential", "Gaussian", "Cubic", "Matern",
+           "BUILTIN_STRUCTURES", "NUGGET", "SPHERICAL", "EXPONENTIAL", "GAUSSIAN", "CUBIC", "MATERN",
+           "TABULATED"]
 
 
 @dataclass(frozen=True)
@@ -179,6 +128,4 @@ class Matern(Structure):
         return np.nan_to_num(out, nan=0.0, posinf=0.0)
 
 
-BUILTIN_STRUCTURES: dict[str, type[Structure]] = {
-    cls.kind: cls for cls in (Nugget, Spherical, Exponential, Gaussian, Cubic, Matern)
-}
+BUILTIN_STRUCTURES.update({cls.kind: cls for cls in (Nugget, Spherical, Exponential, Gaussian, Cubic, Matern)})
