@@ -809,7 +809,7 @@ def _checks(data: PreparedData, model, grid):
 
 
 def _writer(spec: RunSpec, data: PreparedData, model, grid, out_dir: Path):
-    from .io.geotiff import RealizationWriter
+    from .ensemble import RealizationWriter
     # overwrite=True: the folder was checked to belong to this run before anything is written
     return RealizationWriter(out_dir, grid, tags=provenance_tags(spec, data, model), units=spec["data.units"],
                              back_transform=data.transform.inverse, figures=_figures(spec, grid),

@@ -16,9 +16,12 @@ Ensemble statistics (per grid node, across realizations)
 
 Nodes outside the domain (NaN in every realization) stay NaN.
 
-:func:`summarize_ensemble` does this on an in-memory stack; the streaming twin
-:func:`summarize_realizations` reads per-realization GeoTIFFs window by window,
-so memory is bounded by window size x number of realizations.
+:func:`summarize_ensemble` does this on an in-memory stack and
+:func:`summary_bands` on any stack; :func:`summarize_windows` takes an iterator
+of stacks of windows (``(key, stack)`` pairs, the key passed through), so a
+caller that reads files window by window (:func:`geosim.ensemble.summarize_realizations`)
+keeps memory bounded by window size x number of realizations.  This module
+computes only: it opens no file and writes none.
 
 Decision figures (per realization)
 ----------------------------------
@@ -28,21 +31,22 @@ Decision figures (per realization)
   cells strictly above / below each threshold (e.g. hydraulic conductivity).
 
 :func:`decision_spread` gives P10/P50/P90 of each figure across realizations
-(same quantile definition) and :func:`write_decision_csv` writes the tables.
+(same quantile definition); :func:`geosim.io.decision.write_decision_csv`
+writes the tables.
 """
 from __future__ import annotations
 
-import os
-from collections.abc import Callable, Mapping, Sequence
-from pathlib import Path
+from collections.abc import Iterable, Iterator, Mapping, Sequence
+from typing import Any
 
 import numpy as np
 
+from ._forward import forward
 from .errors import InputError
 
 __all__ = ["QUANTILE_METHOD", "SUMMARY_PERCENTILES", "summary_band_names", "summary_band_descriptions",
-           "summarize_ensemble", "summarize_realizations", "grade_tonnage", "fraction_above",
-           "fraction_below", "decision_rows", "decision_spread", "decision_columns", "write_decision_csv"]
+           "summary_bands", "summarize_ensemble", "summarize_windows", "grade_tonnage", "fraction_above",
+           "fraction_below", "decision_rows", "decision_spread"]
 
 QUANTILE_METHOD = "linear"  # numpy's default; Hyndman and Fan (1996) definition 7
 SUMMARY_PERCENTILES = (10.0, 50.0, 90.0)
@@ -76,8 +80,12 @@ def summary_band_descriptions(cutoffs: Sequence[float] = (), units: str = "") ->
     return out
 
 
-def _stack_stats(stack: np.ndarray, cutoffs: Sequence[float]) -> np.ndarray:
-    """Summary bands of a stack ``(n_real, ...)``; returns ``(n_bands, ...)`` float64."""
+def summary_bands(stack: np.ndarray, cutoffs: Sequence[float] = ()) -> np.ndarray:
+    """Summary bands of a stack ``(n_real, ...)``; returns ``(n_bands, ...)`` float64.
+
+    Bands in :func:`summary_band_names` order.  Every realization must share the
+    domain mask (NaN at the same nodes).
+    """
     stack = np.asarray(stack)
     shape = stack.shape[1:]
     out = np.full((5 + len(cutoffs),) + shape, np.nan)
@@ -124,62 +132,35 @@ def summarize_ensemble(fields: np.ndarray | Sequence[np.ndarray],
     stack = np.asarray(fields if isinstance(fields, np.ndarray) else np.stack(list(fields)), dtype=float)
     if stack.ndim < 2 or stack.shape[0] < 1:
         raise ValueError(f"need a stack (n_realizations, ...) with at least one realization, got {stack.shape}")
-    bands = _stack_stats(stack, cutoffs)
+    bands = summary_bands(stack, cutoffs)
     return dict(zip(summary_band_names(cutoffs), bands))
 
 
-def summarize_realizations(paths: Sequence[str | os.PathLike], grid, cutoffs: Sequence[float],
-                           out_path: str | os.PathLike, units: str = "",
-                           tags: Mapping[str, str] | None = None, window: int | None = None,
-                           overwrite: bool = False,
-                           progress: Callable[[int, int, str], None] | None = None) -> Path:
-    """Stream single-band realization GeoTIFFs into a summary GeoTIFF (COG layout).
-
-    Reads all ``paths`` one window at a time (memory is about
-    ``window**2 x len(paths)`` values), computes the bands of
-    :func:`summarize_ensemble` and writes them, described and with units, to
-    ``out_path`` atomically.
+def summarize_windows(blocks: Iterable[tuple[Any, np.ndarray]],
+                      cutoffs: Sequence[float] = ()) -> Iterator[tuple[Any, np.ndarray]]:
+    """Summary bands of each window of an ensemble, one window at a time.
 
     Parameters
     ----------
-    paths : sequence of path
-        One single-band GeoTIFF per realization, all on ``grid`` (2-D; for a
-        3-D grid call once per level with that level's files and 2-D grid).
-    grid : geosim.Grid
-        2-D grid of the files (checked against each file's size).
+    blocks : iterable of ``(key, stack)``
+        ``stack`` is ``(n_real, rows, cols)``: every realization at one window;
+        ``key`` (e.g. the window) is passed through untouched.
     cutoffs : sequence of float
-    out_path : path
-    units : str
-        Units of the realization values.
-    tags : mapping, optional
-        Provenance tags (see :func:`geosim.io.report.provenance`).
-    window : int, optional
-        Window side in cells; defaults to the files' tile size.
-    overwrite : bool
-    progress : callable, optional
-        ``progress(done, total, "summary")`` after each window.
+
+    Yields
+    ------
+    ``(key, bands)`` with ``bands`` of :func:`summary_bands`.
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> import geosim.summaries
+    >>> blocks = [("left", np.arange(11.0).reshape(11, 1, 1)), ("right", np.ones((11, 1, 1)))]
+    >>> [(key, float(bands[0, 0, 0])) for key, bands in geosim.summaries.summarize_windows(blocks)]
+    [('left', 5.0), ('right', 1.0)]
     """
-    from .io.geotiff import grid_windows, open_checked, write_bands
-
-    if len(paths) < 1:
-        raise ValueError("no realization files to summarize")
-    if grid.ndim != 2:
-        raise ValueError("summarize_realizations works on one 2-D level; call it per level of a 3-D grid")
-    with open_checked(paths[0], grid) as first:
-        block = first.block_shapes[0][0] if first.profile.get("tiled") else 256
-    win = int(window or block)
-    n_bands = 5 + len(cutoffs)
-    names = summary_band_descriptions(cutoffs, units)
-
-    def compute(w):
-        stack = np.empty((len(paths), w.height, w.width), dtype=np.float32)
-        for i, p in enumerate(paths):
-            with open_checked(p, grid) as src:
-                stack[i] = src.read(1, window=w)
-        return _stack_stats(stack, cutoffs)
-
-    return write_bands(out_path, grid, n_bands, grid_windows(grid, win), compute, descriptions=names,
-                       tags=tags, overwrite=overwrite, progress=progress, what="summary")
+    for key, stack in blocks:
+        yield key, summary_bands(stack, cutoffs)
 
 
 # ---------------------------------------------------------------------------------------------
@@ -348,77 +329,7 @@ def decision_spread(figures: Sequence[Mapping[str, np.ndarray]]) -> list[dict]:
     return out
 
 
-_DECISION_COLUMNS = {
-    "realization": ("realization index (0-based; realization i depends only on the seed and i)", "integer", ""),
-    "cutoff": ("cut-off grade; a cell counts when its grade is at or above it", "double", "{units}"),
-    "threshold": ("threshold; a cell counts when its value is strictly beyond it", "double", "{units}"),
-    "tonnage": ("ore tonnage at or above the cut-off", "double", "t"),
-    "mean_grade": ("tonnage-weighted mean grade at or above the cut-off (empty: nothing above)", "double",
-                   "{units}"),
-    "metal": ("metal at or above the cut-off: tonnage x mean grade x metal factor", "double", "{metal}"),
-    "fraction_above": ("fraction (0 to 1) of the domain's cells strictly above the threshold", "double", ""),
-    "fraction_below": ("fraction (0 to 1) of the domain's cells strictly below the threshold", "double", ""),
-    "area": ("area of those cells", "double", "m2"),
-    "volume": ("volume of those cells", "double", "m3"),
-    "figure": ("which decision figure the row summarizes (a column of decision_figures.csv)", "string", ""),
-    "n": ("realizations in which the figure is defined", "integer", ""),
-    "mean": ("mean of the figure across realizations, in the figure's unit", "double", ""),
-    "P10": ("10th percentile of the figure across realizations (Hyndman and Fan 1996 type 7)", "double", ""),
-    "P50": ("median of the figure across realizations", "double", ""),
-    "P90": ("90th percentile of the figure across realizations", "double", ""),
-}
-
-
-def decision_columns(names: Sequence[str], units: str = "", metal_unit: str = ""):
-    """:class:`geosim.io.csvw.Column` descriptions of decision-table columns.
-
-    ``units`` are the data units (grades, conductivities); ``metal_unit`` the
-    unit of ``metal`` (``t`` for % grades with metal factor 0.01, ``g`` for g/t).
-    """
-    from .io.csvw import Column
-
-    out = []
-    for name in names:
-        description, datatype, unit = _DECISION_COLUMNS.get(name, (name, "double", ""))
-        out.append(Column(name, description, datatype, unit.format(units=units or "", metal=metal_unit or "")))
-    return out
-
-
-def write_decision_csv(path: str | os.PathLike, rows: Sequence[Mapping], overwrite: bool = False, *,
-                       units: str = "", metal_unit: str = "", provenance: Mapping[str, str] | None = None
-                       ) -> Path:
-    """Write rows (from :func:`decision_rows` or :func:`decision_spread`) as a plain CSV, atomically.
-
-    The table has a header line and the rows, nothing else; its caution,
-    provenance, column descriptions and units are in the "CSV on the Web"
-    sidecar ``<name>.csv-metadata.json`` (:mod:`geosim.io.csvw`).
-
-    Examples
-    --------
-    >>> import pathlib, tempfile
-    >>> import numpy as np, geosim
-    >>> figs = [{"threshold": np.array([1e-4]), "fraction_above": np.array([0.25 * t])} for t in range(3)]
-    >>> p = pathlib.Path(tempfile.mkdtemp()) / "decision_figures.csv"
-    >>> print(geosim.write_decision_csv(p, geosim.decision_rows(figs), units="m/s").read_text(), end="")
-    realization,threshold,fraction_above
-    0,0.0001,0
-    1,0.0001,0.25
-    2,0.0001,0.5
-    """
-    from .io.csvw import write_csv_table
-
-    if not rows:
-        raise ValueError("no rows to write")
-    header = list(rows[0])
-    spread = "figure" in header
-    notes = []
-    if spread:
-        notes.append("one row per cut-off (or threshold) and figure; mean and percentiles are in the unit of "
-                     "the figure: tonnage t, mean_grade and cutoff data units, metal the metal unit, "
-                     "fraction_above/below 0 to 1, area m2, volume m3")
-    title = ("decision figures: spread across realizations" if spread
-             else "decision figures per realization")
-    return write_csv_table(path, decision_columns(header, units, metal_unit), ([r.get(k) for k in header]
-                                                                            for r in rows),
-                           title=title, provenance=provenance, notes=notes,
-                           primary_key=[header[0], "figure"] if spread else header[:2], overwrite=overwrite)
+# moved up to the modules that read and write files; the old paths work for one release
+__getattr__ = forward(__name__, {"summarize_realizations": "geosim.ensemble",
+                                 "decision_columns": "geosim.io.decision",
+                                 "write_decision_csv": "geosim.io.decision"})

@@ -7,7 +7,7 @@ asks a person to look at the plots).
 Work is split so that realizations never sit in memory together:
 :class:`RunChecks` is a small picklable callable that measures one realization
 in the worker (``checks(scores, values) -> dict`` of a few numbers; pass it to
-:class:`geosim.io.geotiff.RealizationWriter` as ``measure``), and
+:class:`geosim.ensemble.RealizationWriter` as ``measure``), and
 :meth:`RunChecks.summarize` turns the measurements of all realizations into the
 ``validation`` section of the JSON run report.
 

@@ -15,9 +15,10 @@ from shapely.geometry import Polygon
 
 import geosim
 from geosim.cautions import CAUTION
+from geosim.ensemble import RealizationWriter
 from geosim.errors import InputError
 from geosim.io.csvw import read_csv_metadata
-from geosim.io.geotiff import (RealizationWriter, read_realization, tile_size, verify_realization,
+from geosim.io.geotiff import (read_realization, tile_size, verify_realization,
                                write_raster)
 from geosim.io.report import provenance
 from geosim.summaries import grade_tonnage, summarize_ensemble

@@ -41,7 +41,7 @@ def test_builtins_load_through_the_registry():
     for kind, cls in BUILTIN_STRUCTURES.items():
         assert plugins.get("structures", kind) is cls
     assert {"sequential", "exact"} <= set(plugins.available("engines"))
-    from geosim.io.geotiff import RealizationWriter
+    from geosim.ensemble import RealizationWriter
     assert plugins.get("writers", "geotiff") is RealizationWriter
     own = [i for i in plugins.installed() if i.package == "geosim"]
     assert own and all(i.usable for i in own), [i for i in own if not i.usable]

@@ -8,12 +8,13 @@ from scipy.stats.mstats import mquantiles
 
 import geosim
 from geosim.cautions import CAUTION
+from geosim.ensemble import summarize_realizations
 from geosim.errors import InputError
 from geosim.io.csvw import read_csv_metadata
+from geosim.io.decision import write_decision_csv
 from geosim.io.geotiff import write_raster
 from geosim.summaries import (decision_rows, decision_spread, fraction_above, fraction_below, grade_tonnage,
-                              summarize_ensemble, summarize_realizations, summary_band_names,
-                              write_decision_csv)
+                              summarize_ensemble, summary_band_names)
 
 
 def _ensemble(n=9, shape=(37, 53), seed=3):

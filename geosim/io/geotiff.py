@@ -24,39 +24,32 @@ realizations of a very large ensemble, keep the per-realization files.
 number (level 0 lowest), e.g. ``r0007_z000.tif``; each level file carries the
 tags ``level``, ``z_bottom`` and ``z_top`` (metres).
 
-Realization writer layout (see :class:`RealizationWriter`)::
-
-    <folder>/realizations/r0000.tif ...   one single-band file per realization
-    <folder>/realizations.tif             all realizations, band i+1 = realization i
-    <folder>/summary.tif                  mean, std, P10, P50, P90, P(>cutoff)...
-    <folder>/decision_figures.csv         figures per realization and cut-off
-    <folder>/decision_spread.csv          P10/P50/P90 of each figure
-    <folder>/*.png                        with finish(plots=True): maps and checks
-
-For 3-D grids the rasters get ``_z000``... per level (``realizations_z000.tif``,
-``summary_z000.tif``, ``realizations/r0007_z000.tif``).  Hidden temporaries
-(``.<name>.<hex>.partial<suffix>``, ``.<name>.<hex>.stage.tif``) exist only while
-a file is being written; a killed run may leave them, and they can be deleted.
+Reading goes window by window too (:func:`read_windows`), so an ensemble of
+any size is read with bounded memory; what is computed from it is computed
+elsewhere (:mod:`geosim.summaries`) and handed back as arrays
+(:func:`write_windows`).  The realization writer that puts these together is
+:class:`geosim.ensemble.RealizationWriter`.
 """
 from __future__ import annotations
 
 import contextlib
 import os
 import secrets
-from collections.abc import Callable, Iterator, Mapping, Sequence
+from collections.abc import Callable, Iterable, Iterator, Mapping, Sequence
 from pathlib import Path
 from typing import Any
 
 import numpy as np
 
+from .._forward import forward
 from ..errors import InputError
 from ..resources import DISK_FULL_MARGIN, explain_os_error, free_space
 from .atomic import atomic_output, check_writable
 from .report import file_sha256
 
 __all__ = ["tile_size", "level_grid", "level_paths", "grid_windows", "write_raster", "write_bands",
-           "open_checked", "verify_realization", "assemble_realizations", "RealizationWriter",
-           "read_realization"]
+           "write_windows", "open_checked", "read_windows", "verify_realization", "assemble_realizations",
+           "read_realization", "level_tags"]
 
 _COG_OPTIONS = {"COMPRESS": "DEFLATE", "PREDICTOR": "YES", "OVERVIEW_RESAMPLING": "AVERAGE",
                 "BIGTIFF": "IF_SAFER"}
@@ -75,7 +68,8 @@ def level_grid(grid, k: int):
     return Grid(grid.xmin, grid.ymin, grid.cell[:2], grid.shape[1:], grid.crs, mask=grid.mask[k])
 
 
-def _level_tags(grid, k: int) -> dict[str, str]:
+def level_tags(grid, k: int) -> dict[str, str]:
+    """Tags of level ``k`` of a 3-D grid (``level``, ``z_bottom``, ``z_top``); none for 2-D."""
     if grid.ndim == 2:
         return {}
     bottom = grid.zmin + k * grid.cell[2]
@@ -100,7 +94,7 @@ def write_bands(out_path: str | os.PathLike, grid, n_bands: int, windows: Callab
                 compute: Callable[[Any], np.ndarray], *, descriptions: Sequence[tuple[str, str] | str],
                 tags: Mapping[str, str] | None = None, overwrite: bool = False,
                 progress: Callable[[int, int, str], None] | None = None, what: str = "raster") -> Path:
-    """Write a multiband COG window by window; the low-level writer behind the others.
+    """Write a multiband COG window by window, computing each window with ``compute``.
 
     Parameters
     ----------
@@ -122,11 +116,37 @@ def write_bands(out_path: str | os.PathLike, grid, n_bands: int, windows: Callab
     what : str
         Label passed to ``progress``.
     """
+    blocks = ((w, compute(w)) for w in windows())
+    return write_windows(out_path, grid, n_bands, blocks, total=sum(1 for _ in windows()),
+                         descriptions=descriptions, tags=tags, overwrite=overwrite, progress=progress,
+                         what=what)
+
+
+def write_windows(out_path: str | os.PathLike, grid, n_bands: int, blocks: Iterable[tuple[Any, np.ndarray]],
+                  *, total: int, descriptions: Sequence[tuple[str, str] | str],
+                  tags: Mapping[str, str] | None = None, overwrite: bool = False,
+                  progress: Callable[[int, int, str], None] | None = None, what: str = "raster") -> Path:
+    """Write a multiband COG from computed windows; the writer behind the others.
+
+    Parameters
+    ----------
+    out_path : path
+    grid : geosim.Grid
+        2-D grid (one level).
+    n_bands : int
+    blocks : iterable of ``(window, array)``
+        rasterio ``Window`` objects covering the grid, each with its computed
+        array ``(n_bands, window.height, window.width)``; consumed once, in order.
+    total : int
+        Number of windows, for ``progress``.
+    descriptions, tags, overwrite, progress, what
+        As for :func:`write_bands`.
+    """
     import rasterio
     import rasterio.shutil
 
     if grid.ndim != 2:
-        raise ValueError("write_bands writes one 2-D level; use level_grid() for 3-D grids")
+        raise ValueError("write_windows writes one 2-D level; use level_grid() for 3-D grids")
     if len(descriptions) != n_bands:
         raise ValueError(f"{len(descriptions)} band descriptions for {n_bands} bands")
     out_path = check_writable(out_path, overwrite)
@@ -135,13 +155,12 @@ def write_bands(out_path: str | os.PathLike, grid, n_bands: int, windows: Callab
                    crs=_crs(grid), transform=grid.transform, nodata=np.nan, tiled=True,
                    blockxsize=block, blockysize=block, compress="deflate", predictor=3,
                    interleave="band", bigtiff="if_safer")
-    total = sum(1 for _ in windows())
     stage = out_path.with_name(f".{out_path.name}.{secrets.token_hex(4)}.stage.tif")
     with atomic_output(out_path, overwrite) as final, rasterio.Env(GDAL_PAM_ENABLED="NO"):
         try:
             with rasterio.open(stage, "w", **profile) as dst:
-                for done, w in enumerate(windows(), start=1):
-                    data = np.asarray(compute(w), dtype=np.float32)
+                for done, (w, data) in enumerate(blocks, start=1):
+                    data = np.asarray(data, dtype=np.float32)
                     if data.shape != (n_bands, w.height, w.width):
                         raise ValueError(f"computed window has shape {data.shape}, expected "
                                          f"{(n_bands, w.height, w.width)}")
@@ -214,7 +233,7 @@ def write_raster(path: str | os.PathLike, data: np.ndarray, grid, *,
         g2 = level_grid(grid, k)
         level = a if grid.ndim == 2 else a[:, k]
         level = np.where(g2.mask, level, np.nan).astype(np.float32)
-        t = {**(tags or {}), **_level_tags(grid, k)}
+        t = {**(tags or {}), **level_tags(grid, k)}
         out.append(write_bands(target, g2, level.shape[0], grid_windows(g2, tile_size(g2)),
                                lambda w, lv=level: lv[:, w.row_off:w.row_off + w.height,
                                                       w.col_off:w.col_off + w.width],
@@ -252,6 +271,22 @@ def open_checked(path: str | os.PathLike, grid):
         yield src
 
 
+def read_windows(paths: Sequence[str | os.PathLike], grid,
+                 windows: Callable[[], Iterator]) -> Iterator[tuple[Any, np.ndarray]]:
+    """Every file's values at one window at a time: ``(window, stack (len(paths), h, w) float32)``.
+
+    ``paths`` are single-band rasters of the 2-D ``grid`` (checked as
+    :func:`open_checked` does); ``windows`` is a callable as from
+    :func:`grid_windows`.  Memory is one window of every file.
+    """
+    for w in windows():
+        stack = np.empty((len(paths), w.height, w.width), dtype=np.float32)
+        for i, p in enumerate(paths):
+            with open_checked(p, grid) as src:
+                stack[i] = src.read(1, window=w)
+        yield w, stack
+
+
 def verify_realization(path: str | os.PathLike, expected_sha256: str) -> bool:
     """True when ``path`` exists and its SHA-256 is ``expected_sha256``.
 
@@ -285,197 +320,12 @@ def assemble_realizations(paths: Sequence[str | os.PathLike], grid, out_path: st
     descriptions = [(f"realization {i}{u}", units) for i in indices]
     size = tile_size(grid)
 
-    def compute(w):
-        out = np.empty((len(paths), w.height, w.width), dtype=np.float32)
-        for b, p in enumerate(paths):
-            with open_checked(p, grid) as src:
-                out[b] = src.read(1, window=w)
-        return out
-
-    return write_bands(out_path, grid, len(paths), grid_windows(grid, size), compute, descriptions=descriptions,
-                       tags=tags, overwrite=overwrite, progress=progress, what="realizations")
+    windows = grid_windows(grid, size)
+    return write_windows(out_path, grid, len(paths), read_windows(paths, grid, windows),
+                         total=sum(1 for _ in windows()), descriptions=descriptions, tags=tags,
+                         overwrite=overwrite, progress=progress, what="realizations")
 
 
-class RealizationWriter:
-    """Picklable sink that writes each realization in the worker, and assembles at the end.
-
-    Parameters
-    ----------
-    folder : path
-        Output folder (created if missing).  Per-realization files go to
-        ``folder/realizations/``.
-    grid : geosim.Grid
-    tags : mapping
-        Provenance tags (:func:`geosim.io.report.provenance`).
-    units : str
-        Units of the written values.
-    back_transform : callable, optional
-        Applied in the worker to the active values of each field (normal scores
-        to data units), e.g. a fitted transform's ``inverse``.
-    figures : callable, optional
-        ``figures(field) -> dict`` of decision figures for one realization in
-        data units, e.g. ``functools.partial(geosim.summaries.grade_tonnage,
-        grid=grid, cutoffs=[0.5, 1.0], density=2.7)``.
-    measure : callable, optional
-        ``measure(normal_scores, values) -> dict`` of per-realization validation
-        statistics (see :class:`geosim.validation.RunChecks`).
-    metal_unit : str
-        Unit of the ``metal`` decision figure, for the decision tables' metadata.
-    overwrite : bool
-        Replace existing outputs.
-
-    Notes
-    -----
-    ``writer(index, field)`` returns a record ``{"index", "files", "sha256",
-    "figures", "checks"}`` (``files`` relative to ``folder``).  ``finish``
-    takes the records of all realizations.
-    """
-
-    def __init__(self, folder: str | os.PathLike, grid, *, tags: Mapping[str, str] | None = None,
-                 units: str = "", back_transform: Callable[[np.ndarray], np.ndarray] | None = None,
-                 figures: Callable[[np.ndarray], dict] | None = None,
-                 measure: Callable[[np.ndarray, np.ndarray], dict] | None = None, metal_unit: str = "",
-                 overwrite: bool = False):
-        self.folder = Path(folder)
-        self.grid = grid
-        self.tags = dict(tags or {})
-        self.units = units
-        self.back_transform = back_transform
-        self.figures = figures
-        self.measure = measure
-        self.metal_unit = metal_unit
-        self.overwrite = overwrite
-
-    def realization_paths(self, index: int) -> list[Path]:
-        """The per-realization file(s) of realization ``index``."""
-        return level_paths(self.folder / "realizations" / f"r{index:04d}.tif", self.grid)
-
-    def __call__(self, index: int, field: np.ndarray) -> dict:
-        scores = np.asarray(field, dtype=np.float64)
-        if scores.shape != self.grid.shape:
-            raise ValueError(f"realization {index} has shape {scores.shape}, the grid {self.grid.shape}")
-        values = scores.copy()
-        if self.back_transform is not None:
-            inside = ~np.isnan(scores)
-            values[inside] = self.back_transform(scores[inside])
-        (self.folder / "realizations").mkdir(parents=True, exist_ok=True)
-        target = self.folder / "realizations" / f"r{index:04d}.tif"  # write_raster adds _z000... in 3-D
-        u = f" ({self.units})" if self.units else ""
-        written = write_raster(target, values, self.grid, descriptions=[(f"realization {index}{u}", self.units)],
-                               tags={**self.tags, "realization": str(index)}, overwrite=self.overwrite)
-        return {"index": int(index),
-                "files": [str(p.relative_to(self.folder)) for p in written],
-                "sha256": [file_sha256(p) for p in written],
-                "figures": None if self.figures is None else self.figures(values),
-                "checks": None if self.measure is None else self.measure(scores, values)}
-
-    def finish(self, records: Sequence[Mapping], *, cutoffs: Sequence[float] = (),
-               stack: bool = True, keep_realization_files: bool = True, plots: bool = False,
-               progress: Callable[[int, int, str], None] | None = None) -> dict[str, list[str]]:
-        """Assemble the multiband realization COG(s), the summary raster(s) and decision CSVs.
-
-        Parameters
-        ----------
-        records : sequence of dict
-            What ``writer(index, field)`` returned, for every realization.
-        cutoffs : sequence of float
-            Exceedance-probability cut-offs for the summary raster.
-        stack : bool
-            Write ``realizations.tif`` (per level for 3-D) with one band per realization.
-        keep_realization_files : bool
-            Keep ``realizations/r*.tif`` after assembly (they let a resumed run
-            skip finished realizations and are single-band COGs themselves);
-            False removes them once everything else is written.
-        plots : bool
-            Also draw PNGs (:mod:`geosim.io.plots`): summary maps (per level,
-            prefixed ``z000_``... for 3-D), ``decision_spread.png`` and, when
-            ``measure`` is a :class:`geosim.validation.RunChecks`,
-            ``variogram_reproduction.png`` and ``histogram_reproduction.png``.
-        progress : callable, optional
-
-        Returns
-        -------
-        dict
-            Output kind -> list of paths written.
-        """
-        from ..summaries import decision_rows, decision_spread, summarize_realizations, write_decision_csv
-
-        records = sorted(records, key=lambda r: r["index"])
-        if not records:
-            raise ValueError("no realization records to assemble")
-        for r in records:
-            for f, sha in zip(r["files"], r["sha256"]):
-                if not verify_realization(self.folder / f, sha):
-                    raise InputError("realization file is missing or changed since it was written",
-                                     file=str(self.folder / f), fix="re-run that realization")
-        indices = [r["index"] for r in records]
-        out: dict[str, list[str]] = {
-            "realization_files": [str(self.folder / f) for r in records for f in r["files"]]}
-        if stack:
-            out["realizations"] = []
-        out["summary"] = []
-        for k in range(self.grid.nz if self.grid.ndim == 3 else 1):
-            g2 = level_grid(self.grid, k)
-            files = [self.folder / r["files"][k] for r in records]
-            level_tags = {**self.tags, **_level_tags(self.grid, k)}
-            if stack:
-                target = level_paths(self.folder / "realizations.tif", self.grid)[k]
-                assemble_realizations(files, g2, target, units=self.units, tags=level_tags, indices=indices,
-                                      overwrite=self.overwrite, progress=progress)
-                out["realizations"].append(str(target))
-            target = level_paths(self.folder / "summary.tif", self.grid)[k]
-            summarize_realizations(files, g2, cutoffs, target, units=self.units, tags=level_tags,
-                                   overwrite=self.overwrite, progress=progress)
-            out["summary"].append(str(target))
-        figures = [r["figures"] for r in records]
-        if all(f is not None for f in figures):
-            rows = decision_rows(figures, indices)
-            meta = {"units": self.units, "metal_unit": self.metal_unit, "provenance": self.tags}
-            p1 = write_decision_csv(self.folder / "decision_figures.csv", rows, self.overwrite, **meta)
-            p2 = write_decision_csv(self.folder / "decision_spread.csv", decision_spread(figures), self.overwrite,
-                                    **meta)
-            out["decision"] = [str(p1), str(p2)]
-        if plots:
-            out["plots"] = [str(p) for p in self._plots(records, cutoffs, out["summary"])]
-        if not keep_realization_files:
-            for f in out.pop("realization_files"):
-                Path(f).unlink()
-            with contextlib.suppress(OSError):
-                (self.folder / "realizations").rmdir()
-        return out
-
-    def validation(self, records: Sequence[Mapping]) -> dict | None:
-        """The run report's ``validation`` section from the records' measurements (None without ``measure``)."""
-        checks = [r.get("checks") for r in records]
-        if not hasattr(self.measure, "summarize") or any(c is None for c in checks):
-            return None
-        return self.measure.summarize(checks)
-
-    def _plots(self, records, cutoffs, summaries) -> list[Path]:
-        from ..summaries import summary_band_names
-        from . import plots
-        out = []
-        names = summary_band_names(cutoffs)
-        for k, path in enumerate(summaries):
-            g2 = level_grid(self.grid, k)
-            with open_checked(path, g2) as src:
-                summary = {name: src.read(b + 1).astype(np.float64) for b, name in enumerate(names)}
-            prefix = "" if self.grid.ndim == 2 else f"z{k:03d}_"
-            out += plots.plot_summary_maps(summary, g2, self.folder, units=self.units, prefix=prefix,
-                                           overwrite=self.overwrite)
-        figures = [r["figures"] for r in records]
-        if figures and all(f is not None for f in figures):
-            out.append(plots.plot_decision_spread(figures, self.folder / "decision_spread.png", units=self.units,
-                                                  overwrite=self.overwrite))
-        section = self.validation(records)
-        if section is not None:
-            out.append(plots.plot_variogram_reproduction(section["variogram"],
-                                                         self.folder / "variogram_reproduction.png",
-                                                         model=self.measure.model, ndim=self.grid.ndim,
-                                                         overwrite=self.overwrite))
-            samples = [r["checks"].get("quantiles") for r in records]
-            if self.measure.data_values is not None and all(q is not None for q in samples):
-                out.append(plots.plot_histogram_reproduction(
-                    self.measure.data_values, samples, self.folder / "histogram_reproduction.png",
-                    weights=self.measure.weights, units=self.units, overwrite=self.overwrite))
-        return out
+# moved up to geosim.ensemble, which puts rasters, statistics and figures together;
+# the old path works for one release
+__getattr__ = forward(__name__, {"RealizationWriter": "geosim.ensemble"})

@@ -27,7 +27,7 @@ from pathlib import Path
 import numpy as np
 import rasterio
 import geosim
-from geosim.summaries import summarize_realizations
+from geosim.ensemble import summarize_realizations
 folder, n = Path(sys.argv[1]), int(sys.argv[2])
 grid = geosim.Grid(500000.0, 6000000.0, (10.0, 10.0), (1000, 1000))
 paths = sorted(folder.glob("r*.tif"))[:n]

@@ -1,0 +1,271 @@
+"""Writing an ensemble: the realization writer sink and what it assembles at the end.
+
+:class:`RealizationWriter` (registered as the ``geotiff`` writer) writes each
+realization in the worker as a COG (:mod:`geosim.io.geotiff`); its ``finish``
+stacks them, streams the summary rasters (:func:`summarize_realizations`:
+windows read by :mod:`geosim.io.geotiff`, statistics from
+:mod:`geosim.summaries`, written back by :mod:`geosim.io.geotiff`), writes the
+decision CSVs (:mod:`geosim.io.decision`) and draws the figures
+(:mod:`geosim.io.plots`).  This module puts those together; each of them
+either computes or writes, and none imports this one.
+
+Realization writer layout (see :class:`RealizationWriter`)::
+
+    <folder>/realizations/r0000.tif ...   one single-band file per realization
+    <folder>/realizations.tif             all realizations, band i+1 = realization i
+    <folder>/summary.tif                  mean, std, P10, P50, P90, P(>cutoff)...
+    <folder>/decision_figures.csv         figures per realization and cut-off
+    <folder>/decision_spread.csv          P10/P50/P90 of each figure
+    <folder>/*.png                        with finish(plots=True): maps and checks
+
+For 3-D grids the rasters get ``_z000``... per level (``realizations_z000.tif``,
+``summary_z000.tif``, ``realizations/r0007_z000.tif``).  Hidden temporaries
+(``.<name>.<hex>.partial<suffix>``, ``.<name>.<hex>.stage.tif``) exist only while
+a file is being written; a killed run may leave them, and they can be deleted.
+"""
+from __future__ import annotations
+
+import contextlib
+import os
+from collections.abc import Callable, Mapping, Sequence
+from pathlib import Path
+
+import numpy as np
+
+from .errors import InputError
+from .io import plots as io_plots
+from .io.decision import write_decision_csv
+from .io.geotiff import (assemble_realizations, grid_windows, level_grid, level_paths, level_tags, open_checked,
+                         read_windows, verify_realization, write_raster, write_windows)
+from .io.report import file_sha256
+from .summaries import (decision_rows, decision_spread, summarize_windows, summary_band_descriptions,
+                        summary_band_names)
+
+__all__ = ["RealizationWriter", "summarize_realizations"]
+
+
+def summarize_realizations(paths: Sequence[str | os.PathLike], grid, cutoffs: Sequence[float],
+                           out_path: str | os.PathLike, units: str = "",
+                           tags: Mapping[str, str] | None = None, window: int | None = None,
+                           overwrite: bool = False,
+                           progress: Callable[[int, int, str], None] | None = None) -> Path:
+    """Stream single-band realization GeoTIFFs into a summary GeoTIFF (COG layout).
+
+    Reads all ``paths`` one window at a time (memory is about
+    ``window**2 x len(paths)`` values), computes the bands of
+    :func:`summarize_ensemble` and writes them, described and with units, to
+    ``out_path`` atomically.
+
+    Parameters
+    ----------
+    paths : sequence of path
+        One single-band GeoTIFF per realization, all on ``grid`` (2-D; for a
+        3-D grid call once per level with that level's files and 2-D grid).
+    grid : geosim.Grid
+        2-D grid of the files (checked against each file's size).
+    cutoffs : sequence of float
+    out_path : path
+    units : str
+        Units of the realization values.
+    tags : mapping, optional
+        Provenance tags (see :func:`geosim.io.report.provenance`).
+    window : int, optional
+        Window side in cells; defaults to the files' tile size.
+    overwrite : bool
+    progress : callable, optional
+        ``progress(done, total, "summary")`` after each window.
+    """
+    if len(paths) < 1:
+        raise ValueError("no realization files to summarize")
+    if grid.ndim != 2:
+        raise ValueError("summarize_realizations works on one 2-D level; call it per level of a 3-D grid")
+    with open_checked(paths[0], grid) as first:
+        block = first.block_shapes[0][0] if first.profile.get("tiled") else 256
+    win = int(window or block)
+    windows = grid_windows(grid, win)
+    bands = summarize_windows(read_windows(paths, grid, windows), cutoffs)
+    return write_windows(out_path, grid, len(summary_band_names(cutoffs)), bands,
+                         total=sum(1 for _ in windows()),
+                         descriptions=summary_band_descriptions(cutoffs, units), tags=tags,
+                         overwrite=overwrite, progress=progress, what="summary")
+
+
+class RealizationWriter:
+    """Picklable sink that writes each realization in the worker, and assembles at the end.
+
+    Parameters
+    ----------
+    folder : path
+        Output folder (created if missing).  Per-realization files go to
+        ``folder/realizations/``.
+    grid : geosim.Grid
+    tags : mapping
+        Provenance tags (:func:`geosim.io.report.provenance`).
+    units : str
+        Units of the written values.
+    back_transform : callable, optional
+        Applied in the worker to the active values of each field (normal scores
+        to data units), e.g. a fitted transform's ``inverse``.
+    figures : callable, optional
+        ``figures(field) -> dict`` of decision figures for one realization in
+        data units, e.g. ``functools.partial(geosim.summaries.grade_tonnage,
+        grid=grid, cutoffs=[0.5, 1.0], density=2.7)``.
+    measure : callable, optional
+        ``measure(normal_scores, values) -> dict`` of per-realization validation
+        statistics (see :class:`geosim.validation.RunChecks`).
+    metal_unit : str
+        Unit of the ``metal`` decision figure, for the decision tables' metadata.
+    overwrite : bool
+        Replace existing outputs.
+
+    Notes
+    -----
+    ``writer(index, field)`` returns a record ``{"index", "files", "sha256",
+    "figures", "checks"}`` (``files`` relative to ``folder``).  ``finish``
+    takes the records of all realizations.
+    """
+
+    def __init__(self, folder: str | os.PathLike, grid, *, tags: Mapping[str, str] | None = None,
+                 units: str = "", back_transform: Callable[[np.ndarray], np.ndarray] | None = None,
+                 figures: Callable[[np.ndarray], dict] | None = None,
+                 measure: Callable[[np.ndarray, np.ndarray], dict] | None = None, metal_unit: str = "",
+                 overwrite: bool = False):
+        self.folder = Path(folder)
+        self.grid = grid
+        self.tags = dict(tags or {})
+        self.units = units
+        self.back_transform = back_transform
+        self.figures = figures
+        self.measure = measure
+        self.metal_unit = metal_unit
+        self.overwrite = overwrite
+
+    def realization_paths(self, index: int) -> list[Path]:
+        """The per-realization file(s) of realization ``index``."""
+        return level_paths(self.folder / "realizations" / f"r{index:04d}.tif", self.grid)
+
+    def __call__(self, index: int, field: np.ndarray) -> dict:
+        scores = np.asarray(field, dtype=np.float64)
+        if scores.shape != self.grid.shape:
+            raise ValueError(f"realization {index} has shape {scores.shape}, the grid {self.grid.shape}")
+        values = scores.copy()
+        if self.back_transform is not None:
+            inside = ~np.isnan(scores)
+            values[inside] = self.back_transform(scores[inside])
+        (self.folder / "realizations").mkdir(parents=True, exist_ok=True)
+        target = self.folder / "realizations" / f"r{index:04d}.tif"  # write_raster adds _z000... in 3-D
+        u = f" ({self.units})" if self.units else ""
+        written = write_raster(target, values, self.grid, descriptions=[(f"realization {index}{u}", self.units)],
+                               tags={**self.tags, "realization": str(index)}, overwrite=self.overwrite)
+        return {"index": int(index),
+                "files": [str(p.relative_to(self.folder)) for p in written],
+                "sha256": [file_sha256(p) for p in written],
+                "figures": None if self.figures is None else self.figures(values),
+                "checks": None if self.measure is None else self.measure(scores, values)}
+
+    def finish(self, records: Sequence[Mapping], *, cutoffs: Sequence[float] = (),
+               stack: bool = True, keep_realization_files: bool = True, plots: bool = False,
+               progress: Callable[[int, int, str], None] | None = None) -> dict[str, list[str]]:
+        """Assemble the multiband realization COG(s), the summary raster(s) and decision CSVs.
+
+        Parameters
+        ----------
+        records : sequence of dict
+            What ``writer(index, field)`` returned, for every realization.
+        cutoffs : sequence of float
+            Exceedance-probability cut-offs for the summary raster.
+        stack : bool
+            Write ``realizations.tif`` (per level for 3-D) with one band per realization.
+        keep_realization_files : bool
+            Keep ``realizations/r*.tif`` after assembly (they let a resumed run
+            skip finished realizations and are single-band COGs themselves);
+            False removes them once everything else is written.
+        plots : bool
+            Also draw PNGs (:mod:`geosim.io.plots`): summary maps (per level,
+            prefixed ``z000_``... for 3-D), ``decision_spread.png`` and, when
+            ``measure`` is a :class:`geosim.validation.RunChecks`,
+            ``variogram_reproduction.png`` and ``histogram_reproduction.png``.
+        progress : callable, optional
+
+        Returns
+        -------
+        dict
+            Output kind -> list of paths written.
+        """
+        records = sorted(records, key=lambda r: r["index"])
+        if not records:
+            raise ValueError("no realization records to assemble")
+        for r in records:
+            for f, sha in zip(r["files"], r["sha256"]):
+                if not verify_realization(self.folder / f, sha):
+                    raise InputError("realization file is missing or changed since it was written",
+                                     file=str(self.folder / f), fix="re-run that realization")
+        indices = [r["index"] for r in records]
+        out: dict[str, list[str]] = {
+            "realization_files": [str(self.folder / f) for r in records for f in r["files"]]}
+        if stack:
+            out["realizations"] = []
+        out["summary"] = []
+        for k in range(self.grid.nz if self.grid.ndim == 3 else 1):
+            g2 = level_grid(self.grid, k)
+            files = [self.folder / r["files"][k] for r in records]
+            tags = {**self.tags, **level_tags(self.grid, k)}
+            if stack:
+                target = level_paths(self.folder / "realizations.tif", self.grid)[k]
+                assemble_realizations(files, g2, target, units=self.units, tags=tags, indices=indices,
+                                      overwrite=self.overwrite, progress=progress)
+                out["realizations"].append(str(target))
+            target = level_paths(self.folder / "summary.tif", self.grid)[k]
+            summarize_realizations(files, g2, cutoffs, target, units=self.units, tags=tags,
+                                   overwrite=self.overwrite, progress=progress)
+            out["summary"].append(str(target))
+        figures = [r["figures"] for r in records]
+        if all(f is not None for f in figures):
+            rows = decision_rows(figures, indices)
+            meta = {"units": self.units, "metal_unit": self.metal_unit, "provenance": self.tags}
+            p1 = write_decision_csv(self.folder / "decision_figures.csv", rows, self.overwrite, **meta)
+            p2 = write_decision_csv(self.folder / "decision_spread.csv", decision_spread(figures), self.overwrite,
+                                    **meta)
+            out["decision"] = [str(p1), str(p2)]
+        if plots:
+            out["plots"] = [str(p) for p in self._plots(records, cutoffs, out["summary"])]
+        if not keep_realization_files:
+            for f in out.pop("realization_files"):
+                Path(f).unlink()
+            with contextlib.suppress(OSError):
+                (self.folder / "realizations").rmdir()
+        return out
+
+    def validation(self, records: Sequence[Mapping]) -> dict | None:
+        """The run report's ``validation`` section from the records' measurements (None without ``measure``)."""
+        checks = [r.get("checks") for r in records]
+        if not hasattr(self.measure, "summarize") or any(c is None for c in checks):
+            return None
+        return self.measure.summarize(checks)
+
+    def _plots(self, records, cutoffs, summaries) -> list[Path]:
+        out = []
+        names = summary_band_names(cutoffs)
+        for k, path in enumerate(summaries):
+            g2 = level_grid(self.grid, k)
+            with open_checked(path, g2) as src:
+                summary = {name: src.read(b + 1).astype(np.float64) for b, name in enumerate(names)}
+            prefix = "" if self.grid.ndim == 2 else f"z{k:03d}_"
+            out += io_plots.plot_summary_maps(summary, g2, self.folder, units=self.units, prefix=prefix,
+                                           overwrite=self.overwrite)
+        figures = [r["figures"] for r in records]
+        if figures and all(f is not None for f in figures):
+            out.append(io_plots.plot_decision_spread(figures, self.folder / "decision_spread.png", units=self.units,
+                                                  overwrite=self.overwrite))
+        section = self.validation(records)
+        if section is not None:
+            out.append(io_plots.plot_variogram_reproduction(section["variogram"],
+                                                         self.folder / "variogram_reproduction.png",
+                                                         model=self.measure.model, ndim=self.grid.ndim,
+                                                         overwrite=self.overwrite))
+            samples = [r["checks"].get("quantiles") for r in records]
+            if self.measure.data_values is not None and all(q is not None for q in samples):
+                out.append(io_plots.plot_histogram_reproduction(
+                    self.measure.data_values, samples, self.folder / "histogram_reproduction.png",
+                    weights=self.measure.weights, units=self.units, overwrite=self.overwrite))
+        return out
