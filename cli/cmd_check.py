@@ -9,8 +9,8 @@ from .common import load, reporter, set_option, spec_argument, table
 def _print_keys(ctx, param, value):
     if not value or ctx.resilient_parsing:
         return
-    import geosim.io.runspec
-    click.echo(geosim.io.runspec.reference())
+    import geosim.config.runspec
+    click.echo(geosim.config.runspec.reference())
     ctx.exit(0)
 
 

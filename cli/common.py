@@ -35,14 +35,14 @@ def load(ctx: click.Context, spec_path: str, overrides: Sequence[str], *, worker
          cluster: str | None = None):
     """Load and validate the spec with the command line's overrides (a SpecError is
     mapped to exit 2 by the group)."""
-    import geosim.io.runspec
+    import geosim.config.runspec
     session(ctx)
-    values = geosim.io.runspec.parse_overrides(overrides)
+    values = geosim.config.runspec.parse_overrides(overrides)
     if workers is not None:
         values.update({"simulation.workers": workers, "simulation.cluster": None})
     if cluster is not None:
         values.update({"simulation.cluster": cluster, "simulation.workers": None})
-    return geosim.io.runspec.load_spec(spec_path, values)
+    return geosim.config.runspec.load_spec(spec_path, values)
 
 
 def reporter(ctx: click.Context) -> ProgressReporter:

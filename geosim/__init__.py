@@ -93,8 +93,8 @@ _LAZY = {
     "plot_histogram_reproduction": "geosim.io.plots",
     "plot_variogram_reproduction": "geosim.io.plots",
     "plot_decision_spread": "geosim.io.plots",
-    "RunSpec": "geosim.io.runspec",
-    "load_spec": "geosim.io.runspec",
+    "RunSpec": "geosim.config.runspec",
+    "load_spec": "geosim.config.runspec",
     "RunResult": "geosim.pipeline",
     "run": "geosim.pipeline",
 }

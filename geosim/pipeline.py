@@ -3,8 +3,8 @@
 Each command of the ``geosim`` command line is one call here, so a script can do
 exactly what the command line does::
 
-    import geosim.io.runspec, geosim.pipeline
-    spec = geosim.io.runspec.load_spec("sample_fields/alluvial_aquifer/run.toml")
+    import geosim.config.runspec, geosim.pipeline
+    spec = geosim.config.runspec.load_spec("sample_fields/alluvial_aquifer/run.toml")
     result = geosim.pipeline.run(spec, "geosim-demo")
 
 Steps, in the order :func:`run` calls them:
@@ -59,8 +59,8 @@ import numpy as np
 
 from .errors import InputError
 from .io.atomic import atomic_output
+from .config.runspec import RunSpec, canonical_json, load_spec
 from .io.lock import LOCK_NAME
-from .io.runspec import RunSpec, canonical_json, load_spec
 
 Progress = Callable[[int, int, str], None]
 
@@ -984,7 +984,7 @@ def run(spec: RunSpec | str | os.PathLike, out_dir: str | os.PathLike, *, overwr
     Parameters
     ----------
     spec : RunSpec or path
-        A spec from :func:`geosim.io.runspec.load_spec`, or the path of one.
+        A spec from :func:`geosim.config.runspec.load_spec`, or the path of one.
     out_dir : path
         Output folder, created if missing.  A folder holding a run of the same spec
         is resumed; one holding another run raises :class:`~geosim.errors.InputError`

@@ -11,7 +11,7 @@ import geosim
 import geosim.pipeline as pipeline
 from geosim.errors import InputError, ResourceError
 from geosim.io.geotiff import read_realization
-from geosim.io.runspec import load_spec
+from geosim.config.runspec import load_spec
 
 AQUIFER = Path(__file__).resolve().parent.parent / "sample_fields" / "alluvial_aquifer" / "run.toml"
 # a coarse grid, few realizations, serial: the logic under test does not need more

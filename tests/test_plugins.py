@@ -253,7 +253,7 @@ def test_model_dicts_and_run_specs_accept_plugin_kinds(plugin, tmp_path):
     with pytest.raises(ValueError, match="unknown kind 'boxcar'"):
         Model.from_dicts([{"kind": "boxcar", "sill": 1.0, "ranges": [10.0]}])
 
-    import geosim.io.runspec
+    import geosim.config.runspec
     (tmp_path / "wells.csv").write_text("well_id,x,y,k\nA,0,0,1\nB,50,20,2\n")
     spec = """
 [data]
@@ -272,10 +272,10 @@ realizations = 2
 seed = 1
 """
     (tmp_path / "good.toml").write_text(spec.format(kind="wave"))
-    geosim.io.runspec.load_spec(tmp_path / "good.toml")
+    geosim.config.runspec.load_spec(tmp_path / "good.toml")
     (tmp_path / "bad.toml").write_text(spec.format(kind="boxcar"))
     with pytest.raises(geosim.SpecError, match="boxcar"):
-        geosim.io.runspec.load_spec(tmp_path / "bad.toml")
+        geosim.config.runspec.load_spec(tmp_path / "bad.toml")
 
 
 def test_command_line_lists_plugins_and_survives_broken_ones(plugin):

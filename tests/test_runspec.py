@@ -1,4 +1,4 @@
-"""Run-spec reading and complete validation (geosim.io.runspec)."""
+"""Run-spec reading and complete validation (geosim.config.runspec)."""
 from __future__ import annotations
 
 import textwrap
@@ -6,7 +6,7 @@ import textwrap
 import pytest
 
 from geosim.errors import SpecError
-from geosim.io.runspec import EXECUTION_KEYS, load_spec, parse_overrides, spec_from_dict
+from geosim.config.runspec import EXECUTION_KEYS, load_spec, parse_overrides, spec_from_dict
 
 MINIMAL = """
 [data]
@@ -176,7 +176,7 @@ def test_spec_from_dict_validates_too(folder):
 
 
 def test_reference_lists_every_key_with_its_form():
-    from geosim.io.runspec import SCHEMA, reference
+    from geosim.config.runspec import SCHEMA, reference
     text = reference()
     for section, keys in SCHEMA.items():
         assert f"[{section}]" in text

@@ -20,7 +20,7 @@ are complete examples.
 Examples
 --------
 >>> import pathlib, tempfile
->>> import geosim.io.runspec
+>>> import geosim.config.runspec
 >>> folder = pathlib.Path(tempfile.mkdtemp())
 >>> _ = (folder / "wells.csv").write_text("well_id,x,y,k\\nA,0,0,1\\n")
 >>> _ = (folder / "run.toml").write_text('''
@@ -36,7 +36,7 @@ Examples
 ... realizations = 5
 ... seed = 42
 ... ''')
->>> spec = geosim.io.runspec.load_spec(folder / "run.toml")
+>>> spec = geosim.config.runspec.load_spec(folder / "run.toml")
 >>> spec["simulation.realizations"], spec["simulation.engine"]
 (5, 'sequential')
 >>> len(spec.sha256)
@@ -333,8 +333,8 @@ def reference() -> str:
 
     Examples
     --------
-    >>> import geosim.io.runspec
-    >>> print(geosim.io.runspec.reference().splitlines()[1])
+    >>> import geosim.config.runspec
+    >>> print(geosim.config.runspec.reference().splitlines()[1])
       title  non-empty text (default "")
     """
     lines = ["(top level)"]
