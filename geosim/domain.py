@@ -37,7 +37,7 @@ from shapely.geometry import MultiPolygon, Polygon
 from .crs import CrsLike, parse_crs
 from .errors import GeosimWarning, InputError
 
-__all__ = ["read_domain", "read_domain_raster"]
+__all__ = ["read_domain", "read_domain_raster", "below_surface"]
 
 _LONLAT = CRS.from_user_input("OGC:CRS84")  # RFC 7946 section 4: WGS 84, longitude then latitude
 # Lines between GeoJSON positions are straight in longitude/latitude (RFC 7946 section 3.1.1);
@@ -349,3 +349,34 @@ def _reproject(geom, source: CRS, target: CRS, path: str):
 def _name(crs: CRS) -> str:
     code = crs.to_epsg(min_confidence=90)
     return f"EPSG:{code}" if code else repr(crs.name)
+
+
+def below_surface(grid, points: np.ndarray, *, file: str | None = None) -> np.ndarray:
+    """Mask of the 3-D ``grid`` nodes below the surface through ``points`` (x, y, z).
+
+    The surface is linear between the points (Delaunay triangles) and takes the nearest
+    point's elevation outside their hull: a ground surface through drillhole collars.
+
+    Raises
+    ------
+    InputError
+        With fewer than three points, or points all in one line (no triangle to span
+        a surface); ``file`` names the run spec in the message.
+    """
+    from scipy.interpolate import LinearNDInterpolator, NearestNDInterpolator
+    xy = np.unique(np.asarray(points, dtype=float)[:, :2], axis=0)
+    spread = np.linalg.svd(xy - xy.mean(axis=0), compute_uv=False) if len(xy) >= 3 else np.zeros(2)
+    if len(xy) < 3 or spread[1] <= 1e-9 * spread[0]:
+        found = f"{len(xy)} collar position(s)" if len(xy) < 3 else f"{len(xy)} collars in one line"
+        raise InputError(f"the ground surface through the collars needs at least three collars that are not "
+                         f"in one line; found {found}", file=file, field="domain.below_collars",
+                         fix="set below_collars = false (and bound the grid with grid.z_range or a domain), "
+                             "or add the collars of more holes")
+    z, y, x = grid.axes()
+    xx, yy = np.meshgrid(x, y)
+    xy = np.column_stack([xx.ravel(), yy.ravel()])
+    top = LinearNDInterpolator(points[:, :2], points[:, 2])(xy)
+    outside = np.isnan(top)
+    if outside.any():
+        top[outside] = NearestNDInterpolator(points[:, :2], points[:, 2])(xy[outside])
+    return z[:, None, None] <= top.reshape(grid.ny, grid.nx)[None, :, :]

@@ -23,44 +23,30 @@ Steps, in the order :func:`run` calls them:
                             plots and the JSON run report
 ==========================  =========================================================
 
-Output folders
---------------
-A folder belongs to one run spec, and to one run at a time: every step that writes
-holds the folder's lock (:mod:`geosim.io.lock`), so a second concurrent run into
-it is refused.  Every step that writes (``out_dir=...``) first
-checks the folder is new, empty, or holds a run of the same spec, and then
-replaces its own earlier outputs there; ``overwrite=True`` takes over a folder
-holding another spec's run or other files.
-
-Resume
-------
-The output folder holds ``run-state/``: ``run.json`` (the spec's hashes, seed,
-input checksums) and one ``r#####.json`` record per finished realization, written
-atomically by the worker right after the realization's GeoTIFF.  A rerun with
-the same spec verifies each recorded file by SHA-256 and computes only the
-missing realizations; since realization ``i`` depends only on the seed and ``i``,
-the result equals an uninterrupted run.  The realization count, workers and
-cluster may change between runs (so a run can be extended); anything else makes
-the folder belong to another run, which is an error unless ``overwrite``.
+Where things live: the run state (who owns an output folder, what a rerun keeps)
+is :mod:`geosim.runstate`; the result classes and the descriptions the command
+line prints are :mod:`geosim.results`; the transform chain and the multi-Gaussian
+moments are in :mod:`geosim.transforms`; the realization writer is
+:mod:`geosim.ensemble`.  This module only wires the steps together.
 """
 from __future__ import annotations
 
-import json
 import math
 import os
-import shutil
 import time
 from collections.abc import Callable, Mapping, Sequence
-from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
 
 import numpy as np
 
+from .config.runspec import RunSpec, load_spec
 from .errors import InputError
-from .io.atomic import atomic_output
-from .config.runspec import RunSpec, canonical_json, load_spec
-from .io.lock import LOCK_NAME
+from .results import (CrossValidation, EstimateResult, PreparedData, RunResult, SimulationResult, VariogramResult,
+                      describe_data, describe_spec)
+from .runstate import (STATE_DIR, RecordingSink, claim_folder, completed_realizations, make_folder, open_output,
+                       read_header, resume_key, with_folder_lock)
+from .transforms import TransformChain, multigaussian_moments
 
 Progress = Callable[[int, int, str], None]
 
@@ -71,97 +57,11 @@ __all__ = ["PreparedData", "VariogramResult", "CrossValidation", "EstimateResult
            "run", "decision_spread", "provenance_tags", "open_output", "completed_realizations", "resume_key",
            "describe_spec", "describe_data", "STATE_DIR"]
 
-STATE_DIR = "run-state"
 # a guard against a mistyped cell size (one realization of 2e8 float64 nodes is 1.6 GB)
 MAX_NODES = 200_000_000
-_STATE_FORMAT = 1
-# keys a resumed run may change: realization i depends only on the seed and i
-_RESUMABLE_CHANGES = ("simulation.realizations",)
 
 
 # -- data -------------------------------------------------------------------------------------
-
-class TransformChain:
-    """Transforms applied in order (e.g. log10, then normal scores), inverted in reverse.
-
-    Has the transform interface of :mod:`geosim.transforms` (``fit``, ``transform``,
-    ``inverse``, ``describe``, ``to_dict``) and is picklable, so its ``inverse`` can
-    run in simulation workers.
-
-    Examples
-    --------
-    >>> import numpy as np
-    >>> import geosim
-    >>> from geosim.pipeline import TransformChain
-    >>> t = TransformChain([geosim.LogTransform(), geosim.NormalScoreTransform()])
-    >>> k = np.array([1e-5, 1e-4, 1e-3, 1e-2])
-    >>> np.allclose(t.inverse(t.fit(k).transform(k)), k)
-    True
-    """
-
-    kind = "chain"
-
-    def __init__(self, steps: Sequence[Any]):
-        self.steps = list(steps)
-
-    def fit(self, values, weights=None) -> TransformChain:
-        """Fit every step in turn; ``data_scores_`` keeps the data's scores in input order.
-
-        The last step's own ``fit_transform`` gives tied data distinct scores (the
-        normal score transform's seeded tie order), where :meth:`transform` maps a
-        tie to its mean score; fitting, conditioning and validation use ``data_scores_``.
-        """
-        v = np.asarray(values, dtype=float)
-        for step in self.steps[:-1]:
-            v = step.fit(v, weights).transform(v)
-        last = self.steps[-1]
-        v = last.fit_transform(v, weights) if hasattr(last, "fit_transform") else last.fit(v, weights).transform(v)
-        self.data_scores_ = np.asarray(v, dtype=float)
-        return self
-
-    def fit_transform(self, values, weights=None) -> np.ndarray:
-        """Fit, then return the data's scores in input order (ties distinct)."""
-        return self.fit(values, weights).data_scores_.copy()
-
-    def transform(self, values) -> np.ndarray:
-        v = np.asarray(values, dtype=float)
-        for step in self.steps:
-            v = step.transform(v)
-        return v
-
-    def inverse(self, scores) -> np.ndarray:
-        v = np.asarray(scores, dtype=float)
-        for step in reversed(self.steps):
-            v = step.inverse(v)
-        return v
-
-    def describe(self) -> str:
-        return " then ".join(step.describe() for step in self.steps)
-
-    def to_dict(self) -> dict:
-        return {"kind": "chain", "steps": [step.to_dict() for step in self.steps]}
-
-
-@dataclass
-class PreparedData:
-    """Samples ready for modelling: coordinates in metres, weights, transform and scores."""
-
-    samples: Any                 # geosim.points.PointSet
-    values: np.ndarray           # (n,) the modelled variable, data units
-    weights: np.ndarray | None   # declustering weights summing to 1, or None
-    declustering: Any            # the declustering result (with its scan), or None
-    transform: Any               # fitted transform, data units -> normal scores
-    scores: np.ndarray           # (n,) normal scores of the samples (ties distinct)
-    notes: list[str] = field(default_factory=list)
-
-    @property
-    def coords(self) -> np.ndarray:
-        return self.samples.coords
-
-    @property
-    def crs(self):
-        return self.samples.crs
-
 
 def load_samples(spec: RunSpec):
     """Read the samples the spec names, in metres of a projected CRS.
@@ -194,37 +94,6 @@ def read_holes(spec: RunSpec):
                            None if d["surveys"] is None else spec.resolve(d["surveys"]),
                            spec.resolve(d["intervals"]), values=d["value"], crs=d["crs"], target_crs=target,
                            columns=d["columns"] or None)
-
-
-def below_surface(grid, points: np.ndarray, *, file: str | None = None) -> np.ndarray:
-    """Mask of the 3-D ``grid`` nodes below the surface through ``points`` (x, y, z).
-
-    The surface is linear between the points (Delaunay triangles) and takes the nearest
-    point's elevation outside their hull: a ground surface through drillhole collars.
-
-    Raises
-    ------
-    InputError
-        With fewer than three points, or points all in one line (no triangle to span
-        a surface); ``file`` names the run spec in the message.
-    """
-    from scipy.interpolate import LinearNDInterpolator, NearestNDInterpolator
-    xy = np.unique(np.asarray(points, dtype=float)[:, :2], axis=0)
-    spread = np.linalg.svd(xy - xy.mean(axis=0), compute_uv=False) if len(xy) >= 3 else np.zeros(2)
-    if len(xy) < 3 or spread[1] <= 1e-9 * spread[0]:
-        found = f"{len(xy)} collar position(s)" if len(xy) < 3 else f"{len(xy)} collars in one line"
-        raise InputError(f"the ground surface through the collars needs at least three collars that are not "
-                         f"in one line; found {found}", file=file, field="domain.below_collars",
-                         fix="set below_collars = false (and bound the grid with grid.z_range or a domain), "
-                             "or add the collars of more holes")
-    z, y, x = grid.axes()
-    xx, yy = np.meshgrid(x, y)
-    xy = np.column_stack([xx.ravel(), yy.ravel()])
-    top = LinearNDInterpolator(points[:, :2], points[:, 2])(xy)
-    outside = np.isnan(top)
-    if outside.any():
-        top[outside] = NearestNDInterpolator(points[:, :2], points[:, 2])(xy[outside])
-    return z[:, None, None] <= top.reshape(grid.ny, grid.nx)[None, :, :]
 
 
 def decluster(spec: RunSpec, samples, progress: Progress | None = None):
@@ -329,6 +198,7 @@ def make_grid(spec: RunSpec, data: PreparedData | None = None):
         mask = read_domain_raster(spec.resolve(spec["domain.raster"]), grid)
         grid = grid.with_mask(grid.mask & np.broadcast_to(mask, grid.shape))
     if spec["domain.below_collars"] and grid.ndim == 3:
+        from .domain import below_surface
         grid = grid.with_mask(grid.mask & below_surface(grid, read_holes(spec).collars, file=spec.name))
     if grid.n_active == 0:
         raise InputError("no grid node falls inside the domain", file=spec.name, field="domain",
@@ -352,50 +222,7 @@ def _relabel(progress: Progress | None, label: str) -> Progress | None:
     return lambda done, total, what: progress(done, total, label)
 
 
-def _locked(step):
-    """Hold the output folder's lock (:mod:`geosim.io.lock`) while ``step`` writes into its
-    ``out_dir``: one run per folder."""
-    import functools
-    import inspect
-    signature = inspect.signature(step)
-
-    @functools.wraps(step)
-    def locked(*args, **kwargs):
-        out_dir = signature.bind(*args, **kwargs).arguments.get("out_dir")
-        if out_dir is None:
-            return step(*args, **kwargs)
-        from .io.lock import folder_lock
-        with folder_lock(out_dir):
-            return step(*args, **kwargs)
-    return locked
-
-
-def _folder(out_dir) -> Path:
-    out_dir = Path(out_dir)
-    out_dir.mkdir(parents=True, exist_ok=True)
-    return out_dir
-
-
-def _claim(spec: RunSpec, out_dir, overwrite: bool) -> Path:
-    """Create ``out_dir`` and check it belongs to this spec (see :func:`open_output`); the
-    step may then replace its own earlier outputs there."""
-    out_dir = _folder(out_dir)
-    open_output(spec, out_dir, overwrite=overwrite, resume=True)
-    return out_dir
-
-
 # -- variogram ---------------------------------------------------------------------------------
-
-@dataclass
-class VariogramResult:
-    """The model used; when it was fitted, the experimental variograms and the fit; files written."""
-
-    model: Any
-    experimental: list = field(default_factory=list)
-    fit: Any = None
-    source: str = ""
-    files: dict[str, list[str]] = field(default_factory=dict)
-
 
 def _structures_model(spec: RunSpec):
     from .plugins import structures as registered
@@ -437,7 +264,7 @@ def experimental_variograms(spec: RunSpec, data: PreparedData, progress: Progres
                                   progress=progress)
 
 
-@_locked
+@with_folder_lock
 def variogram_model(spec: RunSpec, data: PreparedData | None = None, *, out_dir: str | os.PathLike | None = None,
                     overwrite: bool = False, progress: Progress | None = None) -> VariogramResult:
     """The covariance model of the normal scores: from a model file, from the spec's
@@ -469,7 +296,7 @@ def variogram_model(spec: RunSpec, data: PreparedData | None = None, *, out_dir:
         result = VariogramResult(fit.model_, experimental, fit, source="fitted")
     if out_dir is not None:
         from .variogram.modelfile import save_model
-        out_dir = _claim(spec, out_dir, overwrite)
+        out_dir = claim_folder(spec, out_dir, overwrite)
         result.files["model"] = [str(save_model(result.model, out_dir / "variogram_model.toml", overwrite=True))]
         if result.experimental and spec["outputs.plots"]:
             from .variogram.plots import plot_variogram
@@ -485,16 +312,7 @@ def _model(spec: RunSpec, data: PreparedData | None, model, progress):
 
 # -- kriging -----------------------------------------------------------------------------------
 
-@dataclass
-class CrossValidation:
-    """Leave-one-out result (:class:`geosim.kriging.CrossValidationResult`), its summary and files."""
-
-    result: Any
-    summary: dict
-    files: dict[str, list[str]] = field(default_factory=dict)
-
-
-@_locked
+@with_folder_lock
 def cross_validate(spec: RunSpec, data: PreparedData | None = None, model=None, *,
                    out_dir: str | os.PathLike | None = None, overwrite: bool = False,
                    progress: Progress | None = None) -> CrossValidation:
@@ -514,7 +332,7 @@ def cross_validate(spec: RunSpec, data: PreparedData | None = None, model=None, 
     cv = CrossValidation(result, result.summary())
     if out_dir is not None:
         from .io.crossval import plot_crossval, write_crossval_csv
-        out_dir = _claim(spec, out_dir, overwrite)
+        out_dir = claim_folder(spec, out_dir, overwrite)
         cv.files["cross_validation"] = [str(write_crossval_csv(
             result, out_dir / "cross_validation.csv", overwrite=True, units="normal score",
             provenance=provenance_tags(spec, data, model)))]
@@ -524,59 +342,7 @@ def cross_validate(spec: RunSpec, data: PreparedData | None = None, model=None, 
     return cv
 
 
-@dataclass
-class EstimateResult:
-    """Kriging maps on the grid (NaN outside the domain or where too few samples were found).
-
-    ``scores_mean`` and ``scores_variance`` are the kriged normal score and its kriging
-    variance; ``mean`` and ``variance`` are the conditional mean and variance in data
-    units under the multi-Gaussian model (Verly 1983, "The multigaussian approach and
-    its applications to the estimation of local reserves", Mathematical Geology 15(2)):
-    the moments of T^-1(Y) with Y ~ N(kriged score, kriging variance), T the transform.
-    """
-
-    scores_mean: np.ndarray
-    scores_variance: np.ndarray
-    mean: np.ndarray
-    variance: np.ndarray
-    files: dict[str, list[str]] = field(default_factory=dict)
-
-
-def multigaussian_moments(transform, mean: np.ndarray, variance: np.ndarray,
-                          points: int = 24) -> tuple[np.ndarray, np.ndarray]:
-    """Mean and variance of ``transform.inverse(Y)`` for ``Y ~ N(mean, variance)``, elementwise.
-
-    Gauss-Hermite quadrature with ``points`` nodes (probabilists' form,
-    ``numpy.polynomial.hermite_e.hermegauss``).  NaN in, NaN out.
-
-    Examples
-    --------
-    >>> import numpy as np
-    >>> from geosim.pipeline import multigaussian_moments
-    >>> class Exp:  # log-normal: E[exp(Y)] = exp(m + v/2), Var = (e^v - 1) e^(2m + v)
-    ...     inverse = staticmethod(np.exp)
-    >>> m, v = multigaussian_moments(Exp, np.array([0.0]), np.array([1.0]))
-    >>> bool(np.isclose(m[0], np.exp(0.5)) and np.isclose(v[0], (np.e - 1) * np.e))
-    True
-    """
-    from numpy.polynomial.hermite_e import hermegauss
-    z, w = hermegauss(points)
-    w = w / w.sum()
-    mean = np.asarray(mean, dtype=float)
-    sd = np.sqrt(np.maximum(np.asarray(variance, dtype=float), 0.0))
-    out_mean = np.full(mean.shape, np.nan)
-    out_var = np.full(mean.shape, np.nan)
-    ok = np.isfinite(mean) & np.isfinite(sd)
-    if ok.any():
-        y = mean[ok][:, None] + sd[ok][:, None] * z[None, :]
-        v = np.asarray(transform.inverse(y.ravel()), dtype=float).reshape(y.shape)
-        m1 = v @ w
-        out_mean[ok] = m1
-        out_var[ok] = np.maximum((v - m1[:, None]) ** 2 @ w, 0.0)
-    return out_mean, out_var
-
-
-@_locked
+@with_folder_lock
 def estimate(spec: RunSpec, data: PreparedData | None = None, model=None, grid=None, *,
              out_dir: str | os.PathLike | None = None, overwrite: bool = False,
              progress: Progress | None = None) -> EstimateResult:
@@ -606,147 +372,13 @@ def estimate(spec: RunSpec, data: PreparedData | None = None, model=None, grid=N
         bands = np.stack([est.mean, np.sqrt(est.variance), est.scores_mean, est.scores_variance])
         descriptions = [(f"conditional mean{u}", units), (f"conditional standard deviation{u}", units),
                         ("kriged normal score", ""), ("kriging variance of the normal score", "")]
-        written = write_raster(_claim(spec, out_dir, overwrite) / "estimate.tif", bands, grid,
+        written = write_raster(claim_folder(spec, out_dir, overwrite) / "estimate.tif", bands, grid,
                                descriptions=descriptions, tags=provenance_tags(spec, data, model), overwrite=True)
         est.files["estimate"] = [str(p) for p in written]
     return est
 
 
-# -- resume state ----------------------------------------------------------------------------
-
-def resume_key(spec: RunSpec) -> str:
-    """SHA-256 of the spec without the keys a resumed run may change (the realization count)."""
-    import hashlib
-    values = spec.to_dict()
-    for dotted in _RESUMABLE_CHANGES:
-        section, key = dotted.split(".")
-        values[section].pop(key, None)
-    return hashlib.sha256(canonical_json(values).encode()).hexdigest()
-
-
-def _input_checksums(spec: RunSpec) -> dict[str, str]:
-    from .io.report import file_sha256
-    return {key: file_sha256(path) for key, path in spec.input_files().items()}
-
-
-def _write_json(path: Path, payload: Mapping, overwrite: bool = True) -> None:
-    with atomic_output(path, overwrite=overwrite) as tmp:
-        tmp.write_text(json.dumps(payload, indent=1, default=_plain))  # key order matters for figures
-
-
-def _plain(obj):
-    if isinstance(obj, np.generic):
-        return obj.item()
-    if isinstance(obj, np.ndarray):
-        return obj.tolist()
-    if isinstance(obj, Path):
-        return str(obj)
-    raise TypeError(f"cannot write {type(obj).__name__} to JSON")
-
-
-def _differences(old: Mapping, new: Mapping) -> list[str]:
-    keys = sorted(set(old) | set(new))
-    return [k for k in keys if old.get(k) != new.get(k)]
-
-
-def open_output(spec: RunSpec, out_dir: Path, *, overwrite: bool, resume: bool) -> dict:
-    """Check the output folder belongs to this run (or is new); return the run-state header."""
-    state_dir = out_dir / STATE_DIR
-    header = {"format": _STATE_FORMAT, "spec_sha256": spec.sha256, "resume_key": resume_key(spec),
-              "seed": spec["simulation.seed"], "inputs": _input_checksums(spec),
-              "spec": json.loads(canonical_json(spec.values))}
-    state_file = state_dir / "run.json"
-    if state_file.is_file():
-        old = _read_header(out_dir) or {}
-        same = (old.get("format") == _STATE_FORMAT and old.get("resume_key") == header["resume_key"]
-                and old.get("seed") == header["seed"] and old.get("inputs") == header["inputs"])
-        if not same and not overwrite:
-            what = []
-            if old.get("inputs") != header["inputs"]:
-                what.append("input files " + ", ".join(_differences(old.get("inputs", {}), header["inputs"])))
-            changed = _differences(old.get("spec", {}), header["spec"])
-            if changed:
-                what.append("spec sections [" + "], [".join(changed) + "]")
-            raise InputError("the output folder holds a run of a different spec or different inputs"
-                             + (f" (changed: {'; '.join(what)})" if what else ""), file=str(out_dir),
-                             fix="choose another --out folder, or pass --overwrite to replace that run")
-        if not same or not resume:
-            # the folder is this run's to replace: forget the old records and realization files
-            shutil.rmtree(state_dir)
-            shutil.rmtree(out_dir / "realizations", ignore_errors=True)
-    elif out_dir.is_dir() and any(p.name != LOCK_NAME for p in out_dir.iterdir()) and not overwrite:
-        raise InputError("the output folder is not empty and holds no geosim run state", file=str(out_dir),
-                         fix="choose a new or empty --out folder, or pass --overwrite")
-    state_dir.mkdir(parents=True, exist_ok=True)
-    _sweep_temporaries(out_dir)
-    _write_json(state_file, header)
-    return header
-
-
-def _sweep_temporaries(out_dir: Path) -> None:
-    """Remove the hidden temporary files a killed run may have left (atomic writes that
-    never reached their rename); finished files are never touched."""
-    for folder in (out_dir, out_dir / "realizations", out_dir / STATE_DIR):
-        for pattern in (".*.partial*", ".*.stage.tif"):
-            for path in folder.glob(pattern):
-                path.unlink(missing_ok=True)
-
-
-def _read_header(out_dir: Path) -> dict | None:
-    try:
-        return json.loads((out_dir / STATE_DIR / "run.json").read_text())
-    except (OSError, ValueError):
-        return None
-
-
-def completed_realizations(out_dir: Path, header: Mapping, n_realizations: int) -> dict[int, dict]:
-    """Records of realizations already written by an earlier run of this spec, verified by checksum."""
-    from .io.geotiff import verify_realization
-    kept = {}
-    for path in sorted((out_dir / STATE_DIR).glob("r[0-9]*.json")):
-        try:
-            rec = json.loads(path.read_text())
-        except (OSError, ValueError):
-            continue
-        index = rec.get("index")
-        if (not isinstance(index, int) or index >= n_realizations or rec.get("resume_key") != header["resume_key"]
-                or rec.get("seed") != header["seed"]):
-            continue
-        record = rec.get("record", {})
-        files = record.get("files", [])
-        if files and all(verify_realization(out_dir / f, sha) for f, sha in zip(files, record.get("sha256", []))):
-            kept[index] = record
-    return kept
-
-
-class RecordingSink:
-    """Picklable sink: runs the writer in the worker, then records the result atomically
-    in ``run-state/`` so an interrupted run can keep it."""
-
-    def __init__(self, writer, state_dir: str | os.PathLike, resume_key: str, seed: int):
-        self.writer = writer
-        self.state_dir = Path(state_dir)
-        self.resume_key = resume_key
-        self.seed = seed
-
-    def __call__(self, index: int, field: np.ndarray) -> dict:
-        record = self.writer(index, field)
-        _write_json(self.state_dir / f"r{int(index):05d}.json",
-                    {"index": int(index), "resume_key": self.resume_key, "seed": self.seed, "record": record})
-        return record
-
-
 # -- simulation --------------------------------------------------------------------------------
-
-@dataclass
-class SimulationResult:
-    """Records of every realization in index order, and which were kept from an earlier run."""
-
-    records: list
-    kept: list[int]
-    computed: list[int]
-    writer: Any
-
 
 def _inputs(spec: RunSpec) -> dict[str, str]:
     """{input file path: SHA-256} for provenance."""
@@ -816,7 +448,7 @@ def _writer(spec: RunSpec, data: PreparedData, model, grid, out_dir: Path):
                              measure=_checks(data, model, grid), metal_unit=metal_unit(spec), overwrite=True)
 
 
-@_locked
+@with_folder_lock
 def simulate(spec: RunSpec, data: PreparedData | None = None, model=None, grid=None, *,
              out_dir: str | os.PathLike, overwrite: bool = False, resume: bool = True,
              progress: Progress | None = None) -> SimulationResult:
@@ -841,7 +473,7 @@ def simulate(spec: RunSpec, data: PreparedData | None = None, model=None, grid=N
     data = data if data is not None else prepare_data(spec, progress)
     model = _model(spec, data, model, progress)
     grid = grid if grid is not None else make_grid(spec, data)
-    out_dir = _folder(out_dir)
+    out_dir = make_folder(out_dir)
     header = open_output(spec, out_dir, overwrite=overwrite, resume=resume)
     n = spec["simulation.realizations"]
     kept = completed_realizations(out_dir, header, n) if resume else {}
@@ -865,7 +497,7 @@ def simulate(spec: RunSpec, data: PreparedData | None = None, model=None, grid=N
 
 # -- summaries and report -----------------------------------------------------------------------
 
-@_locked
+@with_folder_lock
 def summarize(spec: RunSpec, out_dir: str | os.PathLike, *, data: PreparedData | None = None, model=None,
               grid=None, simulation: SimulationResult | None = None, extra: Mapping[str, Any] | None = None,
               progress: Progress | None = None) -> dict[str, list[str]]:
@@ -883,7 +515,7 @@ def summarize(spec: RunSpec, out_dir: str | os.PathLike, *, data: PreparedData |
     grid = grid if grid is not None else make_grid(spec, data)
     n = spec["simulation.realizations"]
     if simulation is None:
-        header = _read_header(out_dir)
+        header = read_header(out_dir)
         if header is None or header.get("resume_key") != resume_key(spec):
             raise InputError("the folder holds no realizations of this run spec", file=str(out_dir),
                              fix="run `geosim simulate` (or `geosim run`) with this spec and folder first")
@@ -960,23 +592,7 @@ def _summary_plots(spec: RunSpec, data: PreparedData, model, grid, out_dir: Path
 
 # -- the whole job -----------------------------------------------------------------------------
 
-@dataclass
-class RunResult:
-    """What :func:`run` did and wrote."""
-
-    out_dir: Path
-    spec_sha256: str
-    files: dict[str, list[str]]
-    model: Any
-    kept: list[int]
-    computed: list[int]
-    crossval: dict | None
-    decision: list[dict]
-    timings: dict[str, float]
-    notes: list[str]
-
-
-@_locked
+@with_folder_lock
 def run(spec: RunSpec | str | os.PathLike, out_dir: str | os.PathLike, *, overwrite: bool = False,
         resume: bool = True, progress: Progress | None = None) -> RunResult:
     """Run the whole job of a run spec into ``out_dir``.
@@ -1014,7 +630,7 @@ def run(spec: RunSpec | str | os.PathLike, out_dir: str | os.PathLike, *, overwr
     data = timed("read and transform data", prepare_data, spec, progress)
     grid = timed("grid and domain", make_grid, spec, data)
     # claim the folder (or fail on another run's) before anything is written into it
-    open_output(spec, _folder(out_dir), overwrite=overwrite, resume=resume)
+    open_output(spec, make_folder(out_dir), overwrite=overwrite, resume=resume)
     mine = dict(out_dir=out_dir, progress=progress)
     vg = timed("variogram", variogram_model, spec, data, **mine)
     files = dict(vg.files)
@@ -1058,33 +674,3 @@ def decision_spread(simulation: SimulationResult) -> list[dict]:
     return spread(figures) if figures and all(f is not None for f in figures) else []
 
 
-# -- descriptions for the command line ---------------------------------------------------------
-
-def describe_spec(spec: RunSpec) -> list[tuple[str, str]]:
-    """Short (label, text) rows saying what the spec will do."""
-    d, g, s = spec["data"], spec["grid"], spec["simulation"]
-    if d["points"] is not None:
-        source = f"points {d['points']} ({d['value']}, {d['crs']})"
-    else:
-        source = f"drillholes {d['collars']}, {d['intervals']} ({d['value']}, {d['crs']})"
-    vg = spec["variogram"]
-    variogram = ("fit to experimental variograms" if vg["fit"] else "fixed") + (
-        f", from {vg['model_file']}" if vg["model_file"] else "")
-    where = s["cluster"] or (f"{s['workers']} worker(s)" if s["workers"] else "all local cores")
-    return [("data", source), ("variogram", variogram),
-            ("grid cell", " x ".join(f"{c:g}" for c in g["cell"]) + " m"),
-            ("simulation", f"{s['realizations']} realization(s), {s['engine']} engine, seed {s['seed']}, "
-                           f"on {where}")]
-
-
-def describe_data(data: PreparedData) -> list[tuple[str, str]]:
-    """Short (label, text) rows describing prepared samples."""
-    v = data.values
-    rows = [("samples", f"{len(v)} in {data.coords.shape[1]}-D"),
-            ("CRS", data.crs.name if data.crs is not None else "local metres"),
-            ("values", f"min {v.min():.4g}, mean {v.mean():.4g}, max {v.max():.4g}")]
-    if data.weights is not None:
-        rows.append(("declustered mean", f"{float(np.sum(data.weights * v) / np.sum(data.weights)):.4g}"))
-    rows.append(("transform", data.transform.describe()))
-    rows += [("note", n) for n in data.notes]
-    return rows

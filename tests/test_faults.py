@@ -20,7 +20,7 @@ import pytest
 
 import geosim
 import geosim.io.geotiff
-import geosim.io.runspec
+import geosim.config.runspec
 import geosim.pipeline
 from geosim.errors import GeosimWarning, InputError, ResourceError
 from geosim.grid import Grid
@@ -263,7 +263,7 @@ def test_workers_exit_when_the_main_process_is_killed(tmp_path):
 
 def test_source_date_epoch_gives_byte_identical_rasters(tmp_path, monkeypatch):
     monkeypatch.setenv("SOURCE_DATE_EPOCH", "1767225600")  # 2026-01-01T00:00:00Z
-    spec = geosim.io.runspec.load_spec(AQUIFER, {"grid.cell": [200.0, 200.0], "simulation.realizations": 2,
+    spec = geosim.config.runspec.load_spec(AQUIFER, {"grid.cell": [200.0, 200.0], "simulation.realizations": 2,
                                                  "simulation.workers": 1})
     with warnings.catch_warnings():
         warnings.simplefilter("ignore", GeosimWarning)
@@ -292,5 +292,5 @@ def test_lock_file_does_not_make_a_folder_foreign(tmp_path):
     out = tmp_path / "run"
     out.mkdir()
     (out / LOCK_NAME).write_text("")
-    spec = geosim.io.runspec.load_spec(AQUIFER)
+    spec = geosim.config.runspec.load_spec(AQUIFER)
     geosim.pipeline.open_output(spec, out, overwrite=False, resume=True)

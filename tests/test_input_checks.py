@@ -9,7 +9,7 @@ import numpy as np
 import pytest
 
 import geosim
-import geosim.io.runspec
+import geosim.config.runspec
 import geosim.pipeline
 from geosim.errors import InputError, SpecError
 
@@ -34,13 +34,13 @@ def test_documented_column_mapping_reads_renamed_tables(tmp_path):
     # the form the spec reference documents: default name -> name in the files, for every
     # table; plus one table's own rename where the role (depth) is in two tables
     columns = {"hole_id": "HOLE", "from": "FROM_M", "to": "TO_M", "collar": {"depth": "EOH"}}
-    renamed = geosim.pipeline.load_samples(geosim.io.runspec.load_spec(spec_path, {"data.columns": columns}))
-    plain = geosim.pipeline.load_samples(geosim.io.runspec.load_spec(ORE / "run.toml"))
+    renamed = geosim.pipeline.load_samples(geosim.config.runspec.load_spec(spec_path, {"data.columns": columns}))
+    plain = geosim.pipeline.load_samples(geosim.config.runspec.load_spec(ORE / "run.toml"))
     np.testing.assert_array_equal(renamed.coords, plain.coords)
     np.testing.assert_array_equal(renamed.values, plain.values)
     # without the mapping the renamed file is refused naming the file and the column
     with pytest.raises(InputError, match="hole_id") as err:
-        geosim.pipeline.load_samples(geosim.io.runspec.load_spec(spec_path))
+        geosim.pipeline.load_samples(geosim.config.runspec.load_spec(spec_path))
     assert err.value.file.endswith("collars.csv")
 
 
@@ -49,7 +49,7 @@ def test_documented_column_mapping_reads_renamed_tables(tmp_path):
                                            ({"survey": {"from": "F"}}, "survey table has no column role 'from'")])
 def test_bad_column_mapping_is_a_spec_problem(columns, said):
     with pytest.raises(SpecError) as err:
-        geosim.io.runspec.load_spec(ORE / "run.toml", {"data.columns": columns})
+        geosim.config.runspec.load_spec(ORE / "run.toml", {"data.columns": columns})
     assert len(err.value.problems) == 1
     assert err.value.problems[0].startswith("data.columns:") and said in err.value.problems[0]
 
@@ -74,7 +74,7 @@ def _ore_holes(folder: Path, holes: int, in_line: bool = False) -> Path:
 @pytest.mark.parametrize("holes, in_line, said", [(2, False, "found 2 collar position(s)"),
                                                   (4, True, "found 4 collars in one line")])
 def test_below_collars_needs_three_collars_not_in_a_line(tmp_path, holes, in_line, said):
-    spec = geosim.io.runspec.load_spec(_ore_holes(tmp_path, holes, in_line),
+    spec = geosim.config.runspec.load_spec(_ore_holes(tmp_path, holes, in_line),
                                        {"domain.below_collars": True, "domain.polygon": None,
                                         "grid.cell": [40.0, 40.0, 20.0]})
     data = geosim.pipeline.prepare_data(spec)

@@ -4,7 +4,7 @@ from __future__ import annotations
 import numpy as np
 
 import geosim.pipeline as pipeline
-from geosim.io.runspec import load_spec
+from geosim.config.runspec import load_spec
 
 
 def spike_spec(tmp_path, n=2000, spike=0.6, seed=5):

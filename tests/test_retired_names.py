@@ -12,7 +12,7 @@ import pytest
 
 import geosim
 from geosim.errors import GeosimWarning, RetiredNameWarning, SpecError
-from geosim.io.runspec import SCHEMA, TOP_LEVEL, spec_from_dict
+from geosim.config.runspec import SCHEMA, TOP_LEVEL, spec_from_dict
 from geosim.retired import (RETIRED_KEYWORD_VALUES, RETIRED_KEYWORDS, RETIRED_SPEC_KEYS,
                             RETIRED_SPEC_VALUES)
 

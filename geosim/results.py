@@ -1,0 +1,133 @@
+"""What the steps of :mod:`geosim.pipeline` return, and short descriptions of a spec and its data.
+
+Plain containers: each step's result holds what it computed and the files it
+wrote (``files``: output kind -> paths).  :func:`describe_spec` and
+:func:`describe_data` give the (label, text) rows the command line prints.
+"""
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+
+from .config.runspec import RunSpec
+
+__all__ = ["PreparedData", "VariogramResult", "CrossValidation", "EstimateResult", "SimulationResult",
+           "RunResult", "describe_spec", "describe_data"]
+
+
+@dataclass
+class PreparedData:
+    """Samples ready for modelling: coordinates in metres, weights, transform and scores."""
+
+    samples: Any                 # geosim.points.PointSet
+    values: np.ndarray           # (n,) the modelled variable, data units
+    weights: np.ndarray | None   # declustering weights summing to 1, or None
+    declustering: Any            # the declustering result (with its scan), or None
+    transform: Any               # fitted transform, data units -> normal scores
+    scores: np.ndarray           # (n,) normal scores of the samples (ties distinct)
+    notes: list[str] = field(default_factory=list)
+
+    @property
+    def coords(self) -> np.ndarray:
+        return self.samples.coords
+
+    @property
+    def crs(self):
+        return self.samples.crs
+
+
+@dataclass
+class VariogramResult:
+    """The model used; when it was fitted, the experimental variograms and the fit; files written."""
+
+    model: Any
+    experimental: list = field(default_factory=list)
+    fit: Any = None
+    source: str = ""
+    files: dict[str, list[str]] = field(default_factory=dict)
+
+
+@dataclass
+class CrossValidation:
+    """Leave-one-out result (:class:`geosim.kriging.CrossValidationResult`), its summary and files."""
+
+    result: Any
+    summary: dict
+    files: dict[str, list[str]] = field(default_factory=dict)
+
+
+@dataclass
+class EstimateResult:
+    """Kriging maps on the grid (NaN outside the domain or where too few samples were found).
+
+    ``scores_mean`` and ``scores_variance`` are the kriged normal score and its kriging
+    variance; ``mean`` and ``variance`` are the conditional mean and variance in data
+    units under the multi-Gaussian model (Verly 1983, "The multigaussian approach and
+    its applications to the estimation of local reserves", Mathematical Geology 15(2)):
+    the moments of T^-1(Y) with Y ~ N(kriged score, kriging variance), T the transform.
+    """
+
+    scores_mean: np.ndarray
+    scores_variance: np.ndarray
+    mean: np.ndarray
+    variance: np.ndarray
+    files: dict[str, list[str]] = field(default_factory=dict)
+
+
+@dataclass
+class SimulationResult:
+    """Records of every realization in index order, and which were kept from an earlier run."""
+
+    records: list
+    kept: list[int]
+    computed: list[int]
+    writer: Any
+
+
+@dataclass
+class RunResult:
+    """What :func:`run` did and wrote."""
+
+    out_dir: Path
+    spec_sha256: str
+    files: dict[str, list[str]]
+    model: Any
+    kept: list[int]
+    computed: list[int]
+    crossval: dict | None
+    decision: list[dict]
+    timings: dict[str, float]
+    notes: list[str]
+
+
+def describe_spec(spec: RunSpec) -> list[tuple[str, str]]:
+    """Short (label, text) rows saying what the spec will do."""
+    d, g, s = spec["data"], spec["grid"], spec["simulation"]
+    if d["points"] is not None:
+        source = f"points {d['points']} ({d['value']}, {d['crs']})"
+    else:
+        source = f"drillholes {d['collars']}, {d['intervals']} ({d['value']}, {d['crs']})"
+    vg = spec["variogram"]
+    variogram = ("fit to experimental variograms" if vg["fit"] else "fixed") + (
+        f", from {vg['model_file']}" if vg["model_file"] else "")
+    where = s["cluster"] or (f"{s['workers']} worker(s)" if s["workers"] else "all local cores")
+    return [("data", source), ("variogram", variogram),
+            ("grid cell", " x ".join(f"{c:g}" for c in g["cell"]) + " m"),
+            ("simulation", f"{s['realizations']} realization(s), {s['engine']} engine, seed {s['seed']}, "
+                           f"on {where}")]
+
+
+def describe_data(data: PreparedData) -> list[tuple[str, str]]:
+    """Short (label, text) rows describing prepared samples."""
+    v = data.values
+    rows = [("samples", f"{len(v)} in {data.coords.shape[1]}-D"),
+            ("CRS", data.crs.name if data.crs is not None else "local metres"),
+            ("values", f"min {v.min():.4g}, mean {v.mean():.4g}, max {v.max():.4g}")]
+    if data.weights is not None:
+        rows.append(("declustered mean", f"{float(np.sum(data.weights * v) / np.sum(data.weights)):.4g}"))
+    rows.append(("transform", data.transform.describe()))
+    rows += [("note", n) for n in data.notes]
+    return rows
