@@ -66,9 +66,9 @@ def test_2d_data_do_not_depend_on_the_vertical_window():
 
 
 def test_spec_sets_the_windows_separately_and_keeps_the_3d_defaults(tmp_path):
-    import geosim.io.runspec
+    import geosim.config.runspec
     import geosim.pipeline
-    spec = geosim.io.runspec.load_spec(ORE)
+    spec = geosim.config.runspec.load_spec(ORE)
     data = geosim.pipeline.prepare_data(spec)
     evs = geosim.pipeline.experimental_variograms(spec, data)
     flat, across, steep = (ev.direction for ev in evs)
@@ -76,7 +76,7 @@ def test_spec_sets_the_windows_separately_and_keeps_the_3d_defaults(tmp_path):
             flat.vertical_max_offset) == (22.5, 5.0, 30.0, math.inf)
     assert across.vertical_half_angle == 5.0
     assert (steep.horizontal_half_angle, steep.vertical_half_angle, steep.vertical_max_offset) == (22.5, 22.5, 20.0)
-    shared = geosim.io.runspec.load_spec(ORE, overrides={"variogram.directions": [
+    shared = geosim.config.runspec.load_spec(ORE, overrides={"variogram.directions": [
         {"azimuth": 60.0, "horizontal_half_angle": 22.5, "vertical_half_angle": 22.5,
          "horizontal_max_offset": 30.0, "vertical_max_offset": 30.0}]})
     d = geosim.pipeline.experimental_variograms(shared, data)[0].direction
@@ -88,9 +88,9 @@ def test_ore_sample_major_range_is_no_longer_shortened_by_vertical_pairs():
     Measured: 116 m with the old shared window (22.5 degrees and 30 m in both planes), 143 m
     with the default thin vertical window; the data are fixed, so the fit is deterministic and
     the threshold sits between the two."""
-    import geosim.io.runspec
+    import geosim.config.runspec
     import geosim.pipeline
-    spec = geosim.io.runspec.load_spec(ORE)
+    spec = geosim.config.runspec.load_spec(ORE)
     data = geosim.pipeline.prepare_data(spec)
     with warnings.catch_warnings():
         warnings.simplefilter("ignore")
@@ -98,7 +98,7 @@ def test_ore_sample_major_range_is_no_longer_shortened_by_vertical_pairs():
     old_dirs = [dict(d, vertical_half_angle=22.5, vertical_max_offset=d["horizontal_max_offset"])
                 for d in spec["variogram.directions"][:2]] + [spec["variogram.directions"][2]]
     old_dirs = [{k: v for k, v in d.items() if v is not None} for d in old_dirs]
-    shared = geosim.io.runspec.load_spec(ORE, overrides={"variogram.directions": old_dirs})
+    shared = geosim.config.runspec.load_spec(ORE, overrides={"variogram.directions": old_dirs})
     with warnings.catch_warnings():
         warnings.simplefilter("ignore")
         old = geosim.pipeline.variogram_model(shared, data).model

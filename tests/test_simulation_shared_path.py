@@ -192,7 +192,7 @@ def test_sharing_a_path_does_not_shrink_the_spread_of_decision_figures():
 
 
 def test_run_spec_key_and_its_check(tmp_path):
-    from geosim.io.runspec import load_spec
+    from geosim.config.runspec import load_spec
     (tmp_path / "wells.csv").write_text("well_id,x,y,k\nA,0,0,1\n")
     text = ('[data]\npoints = "wells.csv"\nx = "x"\ny = "y"\nvalue = "k"\ncrs = "EPSG:32633"\n'
             '[grid]\ncell = [10.0, 10.0]\n[simulation]\nrealizations = 5\nseed = 42\n')

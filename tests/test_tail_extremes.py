@@ -37,13 +37,13 @@ def test_run_checks_report_the_extremes_of_the_data_unit_fields():
 
 
 def test_spec_with_a_pareto_tail_below_exponent_2_warns_when_the_transform_is_made():
-    import geosim.io.runspec
+    import geosim.config.runspec
     import geosim.pipeline
-    heavy = geosim.io.runspec.load_spec(ORE, overrides={"transform.upper_tail": "pareto", "transform.upper": None,
+    heavy = geosim.config.runspec.load_spec(ORE, overrides={"transform.upper_tail": "pareto", "transform.upper": None,
                                                         "transform.upper_exponent": 2.0})
     with pytest.warns(GeosimWarning, match="cu_pct with exponent 2 has an infinite variance"):
         geosim.pipeline.prepare_data(heavy)
-    spec = geosim.io.runspec.load_spec(ORE)
+    spec = geosim.config.runspec.load_spec(ORE)
     with warnings.catch_warnings():
         warnings.simplefilter("error", GeosimWarning)
         data = geosim.pipeline.prepare_data(spec)
@@ -51,9 +51,9 @@ def test_spec_with_a_pareto_tail_below_exponent_2_warns_when_the_transform_is_ma
 
 
 def test_ore_run_report_sets_the_largest_simulated_value_against_the_largest_datum(tmp_path):
-    import geosim.io.runspec
+    import geosim.config.runspec
     import geosim.pipeline
-    spec = geosim.io.runspec.load_spec(ORE, overrides={
+    spec = geosim.config.runspec.load_spec(ORE, overrides={
         "simulation.realizations": 2, "simulation.workers": 1, "outputs.plots": False,
         "outputs.estimate": False, "outputs.cross_validation": False, "outputs.keep_realizations": False})
     result = geosim.pipeline.run(spec, tmp_path / "run")
