@@ -1,7 +1,9 @@
-"""Domains: the outline a simulation is clipped to, read from GeoJSON or a raster.
+"""Domains: the outline a simulation is clipped to, read from a vector file or a raster.
 
 A vector domain is a GeoJSON file (a FeatureCollection, a Feature or a bare
-geometry) holding polygons.  RFC 7946 says GeoJSON positions are WGS 84
+geometry) holding polygons, or a polygon layer of a GeoPackage, Shapefile,
+FlatGeobuf or GeoParquet file (through :mod:`geosim.vector`; the CRS is the
+file's), or a GeoPandas GeoDataFrame.  RFC 7946 says GeoJSON positions are WGS 84
 longitude, latitude; older files (the 2008 GeoJSON specification) may name
 another CRS in a top-level ``"crs"`` member, which is honoured.  The polygons are
 united, checked, repaired when invalid (with a :class:`geosim.errors.GeosimWarning`
@@ -28,6 +30,7 @@ from __future__ import annotations
 import json
 import os
 import warnings
+from pathlib import Path
 
 import numpy as np
 import shapely
@@ -45,16 +48,18 @@ _LONLAT = CRS.from_user_input("OGC:CRS84")  # RFC 7946 section 4: WGS 84, longit
 _MAX_SEGMENT_DEGREES = 0.001
 
 
-def read_domain(path: str | os.PathLike, target_crs: CrsLike | None, *,
-                source_crs: CrsLike | None = None) -> Polygon | MultiPolygon:
-    """Read a domain polygon from GeoJSON and reproject it to ``target_crs``.
+def read_domain(path, target_crs: CrsLike | None, *, source_crs: CrsLike | None = None,
+                layer: str | int | None = None) -> Polygon | MultiPolygon:
+    """Read a domain polygon from a vector file and reproject it to ``target_crs``.
 
     Parameters
     ----------
-    path : str or path-like
+    path : str, path-like or geopandas.GeoDataFrame
         A GeoJSON file: a FeatureCollection, a Feature, or a bare Polygon,
-        MultiPolygon or GeometryCollection.  Every polygon in it is part of the
-        domain (they are united); features without geometry are skipped.
+        MultiPolygon or GeometryCollection; or a ``.gpkg``, ``.shp``, ``.fgb`` or
+        ``.parquet`` polygon layer (or a GeoDataFrame) whose CRS is used.  Every
+        polygon in it is part of the domain (they are united); features without
+        geometry are skipped.
     target_crs : pyproj.CRS, int, str or None
         CRS of the result, normally the projected CRS of the data and the grid
         (``"EPSG:32750"``, ``32750``, WKT, ...).  None is for data in a local grid
@@ -63,7 +68,11 @@ def read_domain(path: str | os.PathLike, target_crs: CrsLike | None, *,
     source_crs : pyproj.CRS, int or str, optional
         CRS of the file's coordinates.  By default the file's legacy ``"crs"``
         member if it has one, else longitude/latitude (WGS 84) as RFC 7946 says.
-        Coordinates in a geographic CRS are always read longitude first.
+        For other vector files, the file's CRS; a file without one is taken to be
+        in ``target_crs`` (with a warning).  Coordinates in a geographic CRS are
+        always read longitude first.
+    layer : str or int, optional
+        Layer of a vector file with several.
 
     Returns
     -------
@@ -85,9 +94,19 @@ def read_domain(path: str | os.PathLike, target_crs: CrsLike | None, *,
         :func:`shapely.make_valid`, naming the problem shapely found, and when
         ``target_crs`` is None but the coordinates look like longitude/latitude.
     """
-    path = os.fspath(path)
-    doc = _load_json(path)
-    geom = _polygons(doc, path)
+    from .vector import is_frame, is_vector_path
+    if is_frame(path) or (is_vector_path(path) and Path(path).suffix.lower() != ".geojson"):
+        geom, own, path = _layer_polygons(path, layer)
+        if own is None and source_crs is None and target_crs is not None:
+            warnings.warn(f"{path}: the domain file declares no CRS; taken to be the data's "
+                          f"({_name(parse_crs(target_crs))})", GeosimWarning, stacklevel=2)
+        own = own if own is not None else target_crs
+        doc = {} if own is None else {"crs": own}
+        source_crs = source_crs if source_crs is not None else own
+    else:
+        path = os.fspath(path)
+        doc = _load_json(path)
+        geom = _polygons(doc, path)
     if target_crs is None:
         named = source_crs if source_crs is not None else (doc.get("crs") if isinstance(doc, dict) else None)
         if named is not None:
@@ -296,6 +315,21 @@ def _polygon_parts(obj, path: str, where: str | None) -> list:
         raise InputError(f"the {kind} has coordinates that are not finite numbers", file=path, field=where,
                          fix="correct the coordinates")
     return [g for g in getattr(geom, "geoms", [geom]) if not g.is_empty]
+
+
+def _layer_polygons(source, layer):
+    """The united polygons of a vector layer or GeoDataFrame, its CRS and its label."""
+    from .vector import frame_table, is_frame, read_vector
+    vt = frame_table(source) if is_frame(source) else read_vector(source, layer=layer, what="domain file")
+    if vt.geometry is None:
+        raise InputError("the domain has no geometry column", file=vt.label, fix="save the domain as a polygon layer")
+    parts = []
+    for i, g in enumerate(vt.geometry):
+        if g is not None and not g.is_empty:
+            parts.extend(_polygon_parts(shapely.geometry.mapping(g), vt.label, f"feature {i + vt.first_row}"))
+    if not parts:
+        raise InputError("the layer holds no polygon", file=vt.label, fix="add a polygon outlining the domain")
+    return (parts[0] if len(parts) == 1 else shapely.union_all(parts)), vt.crs, vt.label
 
 
 def _check_lonlat(geom, path: str) -> None:

@@ -78,7 +78,7 @@ def load_samples(spec: RunSpec):
     if d["points"] is not None:
         from .points import read_points
         return read_points(spec.resolve(d["points"]), x=d["x"], y=d["y"], z=d["z"], values=d["value"],
-                           hole=d["id"], crs=d["crs"], target_crs=target)
+                           hole=d["id"], crs=d["crs"], target_crs=target, layer=d["layer"])
     from .drillholes import composite
     comp = d["composites"]
     return composite(read_holes(spec), comp["length"], min_fraction=comp["min_fraction"],
@@ -152,7 +152,7 @@ def read_domain_geometry(spec: RunSpec, crs):
     if path is None:
         return None
     from .domain import read_domain
-    return read_domain(spec.resolve(path), crs)
+    return read_domain(spec.resolve(path), crs, layer=spec["domain.layer"])
 
 
 def make_grid(spec: RunSpec, data: PreparedData | None = None):

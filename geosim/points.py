@@ -1,9 +1,11 @@
-"""Point samples: the :class:`PointSet` every later step works on, and CSV point intake.
+"""Point samples: the :class:`PointSet` every later step works on, and point intake.
 
-A point CSV has one sample per row: coordinate columns, one or more value
-columns and optionally a hole (or well) identifier.  :func:`read_points` checks
-every cell, reprojects geographic coordinates to metres (see :mod:`geosim.crs`)
-and merges coincident samples, recording what it did in ``PointSet.notes``.
+A point table has one sample per row: coordinates, one or more value columns
+and optionally a hole (or well) identifier.  It is a CSV file, a GIS vector file
+(GeoPackage, Shapefile, GeoJSON, FlatGeobuf, GeoParquet; see :mod:`geosim.vector`)
+or a pandas DataFrame / GeoPandas GeoDataFrame.  :func:`read_points` checks every
+cell, reprojects geographic coordinates to metres (see :mod:`geosim.crs`) and
+merges coincident samples, recording what it did in ``PointSet.notes``.
 """
 from __future__ import annotations
 
@@ -15,9 +17,10 @@ from dataclasses import dataclass, field, replace
 import numpy as np
 from pyproj import CRS
 
-from .crs import CrsLike, to_projected
+from .crs import CrsLike, parse_crs, to_projected
 from .errors import GeosimWarning, InputError
 from .tables import read_table
+from .vector import GEOMETRY_COLUMNS
 
 
 @dataclass(frozen=True, repr=False)
@@ -139,28 +142,34 @@ class PointSet:
         return replace(self, notes=self.notes + (note,))
 
 
-def read_points(path: str | os.PathLike, *, x: str, y: str, z: str | None = None,
-                values: str | Sequence[str], hole: str | None = None, crs: CrsLike | None,
+def read_points(path, *, x: str | None = None, y: str | None = None, z: str | None = None,
+                values: str | Sequence[str], hole: str | None = None, crs: CrsLike | None = None,
                 target_crs: CrsLike | None = None, duplicates: str = "average",
-                tolerance: float = 1e-3) -> PointSet:
-    """Read point samples from a CSV file.
+                tolerance: float = 1e-3, layer: str | int | None = None) -> PointSet:
+    """Read point samples from a CSV file, a GIS vector file or a data frame.
 
     Parameters
     ----------
-    path : path-like
-        The CSV file (comma, semicolon or tab separated; header in the first row).
-    x, y : str
+    path : path-like, pandas.DataFrame or geopandas.GeoDataFrame
+        A CSV file (comma, semicolon or tab separated; header in the first row), a
+        vector file (``.gpkg``, ``.shp``, ``.geojson``, ``.fgb``, ``.parquet``;
+        :mod:`geosim.vector`) or a data frame with the same columns.
+    x, y : str, optional
         Column names of the coordinates; for a geographic CRS, ``x`` is the
-        longitude and ``y`` the latitude column.
+        longitude and ``y`` the latitude column.  Leave them out to take the
+        coordinates of a point layer's geometry (``geometry_x``, ``geometry_y``).
     z : str, optional
-        Column of elevations (metres, up positive).
+        Column of elevations (metres, up positive); ``"geometry_z"`` for the Z of
+        3-D points.
     values : str or sequence of str
         Value column(s).  Every cell must hold a finite number.
     hole : str, optional
         Column of hole or well identifiers.
     crs : CRS-like or None
-        CRS of the coordinates (EPSG code, WKT or PROJ text).  None declares a local
-        grid already in metres.
+        CRS of the coordinates (EPSG code, WKT or PROJ text).  None takes the CRS
+        of a vector file or GeoDataFrame that declares one, and otherwise declares
+        a local grid already in metres.  A CRS that contradicts the file's is an
+        error.
     target_crs : CRS-like, optional
         Projected CRS in metres to work in.  Geographic input without it goes to
         the UTM zone of the data centroid (reported in ``notes`` and by a warning).
@@ -171,12 +180,15 @@ def read_points(path: str | os.PathLike, *, x: str, y: str, z: str | None = None
         kriging covariance singular, so they are never kept as they are.
     tolerance : float
         Distance in metres below which two samples count as coincident.
+    layer : str or int, optional
+        Layer of a vector file with several.
 
     Returns
     -------
     PointSet
         With the attribute ``row``: the file row of each sample (of the first one, for
-        merged samples), so later checks can point back into the file.
+        merged samples), so later checks can point back into the file.  Rows of a
+        vector file count its features from 1; rows of a data frame count from 0.
 
     Raises
     ------
@@ -190,7 +202,12 @@ def read_points(path: str | os.PathLike, *, x: str, y: str, z: str | None = None
     names = (values,) if isinstance(values, str) else tuple(values)
     if not names:
         raise ValueError("name at least one value column")
-    table = read_table(path, what="point table")
+    table, crs = _point_table(path, crs, layer, x is None and y is None)
+    x, y = (GEOMETRY_COLUMNS[0], GEOMETRY_COLUMNS[1]) if x is None and y is None else (x, y)
+    if x is None or y is None:
+        raise InputError("name both coordinate columns or neither", file=table.path,
+                         field="y" if y is None else "x",
+                         fix="give x and y, or leave both out to use a point layer's geometry")
     cols = [table.numbers(x, role="x coordinate"), table.numbers(y, role="y coordinate")]
     if z is not None:
         cols.append(table.numbers(z, role="z coordinate"))
@@ -202,6 +219,28 @@ def read_points(path: str | os.PathLike, *, x: str, y: str, z: str | None = None
     points = PointSet(coords, vals, tuple(table.header[table.index(v)] for v in names), out_crs, ids,
                       {"row": np.array(table.lines, dtype=np.int64)}, (table.path,), tuple(notes))
     return merge_coincident(points, tolerance=tolerance, mode=duplicates)
+
+
+def _point_table(source, crs: CrsLike | None, layer, from_geometry: bool):
+    """The table of a CSV file, vector file or data frame, and the CRS to read it in."""
+    from .vector import is_frame, is_vector_path, sample_table
+    if not (is_frame(source) or is_vector_path(source)):
+        if from_geometry:
+            raise InputError("a CSV file has no geometry to take coordinates from", file=os.fspath(source),
+                             field="x", fix="name the x and y columns")
+        return read_table(source, what="point table"), crs
+    table, own = sample_table(source, layer=layer)
+    if from_geometry and GEOMETRY_COLUMNS[0] not in table.header:
+        raise InputError("the layer has no point geometry to take coordinates from", file=table.path, field="x",
+                         fix=f"name the x and y columns (columns: {', '.join(table.header)})")
+    if crs is None or own is None:
+        return table, own if crs is None else crs
+    given = parse_crs(crs, field="crs")
+    if not given.equals(own, ignore_axis_order=True):
+        raise InputError(f"the CRS given ({given.to_string()}) differs from the file's ({own.to_string()})",
+                         file=table.path, field="crs",
+                         fix="leave the CRS out to use the file's, or correct the file's CRS in a GIS")
+    return table, own
 
 
 def merge_coincident(points: PointSet, *, tolerance: float = 1e-3, mode: str = "average") -> PointSet:

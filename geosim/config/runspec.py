@@ -199,16 +199,17 @@ INPUT_FILE_KEYS = (("data", ("points", "collars", "surveys", "intervals")),
 
 SCHEMA: dict[str, dict[str, Key]] = {
     "data": {
-        "points": Key(_path, help="CSV file of point samples"),
+        "points": Key(_path, help="point samples: CSV, or .gpkg/.shp/.geojson/.fgb/.parquet (geosim[vector])"),
+        "layer": Key(_text, help="layer of a points file with several"),
         "collars": Key(_path, help="drillhole collar CSV (hole_id, x, y, z, depth)"),
         "surveys": Key(_path, help="drillhole survey CSV (hole_id, depth, azimuth, dip)"),
         "intervals": Key(_path, help="drillhole interval CSV (hole_id, from, to, values...)"),
-        "x": Key(_text, help="x (east or longitude) column of a points file"),
-        "y": Key(_text, help="y (north or latitude) column of a points file"),
+        "x": Key(_text, help="x (east or longitude) column of a points file (a point layer: its geometry)"),
+        "y": Key(_text, help="y (north or latitude) column of a points file (a point layer: its geometry)"),
         "z": Key(_text, help="z (elevation) column of a points file"),
         "id": Key(_text, help="sample or hole identifier column"),
         "value": Key(_text, required=True, help="column of the variable to model"),
-        "crs": Key(_text, required=True, help="CRS of the input coordinates"),
+        "crs": Key(_text, help="CRS of the input coordinates (a vector file: its own when left out)"),
         "working_crs": Key(_text, default="auto", help='projected CRS to work in, or "auto"'),
         "units": Key(_text, default="", help="units of the value"),
         "columns": Key(_column_map, default={},
@@ -285,7 +286,8 @@ SCHEMA: dict[str, dict[str, Key]] = {
         "padding": Key(_number(0.0), default=0.0, help="metres added around the data or domain"),
     },
     "domain": {
-        "polygon": Key(_path, help="GeoJSON outline"),
+        "polygon": Key(_path, help="outline: GeoJSON, or .gpkg/.shp/.fgb/.parquet polygons (geosim[vector])"),
+        "layer": Key(_text, help="layer of a polygon file with several"),
         "raster": Key(_path, help="raster mask, nonzero inside"),
         "below_collars": Key(_bool, default=False,
                              help="3-D drillholes: keep only nodes below the ground surface through the collars"),
@@ -622,10 +624,18 @@ def _check_combinations(spec: dict, problems: list[str]) -> None:
     elif data["points"] is None and data["collars"] is None:
         problems.append('data: expected points = "file.csv" (point samples) or collars = "..." and '
                         'intervals = "..." (drillholes), found neither')
+    from ..vector import is_vector_path
+    vector = is_vector_path(data["points"])
+    if data["crs"] is None and not vector:
+        problems.append("data.crs: required for CSV tables, expected the CRS of the coordinates "
+                        "(e.g. \"EPSG:32633\"), found nothing")
     if data["points"] is not None:
         for k in ("x", "y"):
-            if data[k] is None:
-                problems.append(f"data.{k}: required for a points file, expected the column name, found nothing")
+            if data[k] is None and not vector:
+                problems.append(f"data.{k}: required for a CSV points file, expected the column name, "
+                                "found nothing")
+        if data["layer"] is not None and not vector:
+            problems.append("data.layer: only for a vector points file (.gpkg, ...), found it beside a CSV")
         for k in ("collars", "surveys", "intervals"):
             if data[k] is not None:
                 problems.append(f"data.{k}: only for drillholes, found it beside data.points")
