@@ -24,7 +24,7 @@ PACKAGES = {"geosim": ROOT / "geosim", "geosim_cli": ROOT / "cli"}
 LAYERS = [
     ("base", ["geosim", "geosim._forward", "geosim.cautions", "geosim.errors", "geosim.retired",
               "geosim.resources", "geosim.plugins", "geosim.io", "geosim.io.atomic"]),
-    ("data", ["geosim.grid", "geosim.crs", "geosim.tables", "geosim.points", "geosim.drillholes",
+    ("data", ["geosim.grid", "geosim.crs", "geosim.tables", "geosim.vector", "geosim.points", "geosim.drillholes",
               "geosim.domain", "geosim.declustering", "geosim.transforms", "geosim.linalg"]),
     ("models", ["geosim.variogram.*", "geosim.search", "geosim.kriging", "geosim.simulation.*"]),
     ("statistics", ["geosim.summaries", "geosim.validation"]),

@@ -14,7 +14,7 @@ import pytest
 import geosim
 import geosim.pipeline
 from geosim.errors import InputError
-from geosim.io.runspec import load_spec
+from geosim.config.runspec import load_spec
 from geosim.points import read_points
 
 pyogrio = pytest.importorskip("pyogrio")
