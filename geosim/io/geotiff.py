@@ -106,15 +106,8 @@ def write_bands(out_path: str | os.PathLike, grid, n_bands: int, windows: Callab
         Returns an iterator of rasterio ``Window`` objects covering the grid.
     compute : callable
         ``compute(window) -> array (n_bands, window.height, window.width)``.
-    descriptions : sequence
-        Per band, ``(description, unit)`` or a description alone.
-    tags : mapping, optional
-        Dataset tags (provenance).
-    overwrite : bool
-    progress : callable, optional
-        ``progress(done, total, what)`` after each window.
-    what : str
-        Label passed to ``progress``.
+    descriptions, tags, overwrite, progress, what
+        As for :func:`write_windows`.
     """
     blocks = ((w, compute(w)) for w in windows())
     return write_windows(out_path, grid, n_bands, blocks, total=sum(1 for _ in windows()),
@@ -139,8 +132,15 @@ def write_windows(out_path: str | os.PathLike, grid, n_bands: int, blocks: Itera
         array ``(n_bands, window.height, window.width)``; consumed once, in order.
     total : int
         Number of windows, for ``progress``.
-    descriptions, tags, overwrite, progress, what
-        As for :func:`write_bands`.
+    descriptions : sequence
+        Per band, ``(description, unit)`` or a description alone.
+    tags : mapping, optional
+        Dataset tags (provenance).
+    overwrite : bool
+    progress : callable, optional
+        ``progress(done, total, what)`` after each window.
+    what : str
+        Label passed to ``progress``.
     """
     import rasterio
     import rasterio.shutil
