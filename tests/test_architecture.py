@@ -30,7 +30,7 @@ LAYERS = [
     ("statistics", ["geosim.summaries", "geosim.validation"]),
     ("files", ["geosim.io.geotiff", "geosim.io.plots", "geosim.io.report", "geosim.io.crossval",
                "geosim.io.csvw", "geosim.io.decision", "geosim.io.lock"]),
-    ("assembly", ["geosim.ensemble", "geosim.config.*", "geosim.io.runspec"]),
+    ("assembly", ["geosim.ensemble", "geosim.config.*", "geosim.io.runspec.*"]),
     ("job", ["geosim.pipeline", "geosim.runstate", "geosim.results"]),
     ("command line", ["geosim_cli.*"]),
 ]
@@ -155,6 +155,31 @@ def test_the_guard_sees_cycles_and_upward_imports(tmp_path):
     message = describe_cycle(cycle, graph, modules)
     assert "geosim.io.geotiff -> geosim.summaries -> geosim.io.geotiff" in message and "line 2" in message
     assert layer_of("geosim.summaries") < layer_of("geosim.io.geotiff")  # so summaries -> geotiff points up
+
+
+def _documented_layers() -> list[tuple[str, list[str]]]:
+    """The layer table of DEVELOPERS.md, "Architecture", with its file names as module names."""
+    text = (ROOT / "DEVELOPERS.md").read_text(encoding="utf-8")
+    section = text[text.index("## Architecture"):]
+    rows = [line.split("|")[1:3] for line in section.splitlines()
+            if line.startswith("| ") and not line.startswith("| layer")]
+    layers = []
+    for name, modules in rows[:len(LAYERS)]:
+        names = []
+        for token in modules.split("`")[1::2]:
+            if token == "cli/":
+                names.append("geosim_cli.*")
+            elif token.endswith("/"):
+                names.append("geosim." + token.rstrip("/").replace("/", ".") + ".*")
+            elif token.endswith(".py"):
+                parts = token.removeprefix("geosim/").removesuffix(".py").split("/")
+                names.append(".".join(["geosim", *[p for p in parts if p != "__init__"]]))
+        layers.append((name.strip(), sorted(names)))
+    return layers
+
+
+def test_layer_table_here_is_the_one_in_the_contributor_guide():
+    assert _documented_layers() == [(name, sorted(names)) for name, names in LAYERS]
 
 
 def test_every_module_has_a_layer():
