@@ -24,9 +24,11 @@ def _print_keys(ctx, param, value):
 def check(ctx, spec, overrides, spec_only):
     """Validate the run spec SPEC completely, listing every problem with its key path.
 
-    Unless --spec-only is given, also read the input tables and the domain, so bad
-    columns or values show up now rather than an hour into a run. Exit code 0 means the
-    run can start; 2 lists what to fix.
+    Unless --spec-only is given, also read the input tables and the domain, load the
+    variogram model (or a fit's start values), and check that the samples can condition
+    the grid, so everything `geosim run` would refuse before computing shows up now
+    rather than an hour into a run. Exit code 0 means the run can start; 2 lists what to
+    fix; 5 says the grid will not fit in this machine's memory.
 
     A run spec has the sections [data], [declustering], [transform], [variogram],
     [grid], [domain], [search], [simulation] and [outputs]; `geosim check --keys`
@@ -41,6 +43,7 @@ def check(ctx, spec, overrides, spec_only):
     if not spec_only:
         data = geosim.pipeline.prepare_data(run_spec, progress=reporter(ctx))
         grid = geosim.pipeline.make_grid(run_spec, data)
+        data.notes.extend(geosim.pipeline.preflight(run_spec, data, grid))
         rows += geosim.pipeline.describe_data(data)
         rows.append(("grid", " x ".join(map(str, grid.shape)) + f" nodes, {grid.n_active} inside the domain"))
     table(rows, title="run spec is valid")

@@ -37,6 +37,7 @@ def run(ctx, spec, out_dir, overrides, workers, cluster, overwrite, no_resume, c
     if check_only:
         data = geosim.pipeline.prepare_data(run_spec, progress)
         grid = geosim.pipeline.make_grid(run_spec, data)
+        data.notes.extend(geosim.pipeline.preflight(run_spec, data, grid))
         rows = geosim.pipeline.describe_spec(run_spec) + geosim.pipeline.describe_data(data)
         rows.append(("grid", " x ".join(map(str, grid.shape)) + f" nodes, {grid.n_active} inside the domain"))
         table(rows, title="run spec and inputs are valid; nothing was computed")

@@ -44,8 +44,8 @@ from .config.runspec import RunSpec, load_spec
 from .errors import InputError
 from .results import (CrossValidation, EstimateResult, PreparedData, RunResult, SimulationResult, VariogramResult,
                       describe_data, describe_spec)
-from .runstate import (STATE_DIR, RecordingSink, claim_folder, completed_realizations, make_folder, open_output,
-                       read_header, resume_key, with_folder_lock)
+from .runstate import (STATE_DIR, RecordingSink, claim_folder, completed_realizations, empty_folder, folder_is_empty,
+                       make_folder, open_output, read_header, resume_key, with_folder_lock)
 from .transforms import TransformChain, multigaussian_moments
 
 Progress = Callable[[int, int, str], None]
@@ -74,25 +74,39 @@ def load_samples(spec: RunSpec):
     geosim.points.PointSet
     """
     d = spec["data"]
-    target = None if d["working_crs"] == "auto" else d["working_crs"]
+    crs, target = _spec_crs(spec)
     if d["points"] is not None:
         from .points import read_points
         return read_points(spec.resolve(d["points"]), x=d["x"], y=d["y"], z=d["z"], values=d["value"],
-                           hole=d["id"], crs=d["crs"], target_crs=target, layer=d["layer"])
+                           hole=d["id"], crs=crs, target_crs=target, layer=d["layer"])
     from .drillholes import composite
+    from .inputchecks import upward_holes_note
     comp = d["composites"]
-    return composite(read_holes(spec), comp["length"], min_fraction=comp["min_fraction"],
-                     residual=comp["residual"])
+    holes = read_holes(spec)
+    samples = composite(holes, comp["length"], min_fraction=comp["min_fraction"], residual=comp["residual"])
+    note = upward_holes_note(holes, surface_collars=spec["domain.below_collars"])
+    return samples if note is None else samples.with_note(note)
+
+
+def _spec_crs(spec: RunSpec):
+    """``data.crs`` and ``data.working_crs`` (None for "auto") as CRSs; unreadable text is
+    an error naming the spec key, not the data file."""
+    from .crs import parse_crs
+    d = spec["data"]
+    crs = parse_crs(d["crs"], file=spec.name, field="data.crs")
+    target = None if d["working_crs"] == "auto" else parse_crs(d["working_crs"], file=spec.name,
+                                                                 field="data.working_crs")
+    return crs, target
 
 
 def read_holes(spec: RunSpec):
     """The drillhole tables the spec names (:class:`geosim.drillholes.Drillholes`), in metres."""
     from .drillholes import read_drillholes
     d = spec["data"]
-    target = None if d["working_crs"] == "auto" else d["working_crs"]
+    crs, target = _spec_crs(spec)
     return read_drillholes(spec.resolve(d["collars"]),
                            None if d["surveys"] is None else spec.resolve(d["surveys"]),
-                           spec.resolve(d["intervals"]), values=d["value"], crs=d["crs"], target_crs=target,
+                           spec.resolve(d["intervals"]), values=d["value"], crs=crs, target_crs=target,
                            columns=d["columns"] or None)
 
 
@@ -126,21 +140,54 @@ def fit_transform(spec: RunSpec, values: np.ndarray, weights: np.ndarray | None 
     return TransformChain(steps).fit(values, weights)
 
 
+def _check_transform_inputs(spec: RunSpec, samples, values: np.ndarray) -> None:
+    """Values a log has none of, and tail bounds inside the data, named by file row and in
+    the units the spec gave (the transforms would see them as log10 and sample numbers)."""
+    from .inputchecks import sample_label
+    tr, name = spec["transform"], spec["data.value"]
+    if tr["log"] and (values <= 0.0).any():
+        i = int(np.argmax(values <= 0.0))
+        file, row, where = sample_label(samples, i)
+        raise InputError(f"{'' if row else where + ': '}value {values[i]:g} has no logarithm (transform.log = true)",
+                         file=file, row=row, field=name,
+                         fix="correct or remove non-positive values (a value below detection is usually entered "
+                             "as half the detection limit), or set transform.log = false")
+    bounds = (("lower", tr["lower"], int(np.argmin(values)), lambda b, v: b > v, "above the smallest"),
+              ("upper", tr["upper"], int(np.argmax(values)), lambda b, v: b < v, "below the largest"))
+    for key, bound, i, wrong, relation in bounds:
+        if bound is None or not wrong(bound, values[i]):
+            continue
+        where = sample_label(samples, i)
+        raise InputError(f"transform.{key} is {bound:g}, {relation} value {values[i]:g} of {name!r} "
+                         f"({where[0]}, {where[2]})", file=spec.name, field=f"transform.{key}",
+                         fix=f"set transform.{key} {'at or below' if key == 'lower' else 'at or above'} "
+                             f"{values[i]:g}, or correct that value")
+
+
 def prepare_data(spec: RunSpec, progress: Progress | None = None) -> PreparedData:
     """Read, decluster and transform the samples (:func:`load_samples`, :func:`decluster`,
     :func:`fit_transform`)."""
     name = spec["data.value"]
     samples = load_samples(spec).complete(name)  # composites may lack the value over a gap
     values = samples.column(name)
+    value_file = samples.source[-1] if samples.source else None  # the points or the interval table
+    if len(values) == 0:
+        raise InputError(f"the value column {name!r} is empty in every row", file=value_file, field=name,
+                         fix="fill in the values, or name another column in data.value")
     if len(values) < 3:
         raise InputError(f"only {len(values)} usable samples of {name!r}; simulation needs at least 3",
-                         file=", ".join(samples.source) or None, field=name,
-                         fix="check the value column and the composite settings")
+                         file=value_file, field=name, fix="check the value column and the composite settings")
+    _check_transform_inputs(spec, samples, values)
     dc = decluster(spec, samples, progress)
     weights = None if dc is None else np.asarray(dc.weights, dtype=float)
+    from .inputchecks import check_variability, negative_values_note
+    check_variability(values, weights, name=name, samples=samples)
     transform = fit_transform(spec, values, weights)
     scores = transform.data_scores_  # ties distinct, as the transform documents
     notes = list(samples.notes) + ([dc.describe()] if dc is not None else [])
+    if not spec["transform.log"]:
+        notes += [n for n in [negative_values_note(values, name=name, units=spec["data.units"], samples=samples)]
+                  if n]
     return PreparedData(samples, values, weights, dc, transform, np.asarray(scores, dtype=float), notes)
 
 
@@ -264,6 +311,50 @@ def experimental_variograms(spec: RunSpec, data: PreparedData, progress: Progres
                                   progress=progress)
 
 
+def given_model(spec: RunSpec, data: PreparedData | None = None):
+    """The model the spec gives: from ``variogram.model_file`` or ``variogram.structures``
+    (the start values of a fit), else the default start values for ``data``.
+
+    A fixed (not fitted) model must have the sills of normal scores (summing to 1).
+    """
+    vg = spec["variogram"]
+    if vg["model_file"] is not None:
+        from .variogram.modelfile import load_model
+        model = load_model(spec.resolve(vg["model_file"]))
+        where = dict(file=str(spec.resolve(vg["model_file"])), field="structure sills")
+    elif vg["structures"]:
+        model = _structures_model(spec)
+        where = dict(file=spec.name, field="variogram.structures")
+    else:
+        return _default_template(data if data is not None else prepare_data(spec))
+    if not vg["fit"]:
+        from .inputchecks import check_score_sill
+        check_score_sill(model, **where)
+    return model
+
+
+def preflight(spec: RunSpec, data: PreparedData, grid) -> list[str]:
+    """Everything :func:`run` would refuse before computing, checked now; returns notes.
+
+    The spec's model (or a fit's start values) loads and is valid, a fixed model has
+    the sills of normal scores, the exact engine's matrix is within its limit, and
+    enough samples lie within reach of the grid (the model's longest range) to
+    condition it (:mod:`geosim.inputchecks`).  ``geosim
+    check`` runs this after :func:`prepare_data` and :func:`make_grid`.
+    """
+    from .inputchecks import check_conditioning
+    model = given_model(spec, data)
+    if spec["simulation.engine"] == "exact":
+        from .simulation.exact import check_size
+        from .simulation.validate import coincident_nodes
+        coords3 = np.zeros((len(data.coords), 3))
+        coords3[:, : data.coords.shape[1]] = data.coords
+        free = grid.n_active - len(coincident_nodes(coords3, grid)[0])
+        check_size(len(data.values) + free, file=spec.name, field="simulation.engine")
+    reach = max(model.max_range, min(grid.cell))
+    return check_conditioning(data.samples, grid, reach, spec_file=spec.name)
+
+
 @with_folder_lock
 def variogram_model(spec: RunSpec, data: PreparedData | None = None, *, out_dir: str | os.PathLike | None = None,
                     overwrite: bool = False, progress: Progress | None = None) -> VariogramResult:
@@ -276,23 +367,18 @@ def variogram_model(spec: RunSpec, data: PreparedData | None = None, *, out_dir:
     """
     vg = spec["variogram"]
     if not vg["fit"]:
-        if vg["model_file"] is not None:
-            from .variogram.modelfile import load_model
-            result = VariogramResult(load_model(spec.resolve(vg["model_file"])), source=vg["model_file"])
-        else:
-            result = VariogramResult(_structures_model(spec), source="run spec")
+        result = VariogramResult(given_model(spec), source=vg["model_file"] or "run spec")
     else:
         data = data if data is not None else prepare_data(spec, progress)
-        if vg["model_file"] is not None:
-            from .variogram.modelfile import load_model
-            template = load_model(spec.resolve(vg["model_file"]))
-        elif vg["structures"]:
-            template = _structures_model(spec)
-        else:
-            template = _default_template(data)
+        template = given_model(spec, data)
         from .variogram.fitting import fit_model
         experimental = experimental_variograms(spec, data, progress)
-        fit = fit_model(experimental, template, weighting=vg["weighting"], total_sill=vg["total_sill"])
+        try:
+            fit = fit_model(experimental, template, weighting=vg["weighting"], total_sill=vg["total_sill"])
+        except InputError as exc:
+            raise InputError(f"the variogram cannot be fitted: {exc.message}", file=spec.name, field="variogram",
+                             fix="choose variogram.lag and lag_count so that more lags hold pairs, or give a "
+                                 "fixed model (variogram.fit = false)") from None
         result = VariogramResult(fit.model_, experimental, fit, source="fitted")
     if out_dir is not None:
         from .variogram.modelfile import save_model
@@ -629,8 +715,21 @@ def run(spec: RunSpec | str | os.PathLike, out_dir: str | os.PathLike, *, overwr
 
     data = timed("read and transform data", prepare_data, spec, progress)
     grid = timed("grid and domain", make_grid, spec, data)
+    data.notes.extend(timed("checks", preflight, spec, data, grid))
+    fresh = folder_is_empty(make_folder(out_dir))
     # claim the folder (or fail on another run's) before anything is written into it
     open_output(spec, make_folder(out_dir), overwrite=overwrite, resume=resume)
+    try:
+        return _run_steps(spec, data, grid, out_dir, resume, progress, timed, timings)
+    except BaseException:
+        # a run that failed before finishing a realization leaves a new folder as it found it,
+        # so the same folder takes the corrected spec without --overwrite
+        if fresh and not any((out_dir / STATE_DIR).glob("r[0-9]*.json")):
+            empty_folder(out_dir)
+        raise
+
+
+def _run_steps(spec, data, grid, out_dir, resume, progress, timed, timings) -> RunResult:
     mine = dict(out_dir=out_dir, progress=progress)
     vg = timed("variogram", variogram_model, spec, data, **mine)
     files = dict(vg.files)

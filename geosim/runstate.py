@@ -115,6 +115,19 @@ def _differences(old: Mapping, new: Mapping) -> list[str]:
     return [k for k in keys if old.get(k) != new.get(k)]
 
 
+def folder_is_empty(out_dir: Path) -> bool:
+    """Whether ``out_dir`` holds nothing (but possibly its lock file)."""
+    return not any(p.name != LOCK_NAME for p in out_dir.iterdir())
+
+
+def empty_folder(out_dir: Path) -> None:
+    """Remove everything in ``out_dir`` but its lock file: undo a run that failed in a folder
+    it found empty, so the corrected spec can use the folder without ``overwrite``."""
+    for path in out_dir.iterdir():
+        if path.name != LOCK_NAME:
+            shutil.rmtree(path) if path.is_dir() else path.unlink()
+
+
 def open_output(spec: RunSpec, out_dir: Path, *, overwrite: bool, resume: bool) -> dict:
     """Check the output folder belongs to this run (or is new); return the run-state header."""
     state_dir = out_dir / STATE_DIR

@@ -1,9 +1,10 @@
 """One run per output folder: an exclusive lock on the folder while a step writes there.
 
 The lock is an operating-system lock (``flock`` on POSIX, ``msvcrt.locking`` on
-Windows) on the hidden file ``.geosim-lock`` in the folder.  The kernel releases it
-when the holding process ends in any way, SIGKILL included, so a lock left by a dead
-process never blocks anyone: the next run takes it over (and says so).  The file
+Windows) on the hidden file ``.geosim-lock`` in the folder, which exists only while a
+run holds it.  The kernel releases the lock when the holding process ends in any way,
+SIGKILL included, so a lock file left by a dead process never blocks anyone: the next
+run takes it over (and says so).  The file
 records who holds the lock (process id, host, start time) for the message a second
 run gets.  Within one process the lock is re-entrant, so :func:`geosim.pipeline.run`
 and the steps it calls share it.
@@ -58,7 +59,7 @@ except ImportError:  # Windows
 
 def lock_holder(folder: str | os.PathLike) -> dict | None:
     """What the lock file of ``folder`` says about its holder (``pid``, ``host``,
-    ``started_utc``), or None when it records none (free, or released cleanly)."""
+    ``started_utc``), or None when there is none (free, or released cleanly)."""
     try:
         text = (Path(folder) / LOCK_NAME).read_text(encoding="utf-8")
         return json.loads(text) if text.strip() else None
@@ -75,15 +76,24 @@ def _describe(holder: dict | None) -> str:
 
 def _acquire(folder: Path) -> int:
     from .report import utc_now
-    try:
-        fd = os.open(folder / LOCK_NAME, os.O_RDWR | os.O_CREAT, 0o644)
-    except OSError as exc:
-        from ..resources import explain_os_error
-        raise (explain_os_error(exc, folder / LOCK_NAME) or exc) from exc
-    if not _try_lock(fd):
-        os.close(fd)
-        raise InputError(f"the output folder is in use by {_describe(lock_holder(folder))}", file=str(folder),
-                         fix="wait for that run to finish, or choose another --out folder")
+    path = folder / LOCK_NAME
+    while True:
+        try:
+            fd = os.open(path, os.O_RDWR | os.O_CREAT, 0o644)
+        except OSError as exc:
+            from ..resources import explain_os_error
+            raise (explain_os_error(exc, path) or exc) from exc
+        if not _try_lock(fd):
+            os.close(fd)
+            raise InputError(f"the output folder is in use by {_describe(lock_holder(folder))}",
+                             file=str(folder), fix="wait for that run to finish, or choose another --out folder")
+        try:
+            same = os.path.samestat(os.fstat(fd), os.stat(path))
+        except FileNotFoundError:
+            same = False
+        if same:
+            break
+        os.close(fd)  # the holder removed the file as it released it: lock the new one
     previous = lock_holder(folder)
     if previous:
         warnings.warn(f"took over the output folder {folder} from {_describe(previous)}, which ended "
@@ -94,15 +104,15 @@ def _acquire(folder: Path) -> int:
     return fd
 
 
-def _release(fd: int, created: Path | None) -> None:
-    """Unlock; a folder the lock created and nothing else wrote into is removed again
-    (while still locked, so no other run can be inside it)."""
+def _release(fd: int, created: Path | None, folder: Path) -> None:
+    """Remove the lock file and unlock; a folder the lock created and nothing else wrote
+    into is removed too.  Both happen while still locked: a run that opened the old file
+    meanwhile finds it gone once it holds the lock, and locks a new one."""
     try:
-        os.ftruncate(fd, 0)  # an empty file: released cleanly, nobody to report
-        if created is not None and [p.name for p in created.iterdir()] == [LOCK_NAME]:
-            (created / LOCK_NAME).unlink()
+        (folder / LOCK_NAME).unlink(missing_ok=True)
+        if created is not None:
             with contextlib.suppress(OSError):
-                created.rmdir()
+                created.rmdir()  # only if empty
         _unlock(fd)
     finally:
         os.close(fd)
@@ -155,4 +165,4 @@ def folder_lock(folder: str | os.PathLike) -> Iterator[Path]:
             held[1] -= 1
             if held[1] == 0:
                 del _HELD[key]
-                _release(held[0], key if held[2] else None)
+                _release(held[0], key if held[2] else None, key)

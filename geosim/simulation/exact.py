@@ -50,6 +50,17 @@ class ExactPlan:
         return np.einsum("ij,ij->i", self.rows, self.rows) if not self.ordinary else None
 
 
+MAX_SIZE = 16_000
+
+
+def check_size(size: int, max_size: int = MAX_SIZE, *, file: str | None = None, field: str = "engine") -> None:
+    """Refuse a joint covariance of ``size`` rows (data plus simulated nodes) above ``max_size``."""
+    if size > max_size:
+        raise InputError(f"the exact engine would factor a {size} x {size} covariance matrix "
+                         f"({size * size * 8 / 2**30:.1f} GiB); its limit is {max_size}", file=file,
+                         field=field, fix="use the sequential engine, a coarser grid or a smaller domain")
+
+
 class ExactEngine:
     """Conditional simulation from one LAPACK Cholesky factor, for small grids.
 
@@ -74,7 +85,7 @@ class ExactEngine:
     name = "exact"
 
     def prepare(self, data_coords, data_scores, model, grid, *, neighbourhood: Neighbourhood | None = None,
-                kriging: str = "simple", max_size: int = 16_000, sample_ids=None, hole_ids=None) -> ExactPlan:
+                kriging: str = "simple", max_size: int = MAX_SIZE, sample_ids=None, hole_ids=None) -> ExactPlan:
         """Factor the joint covariance of data and active nodes once."""
         from scipy.linalg import solve_triangular
         coords3, scores, _, ordinary, model = check_inputs(data_coords, data_scores, model, grid,
@@ -85,10 +96,7 @@ class ExactEngine:
         fixed, fixed_data = coincident_nodes(coords3, grid)
         free = complement(nodes.shape[0], fixed)
         size = n + free.shape[0]
-        if size > max_size:
-            raise InputError(f"the exact engine would factor a {size} x {size} covariance matrix "
-                             f"({size * size * 8 / 2**30:.1f} GiB); its limit is {max_size}",
-                             field="engine", fix="use engine='sequential', a coarser grid or a smaller domain")
+        check_size(size, max_size)
         d = grid.ndim
         points = np.vstack([coords3[:, :d], nodes[free]])
         if ordinary and n == 0:

@@ -38,7 +38,7 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
-from ..errors import GeosimWarning
+from ..errors import GeosimWarning, InputError
 from .anisotropy import Anisotropy, axes
 from .experimental import ExperimentalVariogram
 from .model import Model
@@ -203,8 +203,10 @@ def fit_model(experimental: ExperimentalVariogram | Sequence[ExperimentalVariogr
 
     free, tied = _free_parameters(template, evs, dim, set(fixed))
     if nbins < len(free):
-        raise ValueError(f"{nbins} lag bins with >= {min_pairs} pairs cannot determine {len(free)} free "
-                         f"parameters ({', '.join(free)}); use more lags, lower min_pairs or fix parameters")
+        raise InputError(f"{nbins} lag bins with >= {min_pairs} pairs cannot determine {len(free)} free "
+                         f"parameters ({', '.join(free)})",
+                         fix="use a lag and lag count that give more bins with pairs, lower min_pairs, "
+                             "or fix parameters")
     variance = float(evs[0].variance)
     gmax = max([float(np.nanmax(b[2])) for b in blocks] + [variance if np.isfinite(variance) else 0.0])
     extent = max(float(ev.extent) for ev in evs)
