@@ -6,9 +6,12 @@ A folder belongs to one run spec, and to one run at a time: every step that writ
 holds the folder's lock (:func:`with_folder_lock`, :mod:`geosim.io.lock`), so a
 second concurrent run into it is refused.  Every step that writes
 (``out_dir=...``) first checks the folder is new, empty, or holds a run of the
-same spec (:func:`claim_folder`, :func:`open_output`), and then replaces its own
-earlier outputs there; ``overwrite=True`` takes over a folder holding another
-spec's run or other files.
+same spec (:func:`claim_folder`, :func:`open_output`), then replaces its own
+earlier outputs there and lists what it wrote in ``run-state/outputs.json``
+(:func:`record_outputs`).  ``overwrite=True`` takes over a folder holding another
+spec's run or other files: every file the old run wrote is removed first (so a 2-D
+run replacing a 3-D one leaves no level files behind), and files it did not write
+are left alone.
 
 Resume
 ------
@@ -38,7 +41,8 @@ from .io.atomic import atomic_output
 from .io.lock import LOCK_NAME
 
 __all__ = ["STATE_DIR", "resume_key", "with_folder_lock", "make_folder", "claim_folder", "open_output",
-           "read_header", "completed_realizations", "RecordingSink"]
+           "read_header", "completed_realizations", "RecordingSink", "record_outputs", "folder_is_empty",
+           "empty_folder"]
 
 STATE_DIR = "run-state"
 _STATE_FORMAT = 1
@@ -60,8 +64,50 @@ def with_folder_lock(step):
             return step(*args, **kwargs)
         from .io.lock import folder_lock
         with folder_lock(out_dir):
-            return step(*args, **kwargs)
+            result = step(*args, **kwargs)
+            files = result if isinstance(result, dict) else getattr(result, "files", None)
+            if files:
+                record_outputs(Path(out_dir), [p for group in files.values() for p in group])
+            return result
     return locked
+
+
+OUTPUTS_FILE = "outputs.json"
+
+
+def record_outputs(out_dir: Path, paths) -> None:
+    """Add ``paths`` (files a step wrote into ``out_dir``) to the run state's list of
+    outputs, ``run-state/outputs.json``, so that replacing the run removes them."""
+    base = Path(out_dir).resolve()
+    listed = set(_recorded_outputs(out_dir))
+    for p in paths:
+        try:
+            listed.add(Path(p).resolve().relative_to(base).as_posix())
+        except ValueError:  # written elsewhere: not this folder's to remove
+            continue
+    _write_json(Path(out_dir) / STATE_DIR / OUTPUTS_FILE, {"outputs": sorted(listed)})
+
+
+def _recorded_outputs(out_dir: Path) -> list[str]:
+    try:
+        return list(json.loads((Path(out_dir) / STATE_DIR / OUTPUTS_FILE).read_text())["outputs"])
+    except (OSError, ValueError, KeyError, TypeError):
+        return []
+
+
+def _remove_run(out_dir: Path) -> None:
+    """Remove every file the run in ``out_dir`` wrote (its recorded outputs, their CSV
+    metadata sidecars, its realizations) and its run state; nothing else."""
+    from .io.csvw import sidecar_path
+    base = out_dir.resolve()
+    for rel in _recorded_outputs(out_dir):
+        path = (out_dir / rel).resolve()
+        if base in path.parents:  # a hand-edited list must not reach outside the folder
+            path.unlink(missing_ok=True)
+            if path.suffix == ".csv":
+                sidecar_path(path).unlink(missing_ok=True)
+    shutil.rmtree(out_dir / STATE_DIR)
+    shutil.rmtree(out_dir / "realizations", ignore_errors=True)
 
 
 def make_folder(out_dir) -> Path:
@@ -151,8 +197,7 @@ def open_output(spec: RunSpec, out_dir: Path, *, overwrite: bool, resume: bool) 
                              fix="choose another --out folder, or pass --overwrite to replace that run")
         if not same or not resume:
             # the folder is this run's to replace: forget the old records and realization files
-            shutil.rmtree(state_dir)
-            shutil.rmtree(out_dir / "realizations", ignore_errors=True)
+            _remove_run(out_dir)
     elif out_dir.is_dir() and any(p.name != LOCK_NAME for p in out_dir.iterdir()) and not overwrite:
         raise InputError("the output folder is not empty and holds no geosim run state", file=str(out_dir),
                          fix="choose a new or empty --out folder, or pass --overwrite")

@@ -29,7 +29,7 @@ from geosim.io.report import file_sha256
 from geosim.resources import check_memory
 from geosim.simulation.runner import REALIZATION_BYTES_PER_NODE, fitting_workers
 from geosim_cli.main import main
-from test_cli_e2e import AQUIFER, GEOSIM, geosim_cmd
+from test_cli_e2e import AQUIFER, GEOSIM, SAMPLES, geosim_cmd
 
 # 8 realizations on a 100 m grid, one worker: a run of a few seconds
 SMALL = ["--set", "grid.cell=[100.0, 100.0]", "--set", "simulation.realizations=8",
@@ -294,3 +294,50 @@ def test_lock_file_does_not_make_a_folder_foreign(tmp_path):
     (out / LOCK_NAME).write_text("")
     spec = geosim.config.runspec.load_spec(AQUIFER)
     geosim.pipeline.open_output(spec, out, overwrite=False, resume=True)
+
+
+# -- --overwrite leaves nothing stale -----------------------------------------------------------
+
+def _files(folder: Path) -> set[str]:
+    return {p.relative_to(folder).as_posix() for p in folder.rglob("*") if p.is_file()}
+
+
+def test_overwrite_removes_every_file_of_the_old_run_and_nothing_else(tmp_path):
+    out = tmp_path / "run"
+    quick = {"grid.cell": [200.0, 200.0], "simulation.realizations": 2, "simulation.workers": 1}
+    first = geosim.io.runspec.load_spec(AQUIFER, {**quick, "outputs.plots": True, "outputs.estimate": True})
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", GeosimWarning)
+        geosim.pipeline.run(first, out)
+        old = _files(out)
+        assert any(name.endswith(".png") for name in old) and "estimate.tif" in old
+        (out / "my notes.txt").write_text("kept: not written by geosim")
+        second = geosim.io.runspec.load_spec(AQUIFER, {**quick, "outputs.plots": False, "outputs.estimate": False,
+                                                       "simulation.seed": 5})
+        with pytest.raises(InputError, match="different spec"):
+            geosim.pipeline.run(second, out)
+        result = geosim.pipeline.run(second, out, overwrite=True)
+    new = _files(out)
+    written = {Path(p).resolve().relative_to(out.resolve()).as_posix() for g in result.files.values() for p in g}
+    assert not any(name.endswith(".png") for name in new) and "estimate.tif" not in new
+    assert "my notes.txt" in new
+    # every file is the new run's output, its realizations, its state, a CSV sidecar, or the user's
+    leftover = {n for n in new - written if not n.startswith(("run-state/", "realizations/"))
+                and not n.endswith(".csv-metadata.json")}
+    assert leftover == {"my notes.txt"}
+
+
+def test_overwrite_with_fewer_levels_leaves_no_level_files(tmp_path):
+    out = tmp_path / "run"
+    ore = SAMPLES / "ore_prospect" / "run.toml"
+    small = {"grid.cell": [60.0, 60.0, 40.0], "simulation.realizations": 2, "simulation.workers": 1,
+             "outputs.plots": False, "outputs.cross_validation": False, "outputs.estimate": False}
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", GeosimWarning)
+        geosim.pipeline.run(geosim.io.runspec.load_spec(ore, {**small, "grid.z_range": [100.0, 340.0]}), out)
+        six = _files(out)
+        geosim.pipeline.run(geosim.io.runspec.load_spec(ore, {**small, "grid.z_range": [180.0, 340.0]}), out,
+                            overwrite=True)
+    four = _files(out)
+    assert any("_z005" in n for n in six)
+    assert not any("_z004" in n or "_z005" in n for n in four)
