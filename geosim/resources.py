@@ -68,7 +68,7 @@ def check_memory(needed: int, what: str, *, fix: str, available: int | None = No
     Traceback (most recent call last):
     ...
     geosim.errors.ResourceError: one realization needs more memory than this machine has available \
-(needed about 1000.0 GB, 1.0 GB available); fix: larger cells
+(needed about 1.0 TB, 1.0 GB available); fix: larger cells
     """
     available = available_memory() if available is None else available
     if available is not None and needed > available:

@@ -220,6 +220,32 @@ def _running(pid: int) -> bool:
     return state != "Z"
 
 
+_WATCHER = """
+import sys, time
+from geosim.simulation.runner import watch_process
+watch_process(int(sys.argv[1]))
+print("watching", flush=True)
+time.sleep(120)
+"""
+
+
+def test_a_watched_process_ending_ends_the_watcher():
+    main_proc = subprocess.Popen([sys.executable, "-c", "import time; time.sleep(120)"])
+    watcher = subprocess.Popen([sys.executable, "-c", _WATCHER, str(main_proc.pid)], stdout=subprocess.PIPE,
+                               text=True)
+    try:
+        assert watcher.stdout.readline().strip() == "watching"
+        time.sleep(0.5)
+        assert watcher.poll() is None  # keeps running while the main process lives
+        main_proc.send_signal(signal.SIGKILL)  # not reaped yet: a zombie counts as gone
+        assert watcher.wait(timeout=5) == 70
+    finally:
+        for proc in (main_proc, watcher):
+            if proc.poll() is None:
+                proc.kill()
+            proc.wait(timeout=30)
+
+
 @pytest.mark.skipif(not Path("/proc/self/stat").exists(), reason="finds worker processes through /proc (Linux)")
 def test_workers_exit_when_the_main_process_is_killed(tmp_path):
     out = tmp_path / "run"

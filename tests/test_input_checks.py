@@ -270,3 +270,12 @@ def test_a_run_failing_on_input_leaves_the_folder_free(tmp_path, capsys):
     code, err = _cli(capsys, "run", spec_path, "--out", out, *quick)  # fixed spec, no --overwrite
     assert code == 0, err
     assert (out / "summary.tif").is_file()
+
+
+@pytest.mark.parametrize("name", ["geosim.inputchecks", "geosim.resources", "geosim.io.lock", "geosim.errors",
+                                  "geosim.io.report", "geosim.drillholes"])
+def test_docstring_examples(name):
+    import doctest
+    import importlib
+    result = doctest.testmod(importlib.import_module(name), optionflags=doctest.ELLIPSIS | doctest.NORMALIZE_WHITESPACE)
+    assert result.attempted > 0 and result.failed == 0
