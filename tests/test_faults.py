@@ -287,7 +287,7 @@ def test_workers_exit_when_the_main_process_is_killed(tmp_path):
 
 # -- byte-identical outputs -------------------------------------------------------------------
 
-def test_source_date_epoch_gives_byte_identical_rasters(tmp_path, monkeypatch):
+def test_source_date_epoch_gives_byte_identical_outputs(tmp_path, monkeypatch):
     monkeypatch.setenv("SOURCE_DATE_EPOCH", "1767225600")  # 2026-01-01T00:00:00Z
     spec = geosim.config.runspec.load_spec(AQUIFER, {"grid.cell": [200.0, 200.0], "simulation.realizations": 2,
                                                  "simulation.workers": 1})
@@ -296,10 +296,12 @@ def test_source_date_epoch_gives_byte_identical_rasters(tmp_path, monkeypatch):
         for name in ("a", "b"):
             geosim.pipeline.run(spec, tmp_path / name)
             time.sleep(1.1)  # a clock read would now differ by a second
-    rasters = sorted(p.relative_to(tmp_path / "a") for p in (tmp_path / "a").rglob("*.tif"))
-    assert len(rasters) >= 4
-    for rel in rasters:
-        assert file_sha256(tmp_path / "a" / rel) == file_sha256(tmp_path / "b" / rel), rel
+    files = sorted(p.relative_to(tmp_path / "a") for p in (tmp_path / "a").rglob("*") if p.is_file())
+    assert sum(p.suffix == ".tif" for p in files) >= 4 and any(p.suffix == ".png" for p in files)
+    assert sorted(p.relative_to(tmp_path / "b") for p in (tmp_path / "b").rglob("*") if p.is_file()) == files
+    for rel in files:  # rasters, tables and their sidecars, plots, model, run state: all but the report
+        if rel.name != "report.json":
+            assert file_sha256(tmp_path / "a" / rel) == file_sha256(tmp_path / "b" / rel), rel
     import rasterio
     with rasterio.open(tmp_path / "a" / "summary.tif") as src:
         assert src.tags()["created_utc"] == "2026-01-01T00:00:00Z"
