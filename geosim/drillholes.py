@@ -577,12 +577,13 @@ position (twin holes) are averaged, with a warning and a note.  The last run of 
         parts["from"].append(top)
         parts["to"].append(bottom)
     if not parts["coords"]:
+        table = holes.source[-1] if holes.source else None
         empty = [n for j, n in enumerate(holes.names) if not np.isfinite(holes.values[:, j]).any()]
         if empty:
             raise InputError(f"the value column{'s' if len(empty) > 1 else ''} {', '.join(map(repr, empty))} "
-                             "is empty in every row", file=holes.source[-1], field=empty[0],
+                             "is empty in every row", file=table, field=empty[0],
                              fix="fill in the values, or name another value column")
-        raise InputError("no composites: no hole has a sampled interval", file=holes.source[-1],
+        raise InputError("no composites: no hole has a sampled interval", file=table,
                          fix="check the interval table")
     cat = {key: np.concatenate(val) for key, val in parts.items()}
     mids = 0.5 * (cat["from"] + cat["to"])
