@@ -89,11 +89,11 @@ def load_samples(spec: RunSpec):
 
 
 def _spec_crs(spec: RunSpec):
-    """``data.crs`` and ``data.working_crs`` (None for "auto") as CRSs; unreadable text is
-    an error naming the spec key, not the data file."""
+    """``data.crs`` (None: the data file's own) and ``data.working_crs`` (None for "auto")
+    as CRSs; unreadable text is an error naming the spec key, not the data file."""
     from .crs import parse_crs
     d = spec["data"]
-    crs = parse_crs(d["crs"], file=spec.name, field="data.crs")
+    crs = None if d["crs"] is None else parse_crs(d["crs"], file=spec.name, field="data.crs")
     target = None if d["working_crs"] == "auto" else parse_crs(d["working_crs"], file=spec.name,
                                                                  field="data.working_crs")
     return crs, target
