@@ -16,6 +16,7 @@ from sklearn.gaussian_process.kernels import ConstantKernel, Matern, WhiteKernel
 
 import geosim
 import independent
+import pooled
 from geosim.simulation.exact import ExactEngine
 
 Z = 4.5
@@ -74,6 +75,22 @@ def test_ensemble_mean_and_variance_match_simple_kriging():
     vals = fields[:, grid.mask]
     assert np.all(np.abs(vals.mean(axis=0) - mean) <= Z * np.sqrt(var / r))
     assert np.all(np.abs(vals.var(axis=0, ddof=1) / var - 1.0) <= Z * np.sqrt(2.0 / (r - 1)))
+    _pooled_checks(vals, *pooled.simple_kriging_law(lambda a, b: independent.covariance(_model(), a, b),
+                                                    DATA_XY, DATA_Z, grid.coords()))
+
+
+def _pooled_checks(vals, mean, cov):
+    """Pooled over the nodes (tests/pooled.py), with sampling errors from the nodes' conditional law.
+
+    On this grid the mean squared conditional correlation of two nodes is about 0.03, so
+    3,000 realizations give the mean variance ratio a standard error of about 0.0045: a
+    systematic 5 % variance error lies 11 standard errors out, power > 0.999 (asserted).
+    """
+    ratio, se = pooled.variance_ratio(vals, np.diag(cov), pooled.correlation(cov))
+    assert pooled.power(0.05, se, Z) > 0.999, se
+    assert abs(ratio - 1.0) <= Z * se, (ratio, se)
+    q, p = pooled.mean_chi_square(vals, mean, cov)
+    assert p > 1e-4, (q, p)
 
 
 def test_unconditional_covariance_matches_model():
@@ -88,6 +105,12 @@ def test_unconditional_covariance_matches_model():
         for start in (0, 7, 14):
             cov = np.mean(fields[:, start] * fields[:, start + lag])  # the mean is known to be 0
             assert abs(cov - rho) <= Z * np.sqrt((1.0 + rho**2) / r), (lag, start, cov, rho)
+    # pooled: the realizations whitened by the model's covariance (tests/pooled.py) have mean
+    # square 1 with standard error sqrt(2 / (R N)) = 0.004, so a systematic 5 % variance error is
+    # 12 standard errors out, power > 0.999 (asserted); the lag checks above let it pass
+    ratio, se = pooled.whitened_variance(fields, 0.0, independent.covariance(model, grid.coords()))
+    assert pooled.power(0.05, se, Z) > 0.999
+    assert abs(ratio - 1.0) <= Z * se, (ratio, se)
 
 
 def _ordinary_kriging(model, xy, z, nodes):
@@ -110,6 +133,8 @@ def test_ordinary_kriging_option_matches_bordered_system():
     vals = np.array([engine.realize(plan, geosim.simulation.realization_rng(2, i))[grid.mask] for i in range(r)])
     assert np.all(np.abs(vals.mean(axis=0) - mean) <= Z * np.sqrt(var / r))
     assert np.all(np.abs(vals.var(axis=0, ddof=1) / var - 1.0) <= Z * np.sqrt(2.0 / (r - 1)))
+    _pooled_checks(vals, *pooled.ordinary_kriging_law(lambda a, b: independent.covariance(model, a, b),
+                                                      DATA_XY, shifted, grid.coords()))
     assert mean.mean() > 1.5  # the test means something: simple kriging would pull towards 0
 
 

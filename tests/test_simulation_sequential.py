@@ -14,6 +14,7 @@ from sklearn.gaussian_process.kernels import ConstantKernel, Matern, WhiteKernel
 
 import geosim
 import independent
+import pooled
 from geosim.search import Neighbourhood
 from geosim.simulation import realization_rng
 from geosim.simulation.exact import ExactEngine
@@ -129,15 +130,26 @@ def test_realization_scores_are_standard_normal():
     model = geosim.Model([geosim.Spherical(1.0, geosim.Anisotropy.isotropic(30.0))])
     engine = SequentialEngine()
     plan = engine.prepare(np.zeros((0, 2)), np.zeros(0), model, grid, neighbourhood=Neighbourhood(max_nodes=16))
-    fields = _ensemble(engine, plan, 20, 13)
+    fields = _ensemble(engine, plan, 100, 13)
     # Spatial correlation shrinks the effective sample size of a field to N / integral range;
     # the Kolmogorov-Smirnov statistic is compared with its 0.1% critical value KS_001 / sqrt(n_eff)
     # from the asymptotic Kolmogorov distribution (scipy.stats.kstwobign; Kolmogorov 1933).
     n_eff = grid.size / _integral_range_cells(model, 5.0)
     for f in fields:
         assert stats.kstest(f.ravel(), "norm").statistic <= KS_001 / np.sqrt(n_eff)
-    pooled = stats.kstest(fields.ravel(), "norm").statistic
-    assert pooled <= KS_001 / np.sqrt(len(fields) * n_eff)
+    assert stats.kstest(fields.ravel(), "norm").statistic <= KS_001 / np.sqrt(len(fields) * n_eff)
+    # The KS distance hardly notices a scale error (a 20 % variance deficit passed it), so the
+    # first two moments are pooled over all nodes and fields: per field, the grid mean of x has
+    # variance mean(rho) and that of x^2 variance 2 mean(rho^2) over all node pairs (normal
+    # fourth moments, Isserlis 1918); fields are independent.  The second moment's standard error
+    # is about 0.007 for 100 fields: a systematic 5 % variance error lies 7.3 standard errors
+    # out, power > 0.99 (asserted).
+    cov = lambda a, b: independent.covariance(model, a, b)  # noqa: E731
+    se1 = np.sqrt(pooled.grid_pair_correlation(cov, grid.shape, grid.cell) / len(fields))
+    se2 = np.sqrt(2.0 * pooled.grid_pair_correlation(cov, grid.shape, grid.cell, power=2) / len(fields))
+    assert pooled.power(0.05, se2, Z) > 0.99, se2
+    assert abs(fields.mean()) <= Z * se1
+    assert abs(np.mean(fields ** 2) - 1.0) <= Z * se2, (np.mean(fields ** 2), se2)
 
 
 def _semivariogram(field, axis, lag):
@@ -177,6 +189,29 @@ def test_agrees_with_exact_engine(max_nodes, r):
     mean, var = exact.mean, exact.variance
     assert np.all(np.abs(vals.mean(axis=0) - mean) <= Z * np.sqrt(var / r))
     assert np.all(np.abs(vals.var(axis=0, ddof=1) / var - 1.0) <= Z * np.sqrt(2.0 / (r - 1)))
+
+
+def test_pooled_moments_match_the_conditional_law():
+    # Pooled over 400 nodes (tests/pooled.py): the mean of the variance ratios and a chi-square
+    # of the ensemble means, with sampling errors from the simple-kriging conditional covariance
+    # of the nodes (independent covariances).  Node-by-node checks at 4.5 standard errors let a
+    # 10 % variance deficit pass; here the ratio's standard error is about 0.005, so a
+    # systematic 5 % error is about 9 standard errors away: power > 0.999 (asserted below).
+    # The 16-node neighbourhood itself costs under 1 % of variance on this grid.
+    grid = geosim.Grid(0.0, 0.0, (8.0, 8.0), (20, 20))
+    model = _model()
+    xy = XY * 2.0
+    engine = SequentialEngine()
+    plan = engine.prepare(xy, SCORES, model, grid, neighbourhood=Neighbourhood(max_samples=6, max_nodes=16))
+    r = 600
+    vals = _ensemble(engine, plan, r, 3).reshape(r, -1)
+    mean, cov = pooled.simple_kriging_law(lambda a, b: independent.covariance(model, a, b), xy, SCORES,
+                                          grid.coords())
+    ratio, se = pooled.variance_ratio(vals, np.diag(cov), pooled.correlation(cov))
+    assert pooled.power(0.05, se, Z) > 0.999
+    assert abs(ratio - 1.0) <= Z * se, (ratio, se)
+    q, p = pooled.mean_chi_square(vals, mean, cov)
+    assert p > 1e-4, (q, p)
 
 
 def test_three_d_grid_agrees_with_exact_engine():
@@ -335,7 +370,7 @@ def _holes_3d(rng, n_holes, per_hole, top):
     return xyz, np.repeat([f"DD-{h:02d}" for h in range(n_holes)], per_hole)
 
 
-def _node_by_node(grid, model, xy, scores, nb, kriging, holes=None, seed=7, index=3):
+def _node_by_node(grid, model, xy, scores, nb, kriging, holes=None, seed=7, index=3, members=0):
     """Check every simulated node against a kriging system rebuilt with numpy.
 
     The reference shares only the path and the node template with the engine: the data
@@ -344,16 +379,28 @@ def _node_by_node(grid, model, xy, scores, nb, kriging, holes=None, seed=7, inde
     order for nodes visited earlier until ``max_nodes`` are found, the covariances from
     the independent formulas and rotation, and the weights from ``numpy.linalg.solve`` of
     the (bordered, for ordinary kriging) system.  Rounding only: tolerance 1e-8.
+    With ``members > 0`` the realizations of ``realize_batch`` (one shared path, weights
+    solved once per node) are checked, each against its own deviates.
     Returns how often each limit bound, so a caller can prove the check covered them.
     """
     engine = SequentialEngine()
     plan = engine.prepare(xy, scores, model, grid, neighbourhood=nb, kriging=kriging, hole_ids=holes)
-    field = engine.realize(plan, realization_rng(seed, index))
+    if members:
+        fields = engine.realize_batch(plan, realization_rng(seed, index),
+                                      [realization_rng(seed, index + 1 + b) for b in range(members)])
+    else:
+        fields = [engine.realize(plan, realization_rng(seed, index))]
     rng = realization_rng(seed, index)  # the engine's draws, in the engine's order
     path = plan.free[random_path(plan.levels, rng)]
-    normals = rng.standard_normal(path.shape[0])
+    normals = np.array([realization_rng(seed, index + 1 + b).standard_normal(path.shape[0])
+                        for b in range(members)] if members else [rng.standard_normal(path.shape[0])])
+    for field, deviates in zip(fields, normals):
+        bound = _check_path(grid, model, xy, scores, nb, kriging, holes, plan, path, deviates, field[grid.mask])
+    return bound
+
+
+def _check_path(grid, model, xy, scores, nb, kriging, holes, plan, path, normals, values):
     nodes = grid.coords()
-    values = field[grid.mask]
     shape3 = (1,) + grid.shape if grid.ndim == 2 else grid.shape
     where = np.full(shape3, -1)
     where[grid.mask.reshape(shape3)] = np.arange(grid.n_active)
@@ -415,8 +462,9 @@ def _node_by_node(grid, model, xy, scores, nb, kriging, holes=None, seed=7, inde
     return bound
 
 
+@pytest.mark.parametrize("members", [0, 3])
 @pytest.mark.parametrize("kriging", ["simple", "ordinary"])
-def test_every_node_matches_numpy_with_all_limits_binding_2d(kriging):
+def test_every_node_matches_numpy_with_all_limits_binding_2d(kriging, members):
     # 120 nodes, 30 samples in 10 invented holes; at most 5 data (2 per quadrant, 2 per hole) and
     # 4 simulated nodes per node, in an oblique search ellipse (azimuth 30)
     rng = np.random.default_rng(31)
@@ -426,7 +474,7 @@ def test_every_node_matches_numpy_with_all_limits_binding_2d(kriging):
     model = geosim.Nugget(0.1) + geosim.Spherical(0.9, geosim.Anisotropy((60.0, 25.0), azimuth=30.0))
     nb = Neighbourhood(max_samples=5, ranges=(70.0, 35.0), azimuth=30.0, sectors=4, max_per_sector=2,
                        max_per_hole=2, max_nodes=4)
-    bound = _node_by_node(grid, model, xy, scores, nb, kriging, holes)
+    bound = _node_by_node(grid, model, xy, scores, nb, kriging, holes, members=members)
     # each limit changed the conditioning set at many nodes, so a slip in any of them shows
     assert min(bound.values()) >= 10, bound
 
