@@ -479,8 +479,9 @@ def test_every_node_matches_numpy_with_all_limits_binding_2d(kriging, members):
     assert min(bound.values()) >= 10, bound
 
 
+@pytest.mark.parametrize("members", [0, 2])
 @pytest.mark.parametrize("kriging", ["simple", "ordinary"])
-def test_every_node_matches_numpy_with_all_limits_binding_3d(kriging):
+def test_every_node_matches_numpy_with_all_limits_binding_3d(kriging, members):
     # octants, per-hole limit along vertical holes, a dipping oblique ellipsoid, node limit 6
     rng = np.random.default_rng(32)
     xyz, holes = _holes_3d(rng, 8, 5, top=119.0)
@@ -490,5 +491,5 @@ def test_every_node_matches_numpy_with_all_limits_binding_3d(kriging):
     model = geosim.Nugget(0.05) + geosim.Exponential(0.95, an)
     nb = Neighbourhood(max_samples=6, ranges=(55.0, 35.0, 14.0), azimuth=30.0, dip=20.0, rake=10.0, sectors=8,
                        max_per_sector=2, max_per_hole=2, max_nodes=6)
-    bound = _node_by_node(grid, model, xyz, scores, nb, kriging, holes)
+    bound = _node_by_node(grid, model, xyz, scores, nb, kriging, holes, members=members)
     assert min(bound.values()) >= 10, bound
