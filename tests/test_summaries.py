@@ -175,3 +175,73 @@ def test_decision_csv_carries_the_caution_and_reads_back(tmp_path):
     assert float(rows[0]["P50"]) == pytest.approx(20.0)
     with pytest.raises(InputError, match="overwrite"):
         write_decision_csv(p, decision_spread(figs))
+
+
+# P(>c) counts realizations strictly above c (module docstring): a value equal to the cut-off is
+# not above it.  Values and cut-offs are exact in float32, so the GeoTIFF path sees the same ties.
+# Hand count per node over 4 realizations: node (0,0) holds 0.5 1.5 1.5 2.5, so P(>1.5) = 1/4 and
+# P(>0.5) = 3/4; node (0,1) holds 1.5 four times, so P(>1.5) = 0 and P(>0.5) = 1.
+TIES = np.array([[[0.5, 1.5]], [[1.5, 1.5]], [[1.5, 1.5]], [[2.5, 1.5]]])
+TIES_ABOVE = {"P(>0.5)": [0.75, 1.0], "P(>1.5)": [0.25, 0.0]}
+
+
+def test_values_exactly_at_a_cut_off_are_not_above_it():
+    s = summarize_ensemble(TIES, [0.5, 1.5])
+    for band, values in TIES_ABOVE.items():
+        np.testing.assert_array_equal(s[band][0], values)
+
+
+def test_streamed_values_exactly_at_a_cut_off_are_not_above_it(tmp_path):
+    stack, want = TIES, TIES_ABOVE
+    grid = geosim.Grid(0.0, 0.0, (10.0, 10.0), (1, 2))
+    paths = [write_raster(tmp_path / f"r{i}.tif", f, grid, descriptions=["r"])[0] for i, f in enumerate(stack)]
+    out = summarize_realizations(paths, grid, [0.5, 1.5], tmp_path / "summary.tif")
+    import rasterio
+    with rasterio.open(out) as src:
+        got = src.read()
+    np.testing.assert_array_equal(got[5:, 0, :], [want["P(>0.5)"], want["P(>1.5)"]])
+
+
+def test_std_band_divides_by_the_number_of_realizations_streamed(tmp_path):
+    # by hand: two realizations a and b have mean (a+b)/2 and std |a-b|/2 with divisor n
+    # (|a-b|/sqrt(2) with n - 1); values exact in float32
+    a = np.array([[1.0, 4.0, -2.0]])
+    b = np.array([[3.0, 4.0, 6.0]])
+    grid = geosim.Grid(0.0, 0.0, (5.0, 5.0), (1, 3))
+    paths = [write_raster(tmp_path / f"r{i}.tif", f, grid, descriptions=["r"])[0] for i, f in enumerate((a, b))]
+    out = summarize_realizations(paths, grid, [], tmp_path / "summary.tif")
+    import rasterio
+    with rasterio.open(out) as src:
+        got = src.read()
+    np.testing.assert_array_equal(got[0], [[2.0, 4.0, 2.0]])
+    np.testing.assert_array_equal(got[1], [[1.0, 0.0, 4.0]])
+
+
+def test_grade_tonnage_with_density_and_thickness_per_cell_by_hand():
+    # Per-cell tonnes = dx * dy * thickness * density; a grade equal to the cut-off counts
+    # (grade >= cut-off).  Cells (10 m x 10 m):
+    #   grade   2.0  1.0  0.4       thickness 2  3  1       density 2.5 2.0 3.0
+    #   grade   1.0  0.7  NaN       thickness 1  2  5       density 2.0 2.8 2.0
+    # tonnes    500  600  300 / 200 560  -
+    # cut-off 1.0: cells 2.0 (500 t), 1.0 (600 t), 1.0 (200 t): 1300 t, metal 1000+600+200 = 1800,
+    # mean grade 1800 / 1300; cut-off 0.7: adds 0.7 (560 t): 1860 t, metal 2192.
+    grid = geosim.Grid(0.0, 0.0, (10.0, 10.0), (2, 3))
+    grade = np.array([[2.0, 1.0, 0.4], [1.0, 0.7, np.nan]])
+    thickness = np.array([[2.0, 3.0, 1.0], [1.0, 2.0, 5.0]])
+    density = np.array([[2.5, 2.0, 3.0], [2.0, 2.8, 2.0]])
+    gt = grade_tonnage(grade, grid.with_mask(np.isfinite(grade)), [1.0, 0.7, 0.4], density=density,
+                       thickness=thickness)
+    np.testing.assert_allclose(gt["tonnage"], [1300.0, 1860.0, 2160.0], rtol=1e-12)
+    np.testing.assert_allclose(gt["metal"], [1800.0, 2192.0, 2312.0], rtol=1e-12)
+    np.testing.assert_allclose(gt["mean_grade"], [1800.0 / 1300.0, 2192.0 / 1860.0, 2312.0 / 2160.0], rtol=1e-12)
+
+
+def test_fractions_at_a_threshold_count_neither_above_nor_below():
+    # strictly above / strictly below (module docstring): cells equal to the threshold belong to
+    # neither side, so the two fractions add to 1 minus the share of ties (by hand: 6 cells,
+    # 3 equal to 2e-5, 1 above, 2 below)
+    g = geosim.Grid(0.0, 0.0, (5.0, 5.0), (2, 3))
+    k = np.array([[2e-5, 2e-5, 3e-4], [2e-5, 1e-6, 4e-7]])
+    above = fraction_above(k, g, [2e-5])["fraction_above"][0]
+    below = fraction_below(k, g, [2e-5])["fraction_below"][0]
+    assert (above, below) == (1 / 6, 2 / 6)
