@@ -484,7 +484,7 @@ def _raise_first(checks) -> None:
 
 
 def composite(holes: Drillholes, length: float, *, min_fraction: float = 0.5, residual: str = "merge",
-              start: str = "sample") -> PointSet:
+              start: str = "sample", min_sampled_fraction: float = 0.5) -> PointSet:
     """Fixed-length, length-weighted composites along each hole.
 
     Each hole is cut into runs of ``length`` metres from its first sampled depth
@@ -498,6 +498,14 @@ position (twin holes) are averaged, with a warning and a note.  The last run of 
     only run it is kept) or dropped (``residual="drop"``).  Composites with no
     sampled length are left out.
 
+    A composite stands for its whole run only when enough of it was sampled: a
+    variable sampled over less than ``min_sampled_fraction`` of the run's length
+    (``to - from``) is set aside there (NaN), and a composite with no variable left
+    is dropped; the note says how many.  Each composite sits at the length-weighted
+    centre of its sampled parts (the centroid of the sampled length along the
+    hole), not at the middle of its run, so a composite sampled over its upper half
+    lies in its upper half.
+
     Parameters
     ----------
     holes : Drillholes
@@ -507,14 +515,19 @@ position (twin holes) are averaged, with a warning and a note.  The last run of 
         Shortest residual kept on its own, as a fraction of ``length`` (0 to 1).
     residual : {"merge", "drop"}
     start : {"sample", "collar"}
+    min_sampled_fraction : float
+        Shortest sampled length a composite keeps a variable for, as a fraction of
+        the composite's length (0 to 1; default 0.5, half the length: common
+        practice, no source).  0 keeps every composite with any sampled length.
 
     Returns
     -------
     PointSet
-        3-D points at the mid-point depth of each composite, with ``hole_ids`` and
-        attributes ``length`` (sampled length, m: the weight a composite carries),
-        ``depth`` (mid-point depth), ``from`` and ``to``.  A value is NaN where its
-        variable has no sampled length in that composite.
+        3-D points at the centre of the sampled length of each composite, with
+        ``hole_ids`` and attributes ``length`` (sampled length, m: the weight a
+        composite carries), ``depth`` (depth of that centre), ``from`` and ``to``.
+        A value is NaN where its variable was sampled over less than
+        ``min_sampled_fraction`` of that composite.
 
     Examples
     --------
@@ -531,13 +544,17 @@ position (twin holes) are averaged, with a warning and a note.  The last run of 
         raise ValueError(f"composite length must be positive, got {length}")
     if not 0.0 <= min_fraction <= 1.0:
         raise ValueError(f"min_fraction must be between 0 and 1, got {min_fraction}")
+    if not 0.0 <= min_sampled_fraction <= 1.0:
+        raise ValueError(f"min_sampled_fraction must be between 0 and 1, got {min_sampled_fraction}")
     if residual not in ("merge", "drop"):
         raise ValueError(f"residual must be 'merge' or 'drop', got {residual!r}")
     if start not in ("sample", "collar"):
         raise ValueError(f"start must be 'sample' or 'collar', got {start!r}")
     k = len(holes.names)
-    parts: dict[str, list] = {key: [] for key in ("coords", "values", "hole", "length", "from", "to")}
-    merged = dropped = 0
+    parts: dict[str, list] = {key: [] for key in ("coords", "values", "hole", "length", "depth", "from",
+                                                  "to")}
+    merged = dropped = undersampled = 0
+    set_aside = np.zeros(k, dtype=np.int64)
     for hole_id in holes.ids.tolist():
         idx = holes.intervals_of(hole_id)
         if len(idx) == 0:
@@ -565,17 +582,27 @@ position (twin holes) are averaged, with a warning and a note.  The last run of 
         covered = np.diff(np.interp(edges, xp, _cumulative(any_len)))
         with np.errstate(invalid="ignore", divide="ignore"):
             cv = np.where(comp_len > 1e-9, comp_sum / np.where(comp_len > 1e-9, comp_len, 1.0), np.nan)
-        keep = covered > 1e-9
+        enough = comp_len >= min_sampled_fraction * np.diff(edges)[:, None] - 1e-9
+        set_aside += ((comp_len > 1e-9) & ~enough).sum(axis=0)
+        cv[~enough] = np.nan
+        keep = (covered > 1e-9) & np.isfinite(cv).any(axis=1)
+        undersampled += int(((covered > 1e-9) & ~keep).sum())
         if not keep.any():
             continue
         top, bottom = edges[:-1][keep], edges[1:][keep]
-        mid = 0.5 * (top + bottom)
-        parts["coords"].append(holes.positions(hole_id, mid))
+        centre = _sampled_centres(top, bottom, a, b, sampled.any(axis=1))
+        parts["coords"].append(holes.positions(hole_id, centre))
         parts["values"].append(cv[keep])
         parts["hole"].append(np.full(keep.sum(), hole_id))
         parts["length"].append(covered[keep])
+        parts["depth"].append(centre)
         parts["from"].append(top)
         parts["to"].append(bottom)
+    if not parts["coords"] and undersampled:
+        raise InputError(f"no composites: all {undersampled} were sampled over less than "
+                         f"{min_sampled_fraction:g} of their {length:g} m length",
+                         field="data.composites.min_sampled_fraction",
+                         fix="use a shorter composite length or a smaller min_sampled_fraction")
     if not parts["coords"]:
         table = holes.source[-1] if holes.source else None
         empty = [n for j, n in enumerate(holes.names) if not np.isfinite(holes.values[:, j]).any()]
@@ -586,18 +613,49 @@ position (twin holes) are averaged, with a warning and a note.  The last run of 
         raise InputError("no composites: no hole has a sampled interval", file=table,
                          fix="check the interval table")
     cat = {key: np.concatenate(val) for key, val in parts.items()}
-    mids = 0.5 * (cat["from"] + cat["to"])
-    note = f"composited to {length:g} m along the hole ({len(mids)} composites"
+    note = (f"composited to {length:g} m along the hole ({len(cat['depth'])} composites, each at the centre "
+            f"of its sampled length")
     if merged:
         note += f"; {merged} residual(s) under {min_fraction:g} x length merged into the composite above"
     if dropped:
         note += f"; {dropped} residual(s) under {min_fraction:g} x length dropped"
+    if undersampled:
+        note += (f"; {undersampled} composite(s) sampled over less than {min_sampled_fraction:g} of their "
+                 f"length dropped")
+    if k > 1 and set_aside.any():
+        note += "; values set aside for the same reason: " + ", ".join(
+            f"{name} {int(c)}" for name, c in zip(holes.names, set_aside) if c)
     note += ")"
     points = PointSet(cat["coords"], cat["values"], holes.names, holes.crs, cat["hole"],
-                      {"length": cat["length"], "depth": mids, "from": cat["from"], "to": cat["to"]},
+                      {"length": cat["length"], "depth": cat["depth"], "from": cat["from"], "to": cat["to"]},
                       holes.source, holes.notes + (note,))
     # twin holes collared at the same spot give coincident composites, which kriging cannot use
     return merge_coincident(points)
+
+
+def _sampled_centres(top: np.ndarray, bottom: np.ndarray, a: np.ndarray, b: np.ndarray,
+                     sampled: np.ndarray) -> np.ndarray:
+    """Depth of the centroid of the sampled length inside each run ``[top, bottom]``.
+
+    Intervals ``[a, b]`` (sorted, not overlapping) count where ``sampled``.  The
+    sampled length and its first moment ``integral of depth`` are cumulated to
+    each edge exactly, so the cost is O((runs + intervals) log intervals).
+    """
+    s = sampled.astype(float)
+    length_before = np.r_[0.0, np.cumsum(s * (b - a))]
+    moment_before = np.r_[0.0, np.cumsum(s * 0.5 * (b * b - a * a))]
+
+    def upto(e: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+        i = np.searchsorted(a, e, side="right") - 1  # the last interval starting at or before e
+        j = np.clip(i, 0, len(a) - 1)
+        x = np.clip(np.minimum(e, b[j]), a[j], None)
+        part = np.where(i >= 0, s[j], 0.0)
+        return (length_before[j] + part * (x - a[j]) * (i >= 0),
+                moment_before[j] + part * 0.5 * (x * x - a[j] * a[j]) * (i >= 0))
+
+    l_top, m_top = upto(top)
+    l_bot, m_bot = upto(bottom)
+    return (m_bot - m_top) / (l_bot - l_top)
 
 
 def _cumulative(x: np.ndarray) -> np.ndarray:

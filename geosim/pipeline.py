@@ -83,7 +83,8 @@ def load_samples(spec: RunSpec):
     from .inputchecks import upward_holes_note
     comp = d["composites"]
     holes = read_holes(spec)
-    samples = composite(holes, comp["length"], min_fraction=comp["min_fraction"], residual=comp["residual"])
+    samples = composite(holes, comp["length"], min_fraction=comp["min_fraction"], residual=comp["residual"],
+                        min_sampled_fraction=comp["min_sampled_fraction"])
     note = upward_holes_note(holes, surface_collars=spec["domain.below_collars"])
     return samples if note is None else samples.with_note(note)
 

@@ -155,7 +155,7 @@ def test_short_residual_merged_or_dropped(files):
 
 def test_composites_from_the_collar(files):
     h = read_drillholes(*files, values="cu", crs=None)
-    c = composite(h, 3.0, start="collar")
+    c = composite(h, 3.0, start="collar", min_sampled_fraction=0.0)
     b = c.hole_ids == "B"
     # B from the collar: [0,3] holds 2-3 (0.5); [3,6] holds 3-4 (0.5); [6,8] residual 2 m >= 1.5 m
     np.testing.assert_allclose(c.column()[b], [0.5, 0.5, 1.5])
@@ -258,7 +258,7 @@ def test_reads_and_composites_the_ore_prospect():
         h = read_drillholes(SAMPLES / "collars.csv", SAMPLES / "surveys.csv", SAMPLES / "assays.csv",
                             values="cu_pct", crs="EPSG:32750")
     assert len(h.ids) == 40 and len(h.hole) == 5041 and h.crs.to_epsg() == 32750
-    c = composite(h, 2.0, residual="merge")
+    c = composite(h, 2.0, residual="merge", min_sampled_fraction=0.0)
     assert c.ndim == 3 and set(c.hole_ids) <= set(h.ids.tolist())
     assert {"length", "depth", "from", "to"} <= set(c.attributes)
     # conservation: merging keeps every sampled metre, so the length-weighted sums agree exactly
@@ -318,7 +318,7 @@ def test_merged_composites_conserve_sampled_metres(pieces, length, min_fraction)
         with pytest.raises(InputError):
             composite(h, length, min_fraction=min_fraction)
         return
-    c = composite(h, length, min_fraction=min_fraction, residual="merge")
+    c = composite(h, length, min_fraction=min_fraction, residual="merge", min_sampled_fraction=0.0)
     got = c.attributes["length"] * c.column()
     np.testing.assert_allclose(got.sum(), ((bottom - top) * np.where(ok, vals, 0.0)).sum(), rtol=1e-9, atol=1e-9)
     np.testing.assert_allclose(c.attributes["length"].sum(), (bottom - top)[ok].sum(), rtol=1e-9)

@@ -220,6 +220,8 @@ SCHEMA: dict[str, dict[str, Key]] = {
         "length": Key(_number(0.0, lo_open=True), required=True, help="composite length in metres"),
         "min_fraction": Key(_number(0.0, 1.0), default=0.5, help="shortest residual as a fraction of length"),
         "residual": Key(_choice("merge", "drop"), default="merge", help="what to do with a short residual"),
+        "min_sampled_fraction": Key(_number(0.0, 1.0), default=0.5,
+                                    help="shortest sampled length a composite keeps, as a fraction of length"),
     },
     "declustering": {
         "method": Key(_choice("cells", "none"), default="cells"),
