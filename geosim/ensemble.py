@@ -35,8 +35,8 @@ import numpy as np
 from .errors import InputError
 from .io import plots as io_plots
 from .io.decision import write_decision_csv
-from .io.geotiff import (assemble_realizations, grid_windows, level_grid, level_paths, level_tags, open_checked,
-                         read_windows, verify_realization, write_raster, write_windows)
+from .io.geotiff import (as_stored, assemble_realizations, grid_windows, level_grid, level_paths, level_tags,
+                         open_checked, read_windows, verify_realization, write_raster, write_windows)
 from .io.report import file_sha256
 from .summaries import (decision_rows, decision_spread, summarize_windows, summary_band_descriptions,
                         summary_band_names)
@@ -109,7 +109,9 @@ class RealizationWriter:
     figures : callable, optional
         ``figures(field) -> dict`` of decision figures for one realization in
         data units, e.g. ``functools.partial(geosim.summaries.grade_tonnage,
-        grid=grid, cutoffs=[0.5, 1.0], density=2.7)``.
+        grid=grid, cutoffs=[0.5, 1.0], density=2.7)``.  ``field`` holds exactly
+        the float32 values the raster stores (:func:`geosim.io.geotiff.as_stored`),
+        so the figures can be recomputed from the file.
     measure : callable, optional
         ``measure(normal_scores, values) -> dict`` of per-realization validation
         statistics (see :class:`geosim.validation.RunChecks`).
@@ -152,6 +154,9 @@ class RealizationWriter:
         if self.back_transform is not None:
             inside = ~np.isnan(scores)
             values[inside] = self.back_transform(scores[inside])
+        # figures and checks see exactly what the raster stores, so a figure recomputed from the
+        # file agrees, also at a cut-off on a plateau of equal values
+        values = as_stored(values)
         (self.folder / "realizations").mkdir(parents=True, exist_ok=True)
         target = self.folder / "realizations" / f"r{index:04d}.tif"  # write_raster adds _z000... in 3-D
         u = f" ({self.units})" if self.units else ""

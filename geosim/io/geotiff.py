@@ -199,6 +199,26 @@ def _read_back(path: Path) -> None:
             src.read(window=window)
 
 
+#: The number type of every raster geosim writes.
+STORED_DTYPE = np.float32
+
+
+def as_stored(values: np.ndarray) -> np.ndarray:
+    """``values`` rounded to what a raster stores (:data:`STORED_DTYPE`), as float64.
+
+    Figures computed from these equal figures recomputed from the written file
+    in double precision.
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> from geosim.io.geotiff import as_stored
+    >>> float(as_stored(np.array([0.7]))[0]) == float(np.float32(0.7))
+    True
+    """
+    return np.asarray(values, dtype=STORED_DTYPE).astype(np.float64)
+
+
 def write_raster(path: str | os.PathLike, data: np.ndarray, grid, *,
                  descriptions: Sequence[tuple[str, str] | str], tags: Mapping[str, str] | None = None,
                  overwrite: bool = False) -> list[Path]:
@@ -220,7 +240,7 @@ def write_raster(path: str | os.PathLike, data: np.ndarray, grid, *,
     ...     src.descriptions, src.profile["tiled"], src.overviews(1)
     (('ones',), True, [2, 4])
     """
-    a = np.asarray(data, dtype=np.float32)
+    a = np.asarray(data, dtype=STORED_DTYPE)
     if a.shape == grid.shape:
         a = a[None]
     if a.shape[1:] != grid.shape:
