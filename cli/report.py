@@ -16,9 +16,26 @@ def number(value) -> str:
 
 
 def crossval_text(summary: dict) -> str:
-    return (f"RMSE {number(summary.get('rmse'))}, mean error {number(summary.get('mean_error'))}, "
-            f"mean standardized squared error {number(summary.get('mean_standardized_squared_error'))} "
-            f"({summary.get('estimated', '?')} of {summary.get('samples', '?')} samples estimated)")
+    """Cross-validation figures, in data units first (what a geologist reads), then normal scores.
+
+    ``summary`` is the pipeline's ``{"normal_scores": {...}, "data_units": {...}}``.
+    """
+    lines = []
+    data = summary.get("data_units")
+    if data:
+        units = f" ({data['units']})" if data.get("units") else ""
+        line = (f"data units{units}: RMSE {number(data.get('rmse'))}, mean error "
+                f"{number(data.get('mean_error'))}")
+        if "declustered_rmse" in data:
+            line += (f"; declustered RMSE {number(data['declustered_rmse'])}, mean error "
+                     f"{number(data['declustered_mean_error'])}")
+        lines.append(line + "; estimate = back-transformed conditional mean")
+    scores = summary.get("normal_scores", summary)
+    lines.append(f"normal scores: RMSE {number(scores.get('rmse'))}, mean error "
+                 f"{number(scores.get('mean_error'))}, mean standardized squared error "
+                 f"{number(scores.get('mean_standardized_squared_error'))} "
+                 f"({scores.get('estimated', '?')} of {scores.get('samples', '?')} samples estimated)")
+    return "\n".join(lines)
 
 
 def decision_text(rows: list[dict], limit: int = 6) -> str:

@@ -36,6 +36,7 @@ from numba import njit
 from .errors import GeosimWarning, InputError, NotPositiveDefiniteError
 from .linalg import backward_t_inplace, chol_inplace, forward_inplace
 from .search import DataSearch, Neighbourhood, as_xyz, exclusion_arrays, select_neighbours
+from .transforms import multigaussian_moments
 from .variogram.compiled import cov_lag
 
 # a conditional variance (Cholesky pivot) below this fraction of the sill is
@@ -503,16 +504,29 @@ class CrossValidationResult:
     that suit the data, the mean error is near 0 and the mean standardized
     squared error near 1 (it exceeds 1 when the kriging variance is too small).
 
+    :meth:`in_data_units` gives the same cross-validation back-transformed to
+    data units (what a geologist reads), with the estimate the conditional mean.
+
     Attributes
     ----------
     coords : (n, d) ndarray
     values, estimate, variance : (n,) ndarray
-        NaN estimate/variance where too few other samples were found.
+        NaN estimate/variance where too few other samples were found.  In data
+        units ``estimate`` is the back-transformed conditional mean and
+        ``variance`` the conditional variance.
     n_used : (n,) int64 ndarray
     sample_ids : list of str
     method : str
     leave_out : str
         ``"sample"`` or ``"hole"`` (every sample of the same hole left out).
+    model_text : str
+    units : str
+        Units of ``values`` and ``estimate``: ``"normal score"`` for normal scores,
+        the data's units otherwise ("" when unknown).
+    weights : (n,) ndarray, optional
+        Declustering weights; :meth:`summary` then adds declustered statistics.
+    scale : str
+        ``"normal scores"``, ``"data units"`` or ``"as given"``.
     """
 
     coords: np.ndarray
@@ -524,6 +538,9 @@ class CrossValidationResult:
     method: str
     leave_out: str = "sample"
     model_text: str = ""
+    units: str = ""
+    weights: np.ndarray | None = None
+    scale: str = "as given"
 
     @property
     def error(self) -> np.ndarray:
@@ -547,19 +564,66 @@ class CrossValidationResult:
         return _nanmean(self.standardized_error ** 2)
 
     def summary(self) -> dict:
-        """Summary statistics over the samples that got an estimate."""
+        """Summary statistics over the samples that got an estimate.
+
+        With ``weights`` the declustered mean of the values and of the estimates,
+        the declustered mean error and RMSE follow the plain ones (weights of the
+        estimated samples, renormalized to sum 1).
+        """
         ok = np.isfinite(self.estimate)
         corr = (float(np.corrcoef(self.values[ok], self.estimate[ok])[0, 1])
                 if ok.sum() > 2 and np.std(self.estimate[ok]) > 0 else math.nan)
-        return {
+        out = {
+            "scale": self.scale, "units": self.units,
             "samples": int(self.values.shape[0]),
             "estimated": int(ok.sum()),
+            "mean_value": _nanmean(np.where(ok, self.values, np.nan)),
+            "mean_estimate": _nanmean(self.estimate),
             "mean_error": self.mean_error,
             "rmse": self.rmse,
             "mean_standardized_error": _nanmean(self.standardized_error),
             "mean_standardized_squared_error": self.mean_standardized_squared_error,
             "correlation": corr,
         }
+        if self.weights is not None:
+            w = np.where(ok, np.asarray(self.weights, dtype=float), 0.0)
+            total = w.sum()
+            w = w / total if total > 0 else w * math.nan
+            err = np.where(ok, self.error, 0.0)
+            out.update({"declustered_mean_value": float(w @ np.where(ok, self.values, 0.0)),
+                        "declustered_mean_estimate": float(w @ np.where(ok, self.estimate, 0.0)),
+                        "declustered_mean_error": float(w @ err),
+                        "declustered_rmse": math.sqrt(float(w @ (err * err)))})
+        return out
+
+    def in_data_units(self, transform, values, *, units: str = "") -> CrossValidationResult:
+        """The same cross-validation in data units.
+
+        ``self`` holds normal scores; each left-out sample's kriged score ``m`` and
+        kriging variance ``v`` define its conditional distribution
+        ``T^-1(Y), Y ~ N(m, v)`` under the multi-Gaussian model (Verly 1983, "The
+        multigaussian approach and its applications to the estimation of local
+        reserves", Mathematical Geology 15(2)).  The estimate is that
+        distribution's mean and the variance its variance
+        (:func:`multigaussian_moments`); ``error = estimate - value`` in data units.
+        The standardized error there is error / conditional standard deviation,
+        which is not normal: judge standardized errors on the scores.
+
+        Parameters
+        ----------
+        transform : object with ``inverse(scores)``
+            The fitted transform from data units to normal scores.
+        values : (n,) array
+            The samples in data units, in the order of the scores.
+        units : str
+            Units of the data.
+        """
+        v = np.asarray(values, dtype=float).ravel()
+        if v.shape != self.values.shape:
+            raise ValueError(f"{v.size} values for {self.values.size} cross-validated samples")
+        mean, var = multigaussian_moments(transform, self.estimate, self.variance)
+        return CrossValidationResult(self.coords, v, mean, var, self.n_used, self.sample_ids, self.method,
+                                     self.leave_out, self.model_text, units, self.weights, "data units")
 
 
 def _nanmean(a: np.ndarray) -> float:

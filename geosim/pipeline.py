@@ -404,11 +404,14 @@ def cross_validate(spec: RunSpec, data: PreparedData | None = None, model=None, 
                    out_dir: str | os.PathLike | None = None, overwrite: bool = False,
                    progress: Progress | None = None) -> CrossValidation:
     """Leave-one-out kriging of the normal scores with the spec's neighbourhood (for
-    drillholes, every composite of the hole is left out together).
+    drillholes, every composite of the hole is left out together), and the same
+    back-transformed to data units (estimate: the conditional mean).
 
-    With ``out_dir``, writes ``cross_validation.csv`` (and ``cross_validation.png`` when
-    ``outputs.plots`` is on).
+    With ``out_dir``, writes ``cross_validation.csv`` (both scales side by side) and
+    ``cross_validation.png`` when ``outputs.plots`` is on.
     """
+    from dataclasses import replace
+
     from .kriging import cross_validate as leave_one_out
     data = data if data is not None else prepare_data(spec, progress)
     model = _model(spec, data, model, progress)
@@ -416,16 +419,20 @@ def cross_validate(spec: RunSpec, data: PreparedData | None = None, model=None, 
                            neighbourhood=neighbourhood(spec), hole_ids=data.samples.hole_ids,
                            leave_out="hole" if spec.is_drillholes else "sample",
                            progress=_relabel(progress, "cross-validation"))
-    cv = CrossValidation(result, result.summary())
+    result = replace(result, units="normal score", weights=data.weights, scale="normal scores")
+    in_data = result.in_data_units(data.transform, data.values, units=spec["data.units"])
+    cv = CrossValidation(result, {"normal_scores": result.summary(), "data_units": in_data.summary()},
+                         data_units=in_data)
     if out_dir is not None:
         from .io.crossval import plot_crossval, write_crossval_csv
         out_dir = claim_folder(spec, out_dir, overwrite)
         cv.files["cross_validation"] = [str(write_crossval_csv(
-            result, out_dir / "cross_validation.csv", overwrite=True, units="normal score",
+            result, out_dir / "cross_validation.csv", overwrite=True, data_units=in_data,
             provenance=provenance_tags(spec, data, model)))]
         if spec["outputs.plots"]:
-            cv.files["cross_validation"].append(str(plot_crossval(result, out_dir / "cross_validation.png",
-                                                                  overwrite=True)))
+            cv.files["cross_validation"].append(str(plot_crossval(
+                result, out_dir / "cross_validation.png", overwrite=True, data_units=in_data,
+                log=spec["transform.log"])))
     return cv
 
 

@@ -52,11 +52,17 @@ class VariogramResult:
 
 @dataclass
 class CrossValidation:
-    """Leave-one-out result (:class:`geosim.kriging.CrossValidationResult`), its summary and files."""
+    """Leave-one-out results in normal scores and in data units
+    (:class:`geosim.kriging.CrossValidationResult`), their summaries and files.
+
+    ``summary`` is ``{"normal_scores": {...}, "data_units": {...}}``, each with the
+    declustered statistics beside the plain ones.
+    """
 
     result: Any
     summary: dict
     files: dict[str, list[str]] = field(default_factory=dict)
+    data_units: Any = None
 
 
 @dataclass

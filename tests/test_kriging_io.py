@@ -73,4 +73,4 @@ def test_plot_is_a_png_carrying_the_caution(cv, tmp_path):
     out = plot_crossval(cv, tmp_path / "cv.png", units="g/t")
     with Image.open(out) as im:
         assert im.format == "PNG" and im.size[0] > 800
-        assert im.text["Disclaimer"] == geosim.CAUTION
+        assert im.text["Description"] == geosim.CAUTION
