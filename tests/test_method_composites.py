@@ -83,7 +83,7 @@ def test_the_ore_prospect_reports_dropped_composites():
 
 def test_the_run_spec_sets_the_minimum_sampled_fraction():
     import geosim.pipeline as pipeline
-    from geosim.io.runspec import load_spec
+    from geosim.config.runspec import load_spec
     spec = load_spec(SAMPLES / "run.toml", ["data.composites.min_sampled_fraction=0.9"])
     strict = pipeline.load_samples(spec)
     loose = pipeline.load_samples(load_spec(SAMPLES / "run.toml", ["data.composites.min_sampled_fraction=0"]))

@@ -13,7 +13,7 @@ import geosim
 import geosim.pipeline as pipeline
 from geosim.io.crossval import crossval_figure, plot_crossval, write_crossval_csv
 from geosim.io.csvw import read_csv_metadata
-from geosim.io.runspec import load_spec
+from geosim.config.runspec import load_spec
 from geosim.kriging import cross_validate
 
 AQUIFER = Path(__file__).resolve().parent.parent / "sample_fields" / "alluvial_aquifer" / "run.toml"

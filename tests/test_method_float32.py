@@ -7,7 +7,7 @@ import numpy as np
 import rasterio
 
 import geosim
-from geosim.io.geotiff import RealizationWriter
+from geosim.ensemble import RealizationWriter
 from geosim.summaries import fraction_above, grade_tonnage
 
 

@@ -244,9 +244,8 @@ def plot_variogram_reproduction(section: Mapping, path: str | os.PathLike, *, mo
             ax.plot(h, model.semivariance(vec), color="black", linewidth=1.8, label="model")
         else:
             ax.plot(lags, d["model"], color="black", linewidth=1.8, label="model")
-        tol = np.asarray(d["tolerance"], dtype=float)
-        ax.fill_between(lags, np.asarray(d["model"]) - tol, np.asarray(d["model"]) + tol, color="0.6",
-                        alpha=0.25, linewidth=0, label="tolerance")
+        ax.fill_between(lags, np.asarray(d["lower"], dtype=float), np.asarray(d["upper"], dtype=float),
+                        color="0.6", alpha=0.25, linewidth=0, label="tolerance (mean of realizations)")
         for lag, flag, y in zip(lags, d["flags"], d["realization_mean"]):
             if flag != "pass":
                 ax.annotate("warn", (lag, y), textcoords="offset points", xytext=(0, 8), ha="center",
