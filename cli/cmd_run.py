@@ -48,7 +48,7 @@ def run(ctx, spec, out_dir, overrides, workers, cluster, overwrite, no_resume, c
     n = len(result.kept) + len(result.computed)
     realizations = f"{n} ({len(result.computed)} computed"
     realizations += f", {len(result.kept)} kept from an earlier run)" if result.kept else ")"
-    rows = [("output folder", str(result.out_dir)), ("variogram model", str(result.model).strip())]
+    rows = [("output folder", str(result.out_dir)), ("variogram model", result.model.text(result.ndim).strip())]
     if result.crossval:
         rows.append(("cross-validation", crossval_text(result.crossval)))
     rows.append(("realizations", realizations))

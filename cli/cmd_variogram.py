@@ -27,7 +27,7 @@ def variogram(ctx, spec, out_dir, overrides, overwrite):
     for ev in result.experimental:
         table([(f"{lag:.0f} m", f"{g:.3f}  ({n} pairs)") for lag, g, n in zip(ev.lags, ev.gamma, ev.npairs) if n],
               title=f"experimental semivariogram of the normal scores, {ev.label} (mean lag: gamma)")
-    rows = [("model", str(result.model).strip()), ("source", result.source)]
+    rows = [("model", result.model_text().strip()), ("source", result.source)]
     if result.fit is not None:
         rows.append(("fit RMSE", f"{result.fit.rmse_:.4g} over {result.fit.nbins_} bins"))
         rows += [("warning", w) for w in result.fit.warnings_]

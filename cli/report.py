@@ -34,7 +34,8 @@ def crossval_text(summary: dict) -> str:
     lines.append(f"normal scores: RMSE {number(scores.get('rmse'))}, mean error "
                  f"{number(scores.get('mean_error'))}, mean standardized squared error "
                  f"{number(scores.get('mean_standardized_squared_error'))} "
-                 f"({scores.get('estimated', '?')} of {scores.get('samples', '?')} samples estimated)")
+                 f"({scores.get('estimated', '?')} of {scores.get('samples', '?')} samples estimated, "
+                 f"{scores.get('below_min_samples', '?')} with fewer than the minimum in their search)")
     return "\n".join(lines)
 
 

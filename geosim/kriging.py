@@ -58,8 +58,10 @@ class KrigingResult:
     Attributes
     ----------
     estimate, variance : (m,) ndarray
-        Kriged value and kriging variance; NaN where fewer than
-        ``min_samples`` samples were found.
+        Kriged value and kriging variance.  Simple kriging estimates every
+        target (with no sample: the mean and the sill); ordinary kriging gives
+        NaN where fewer than ``min_samples`` samples were found and the search
+        was not widened.
     n_used : (m,) int64 ndarray
         Samples in each local system.
     method : str
@@ -72,6 +74,10 @@ class KrigingResult:
     weights, neighbours : (m, k) ndarray or None
         With ``return_weights=True``: the kriging weights and the sample index
         of each weight (padded with 0 and -1).
+    n_short : int
+        Targets whose search ellipsoid held fewer than ``min_samples`` samples
+        (widened to the nearest ``min_samples`` when the neighbourhood says
+        ``widen``).
     """
 
     estimate: np.ndarray
@@ -82,6 +88,7 @@ class KrigingResult:
     n_regularized: int = 0
     weights: np.ndarray | None = field(default=None, repr=False)
     neighbours: np.ndarray | None = field(default=None, repr=False)
+    n_short: int = 0
 
     @property
     def std(self) -> np.ndarray:
@@ -243,34 +250,45 @@ def _krige_local(search: DataSearch, z, txyz, model, ordinary, mean, regularizat
     if reg < 0:
         raise ValueError(f"regularization must be >= 0, got {regularization}")
     tol = PIVOT_RTOL * c0
+    short = np.zeros(m, dtype=np.bool_)
 
-    def part(rows, cand):
+    def part(rows, cand, first, limit):
         # each thread writes its own targets' outputs and has its own failure record
         more = np.zeros(rows.shape[0], dtype=np.bool_)
         fail_info = np.zeros(2)
         fail_nbr = np.full(k, -1, dtype=np.int64)
         failed = _krige_rows(rows, cand, search.xyz, search.frame, z, search.holes, txyz, tframe, excl_i,
-                             excl_h, cm, ordinary, mean, c0, k, nb.min_samples, nb.sectors,
-                             nb.sector_limit, nb.hole_limit, tol, reg, est, var, n_used, n_reg, more,
-                             wts, nbr, fail_info, fail_nbr)
+                             excl_h, cm, ordinary, mean, c0, limit, nb.min_samples, nb.widen, first, short,
+                             nb.sectors, nb.sector_limit, nb.hole_limit, tol, reg, est, var, n_used, n_reg,
+                             more, wts, nbr, fail_info, fail_nbr)
         if failed >= 0:
             _raise_singular(int(rows[failed]), txyz, search.xyz, fail_nbr, int(fail_info[0]),
                             fail_info[1], labels, model, reg)
         return more
 
+    exclusions = excl_index is not None or excl_hole is not None
     with ThreadPoolExecutor(threads) if threads > 1 else nullcontext() as pool:
-        def step(rows, cand):
-            if pool is None or rows.shape[0] < _MIN_ROWS_PER_THREAD * threads:
-                return part(rows, cand)
-            cuts = np.linspace(0, rows.shape[0], threads + 1).astype(int)
-            jobs = [pool.submit(part, rows[a:b], cand[a:b]) for a, b in zip(cuts[:-1], cuts[1:])]
-            return np.concatenate([j.result() for j in jobs])
+        def sweep(targets, first, limit):
+            def step(rows, cand):
+                rows = targets[rows]
+                if pool is None or rows.shape[0] < _MIN_ROWS_PER_THREAD * threads:
+                    return part(rows, cand, first, limit)
+                cuts = np.linspace(0, rows.shape[0], threads + 1).astype(int)
+                jobs = [pool.submit(part, rows[a:b], cand[a:b], first, limit) for a, b in zip(cuts[:-1], cuts[1:])]
+                return np.concatenate([j.result() for j in jobs])
+            return step
 
-        search.run(tframe, step, exclusions=excl_index is not None or excl_hole is not None,
-                   progress=progress, what="kriging nodes", workers=threads)
+        everything = np.arange(m, dtype=np.int64)
+        search.run(tframe, sweep(everything, True, k), exclusions=exclusions, progress=progress,
+                   what="kriging nodes", workers=threads)
+        if nb.widen and nb.min_samples > 0 and short.any():
+            # the nearest min_samples wherever they lie: the ellipsoid grown until it holds them
+            thin = np.flatnonzero(short)
+            search.run(tframe[thin], sweep(thin, False, nb.min_samples), exclusions=exclusions,
+                       workers=threads, inside=False)
     return KrigingResult(est, var, n_used, "ordinary" if ordinary else "simple",
                          math.nan if ordinary else mean, int(n_reg.sum()),
-                         wts if return_weights else None, nbr if return_weights else None)
+                         wts if return_weights else None, nbr if return_weights else None, int(short.sum()))
 
 
 def _raise_singular(target, txyz, xyz, sel, pivot, value, labels, model, reg, context=None):
@@ -296,9 +314,13 @@ def _raise_singular(target, txyz, xyz, sel, pivot, value, labels, model, reg, co
 
 @njit(cache=True, nogil=True)
 def _krige_rows(rows, cand, xyz, frame, z, holes, txyz, tframe, excl_index, excl_hole, cm, ordinary,
-                mean, c0, max_samples, min_samples, sectors, sector_limit, hole_limit, tol, reg, est, var,
-                n_used, n_reg, more, wts, nbr, fail_info, fail_nbr):
-    """Select, build, factor and solve for each target in ``rows``; -1 or the failing row position."""
+                mean, c0, max_samples, min_samples, widen, first, short, sectors, sector_limit, hole_limit, tol,
+                reg, est, var, n_used, n_reg, more, wts, nbr, fail_info, fail_nbr):
+    """Select, build, factor and solve for each target in ``rows``; -1 or the failing row position.
+
+    ``first``: the pass inside the search ellipsoid, which marks targets with fewer than
+    ``min_samples`` in ``short`` (and leaves them for the widened pass when ``widen``).
+    """
     k = max_samples
     a = np.empty((k, k))
     c = np.empty(k)
@@ -317,13 +339,14 @@ def _krige_rows(rows, cand, xyz, frame, z, holes, txyz, tframe, excl_index, excl
         if need:
             continue
         n_used[r] = count
-        if count < min_samples or count == 0:
-            if count == 0 and min_samples == 0 and not ordinary:
-                est[r] = mean
-                var[r] = c0
-            else:
-                est[r] = np.nan
-                var[r] = np.nan
+        if first and count < min_samples:
+            short[r] = True
+            if widen:
+                continue
+        if count == 0 or (ordinary and count < min_samples):
+            # simple kriging without data is the known mean with the full variance
+            est[r] = np.nan if ordinary else mean
+            var[r] = np.nan if ordinary else c0
             continue
         tx = txyz[r, 0]
         ty = txyz[r, 1]
@@ -527,6 +550,9 @@ class CrossValidationResult:
         Declustering weights; :meth:`summary` then adds declustered statistics.
     scale : str
         ``"normal scores"``, ``"data units"`` or ``"as given"``.
+    n_short : int
+        Samples whose search held fewer than ``min_samples`` other samples (see
+        :class:`~geosim.search.Neighbourhood`).
     """
 
     coords: np.ndarray
@@ -541,6 +567,7 @@ class CrossValidationResult:
     units: str = ""
     weights: np.ndarray | None = None
     scale: str = "as given"
+    n_short: int = 0
 
     @property
     def error(self) -> np.ndarray:
@@ -579,6 +606,7 @@ class CrossValidationResult:
             "estimated": int(ok.sum()),
             "mean_value": _nanmean(np.where(ok, self.values, np.nan)),
             "mean_estimate": _nanmean(self.estimate),
+            "below_min_samples": int(self.n_short),
             "mean_error": self.mean_error,
             "rmse": self.rmse,
             "mean_standardized_error": _nanmean(self.standardized_error),
@@ -623,7 +651,8 @@ class CrossValidationResult:
             raise ValueError(f"{v.size} values for {self.values.size} cross-validated samples")
         mean, var = multigaussian_moments(transform, self.estimate, self.variance)
         return CrossValidationResult(self.coords, v, mean, var, self.n_used, self.sample_ids, self.method,
-                                     self.leave_out, self.model_text, units, self.weights, "data units")
+                                     self.leave_out, self.model_text, units, self.weights, "data units",
+                                     self.n_short)
 
 
 def _nanmean(a: np.ndarray) -> float:
@@ -704,9 +733,10 @@ progress
                           f"were regularized with {regularization:g} x sill on the diagonal",
                           GeosimWarning, stacklevel=2)
         est, var, n_used = res.estimate, res.variance, res.n_used
+    short = 0 if isinstance(neighbourhood, str) else res.n_short  # a global system holds every sample
     return CrossValidationResult(xyz[:, :d].copy(), z.copy(), est, var, n_used,
                                  [labels(i) for i in range(n)], "ordinary" if ordinary else "simple",
-                                 leave_out, str(model))
+                                 leave_out, model.text(d), n_short=short)
 
 
 def _loo_global(xyz, z, model, ordinary, mean, regularization, labels, hole_ids):

@@ -260,7 +260,7 @@ def neighbourhood(spec: RunSpec):
     s = spec["search"]
     return Neighbourhood(max_samples=s["max_samples"], min_samples=s["min_samples"], sectors=s["sectors"],
                          max_per_sector=s["max_per_sector"], max_per_hole=s["max_per_hole"],
-                         max_nodes=s["max_nodes"])
+                         max_nodes=s["max_nodes"], widen=s["widen"])
 
 
 def _relabel(progress: Progress | None, label: str) -> Progress | None:
@@ -381,6 +381,7 @@ def variogram_model(spec: RunSpec, data: PreparedData | None = None, *, out_dir:
                              fix="choose variogram.lag and lag_count so that more lags hold pairs, or give a "
                                  "fixed model (variogram.fit = false)") from None
         result = VariogramResult(fit.model_, experimental, fit, source="fitted")
+    result.ndim = len(spec["grid.cell"])
     if out_dir is not None:
         from .variogram.modelfile import save_model
         out_dir = claim_folder(spec, out_dir, overwrite)
@@ -458,7 +459,8 @@ def estimate(spec: RunSpec, data: PreparedData | None = None, model=None, grid=N
         full = np.full(grid.shape, np.nan)
         full[grid.mask] = values
         maps.append(full)
-    est = EstimateResult(*maps)
+    est = EstimateResult(*maps, n_short=result.n_short,
+                         n_unestimated=int(np.count_nonzero(np.isnan(result.estimate))))
     if out_dir is not None:
         from .io.geotiff import write_raster
         units = spec["data.units"]
@@ -483,7 +485,8 @@ def _inputs(spec: RunSpec) -> dict[str, str]:
 def provenance_tags(spec: RunSpec, data: PreparedData, model) -> dict[str, str]:
     """The provenance tags every raster of the run carries."""
     from .io.report import provenance
-    return provenance(seed=spec["simulation.seed"], engine=spec["simulation.engine"], model=model,
+    return provenance(seed=spec["simulation.seed"], engine=spec["simulation.engine"],
+                      model=model.text(len(spec["grid.cell"])),
                       transform=data.transform, inputs=_inputs(spec), units=spec["data.units"] or None,
                       extra={"run_spec_sha256": spec.sha256})
 
@@ -625,7 +628,8 @@ def summarize(spec: RunSpec, out_dir: str | os.PathLike, *, data: PreparedData |
     files = simulation.writer.finish(simulation.records, cutoffs=out["cutoffs"], stack=True,
                                      keep_realization_files=out["keep_realizations"],
                                      progress=_relabel(progress, "summary windows"))
-    report = dict(provenance(seed=spec["simulation.seed"], engine=spec["simulation.engine"], model=model,
+    report = dict(provenance(seed=spec["simulation.seed"], engine=spec["simulation.engine"],
+                      model=model.text(len(spec["grid.cell"])),
                              transform=data.transform, inputs=_inputs(spec), units=spec["data.units"] or None))
     report.update({"title": spec["title"], "run_spec": spec.name, "run_spec_sha256": spec.sha256,
                    "parameters": spec.to_dict(), "samples": int(len(data.values)), "notes": list(data.notes),
@@ -741,7 +745,7 @@ def _run_steps(spec, data, grid, out_dir, resume, progress, timed, timings) -> R
     mine = dict(out_dir=out_dir, progress=progress)
     vg = timed("variogram", variogram_model, spec, data, **mine)
     files = dict(vg.files)
-    extra: dict[str, Any] = {"variogram": {"model": str(vg.model), "source": vg.source}}
+    extra: dict[str, Any] = {"variogram": {"model": vg.model_text(), "source": vg.source}}
     if vg.fit is not None:
         extra["variogram"]["fit"] = vg.fit.to_dict()
     crossval = None
@@ -749,19 +753,42 @@ def _run_steps(spec, data, grid, out_dir, resume, progress, timed, timings) -> R
         cv = timed("cross-validation", cross_validate, spec, data, vg.model, **mine)
         crossval = extra["cross_validation"] = cv.summary
         files.update(cv.files)
+    notes = list(data.notes)
+    if crossval is not None:
+        scores = crossval["normal_scores"]
+        notes.append(short_note(scores["below_min_samples"], scores["samples"], "left-out samples", spec))
     if spec["outputs.estimate"]:
-        files.update(timed("kriging estimate", estimate, spec, data, vg.model, grid, **mine).files)
+        est = timed("kriging estimate", estimate, spec, data, vg.model, grid, **mine)
+        files.update(est.files)
+        extra["estimate"] = {"active_nodes": grid.n_active, "below_min_samples": est.n_short,
+                             "unestimated": est.n_unestimated, "min_samples": spec["search.min_samples"],
+                             "widened": spec["search.widen"]}
+        notes.append(short_note(est.n_short, grid.n_active, "grid nodes", spec, est.n_unestimated))
     sim = timed("simulation", simulate, spec, data, vg.model, grid, out_dir=out_dir, resume=resume,
                 progress=progress)
     files.update(timed("summaries and report", summarize, spec, out_dir, data=data, model=vg.model, grid=grid,
                        simulation=sim, extra=extra, progress=progress))
-    notes = list(data.notes)
     checks = [r.get("checks") for r in sim.records]
     if checks and all(c is not None and "extremes" in c for c in checks):
         from .validation import extremes_summary
         notes.append(extremes_note(extremes_summary(data.values, checks), spec["data.units"]))
     return RunResult(out_dir, spec.sha256, files, vg.model, sim.kept, sim.computed, crossval,
-                     decision_spread(sim), timings, notes)
+                     decision_spread(sim), timings, notes, grid.ndim)
+
+
+def short_note(short: int, total: int, what: str, spec: RunSpec, unestimated: int = 0) -> str:
+    """One line saying how many kriging searches held fewer than ``search.min_samples`` samples
+    and what was done about it."""
+    k = spec["search.min_samples"]
+    if spec["search.widen"]:
+        done = f"their search was widened to the nearest {k}"
+    elif spec["simulation.kriging"] == "simple":
+        done = "simple kriging estimated them from the samples found and the mean"
+    else:
+        done = "ordinary kriging left them without an estimate"
+    text = f"kriging: {short} of {total} {what} had fewer than {k} sample(s) in the search"
+    text += f"; {done}" if short else ""
+    return text + (f"; {unestimated} without an estimate" if unestimated else "")
 
 
 def extremes_note(extremes: Mapping[str, Any], units: str | None = None) -> str:

@@ -48,6 +48,11 @@ class VariogramResult:
     fit: Any = None
     source: str = ""
     files: dict[str, list[str]] = field(default_factory=dict)
+    ndim: int | None = None      # the grid's dimension, for the model's text
+
+    def model_text(self) -> str:
+        """The model as text, with what applies to the grid's dimension."""
+        return self.model.text(self.ndim)
 
 
 @dataclass
@@ -81,6 +86,8 @@ class EstimateResult:
     mean: np.ndarray
     variance: np.ndarray
     files: dict[str, list[str]] = field(default_factory=dict)
+    n_short: int = 0        # active nodes whose search held fewer than search.min_samples samples
+    n_unestimated: int = 0  # active nodes left without an estimate (ordinary kriging, search not widened)
 
 
 @dataclass
@@ -107,6 +114,7 @@ class RunResult:
     decision: list[dict]
     timings: dict[str, float]
     notes: list[str]
+    ndim: int = 3
 
 
 def describe_spec(spec: RunSpec) -> list[tuple[str, str]]:

@@ -38,7 +38,14 @@ class Neighbourhood:
     max_samples : int
         Most data samples used at one node.
     min_samples : int
-        Fewest data samples for an estimate; nodes with fewer get nodata.
+        Fewest data samples wanted in a kriging system.  A node whose search
+        ellipsoid holds fewer is counted (``KrigingResult.n_short``) and, with
+        ``widen``, takes the nearest ``min_samples`` samples in the ellipsoid's
+        metric instead (the ellipsoid grown, same shape, until it holds them).
+        Without ``widen``, ordinary kriging leaves such a node without an
+        estimate, and simple kriging estimates it from the samples found and the
+        known mean (with no sample at all: the mean, with the full sill as
+        variance).  Simulation does not use it.
     ranges : tuple of float or None
         Search ellipsoid radii ``(major, minor, vertical)`` in metres. None takes
         the ranges of the model's longest structure.
@@ -57,6 +64,10 @@ class Neighbourhood:
         Most samples taken from one drillhole (needs hole ids).
     max_nodes : int
         Most previously simulated nodes used at one node (simulation only).
+    widen : bool
+        Grow the search of a node with fewer than ``min_samples`` samples inside
+        until it holds ``min_samples`` (kriging and cross-validation; default True,
+        so the default search suits any data spacing).
 
     Examples
     --------
@@ -76,6 +87,7 @@ class Neighbourhood:
     max_per_sector: int | None = None
     max_per_hole: int | None = None
     max_nodes: int = 16
+    widen: bool = True
 
     def __post_init__(self):
         if isinstance(self.sectors, str):
@@ -241,29 +253,33 @@ class DataSearch:
             k += 1
         return max(1, min(self.n, k))
 
-    def candidates(self, frame_targets: np.ndarray, k: int, workers: int = 1) -> np.ndarray:
+    def candidates(self, frame_targets: np.ndarray, k: int, workers: int = 1, *,
+                   inside: bool = True) -> np.ndarray:
         """Nearest ``k`` samples inside the ellipsoid for targets already in the frame.
 
         Returns an ``(m, k)`` int64 array of sample indices sorted by reduced
         distance, padded with ``n`` (the number of samples) where fewer lie inside.
-        ``workers`` threads share the tree query.
+        ``workers`` threads share the tree query; ``inside=False`` drops the
+        ellipsoid's bound (the nearest ``k`` wherever they are).
         """
         m = frame_targets.shape[0]
         if self.n == 0 or k == 0:
             return np.full((m, max(k, 1)), self.n, dtype=np.int64)
-        _, idx = self._tree.query(frame_targets, k=k, distance_upper_bound=1.0 + _RADIUS_SLACK,
-                                  workers=workers)
+        bound = 1.0 + _RADIUS_SLACK if inside else np.inf
+        _, idx = self._tree.query(frame_targets, k=k, distance_upper_bound=bound, workers=workers)
         return np.ascontiguousarray(idx.reshape(m, k), dtype=np.int64)
 
     def run(self, frame_targets: np.ndarray, step: Callable[[np.ndarray, np.ndarray], np.ndarray], *,
-            exclusions: bool = False, progress=None, what: str = "nodes", workers: int = 1) -> None:
+            exclusions: bool = False, progress=None, what: str = "nodes", workers: int = 1,
+            inside: bool = True) -> None:
         """Drive ``step(rows, candidates) -> needs_more`` over all targets, block by block.
 
         ``rows`` are target indices and ``candidates`` their candidate rows.
         ``step`` returns a boolean array: rows whose candidates ran out before
         the limits were met are fetched again with twice as many candidates.
         ``progress(done, total, what)`` is called after each block; ``workers``
-        threads share the candidate query.
+        threads share the candidate query; ``inside=False`` searches beyond the
+        ellipsoid (see :meth:`candidates`).
         """
         m = frame_targets.shape[0]
         k0 = self.initial_candidates(exclusions)
@@ -272,7 +288,7 @@ class DataSearch:
             rows = np.arange(start, min(m, start + block), dtype=np.int64)
             k = k0
             while rows.size:
-                more = step(rows, self.candidates(frame_targets[rows], k, workers))
+                more = step(rows, self.candidates(frame_targets[rows], k, workers, inside=inside))
                 if k >= self.n or not np.any(more):
                     break
                 rows = rows[more]

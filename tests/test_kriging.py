@@ -168,17 +168,35 @@ def test_simple_kriging_matches_dense_solve_in_3d_with_mean():
         assert res.variance[i] == pytest.approx(var[0], abs=1e-10)
 
 
-def test_too_few_samples_gives_nan_never_a_made_up_value():
+def test_too_few_samples_ordinary_gives_nan_simple_uses_the_mean_widened_search_fills_in():
     xy = np.array([[0.0, 0.0], [10.0, 0.0], [0.0, 10.0]])
     model = geosim.Model([geosim.Spherical(1.0, Anisotropy((50.0, 50.0)))])
     targets = np.array([[2.0, 2.0], [55.0, 0.0], [500.0, 500.0]])
-    res = krige(xy, [1.0, 2.0, 3.0], targets, model, neighbourhood=Neighbourhood(min_samples=2))
-    assert res.n_used.tolist() == [3, 1, 0]
+    fixed = Neighbourhood(min_samples=2, widen=False)
+    res = krige(xy, [1.0, 2.0, 3.0], targets, model, method="ordinary", neighbourhood=fixed)
+    assert res.n_used.tolist() == [3, 1, 0] and res.n_short == 2
     assert np.isfinite(res.estimate[0]) and np.all(np.isnan(res.estimate[1:]))
     assert np.all(np.isnan(res.variance[1:]))
-    # simple kriging with min_samples=0 falls back to the known mean and the sill (no data)
-    res = krige(xy, [1.0, 2.0, 3.0], targets, model, mean=5.0, neighbourhood=Neighbourhood(min_samples=0))
-    assert res.estimate[2] == 5.0 and res.variance[2] == 1.0
+    # simple kriging never leaves a target without an estimate: the one sample found (a system
+    # of one) and, with none, the known mean with the full sill as variance
+    res = krige(xy, [1.0, 2.0, 3.0], targets, model, mean=5.0, neighbourhood=fixed)
+    c = float(model.covariance(np.array([[45.0, 0.0]]))[0])  # target 2 to its one sample (10, 0)
+    assert res.estimate[1] == pytest.approx(5.0 + c * (2.0 - 5.0)) and res.variance[1] == pytest.approx(1 - c * c)
+    assert res.estimate[2] == 5.0 and res.variance[2] == 1.0 and res.n_short == 2
+    # the default search widens to the nearest min_samples: every target gets a system of 2
+    for method in ("simple", "ordinary"):
+        res = krige(xy, [1.0, 2.0, 3.0], targets, model, method=method, neighbourhood=Neighbourhood(min_samples=2))
+        assert res.n_used.tolist() == [3, 2, 2] and res.n_short == 2 and np.isfinite(res.estimate).all()
+
+
+def test_simple_kriging_without_data_gives_the_mean_and_the_sill():
+    model = geosim.Nugget(0.25) + geosim.Spherical(0.75, Anisotropy((50.0, 50.0)))
+    targets = np.array([[0.0, 0.0], [1e4, -3e3]])
+    for nbh in (Neighbourhood(), Neighbourhood(widen=False), Neighbourhood(min_samples=0)):
+        res = krige(np.empty((0, 2)), [], targets, model, mean=-1.5, neighbourhood=nbh)
+        np.testing.assert_array_equal(res.estimate, [-1.5, -1.5])
+        np.testing.assert_array_equal(res.variance, [1.0, 1.0])
+        assert res.n_used.tolist() == [0, 0]
 
 
 def test_coincident_samples_raise_with_ids_and_cause():

@@ -296,10 +296,15 @@ SCHEMA: dict[str, dict[str, Key]] = {
     },
     "search": {
         "max_samples": Key(_int(1, 256), default=16),
-        "min_samples": Key(_int(0, 256), default=1),
+        "min_samples": Key(_int(0, 256), default=1,
+                           help="fewest samples wanted in a kriging system (see widen); nodes and "
+                                "left-out samples with fewer are counted in the report"),
         "max_nodes": Key(_int(0, 256), default=16),
         "sectors": Key(_choice("off", "quadrants", "octants"), default="off",
                        help="split the search around each node and take samples from each part"),
+        "widen": Key(_bool, default=True,
+                     help="kriging: a node with fewer than min_samples in its search takes the nearest "
+                          "min_samples wherever they lie (the search grown, same shape)"),
         "max_per_sector": Key(_int(1, 256)),
         "max_per_hole": Key(_int(1, 256)),
     },

@@ -78,6 +78,8 @@ class FitResult:
         Signs of a degenerate fit (also issued as :class:`geosim.GeosimWarning`).
     weighting : str
         The weighting used.
+    ndim_ : int
+        2 or 3: the dimension of the data fitted (the model's text shows what applies).
     """
 
     model_: Model
@@ -91,16 +93,17 @@ class FitResult:
     message_: str
     warnings_: list = field(default_factory=list)
     weighting: str = "cressie"
+    ndim_: int = 3
 
     def to_dict(self) -> dict:
         """Plain data for JSON reports: the model as ``to_dicts()``, parameters, fit figures, warnings."""
-        return {"model": self.model_.to_dicts(), "model_text": str(self.model_), "params": dict(self.params_),
+        return {"model": self.model_.to_dicts(), "model_text": self.model_.text(self.ndim_), "params": dict(self.params_),
                 "free": list(self.free_), "weighting": self.weighting, "wrss": self.wrss_, "rmse": self.rmse_,
                 "rmse_by_direction": dict(self.rmse_by_direction_), "nbins": self.nbins_,
                 "success": self.success_, "message": self.message_, "warnings": list(self.warnings_)}
 
     def __str__(self) -> str:
-        lines = ["fitted model:", str(self.model_),
+        lines = ["fitted model:", self.model_.text(self.ndim_),
                  f"weighting: {self.weighting}; bins used: {self.nbins_}; "
                  f"free parameters: {len(self.free_)}",
                  f"weighted RSS: {self.wrss_:.6g}; RMSE: {self.rmse_:.6g}"]
@@ -309,7 +312,7 @@ def fit_model(experimental: ExperimentalVariogram | Sequence[ExperimentalVariogr
     for w in notes:
         warnings.warn(w, GeosimWarning, stacklevel=2)
     return FitResult(model, values, tuple(free), float(wres @ wres), float(np.sqrt(np.mean(raw**2))),
-                     raw_by, nbins, success, message, notes, weighting)
+                     raw_by, nbins, success, message, notes, weighting, dim)
 
 
 # internals --------------------------------------------------------------------

@@ -250,18 +250,38 @@ class Model:
             structures.append(cls_(**kwargs))
         return cls(structures)
 
-    def __str__(self) -> str:
+    def text(self, ndim: int | None = None) -> str:
+        """The model as text, one structure a line; ``ndim=2`` prints what a 2-D grid uses
+        (major and minor ranges and the azimuth), 3 or None every range and angle.
+
+        Examples
+        --------
+        >>> import geosim
+        >>> m = geosim.Nugget(0.1) + geosim.Spherical(0.9, geosim.Anisotropy((300.0, 100.0), azimuth=30.0))
+        >>> print(m.text(2))
+          nugget sill=0.1
+        + spherical sill=0.9 ranges=(300, 100) azimuth=30
+        >>> print(m.text(3).splitlines()[1])
+        + spherical sill=0.9 ranges=(300, 100, 300) azimuth=30 dip=0 rake=0
+        """
+        if ndim not in (None, 2, 3):
+            raise ValueError(f"ndim must be 2, 3 or None, got {ndim!r}")
         lines = []
         for i, d in enumerate(self.to_dicts()):
             parts = [f"{d['kind']} sill={d['sill']:.6g}"]
             if "ranges" in d:
-                parts.append("ranges=(" + ", ".join(f"{r:.6g}" for r in d["ranges"]) + ")")
-                parts.append(f"azimuth={d['azimuth']:.6g} dip={d['dip']:.6g} rake={d['rake']:.6g}")
+                ranges = d["ranges"][:2] if ndim == 2 else d["ranges"]
+                parts.append("ranges=(" + ", ".join(f"{r:.6g}" for r in ranges) + ")")
+                parts.append(f"azimuth={d['azimuth']:.6g}" if ndim == 2 else
+                             f"azimuth={d['azimuth']:.6g} dip={d['dip']:.6g} rake={d['rake']:.6g}")
             for k, v in d.items():
                 if k not in ("kind", "sill", "ranges", "azimuth", "dip", "rake"):
                     parts.append(f"{k}={v:.6g}")
             lines.append(("  " if i == 0 else "+ ") + " ".join(parts))
         return "\n".join(lines)
+
+    def __str__(self) -> str:
+        return self.text()
 
     def __repr__(self) -> str:
         return f"Model({list(self.structures)!r})"
