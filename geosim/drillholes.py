@@ -12,7 +12,15 @@ Conventions
 * Azimuth: degrees clockwise from north, ``[0, 360)``; 360 is accepted as north.
 * Dip: degrees from horizontal, **negative downward**: -90 is vertically down,
   0 horizontal, +90 vertically up (underground holes drilled upward), range
-  ``[-90, 90]``.
+  ``[-90, 90]``.  This is the one place geosim uses a negative-downward dip: it
+  is the usual convention of drillhole survey files.  Everywhere else (variogram
+  structures, directions, search ellipsoids: :mod:`geosim.variogram.anisotropy`)
+  dip is positive downward.  Files that give survey dips positive downward are
+  read with ``survey_dip="positive_down"`` (run spec: ``data.survey_dip``), which
+  negates them and says so in the notes.  A survey file in which every dip is
+  positive (every hole pointing upward) is refused unless the convention is
+  stated, because it is almost always a positive-downward file read the wrong
+  way round, which would mirror every hole about the collar's horizontal plane.
 * A hole without survey rows is vertical (dip -90).  When a hole's first survey is
   below the collar, its orientation holds from the collar down to it; below the
   last survey the hole continues straight.
@@ -33,7 +41,6 @@ from __future__ import annotations
 
 import math
 import os
-import warnings
 from collections.abc import Mapping, Sequence
 from dataclasses import dataclass, field
 
@@ -41,7 +48,7 @@ import numpy as np
 from pyproj import CRS
 
 from .crs import CrsLike, to_projected
-from .errors import GeosimWarning, InputError
+from .errors import InputError
 from .points import PointSet, merge_coincident
 from .tables import CsvTable, read_table, suggest
 
@@ -51,6 +58,8 @@ DEFAULT_COLUMNS = {
     "intervals": {"hole_id": "hole_id", "from": "from", "to": "to"},
 }
 
+# sign conventions a survey file's dips may be stated in (module docstring)
+SURVEY_DIP = ("negative_down", "positive_down")
 _DEPTH_TOL = 1e-3  # m; interval ends this close past the total depth are accepted (rounding)
 
 
@@ -311,7 +320,8 @@ def _hole_index(table: CsvTable, col: str, known: dict, what: str) -> np.ndarray
 
 def read_drillholes(collars: str | os.PathLike, surveys: str | os.PathLike | None,
                     intervals: str | os.PathLike, *, values: str | Sequence[str], crs: CrsLike | None,
-                    target_crs: CrsLike | None = None, columns: Mapping | None = None) -> Drillholes:
+                    target_crs: CrsLike | None = None, columns: Mapping | None = None,
+                    survey_dip: str | None = None) -> Drillholes:
     """Read and check collar, survey and interval tables.
 
     Parameters
@@ -330,6 +340,12 @@ def read_drillholes(collars: str | os.PathLike, surveys: str | os.PathLike | Non
         every table, e.g. ``{"hole_id": "HOLE", "from": "FROM_M"}``, and/or per table,
         e.g. ``{"collar": {"x": "east", "y": "north"}}``; roles are those of
         :data:`DEFAULT_COLUMNS`.
+    survey_dip : {"negative_down", "positive_down"}, optional
+        The sign convention of the survey file's dips (module docstring).  None
+        (default): negative downward, and a file whose every dip is positive is
+        refused with the fix; ``"positive_down"`` negates the dips (a note says
+        so); ``"negative_down"`` stated explicitly accepts holes that all point
+        upward (underground drilling).
 
     Returns
     -------
@@ -345,12 +361,10 @@ def read_drillholes(collars: str | os.PathLike, surveys: str | os.PathLike | Non
         consecutive survey directions, ``from >= to``, negative ``from``,
         intervals past the hole's depth, overlapping intervals within a hole.
 
-    Warns
-    -----
-    GeosimWarning
-        When every dip is positive (holes drilled upward): usually a file whose
-        dips are positive downward.
+        Also when every survey dip is positive and ``survey_dip`` was not given.
     """
+    if survey_dip not in (None, *SURVEY_DIP):
+        raise ValueError(f"survey_dip must be 'negative_down' or 'positive_down', got {survey_dip!r}")
     cols = column_names(columns)
     names = (values,) if isinstance(values, str) else tuple(values)
     if not names:
@@ -400,10 +414,18 @@ def read_drillholes(collars: str | os.PathLike, surveys: str | os.PathLike | Non
                 f"dip {sp[i]:g} is outside -90 to 90 degrees", file=st.path, row=st.lines[i], field=col["dip"],
                 fix="give degrees from horizontal, negative downward (-90 = vertically down)")),
         ])
-        if (sp > 0).any() and not (sp < 0).any():
-            warnings.warn(f"{st.path}: every dip is positive, i.e. every hole points upward; geosim's dips "
-                          "are negative downward: negate the dips if the holes go down", GeosimWarning,
-                          stacklevel=2)
+        if survey_dip is None and (sp > 0).any() and not (sp < 0).any():
+            first = int(np.argmax(sp > 0))
+            raise InputError("every survey dip is positive, so every hole would point upward from its collar "
+                             "(survey dips are read negative downward)", file=st.path, row=st.lines[first],
+                             field=col["dip"],
+                             fix='if the file gives dips positive downward, state it with survey_dip = '
+                                 '"positive_down" (data.survey_dip in a run spec); if the holes really were '
+                                 'drilled upward, state survey_dip = "negative_down"')
+        if survey_dip == "positive_down":
+            sp = -sp
+            notes.append(f"{st.path}: survey dips read as positive downward (survey_dip = \"positive_down\") "
+                         "and negated to geosim's negative-downward survey convention")
         order = np.lexsort((sd, sh))
         for h_idx in np.unique(sh):
             rows = order[sh[order] == h_idx]

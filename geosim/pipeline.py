@@ -108,7 +108,7 @@ def read_holes(spec: RunSpec):
     return read_drillholes(spec.resolve(d["collars"]),
                            None if d["surveys"] is None else spec.resolve(d["surveys"]),
                            spec.resolve(d["intervals"]), values=d["value"], crs=crs, target_crs=target,
-                           columns=d["columns"] or None)
+                           columns=d["columns"] or None, survey_dip=d["survey_dip"])
 
 
 def decluster(spec: RunSpec, samples, progress: Progress | None = None):

@@ -233,13 +233,6 @@ def test_misspelt_value_column(files):
     assert err.value.row == 1
 
 
-def test_all_positive_dips_warn(tmp_path):
-    srv = "hole_id,depth,azimuth,dip\nA,0,90,60\nB,0,0,90\n"
-    paths = [write(tmp_path, "c.csv", COLLARS), write(tmp_path, "s.csv", srv), write(tmp_path, "i.csv", INTERVALS)]
-    with pytest.warns(GeosimWarning, match="negative downward"):
-        read_drillholes(*paths, values="cu", crs=None)
-
-
 def test_composite_arguments(files):
     h = read_drillholes(*files, values="cu", crs=None)
     for kwargs in ({"length": 0.0}, {"length": 2.0, "min_fraction": 1.5}, {"length": 2.0, "residual": "keep"},
@@ -324,3 +317,52 @@ def test_merged_composites_conserve_sampled_metres(pieces, length, min_fraction)
     np.testing.assert_allclose(c.attributes["length"].sum(), (bottom - top)[ok].sum(), rtol=1e-9)
     assert (c.column() >= vals[ok].min() - 1e-9).all() and (c.column() <= vals[ok].max() + 1e-9).all()
     assert (np.diff(c.attributes["depth"]) > 0).all()
+
+
+def test_survey_dip_sign_is_stated_never_mirrored(tmp_path):
+    down = "hole_id,depth,azimuth,dip\nA,0,90,-60\nB,0,0,-90\n"
+    up = "hole_id,depth,azimuth,dip\nA,0,90,60\nB,0,0,90\n"
+    c, i = write(tmp_path, "c.csv", COLLARS), write(tmp_path, "i.csv", INTERVALS)
+    ref = read_drillholes(c, write(tmp_path, "down.csv", down), i, values="cu", crs=None)
+    # 10 m down a hole plunging 60 degrees east: 5 m east, 8.66 m below the collar (z 50)
+    np.testing.assert_allclose(ref.positions("A", [10.0])[0], [105.0, 200.0, 50.0 - 10 * math.sin(math.radians(60))])
+    upfile = write(tmp_path, "up.csv", up)
+    # a positive-downward file read without saying so is refused: file, row, column and the fix
+    with pytest.raises(InputError, match='survey_dip = "positive_down"') as err:
+        read_drillholes(c, upfile, i, values="cu", crs=None)
+    assert err.value.row == 2 and err.value.field == "dip" and "up.csv" in str(err.value)
+    # stated: the dips are negated, the holes are those of the negative-downward file, and a note says so
+    pos = read_drillholes(c, upfile, i, values="cu", crs=None, survey_dip="positive_down")
+    for hole in ("A", "B"):
+        np.testing.assert_allclose(pos.positions(hole, [3.0, 9.0]), ref.positions(hole, [3.0, 9.0]))
+    assert any("positive downward" in n and "negated" in n for n in pos.notes)
+    # stated negative_down: holes drilled upward (underground) are taken as they are
+    upward = read_drillholes(c, upfile, i, values="cu", crs=None, survey_dip="negative_down")
+    assert upward.positions("A", [10.0])[0, 2] == pytest.approx(50.0 + 10 * math.sin(math.radians(60)))
+    with pytest.raises(ValueError, match="survey_dip"):
+        read_drillholes(c, upfile, i, values="cu", crs=None, survey_dip="down")
+
+
+def test_run_spec_states_the_survey_dip_convention(tmp_path):
+    import geosim.io.runspec
+    import geosim.pipeline
+    ore = Path(__file__).resolve().parent.parent / "sample_fields" / "ore_prospect"
+    spec = geosim.io.runspec.load_spec(ore / "run.toml")
+    assert spec["data.survey_dip"] == "negative_down"
+    flipped = tmp_path / "surveys.csv"
+    lines = (ore / "surveys.csv").read_text().splitlines()
+    head = lines[0].split(",")
+    k = head.index("dip")
+    rows = [",".join(f"{-float(v):g}" if j == k else v for j, v in enumerate(line.split(","))) for line in lines[1:]]
+    flipped.write_text("\n".join([lines[0], *rows]) + "\n")
+    holes = geosim.pipeline.read_holes(spec)
+    for stated in ("positive_down", None):
+        over = {"data.surveys": str(flipped), "data.survey_dip": stated}
+        other = geosim.io.runspec.load_spec(ore / "run.toml", overrides=over)
+        if stated is None:
+            with pytest.raises(InputError, match="positive_down"):
+                geosim.pipeline.read_holes(other)
+            continue
+        mine = geosim.pipeline.read_holes(other)
+        name = next(iter(holes.surveys))
+        np.testing.assert_allclose(mine.positions(name, [5.0, 40.0]), holes.positions(name, [5.0, 40.0]))

@@ -215,6 +215,9 @@ SCHEMA: dict[str, dict[str, Key]] = {
         "columns": Key(_column_map, default={},
                        help="drillholes: default column name -> name in the files (all tables), or "
                             "collar/survey/intervals = {name = ...} for one table"),
+        "survey_dip": Key(_choice("negative_down", "positive_down"),
+                          help='drillholes: sign of the survey file\'s dips; default "negative_down" (-90 = '
+                               'straight down), and a file whose every dip is positive is refused'),
     },
     "data.composites": {
         "length": Key(_number(0.0, lo_open=True), required=True, help="composite length in metres"),
@@ -660,6 +663,8 @@ def _check_combinations(spec: dict, problems: list[str]) -> None:
                                 f"data.columns, found {data[k]!r}")
     elif data["columns"]:
         problems.append("data.columns: only for drillholes, found it beside data.points")
+    if data["survey_dip"] is not None and data["surveys"] is None:
+        problems.append("data.survey_dip: states the sign of survey dips, found it without data.surveys")
 
     decl = spec["declustering"]
     grid = spec["grid"]
