@@ -53,7 +53,8 @@ def run(ctx, spec, out_dir, overrides, workers, cluster, overwrite, no_resume, c
         rows.append(("cross-validation", crossval_text(result.crossval)))
     rows.append(("realizations", realizations))
     if result.decision:
-        rows.append(("decision figures", decision_text(result.decision)))
+        rows.append(("decision figures", decision_text(result.decision, units=run_spec["data.units"],
+                                                       metal_unit=geosim.pipeline.metal_unit(run_spec))))
     rows += [("note", note) for note in result.notes]
     rows += [("files", files_text(result.files, result.out_dir)),
              ("time", seconds(time.perf_counter() - start) + " (" + ", ".join(

@@ -39,12 +39,16 @@ def crossval_text(summary: dict) -> str:
     return "\n".join(lines)
 
 
-def decision_text(rows: list[dict], limit: int = 6) -> str:
+def decision_text(rows: list[dict], limit: int = 6, units: str = "", metal_unit: str = "") -> str:
+    from geosim.summaries import figure_display
     lines = []
     for row in rows[:limit]:
         level_key = next(iter(row))
-        lines.append(f"{row['figure']} at {level_key} {row[level_key]:g}: P10 {number(row.get('P10'))}, "
-                     f"P50 {number(row.get('P50'))}, P90 {number(row.get('P90'))}")
+        (p10, p50, p90), unit = figure_display(row["figure"], [row.get("P10", math.nan), row.get("P50", math.nan),
+                                                               row.get("P90", math.nan)], units, metal_unit)
+        level = f"{row[level_key]:g}" + (f" {units}" if units else "")
+        lines.append(f"{row['figure'].replace('_', ' ')} at {level_key} {level}: P10 {number(float(p10))}, "
+                     f"P50 {number(float(p50))}, P90 {number(float(p90))}" + (f" {unit}" if unit else ""))
     if len(rows) > limit:
         lines.append(f"... {len(rows) - limit} more in decision_spread.csv")
     return "\n".join(lines)

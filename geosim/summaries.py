@@ -329,6 +329,36 @@ def decision_spread(figures: Sequence[Mapping[str, np.ndarray]]) -> list[dict]:
     return out
 
 
+# units a decision figure is shown in: (threshold at which the larger unit reads better, factor, unit)
+_DISPLAY_UNITS = {"area": ((1e6, 1e6, "km\u00b2"), "m\u00b2"), "volume": ((1e6, 1e6, "million m\u00b3"), "m\u00b3"),
+                  "tonnage": ((1e6, 1e6, "Mt"), "t")}
+
+
+def figure_display(figure: str, values: Sequence[float], units: str = "", metal_unit: str = ""
+                   ) -> tuple[np.ndarray, str]:
+    """Values of one decision figure scaled for reading, and their unit.
+
+    Areas are in m\u00b2, or km\u00b2 when the largest is a square kilometre or more;
+    volumes in m\u00b3 or million m\u00b3; tonnages in t or Mt; grades in the data units.
+
+    Examples
+    --------
+    >>> from geosim.summaries import figure_display
+    >>> figure_display("area", [2.5e6, 4.0e6])
+    (array([2.5, 4. ]), 'km²')
+    >>> figure_display("volume", [5200.0])
+    (array([5200.]), 'm³')
+    """
+    v = np.asarray(values, dtype=float)
+    if figure in _DISPLAY_UNITS:
+        (threshold, factor, big), small = _DISPLAY_UNITS[figure]
+        finite = np.abs(v[np.isfinite(v)])
+        return (v / factor, big) if finite.size and finite.max() >= threshold else (v, small)
+    unit = {"mean_grade": units, "cutoff": units, "threshold": units, "metal": metal_unit,
+            "fraction_above": "of the domain", "fraction_below": "of the domain"}.get(figure, "")
+    return v, unit
+
+
 # moved up to the modules that read and write files; the old paths work for one release
 __getattr__ = forward(__name__, {"summarize_realizations": "geosim.ensemble",
                                  "decision_columns": "geosim.io.decision",
