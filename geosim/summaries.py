@@ -46,7 +46,7 @@ from .errors import InputError
 
 __all__ = ["QUANTILE_METHOD", "SUMMARY_PERCENTILES", "summary_band_names", "summary_band_descriptions",
            "summary_bands", "summarize_ensemble", "summarize_windows", "grade_tonnage", "fraction_above",
-           "fraction_below", "decision_rows", "decision_spread"]
+           "fraction_below", "decision_rows", "decision_spread", "figure_display"]
 
 QUANTILE_METHOD = "linear"  # numpy's default; Hyndman and Fan (1996) definition 7
 SUMMARY_PERCENTILES = (10.0, 50.0, 90.0)
