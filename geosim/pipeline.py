@@ -31,6 +31,7 @@ moments are in :mod:`geosim.transforms`; the realization writer is
 """
 from __future__ import annotations
 
+import contextlib
 import math
 import os
 import time
@@ -460,17 +461,25 @@ def estimate(spec: RunSpec, data: PreparedData | None = None, model=None, grid=N
         full[grid.mask] = values
         maps.append(full)
     est = EstimateResult(*maps, n_short=result.n_short,
-                         n_unestimated=int(np.count_nonzero(np.isnan(result.estimate))))
+                         n_unestimated=int(np.count_nonzero(np.isnan(result.estimate))),
+                         grid=grid, units=spec["data.units"])
     if out_dir is not None:
         from .io.geotiff import write_raster
-        units = spec["data.units"]
-        u = f" ({units})" if units else ""
-        bands = np.stack([est.mean, np.sqrt(est.variance), est.scores_mean, est.scores_variance])
-        descriptions = [(f"conditional mean{u}", units), (f"conditional standard deviation{u}", units),
-                        ("kriged normal score", ""), ("kriging variance of the normal score", "")]
-        written = write_raster(claim_folder(spec, out_dir, overwrite) / "estimate.tif", bands, grid,
-                               descriptions=descriptions, tags=provenance_tags(spec, data, model), overwrite=True)
-        est.files["estimate"] = [str(p) for p in written]
+        out_dir = claim_folder(spec, out_dir, overwrite)
+        tags = provenance_tags(spec, data, model)
+        est.files["estimate"] = []
+        if level_geotiffs(spec, grid):
+            bands = np.stack([est.mean, np.sqrt(est.variance), est.scores_mean, est.scores_variance])
+            descriptions = [(text, unit) for text, unit in est.descriptions()]
+            written = write_raster(out_dir / "estimate.tif", bands, grid, descriptions=descriptions, tags=tags,
+                                   overwrite=True)
+            est.files["estimate"] += [str(p) for p in written]
+        fmt = cube_format(spec, grid)
+        if fmt is not None:
+            from .io.cube import write_cube
+            path = write_cube(out_dir / f"estimate{CUBE_SUFFIX[fmt]}", est.to_xarray(provenance=tags),
+                              overwrite=True)
+            est.files["estimate"].append(str(path))
     return est
 
 
@@ -529,6 +538,53 @@ def metal_unit(spec: RunSpec) -> str:
     if units.replace(" ", "") in ("g/t", "gpt") and factor == 1.0:
         return "g"
     return f"t x {units or 'grade unit'} x {factor:g}"
+
+
+CUBE_SUFFIX = {"netcdf": ".nc", "zarr": ".zarr"}
+
+
+def cube_format(spec: RunSpec, grid) -> str | None:
+    """``"netcdf"``, ``"zarr"`` or None: the cube the outputs ask for (``outputs.cube``).
+
+    ``"auto"`` is NetCDF for 3-D grids when xarray, netCDF4 and dask are installed
+    (``geosim[cube]``), and nothing (GeoTIFF per level, with a warning) otherwise.
+    """
+    fmt = spec["outputs.cube"]
+    if fmt == "none" or (fmt == "auto" and grid.ndim == 2):
+        return None
+    if fmt == "auto":
+        import importlib.util
+        if not all(importlib.util.find_spec(m) for m in ("xarray", "netCDF4", "dask")):
+            import warnings
+
+            from .errors import GeosimWarning
+            warnings.warn('3-D outputs are written as one GeoTIFF per level; pip install "geosim[cube]" for '
+                          "one NetCDF cube per output kind", GeosimWarning, stacklevel=2)
+            return None
+        return "netcdf"
+    return fmt
+
+
+def level_geotiffs(spec: RunSpec, grid) -> bool:
+    """Whether rasters are written as GeoTIFF: always in 2-D; in 3-D without a cube or when asked."""
+    return grid.ndim == 2 or cube_format(spec, grid) is None or spec["outputs.level_geotiffs"]
+
+
+def block_model_formats(spec: RunSpec, grid) -> list[str]:
+    """Suffixes of the block-model tables to write: ``"auto"`` is CSV for 3-D grids."""
+    out = []
+    for fmt in spec["outputs.block_model"]:
+        fmt = ("csv" if grid.ndim == 3 else None) if fmt == "auto" else fmt
+        if fmt is not None and f".{fmt}" not in out:
+            out.append(f".{fmt}")
+    return out
+
+
+def _variable_name(name: str) -> str:
+    """A CF-safe variable name (letters, digits, underscores; a letter first)."""
+    import re
+    clean = re.sub(r"\W", "_", name) or "value"
+    return clean if clean[0].isalpha() else f"v_{clean}"
 
 
 def _checks(data: PreparedData, model, grid):
@@ -626,8 +682,7 @@ def summarize(spec: RunSpec, out_dir: str | os.PathLike, *, data: PreparedData |
                                       _writer(spec, data, model, grid, out_dir))
     out = spec["outputs"]
     files = simulation.writer.finish(simulation.records, cutoffs=out["cutoffs"], stack=True,
-                                     keep_realization_files=out["keep_realizations"],
-                                     progress=_relabel(progress, "summary windows"))
+                                     keep_realization_files=True, progress=_relabel(progress, "summary windows"))
     report = dict(provenance(seed=spec["simulation.seed"], engine=spec["simulation.engine"],
                       model=model.text(len(spec["grid.cell"])),
                              transform=data.transform, inputs=_inputs(spec), units=spec["data.units"] or None))
@@ -644,8 +699,64 @@ def summarize(spec: RunSpec, out_dir: str | os.PathLike, *, data: PreparedData |
     if out["plots"]:
         files["plots"] = [str(p) for p in _summary_plots(spec, data, model, grid, out_dir, simulation.records,
                                                          report.get("validation"))]
+    files.update(_cubes_and_tables(spec, grid, out_dir, simulation.records, files,
+                                   provenance_tags(spec, data, model)))
+    if not out["keep_realizations"]:
+        for f in files.pop("realization_files"):
+            Path(f).unlink()
+        with contextlib.suppress(OSError):
+            (out_dir / "realizations").rmdir()
+    if not level_geotiffs(spec, grid):
+        for kind in ("summary", "realizations"):
+            for f in files.pop(kind, []):
+                Path(f).unlink()
     files["report"] = [str(write_report(out_dir / "report.json", report, overwrite=True))]
     return files
+
+
+def _cubes_and_tables(spec: RunSpec, grid, out_dir: Path, records: Sequence[Mapping], files: Mapping,
+                      tags: Mapping[str, str]) -> dict[str, list[str]]:
+    """The summary and realization cubes and the block-model tables, from the run's GeoTIFFs."""
+    from .io.geotiff import read_realization
+    from .summaries import summary_band_names
+    fmt, tables = cube_format(spec, grid), block_model_formats(spec, grid)
+    if fmt is None and not tables:
+        return {}
+    out = spec["outputs"]
+    units = spec["data.units"]
+    cutoffs = list(out["cutoffs"])
+    bands = np.stack([read_realization(files["summary"], grid, band=b + 1)
+                      for b in range(len(summary_band_names(cutoffs)))])
+    paths = [[out_dir / f for f in r["files"]] for r in records]
+    indices = [int(r["index"]) for r in records]
+    written: dict[str, list[str]] = {}
+    if fmt is not None:
+        from .io.cube import realizations_dataset, summary_dataset, write_cube
+        name = _variable_name(spec["data.value"])
+        u = f" ({units})" if units else ""
+
+        def reader(j: int) -> np.ndarray:
+            return read_realization(paths[j], grid).astype(np.float32)
+
+        suffix = CUBE_SUFFIX[fmt]
+        written["summary_cube"] = [str(write_cube(out_dir / f"summary{suffix}", summary_dataset(
+            grid, bands, cutoffs, units=units, provenance=tags), overwrite=True))]
+        written["realizations_cube"] = [str(write_cube(out_dir / f"realizations{suffix}", realizations_dataset(
+            grid, reader, indices, name=name, long_name=f"{spec['data.value']}{u}, conditional realization",
+            units=units, provenance=tags), overwrite=True))]
+    if tables:
+        from .io.cube import summary_variables, write_block_model
+        variables, _ = summary_variables(bands, cutoffs, units)
+        variables.pop("prob_above", None)
+        table = {k: (v, d, u) for k, (v, d, u) in variables.items()}
+        for c, band in zip(cutoffs, bands[5:]):
+            table[f"prob_above_{c:g}"] = (band, f"probability above {c:g} (fraction 0-1 of realizations)", "")
+        if out["block_model_realizations"]:
+            for i, p in zip(indices, paths):
+                table[f"r{i:04d}"] = (read_realization(p, grid), f"realization {i}", units)
+        written["block_model"] = [str(write_block_model(out_dir / f"block_model{s}", grid, table, provenance=tags,
+                                                        overwrite=True)) for s in tables]
+    return written
 
 
 def _plot_level(data: PreparedData, grid) -> int:

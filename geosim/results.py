@@ -8,11 +8,13 @@ from __future__ import annotations
 
 from dataclasses import dataclass, field
 from pathlib import Path
+from collections.abc import Mapping
 from typing import Any
 
 import numpy as np
 
 from .config.runspec import RunSpec
+from .errors import InputError
 
 __all__ = ["PreparedData", "VariogramResult", "CrossValidation", "EstimateResult", "SimulationResult",
            "RunResult", "describe_spec", "describe_data"]
@@ -88,6 +90,35 @@ class EstimateResult:
     files: dict[str, list[str]] = field(default_factory=dict)
     n_short: int = 0        # active nodes whose search held fewer than search.min_samples samples
     n_unestimated: int = 0  # active nodes left without an estimate (ordinary kriging, search not widened)
+    grid: Any = field(default=None, repr=False)
+    units: str = ""
+
+    def __repr__(self) -> str:
+        inside = np.isfinite(self.mean)
+        shape = "x".join(map(str, self.mean.shape))
+        mean = f", mean {float(np.mean(self.mean[inside])):.4g}" if inside.any() else ""
+        unit = f" {self.units}" if self.units and mean else ""
+        return f"EstimateResult({shape} nodes, {int(inside.sum())} estimated{mean}{unit})"
+
+    def descriptions(self) -> list[tuple[str, str]]:
+        """(description, unit) of the four maps as written: mean, standard deviation, score, score variance."""
+        u = f" ({self.units})" if self.units else ""
+        return [(f"conditional mean{u}", self.units), (f"conditional standard deviation{u}", self.units),
+                ("kriged normal score", ""), ("kriging variance of the normal score", "")]
+
+    def to_xarray(self, provenance: Mapping[str, str] | None = None):
+        """The maps as a CF-conventions :class:`xarray.Dataset` (``pip install "geosim[cube]"``).
+
+        Variables ``mean``, ``std`` (data units), ``score`` and ``score_variance``
+        on ``(z,) y, x`` cell-centre coordinates, with the grid's CRS as the
+        ``spatial_ref`` grid mapping (:mod:`geosim.io.cube`).
+        """
+        from .io.cube import grid_dataset
+        (d_mean, _), (d_std, _), (d_score, _), (d_var, _) = self.descriptions()
+        return grid_dataset(self.grid, {
+            "mean": (self.mean, d_mean, self.units), "std": (np.sqrt(self.variance), d_std, self.units),
+            "score": (self.scores_mean, d_score, "1"), "score_variance": (self.scores_variance, d_var, "1")},
+            title="geosim kriging estimate", provenance=provenance)
 
 
 @dataclass
@@ -115,6 +146,32 @@ class RunResult:
     timings: dict[str, float]
     notes: list[str]
     ndim: int = 3
+
+    def __repr__(self) -> str:
+        n = len(self.kept) + len(self.computed)
+        rmse = f", cross-validation RMSE {self.crossval['rmse']:.4g}" if self.crossval else ""
+        return (f"RunResult({str(self.out_dir)!r}, {n} realizations ({len(self.computed)} computed), "
+                f"model {' '.join(str(self.model).split())!r}{rmse})")
+
+    def to_xarray(self, kind: str = "summary"):
+        """One output as an :class:`xarray.Dataset`: ``"summary"``, ``"realizations"`` or ``"estimate"``.
+
+        Opens the run's NetCDF or Zarr cube lazily when it wrote one; otherwise reads
+        the GeoTIFF(s) into the same CF layout (``pip install "geosim[cube]"``).
+        """
+        from .io.cube import open_cube, raster_dataset
+        choices = ("summary", "realizations", "estimate")
+        if kind not in choices:
+            raise ValueError(f"kind must be one of {choices}, got {kind!r}")
+        cube = self.files.get("estimate" if kind == "estimate" else f"{kind}_cube", [])
+        cube = [f for f in cube if not f.endswith(".tif")]
+        if cube:
+            return open_cube(cube[0])
+        tifs = [f for f in self.files.get(kind, []) if f.endswith(".tif")]
+        if not tifs:
+            raise InputError(f"this run wrote no {kind} output", file=str(self.out_dir),
+                             fix="turn the output on in [outputs] and run again")
+        return raster_dataset(tifs, kind)
 
 
 def describe_spec(spec: RunSpec) -> list[tuple[str, str]]:

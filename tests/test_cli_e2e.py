@@ -54,6 +54,10 @@ def assert_plain_tables(out, expected):
         assert checked.is_valid, [str(w.message) for w in checked.warnings]
 
 
+def read_csv_metadata_columns(path):
+    return {c["name"]: c.get("schema:unitText") for c in json.loads(path.read_text())["tableSchema"]["columns"]}
+
+
 def geosim_cmd(*args, **kwargs):
     return subprocess.run(GEOSIM + [str(a) for a in args], capture_output=True, text=True, timeout=300,
                           **kwargs)
@@ -186,13 +190,16 @@ def test_ore_prospect_3d_run(tmp_path):
                         "--set", "simulation.realizations=3", "--set", "outputs.plots=false",
                         "--set", "simulation.workers=1")
     assert result.returncode == 0, result.stderr
-    levels = sorted(out.glob("summary_z*.tif"))
-    assert len(levels) == 13  # z_range 100-360 m in 20 m levels
-    with rasterio.open(levels[0]) as src:
-        assert src.crs.to_epsg() == 32750 and "z_bottom" in src.tags()
+    # 3-D: one NetCDF cube per output kind instead of one GeoTIFF per level
+    assert not list(out.glob("*.tif"))
+    with rasterio.open(f"netcdf:{out / 'summary.nc'}:mean") as src:
+        assert src.crs.to_epsg() == 32750 and src.count == 13  # z_range 100-360 m in 20 m levels
     spread = (out / "decision_spread.csv").read_text()
     assert "tonnage" in spread and "mean_grade" in spread
-    assert_plain_tables(out, ["cross_validation.csv", "decision_figures.csv", "decision_spread.csv"])
+    assert_plain_tables(out, ["block_model.csv", "cross_validation.csv", "decision_figures.csv",
+                              "decision_spread.csv"])
+    metal = read_csv_metadata_columns(out / "decision_spread.csv-metadata.json")
+    assert metal["cutoff"] == "% Cu"
     assert "tonnage at cutoff 0.3" in result.stdout
 
 

@@ -181,6 +181,13 @@ def _column_map(value):
     return dict(value), None
 
 
+def _formats(value):
+    allowed = ("auto", "csv", "parquet")
+    if isinstance(value, list) and all(v in allowed for v in value) and len(set(value)) == len(value):
+        return list(value), None
+    return None, f"a list of formats from {', '.join(repr(a) for a in allowed)}"
+
+
 @dataclass(frozen=True)
 class Key:
     """One run-spec key: its checker, whether it is required, and its default."""
@@ -333,6 +340,15 @@ SCHEMA: dict[str, dict[str, Key]] = {
         "plots": Key(_bool, default=True),
         "cross_validation": Key(_bool, default=True),
         "estimate": Key(_bool, default=True, help="kriging estimate and variance maps"),
+        "cube": Key(_choice("auto", "netcdf", "zarr", "none"), default="auto",
+                    help='one NetCDF (or Zarr) cube per output kind; "auto": NetCDF for 3-D grids when '
+                         'geosim[cube] is installed'),
+        "level_geotiffs": Key(_bool, default=False,
+                              help="3-D grids with a cube: also one GeoTIFF per level"),
+        "block_model": Key(_formats, default=["auto"],
+                           help='block-model table formats: "csv", "parquet"; "auto": CSV for 3-D grids'),
+        "block_model_realizations": Key(_bool, default=False,
+                                        help="one block-model column per realization"),
     },
 }
 TOP_LEVEL = {"title": Key(_text, default="")}

@@ -1,0 +1,148 @@
+"""NetCDF cubes and the block-model table, checked against the GeoTIFFs of the same run.
+
+GDAL (through rasterio's netCDF driver) is the independent reader: it must find the CRS
+and the georeferencing of the GeoTIFFs in the CF grid mapping, and the same values.
+"""
+from pathlib import Path
+
+import numpy as np
+import pytest
+
+import geosim
+import geosim.pipeline
+from geosim.io.csvw import read_csv_metadata
+from geosim.config.runspec import load_spec
+
+xr = pytest.importorskip("xarray")
+pytest.importorskip("netCDF4")
+pd = pytest.importorskip("pandas")
+rasterio = pytest.importorskip("rasterio")
+
+ORE = Path(__file__).resolve().parent.parent / "sample_fields" / "ore_prospect" / "run.toml"
+SMALL = {"grid.cell": [40.0, 40.0, 20.0], "simulation.realizations": 3, "simulation.workers": 1,
+         "outputs.plots": False, "outputs.level_geotiffs": True, "outputs.block_model": ["csv", "parquet"],
+         "outputs.block_model_realizations": True}
+
+
+@pytest.fixture(scope="module")
+def ore_run(tmp_path_factory):
+    out = tmp_path_factory.mktemp("ore") / "run"
+    spec = load_spec(ORE, overrides=SMALL)
+    result = geosim.pipeline.run(spec, out)
+    return spec, result, out
+
+
+def test_summary_cube_opens_in_xarray_with_the_grid_coordinates(ore_run):
+    spec, result, out = ore_run
+    grid = geosim.pipeline.make_grid(spec, geosim.pipeline.prepare_data(spec))
+    ds = result.to_xarray("summary")
+    z, y, x = grid.axes()
+    np.testing.assert_allclose(ds.x.values, x)
+    np.testing.assert_allclose(ds.y.values, y)
+    np.testing.assert_allclose(ds.z.values, z)
+    assert ds["mean"].dims == ("z", "y", "x") and ds["prob_above"].dims == ("cutoff", "z", "y", "x")
+    assert ds.cutoff.values.tolist() == spec["outputs.cutoffs"]
+    assert ds["mean"].attrs["units"] == spec["data.units"] == "% Cu"
+    mapping = ds["mean"].attrs.get("grid_mapping") or ds["mean"].encoding.get("grid_mapping")
+    assert mapping == "spatial_ref" and "crs_wkt" in ds["spatial_ref"].attrs
+    assert ds.attrs["Conventions"] == "CF-1.8" and ds.attrs["comment"] == geosim.CAUTION
+    assert ds.attrs["geosim_seed"] == str(spec["simulation.seed"])
+    assert ds.z.attrs["positive"] == "up" and ds.x.attrs["standard_name"] == "projection_x_coordinate"
+    np.testing.assert_array_equal(np.isfinite(ds["mean"].values), grid.mask)
+    enc = ds["mean"].encoding
+    assert enc["zlib"] and enc["chunksizes"][0] == 1  # chunked by level and compressed
+    ds.close()
+
+
+@pytest.mark.parametrize("kind, tif, variable", [("summary", "summary", "mean"), ("estimate", "estimate", "mean"),
+                                                  ("realizations", "realizations", None)])
+def test_gdal_reads_the_cube_where_and_as_the_geotiffs(ore_run, kind, tif, variable):
+    spec, result, out = ore_run
+    name = f"{kind}.nc"
+    if variable is None:
+        variable = geosim.pipeline._variable_name(spec["data.value"])
+    levels = sorted(out.glob(f"{tif}_z*.tif"))
+    assert len(levels) == 13
+    with rasterio.open(f"netcdf:{out / name}:{variable}") as cube:
+        for k in (0, 6, 12):
+            with rasterio.open(levels[k]) as level:
+                assert cube.crs == level.crs and cube.crs.to_epsg() == 32750
+                assert cube.transform.almost_equals(level.transform, precision=1e-9)
+                assert (cube.width, cube.height) == (level.width, level.height)
+                if kind == "realizations":  # GDAL bands run over (realization, z)
+                    for j in range(3):
+                        np.testing.assert_array_equal(cube.read(j * 13 + k + 1), level.read(j + 1))
+                else:
+                    np.testing.assert_array_equal(cube.read(k + 1), level.read(1))
+
+
+def test_block_model_table_equals_the_cube(ore_run):
+    spec, result, out = ore_run
+    ds = result.to_xarray("summary")
+    table = pd.read_csv(out / "block_model.csv")
+    cutoffs = spec["outputs.cutoffs"]
+    meta = read_csv_metadata(out / "block_model.csv")
+    assert list(table.columns) == [c["name"] for c in meta["tableSchema"]["columns"]]
+    assert list(table.columns[:11]) == ["x", "y", "z", "dx", "dy", "dz", "mean", "std", "P10", "P50", "P90"]
+    assert [c for c in table.columns if c.startswith("prob_above_")] == [f"prob_above_{c:g}" for c in cutoffs]
+    units = {c["name"]: c.get("schema:unitText") for c in meta["tableSchema"]["columns"]}
+    assert units["mean"] == "% Cu" and units["dz"] == "m"
+    # sorted by z, then y, then x
+    keys = table[["z", "y", "x"]].to_numpy()
+    assert (np.diff(keys[:, 0]) >= 0).all()
+    assert np.lexsort((keys[:, 2], keys[:, 1], keys[:, 0])).tolist() == list(range(len(table)))
+    # every block finds its cube cell by coordinates and carries its values
+    def index(axis, values):  # CSV cells carry 10 significant digits: a millimetre here
+        at = np.rint((values - axis[0]) / (axis[1] - axis[0])).astype(int)
+        np.testing.assert_allclose(axis[at], values, atol=1e-3)
+        return at
+
+    k, i, j = (index(ds[a].values, table[a].to_numpy()) for a in ("z", "y", "x"))
+    assert len(table) == int(np.isfinite(ds["mean"].values).sum())
+    for name in ("mean", "std", "P10", "P50", "P90"):
+        np.testing.assert_array_equal(table[name].to_numpy(dtype=np.float32), ds[name].values[k, i, j])
+    for c_index, c in enumerate(cutoffs):
+        np.testing.assert_array_equal(table[f"prob_above_{c:g}"].to_numpy(dtype=np.float32),
+                                      ds["prob_above"].values[c_index, k, i, j])
+    reals = result.to_xarray("realizations")
+    var = geosim.pipeline._variable_name(spec["data.value"])
+    for r in range(3):
+        np.testing.assert_array_equal(table[f"r{r:04d}"].to_numpy(dtype=np.float32), reals[var].values[r, k, i, j])
+    parquet = pd.read_parquet(out / "block_model.parquet")
+    pd.testing.assert_frame_equal(parquet, table, check_exact=False, rtol=1e-9, check_dtype=False)
+    import pyarrow.parquet as pq
+    schema = pq.read_schema(out / "block_model.parquet")
+    assert schema.metadata[b"geosim:caution"].decode() == geosim.CAUTION
+    assert schema.field("mean").metadata[b"unit"].decode() == "% Cu"
+    ds.close()
+
+
+def test_default_3d_run_writes_cubes_not_level_files(tmp_path):
+    spec = load_spec(ORE, overrides={**SMALL, "outputs.level_geotiffs": False, "outputs.block_model": ["auto"],
+                                     "outputs.block_model_realizations": False, "simulation.realizations": 2,
+                                     "outputs.estimate": False, "outputs.cross_validation": False})
+    result = geosim.pipeline.run(spec, tmp_path / "run")
+    top = sorted(p.name for p in (tmp_path / "run").iterdir())
+    assert not [n for n in top if n.endswith(".tif")]
+    assert {"summary.nc", "realizations.nc", "block_model.csv", "block_model.csv-metadata.json"} <= set(top)
+    ds = result.to_xarray("realizations")
+    assert ds.realization.values.tolist() == [0, 1]
+    ds.close()
+
+
+def test_two_dimensional_results_convert_from_geotiffs(tmp_path):
+    aquifer = ORE.parent.parent / "alluvial_aquifer" / "run.toml"
+    spec = load_spec(aquifer, overrides={"grid.cell": [200.0, 200.0], "simulation.realizations": 2,
+                                         "simulation.workers": 1, "outputs.plots": False})
+    result = geosim.pipeline.run(spec, tmp_path / "run")
+    ds = result.to_xarray("summary")
+    with rasterio.open(tmp_path / "run" / "summary.tif") as src:
+        np.testing.assert_array_equal(ds["mean"].values, src.read(1).astype(np.float64))
+        np.testing.assert_allclose(ds.x.values[:2], [src.xy(0, 0)[0], src.xy(0, 1)[0]])
+        np.testing.assert_allclose(ds.y.values[0], src.xy(0, 0)[1])
+    assert ds.cutoff.values.tolist() == spec["outputs.cutoffs"]
+    est = geosim.pipeline.estimate(spec)
+    assert "estimated" in repr(est) and "m/s" in repr(est)
+    np.testing.assert_array_equal(est.to_xarray()["mean"].values, est.mean)
+    with pytest.raises(ValueError, match="kind must be"):
+        result.to_xarray("cube")
