@@ -55,7 +55,8 @@ def test_ore_run_report_sets_the_largest_simulated_value_against_the_largest_dat
     import geosim.pipeline
     spec = geosim.config.runspec.load_spec(ORE, overrides={
         "simulation.realizations": 2, "simulation.workers": 1, "outputs.plots": False,
-        "outputs.estimate": False, "outputs.cross_validation": False, "outputs.keep_realizations": False})
+        "outputs.estimate": False, "outputs.cross_validation": False, "outputs.keep_realizations": False,
+        "outputs.level_geotiffs": True})  # the per-level GeoTIFFs are read below
     result = geosim.pipeline.run(spec, tmp_path / "run")
     report = json.loads((tmp_path / "run" / "report.json").read_text())
     ext = report["validation"]["extremes"]
