@@ -13,9 +13,9 @@ AQUIFER = Path(__file__).resolve().parent.parent / "sample_fields" / "alluvial_a
 
 @pytest.fixture(scope="module")
 def demo():
-    import geosim.io.runspec
+    import geosim.config.runspec
     import geosim.pipeline
-    spec = geosim.io.runspec.load_spec(AQUIFER)
+    spec = geosim.config.runspec.load_spec(AQUIFER)
     data = geosim.pipeline.prepare_data(spec)
     grid = geosim.pipeline.make_grid(spec, data)
     with warnings.catch_warnings():
@@ -54,16 +54,16 @@ def test_demo_estimate_map_has_no_empty_active_cell(demo):
 
 
 def test_fixed_search_with_simple_kriging_still_fills_every_node(demo):
-    import geosim.io.runspec
+    import geosim.config.runspec
     import geosim.pipeline
     spec, data, grid, model = demo
-    fixed = geosim.io.runspec.load_spec(AQUIFER, overrides={"search.widen": False})
+    fixed = geosim.config.runspec.load_spec(AQUIFER, overrides={"search.widen": False})
     est = geosim.pipeline.estimate(fixed, data, model, grid)
     assert est.n_unestimated == 0 and np.isfinite(est.scores_mean[grid.mask]).all()
     # nodes with no sample inside the fixed ellipsoid take the mean (0) and the sill
     alone = np.isclose(est.scores_variance[grid.mask], model.sill, rtol=0, atol=1e-12)
     assert alone.any() and np.all(est.scores_mean[grid.mask][alone] == 0.0)
-    ordinary = geosim.io.runspec.load_spec(AQUIFER, overrides={"search.widen": False,
+    ordinary = geosim.config.runspec.load_spec(AQUIFER, overrides={"search.widen": False,
                                                                "simulation.kriging": "ordinary"})
     est_ok = geosim.pipeline.estimate(ordinary, data, model, grid)
     assert est_ok.n_unestimated == est_ok.n_short > 0
@@ -75,9 +75,9 @@ def test_fixed_search_with_simple_kriging_still_fills_every_node(demo):
 def test_run_report_and_summary_count_the_short_searches(demo, tmp_path):
     import json
 
-    import geosim.io.runspec
+    import geosim.config.runspec
     import geosim.pipeline
-    spec = geosim.io.runspec.load_spec(AQUIFER, overrides={
+    spec = geosim.config.runspec.load_spec(AQUIFER, overrides={
         "simulation.realizations": 1, "simulation.workers": 1, "outputs.plots": False,
         "grid.cell": [100.0, 100.0]})
     result = geosim.pipeline.run(spec, tmp_path / "run")

@@ -344,10 +344,10 @@ def test_survey_dip_sign_is_stated_never_mirrored(tmp_path):
 
 
 def test_run_spec_states_the_survey_dip_convention(tmp_path):
-    import geosim.io.runspec
+    import geosim.config.runspec
     import geosim.pipeline
     ore = Path(__file__).resolve().parent.parent / "sample_fields" / "ore_prospect"
-    spec = geosim.io.runspec.load_spec(ore / "run.toml")
+    spec = geosim.config.runspec.load_spec(ore / "run.toml")
     assert spec["data.survey_dip"] == "negative_down"
     flipped = tmp_path / "surveys.csv"
     lines = (ore / "surveys.csv").read_text().splitlines()
@@ -358,7 +358,7 @@ def test_run_spec_states_the_survey_dip_convention(tmp_path):
     holes = geosim.pipeline.read_holes(spec)
     for stated in ("positive_down", None):
         over = {"data.surveys": str(flipped), "data.survey_dip": stated}
-        other = geosim.io.runspec.load_spec(ore / "run.toml", overrides=over)
+        other = geosim.config.runspec.load_spec(ore / "run.toml", overrides=over)
         if stated is None:
             with pytest.raises(InputError, match="positive_down"):
                 geosim.pipeline.read_holes(other)

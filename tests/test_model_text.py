@@ -22,9 +22,9 @@ def test_2d_text_has_two_ranges_and_no_vertical_angles():
 
 @pytest.mark.parametrize("folder,ranges", [("alluvial_aquifer", 2), ("ore_prospect", 3)])
 def test_run_outputs_print_the_model_for_the_grid_dimension(folder, ranges):
-    import geosim.io.runspec
+    import geosim.config.runspec
     import geosim.pipeline
-    spec = geosim.io.runspec.load_spec(SAMPLES / folder / "run.toml")
+    spec = geosim.config.runspec.load_spec(SAMPLES / folder / "run.toml")
     data = geosim.pipeline.prepare_data(spec)
     with warnings.catch_warnings():
         warnings.simplefilter("ignore")
