@@ -27,6 +27,7 @@ from __future__ import annotations
 
 import contextlib
 import os
+import time
 from collections.abc import Callable, Mapping, Sequence
 from pathlib import Path
 
@@ -35,7 +36,7 @@ import numpy as np
 from .errors import InputError
 from .io import plots as io_plots
 from .io.decision import write_decision_csv
-from .io.geotiff import (as_stored, assemble_realizations, grid_windows, level_grid, level_paths, level_tags,
+from .io.geotiff import (GDAL_SETTINGS, as_stored, assemble_realizations, grid_windows, level_grid, level_paths, level_tags,
                          open_checked, read_windows, verify_realization, write_raster, write_windows)
 from .io.report import file_sha256
 from .summaries import (decision_rows, decision_spread, summarize_windows, summary_band_descriptions,
@@ -160,13 +161,17 @@ class RealizationWriter:
         (self.folder / "realizations").mkdir(parents=True, exist_ok=True)
         target = self.folder / "realizations" / f"r{index:04d}.tif"  # write_raster adds _z000... in 3-D
         u = f" ({self.units})" if self.units else ""
+        start = time.perf_counter()
         written = write_raster(target, values, self.grid, descriptions=[(f"realization {index}{u}", self.units)],
                                tags={**self.tags, "realization": str(index)}, overwrite=self.overwrite)
+        sha256 = [file_sha256(p) for p in written]
+        write_s = time.perf_counter() - start
         return {"index": int(index),
                 "files": [str(p.relative_to(self.folder)) for p in written],
-                "sha256": [file_sha256(p) for p in written],
+                "sha256": sha256,
                 "figures": None if self.figures is None else self.figures(values),
-                "checks": None if self.measure is None else self.measure(scores, values)}
+                "checks": None if self.measure is None else self.measure(scores, values),
+                "write_s": write_s}
 
     def finish(self, records: Sequence[Mapping], *, cutoffs: Sequence[float] = (),
                stack: bool = True, keep_realization_files: bool = True, plots: bool = False,
@@ -211,19 +216,22 @@ class RealizationWriter:
         if stack:
             out["realizations"] = []
         out["summary"] = []
-        for k in range(self.grid.nz if self.grid.ndim == 3 else 1):
-            g2 = level_grid(self.grid, k)
-            files = [self.folder / r["files"][k] for r in records]
-            tags = {**self.tags, **level_tags(self.grid, k)}
-            if stack:
-                target = level_paths(self.folder / "realizations.tif", self.grid)[k]
-                assemble_realizations(files, g2, target, units=self.units, tags=tags, indices=indices,
-                                      overwrite=self.overwrite, progress=progress)
-                out["realizations"].append(str(target))
-            target = level_paths(self.folder / "summary.tif", self.grid)[k]
-            summarize_realizations(files, g2, cutoffs, target, units=self.units, tags=tags,
-                                   overwrite=self.overwrite, progress=progress)
-            out["summary"].append(str(target))
+        import rasterio
+
+        with rasterio.Env(**GDAL_SETTINGS):  # no folder listing on each of the many opens below
+            for k in range(self.grid.nz if self.grid.ndim == 3 else 1):
+                g2 = level_grid(self.grid, k)
+                files = [self.folder / r["files"][k] for r in records]
+                tags = {**self.tags, **level_tags(self.grid, k)}
+                if stack:
+                    target = level_paths(self.folder / "realizations.tif", self.grid)[k]
+                    assemble_realizations(files, g2, target, units=self.units, tags=tags, indices=indices,
+                                          overwrite=self.overwrite, progress=progress)
+                    out["realizations"].append(str(target))
+                target = level_paths(self.folder / "summary.tif", self.grid)[k]
+                summarize_realizations(files, g2, cutoffs, target, units=self.units, tags=tags,
+                                       overwrite=self.overwrite, progress=progress)
+                out["summary"].append(str(target))
         figures = [r["figures"] for r in records]
         if all(f is not None for f in figures):
             rows = decision_rows(figures, indices)

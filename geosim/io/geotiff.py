@@ -51,6 +51,12 @@ __all__ = ["tile_size", "level_grid", "level_paths", "grid_windows", "write_rast
            "write_windows", "open_checked", "read_windows", "verify_realization", "assemble_realizations",
            "read_realization", "level_tags"]
 
+# GDAL settings for every file geosim writes, and for reading the realization files back:
+# no .aux.xml side files, and no listing of the folder on open (GDAL lists it to look for
+# side files; in a folder of thousands of realization files that listing cost more than
+# reading the file).  GDAL's settings are per thread.
+GDAL_SETTINGS = {"GDAL_PAM_ENABLED": "NO", "GDAL_DISABLE_READDIR_ON_OPEN": "EMPTY_DIR"}
+
 _COG_OPTIONS = {"COMPRESS": "DEFLATE", "PREDICTOR": "YES", "OVERVIEW_RESAMPLING": "AVERAGE",
                 "BIGTIFF": "IF_SAFER"}
 
@@ -156,7 +162,7 @@ def write_windows(out_path: str | os.PathLike, grid, n_bands: int, blocks: Itera
                    blockxsize=block, blockysize=block, compress="deflate", predictor=3,
                    interleave="band", bigtiff="if_safer")
     stage = out_path.with_name(f".{out_path.name}.{secrets.token_hex(4)}.stage.tif")
-    with atomic_output(out_path, overwrite) as final, rasterio.Env(GDAL_PAM_ENABLED="NO"):
+    with atomic_output(out_path, overwrite) as final, rasterio.Env(**GDAL_SETTINGS):
         try:
             with rasterio.open(stage, "w", **profile) as dst:
                 for done, (w, data) in enumerate(blocks, start=1):
