@@ -27,7 +27,6 @@ from __future__ import annotations
 
 import contextlib
 import os
-import time
 from collections.abc import Callable, Mapping, Sequence
 from pathlib import Path
 
@@ -161,17 +160,13 @@ class RealizationWriter:
         (self.folder / "realizations").mkdir(parents=True, exist_ok=True)
         target = self.folder / "realizations" / f"r{index:04d}.tif"  # write_raster adds _z000... in 3-D
         u = f" ({self.units})" if self.units else ""
-        start = time.perf_counter()
         written = write_raster(target, values, self.grid, descriptions=[(f"realization {index}{u}", self.units)],
                                tags={**self.tags, "realization": str(index)}, overwrite=self.overwrite)
-        sha256 = [file_sha256(p) for p in written]
-        write_s = time.perf_counter() - start
         return {"index": int(index),
                 "files": [str(p.relative_to(self.folder)) for p in written],
-                "sha256": sha256,
+                "sha256": [file_sha256(p) for p in written],
                 "figures": None if self.figures is None else self.figures(values),
-                "checks": None if self.measure is None else self.measure(scores, values),
-                "write_s": write_s}
+                "checks": None if self.measure is None else self.measure(scores, values)}
 
     def finish(self, records: Sequence[Mapping], *, cutoffs: Sequence[float] = (),
                stack: bool = True, keep_realization_files: bool = True, plots: bool = False,

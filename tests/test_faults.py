@@ -333,14 +333,14 @@ def _files(folder: Path) -> set[str]:
 def test_overwrite_removes_every_file_of_the_old_run_and_nothing_else(tmp_path):
     out = tmp_path / "run"
     quick = {"grid.cell": [200.0, 200.0], "simulation.realizations": 2, "simulation.workers": 1}
-    first = geosim.io.runspec.load_spec(AQUIFER, {**quick, "outputs.plots": True, "outputs.estimate": True})
+    first = geosim.config.runspec.load_spec(AQUIFER, {**quick, "outputs.plots": True, "outputs.estimate": True})
     with warnings.catch_warnings():
         warnings.simplefilter("ignore", GeosimWarning)
         geosim.pipeline.run(first, out)
         old = _files(out)
         assert any(name.endswith(".png") for name in old) and "estimate.tif" in old
         (out / "my notes.txt").write_text("kept: not written by geosim")
-        second = geosim.io.runspec.load_spec(AQUIFER, {**quick, "outputs.plots": False, "outputs.estimate": False,
+        second = geosim.config.runspec.load_spec(AQUIFER, {**quick, "outputs.plots": False, "outputs.estimate": False,
                                                        "simulation.seed": 5})
         with pytest.raises(InputError, match="different spec"):
             geosim.pipeline.run(second, out)
@@ -362,9 +362,9 @@ def test_overwrite_with_fewer_levels_leaves_no_level_files(tmp_path):
              "outputs.plots": False, "outputs.cross_validation": False, "outputs.estimate": False}
     with warnings.catch_warnings():
         warnings.simplefilter("ignore", GeosimWarning)
-        geosim.pipeline.run(geosim.io.runspec.load_spec(ore, {**small, "grid.z_range": [100.0, 340.0]}), out)
+        geosim.pipeline.run(geosim.config.runspec.load_spec(ore, {**small, "grid.z_range": [100.0, 340.0]}), out)
         six = _files(out)
-        geosim.pipeline.run(geosim.io.runspec.load_spec(ore, {**small, "grid.z_range": [180.0, 340.0]}), out,
+        geosim.pipeline.run(geosim.config.runspec.load_spec(ore, {**small, "grid.z_range": [180.0, 340.0]}), out,
                             overwrite=True)
     four = _files(out)
     assert any("_z005" in n for n in six)

@@ -16,8 +16,8 @@ Figures (wall seconds, so they include the load other jobs put on a shared machi
 ``uptime`` load averages are printed beside them):
 
 * ``end_to_end_s``: the whole ``pipeline.run``; ``simulation_s`` and ``summaries_s`` its
-  steps; ``writing_s``: seconds the workers spent writing and hashing realization files,
-  summed over realizations and divided by the workers (part of ``simulation_s``);
+  steps (the workers write each realization as it is done, so writing is part of
+  ``simulation_s``; ``writing_s`` is null);
 * ``core_us_per_node_realization`` = end_to_end_s x workers x 1e6 / (nodes x realizations);
   ``cpu_us_per_node_realization`` the same from the CPU seconds this process and all its
   descendants used (``cpu_s``), which other jobs on the machine do not inflate;
@@ -185,10 +185,8 @@ def run_case(folder: Path, realizations: int, per_path: int, workers: int) -> di
         result = geosim.pipeline.run(spec, folder / "out", overwrite=True)
         total = time.perf_counter() - t0
     grid = geosim.pipeline.make_grid(spec)
-    records = [json.loads(p.read_text())["record"] for p in sorted((folder / "out" / "run-state").glob("r[0-9]*.json"))]
-    writing = sum(r.get("write_s", 0.0) for r in records) / workers
     return {"active_nodes": int(grid.n_active), "total_s": total, "timings": result.timings,
-            "writing_s": writing, "peak_rss_mib": rss.peak / 2 ** 20, "cpu_s": rss.cpu_s}
+            "peak_rss_mib": rss.peak / 2 ** 20, "cpu_s": rss.cpu_s}
 
 
 def geosim_cmd(args, env, timeout=900):
@@ -308,7 +306,7 @@ def main():
             "simulation_s": round(t["simulation"], 2),
             "summaries_s": round(t["summaries and report"], 2),
             "summaries_fraction": round(t["summaries and report"] / main_run["total_s"], 3),
-            "writing_s": round(main_run["writing_s"], 2),
+            "writing_s": None,  # not separated from simulation_s: the workers write as they go
             "peak_rss_mib": round(main_run["peak_rss_mib"], 1),
             "peak_rss_mib_fewer": None if fewer is None else round(fewer["peak_rss_mib"], 1),
             "cold_first_run_s": round(cold, 2),
