@@ -26,8 +26,10 @@ work, whether it succeeded or failed.
 """
 from __future__ import annotations
 
+import contextlib
 import difflib
 import errno
+import logging
 import os
 import sys
 import traceback
@@ -103,7 +105,7 @@ class EntryPointGroup(click.Group):
     def invoke(self, ctx):
         session = ctx.ensure_object(Session)
         try:
-            with warnings.catch_warnings():
+            with warnings.catch_warnings(), _log_handler(session):
                 warnings.showwarning = _warning_printer(session)
                 return super().invoke(ctx)
         except (click.exceptions.Exit, click.exceptions.Abort, click.ClickException):
@@ -168,6 +170,29 @@ def _environment_error(exc: OSError) -> BaseException:
 
 def _say(text: str) -> None:
     click.echo(f"geosim: {text}", err=True)
+
+
+@contextlib.contextmanager
+def _log_handler(session: Session):
+    """The library's "geosim" logger printed as the command line's own lines: warnings as notes
+    (today's look), its INFO notes of a run only with --debug."""
+    class Say(logging.Handler):
+        def emit(self, record):
+            if record.levelno >= logging.WARNING:
+                _say(f"note: {record.getMessage()}")
+            elif session.debug:  # read when the record comes: --debug is parsed after this is attached
+                _say(record.getMessage())
+
+    logger = logging.getLogger("geosim")
+    handler = Say(level=logging.INFO)
+    old_level = logger.level
+    logger.addHandler(handler)
+    logger.setLevel(logging.INFO)
+    try:
+        yield
+    finally:
+        logger.removeHandler(handler)
+        logger.setLevel(old_level)
 
 
 def _warning_printer(session: Session):

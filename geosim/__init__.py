@@ -12,10 +12,14 @@ True
 from __future__ import annotations
 
 import importlib
+import logging
 from importlib.metadata import PackageNotFoundError, version as _dist_version
 
 from .cautions import CAUTION
 from .errors import GeosimError, GeosimWarning, InputError, NotPositiveDefiniteError, SpecError
+
+# notes go to the "geosim" logger; an application (or the command line) attaches handlers
+logging.getLogger("geosim").addHandler(logging.NullHandler())
 
 try:
     __version__ = _dist_version("geosim")

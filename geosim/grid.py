@@ -14,7 +14,7 @@ import numpy as np
 from pyproj import CRS
 
 
-@dataclass(frozen=True)
+@dataclass(frozen=True, repr=False)
 class Grid:
     """A north-up grid of cell-centred nodes.
 
@@ -56,6 +56,25 @@ class Grid:
             if m.shape != shape:
                 raise ValueError(f"mask shape {m.shape} does not match grid shape {shape}")
             object.__setattr__(self, "mask", m)
+
+    def __repr__(self) -> str:
+        """Short form: sizes, cells, origin, CRS name and active nodes (no WKT).
+
+        Examples
+        --------
+        >>> import geosim, geosim.crs
+        >>> geosim.Grid(431000.0, 6120000.0, (25.0, 25.0), (40, 60), crs=geosim.crs.parse_crs(32750))
+        Grid(60 x 40 cells of 25 x 25 m, origin (431000, 6120000), EPSG:32750, 2400 of 2400 active)
+        """
+        sizes = " x ".join(str(n) for n in self.shape[::-1])
+        cells = " x ".join(f"{c:g}" for c in self.cell)
+        origin = ", ".join(f"{v:.10g}" for v in ((self.xmin, self.ymin) + ((self.zmin,) if self.ndim == 3 else ())))
+        if self.crs is None:
+            crs = "local metres"
+        else:
+            code = self.crs.to_epsg(min_confidence=90)
+            crs = f"EPSG:{code}" if code else repr(self.crs.name)
+        return f"Grid({sizes} cells of {cells} m, origin ({origin}), {crs}, {self.n_active} of {self.size} active)"
 
     @property
     def ndim(self) -> int:

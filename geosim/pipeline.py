@@ -32,6 +32,7 @@ moments are in :mod:`geosim.transforms`; the realization writer is
 from __future__ import annotations
 
 import contextlib
+import logging
 import math
 import os
 import time
@@ -50,6 +51,8 @@ from .runstate import (STATE_DIR, RecordingSink, claim_folder, completed_realiza
 from .transforms import TransformChain, multigaussian_moments
 
 Progress = Callable[[int, int, str], None]
+
+log = logging.getLogger("geosim")  # notes of a run at INFO; the command line shows what it chooses
 
 __all__ = ["PreparedData", "VariogramResult", "CrossValidation", "EstimateResult", "SimulationResult",
            "RunResult", "TransformChain", "RecordingSink", "load_samples", "decluster", "fit_transform",
@@ -834,12 +837,16 @@ def run(spec: RunSpec | str | os.PathLike, out_dir: str | os.PathLike, *, overwr
         t0 = time.perf_counter()
         value = func(*args, **kwargs)
         timings[name] = time.perf_counter() - t0
+        log.info("%s: %.1f s", name, timings[name])
         return value
 
     data = timed("read and transform data", prepare_data, spec, progress)
+    for note in data.notes:
+        log.info("%s", note)
     grid = timed("grid and domain", make_grid, spec, data)
     data.notes.extend(timed("checks", preflight, spec, data, grid))
     fresh = folder_is_empty(make_folder(out_dir))
+    log.info("%r", grid)
     # claim the folder (or fail on another run's) before anything is written into it
     open_output(spec, make_folder(out_dir), overwrite=overwrite, resume=resume)
     try:

@@ -29,7 +29,7 @@ _RADIUS_SLACK = 1e-9
 SECTORS = {"off": 0, "quadrants": 4, "octants": 8}
 
 
-@dataclass(frozen=True)
+@dataclass(frozen=True, repr=False)
 class Neighbourhood:
     """Which samples (and previously simulated nodes) enter a local system.
 
@@ -105,6 +105,30 @@ class Neighbourhood:
             value = getattr(self, name)
             if value is not None and value < 1:
                 raise ValueError(f"{name} must be None or >= 1, got {value}")
+
+    def __repr__(self) -> str:
+        """The settings that differ from the defaults, in plain numbers.
+
+        Examples
+        --------
+        >>> import geosim.search
+        >>> geosim.search.Neighbourhood(max_samples=24, ranges=(300.0, 120.0))
+        Neighbourhood(max_samples=24, ranges=(300, 120))
+        """
+        import dataclasses
+        parts = []
+        for f in dataclasses.fields(self):
+            value = getattr(self, f.name)
+            if value == f.default:
+                continue
+            if isinstance(value, tuple):
+                value = "(" + ", ".join(f"{float(v):g}" for v in value) + ")"
+            elif isinstance(value, float):
+                value = f"{value:g}"
+            else:
+                value = repr(value)
+            parts.append(f"{f.name}={value}")
+        return f"Neighbourhood({', '.join(parts)})"
 
     @property
     def sector_limit(self) -> int:

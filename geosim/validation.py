@@ -378,7 +378,7 @@ class RunChecks:
     >>> m = geosim.Spherical(1.0, geosim.Anisotropy((10.0, 10.0, 10.0)))
     >>> checks = RunChecks(g, geosim.Model([m]), [[0.5, 29.5]], [0.0])
     >>> sorted(checks(np.zeros(g.shape), np.ones(g.shape)))
-    ['at_data', 'ks', 'mean', 'quantiles', 'semivariance', 'var']
+    ['at_data', 'extremes', 'ks', 'mean', 'quantiles', 'semivariance', 'var']
     """
 
     def __init__(self, grid, model, data_coords, data_scores, weights=None, data_values=None, nlags: int = 6):

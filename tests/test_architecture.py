@@ -22,13 +22,13 @@ PACKAGES = {"geosim": ROOT / "geosim", "geosim_cli": ROOT / "cli"}
 # lowest first; a module may import modules of its own layer or of lower ones.
 # "pkg.*" stands for the package pkg and every module in it; other names are one module.
 LAYERS = [
-    ("base", ["geosim", "geosim._forward", "geosim.cautions", "geosim.errors", "geosim.retired",
+    ("base", ["geosim", "geosim._forward", "geosim.cautions", "geosim.errors", "geosim.retired", "geosim.progress",
               "geosim.resources", "geosim.plugins", "geosim.io", "geosim.io.atomic"]),
     ("data", ["geosim.grid", "geosim.crs", "geosim.tables", "geosim.vector", "geosim.points", "geosim.drillholes",
               "geosim.domain", "geosim.declustering", "geosim.transforms", "geosim.linalg"]),
     ("models", ["geosim.variogram.*", "geosim.search", "geosim.kriging", "geosim.simulation.*"]),
     ("statistics", ["geosim.summaries", "geosim.validation", "geosim.inputchecks"]),
-    ("files", ["geosim.io.geotiff", "geosim.io.plots", "geosim.io.report", "geosim.io.crossval",
+    ("files", ["geosim.demo", "geosim.io.geotiff", "geosim.io.plots", "geosim.io.report", "geosim.io.crossval",
                "geosim.io.csvw", "geosim.io.decision", "geosim.io.lock", "geosim.io.cube"]),
     ("assembly", ["geosim.ensemble", "geosim.config.*", "geosim.io.runspec.*"]),
     ("job", ["geosim.pipeline", "geosim.runstate", "geosim.results"]),

@@ -124,16 +124,16 @@ def write_crossval_csv(result, path: str | os.PathLike, overwrite: bool = False,
         provenance=provenance, overwrite=overwrite, notes=notes)
 
 
-def plot_crossval(result, path: str | os.PathLike, overwrite: bool = False, *, title: str | None = None,
-                  units: str | None = None, data_units=None, log: bool = False) -> Path:
-    """PNG: estimate against value (data units and/or normal scores), standardized
-    errors, and their map.
+def plot_crossval(result, path: str | os.PathLike | None = None, overwrite: bool = False, *,
+                  title: str | None = None, units: str | None = None, data_units=None, log: bool = False,
+                  ax=None):
+    """Estimate against value (data units and/or normal scores), standardized errors, and their map.
 
     Parameters
     ----------
     result : geosim.kriging.CrossValidationResult
-    path : str or path-like
-        Output PNG; its folder must exist.
+    path : str or path-like, optional
+        Output PNG; its folder must exist.  Without it the figure is returned.
     overwrite : bool
         Replace an existing file.
     title : str, optional
@@ -145,31 +145,33 @@ def plot_crossval(result, path: str | os.PathLike, overwrite: bool = False, *, t
         the conditional mean against the sample value.
     log : bool
         Logarithmic axes for the data-unit panel (log-normal variables).
+    ax : sequence of matplotlib Axes, optional
+        Draw into the caller's figure: three axes, four with ``data_units``.
 
     Returns
     -------
-    pathlib.Path
-        The written file.
+    pathlib.Path or matplotlib.figure.Figure
+        The written file, or the figure when no path is given.
     """
-    from .plots import _save
-    check_writable(path, overwrite)
-    fig = crossval_figure(result, title=title, units=units, data_units=data_units, log=log)
-    return _save(fig, path, overwrite)
+    from .plots import finish
+    if path is not None:
+        check_writable(path, overwrite)
+    fig = crossval_figure(result, title=title, units=units, data_units=data_units, log=log, ax=ax)
+    return finish(fig, path, overwrite, ax is None)
 
 
 def crossval_figure(result, *, title: str | None = None, units: str | None = None, data_units=None,
-                    log: bool = False):
+                    log: bool = False, ax=None):
     """The matplotlib ``Figure`` :func:`plot_crossval` saves (same parameters)."""
     import matplotlib
 
-    from .plots import SPREAD_CMAP, VALUE_CMAP, _figure
+    from .plots import SPREAD_CMAP, VALUE_CMAP, axes_for
 
     units = _scale_units(result, units)
     in_scores = units == "normal score"
     cmap = matplotlib.colormaps[VALUE_CMAP]
     panels = 3 + (data_units is not None)
-    fig = _figure((4.5 * panels, 4.6))
-    axes = list(fig.subplots(1, panels))
+    fig, axes = axes_for(ax, (4.5 * panels, 4.6), panels)
 
     def scatter(ax, res, label, log_axes=False):
         ok = np.isfinite(res.estimate)
@@ -234,6 +236,7 @@ def crossval_figure(result, *, title: str | None = None, units: str | None = Non
 
     scale = "normal scores" + (" and data units" if data_units is not None else "") if in_scores else \
         (units or "values as given")
-    fig.suptitle(title or (f"Leave-one-{result.leave_out}-out cross-validation, {result.method} kriging, "
-                           f"{scale}: {s['estimated']} of {s['samples']} samples estimated"), fontsize=11)
+    if ax is None:
+        fig.suptitle(title or (f"Leave-one-{result.leave_out}-out cross-validation, {result.method} kriging, "
+                               f"{scale}: {s['estimated']} of {s['samples']} samples estimated"), fontsize=11)
     return fig

@@ -37,10 +37,34 @@ def _figure(size=(7.0, 6.0)):
     return fig
 
 
-def _save(fig, path, overwrite: bool) -> Path:
+def axes_for(ax, size, count: int = 1):
+    """The figure and axes to draw on: the caller's ``ax`` (one Axes, or a sequence of
+    ``count``), or a new figure of ``size`` inches with ``count`` panels in a row."""
+    if ax is None:
+        fig = _figure(size)
+        return fig, list(fig.subplots(1, count, squeeze=False)[0])
+    axes = [ax] if count == 1 and not isinstance(ax, (list, tuple, np.ndarray)) else list(np.ravel(ax))
+    if len(axes) != count:
+        raise ValueError(f"this plot draws {count} panels; give {count} axes, got {len(axes)}")
+    return axes[0].figure, axes
+
+
+def finish(fig, path, overwrite: bool, own: bool):
+    """Write the PNG when a path is given (returns the path), else return the figure to show.
+
+    The footnote goes only on figures geosim made itself (``own``), not into a
+    caller's figure.
+    """
+    if path is None:
+        return fig
+    return _save(fig, path, overwrite, footnote=own)
+
+
+def _save(fig, path, overwrite: bool, footnote: bool = True) -> Path:
     import geosim
-    fig.get_layout_engine().set(rect=(0.0, 0.035, 1.0, 0.965))  # room for the footnote below the axes
-    fig.text(0.01, 0.008, FOOTNOTE, fontsize=6.5, color="0.35", ha="left", va="bottom")
+    if footnote:
+        fig.get_layout_engine().set(rect=(0.0, 0.035, 1.0, 0.965))  # room for the footnote below the axes
+        fig.text(0.01, 0.008, FOOTNOTE, fontsize=6.5, color="0.35", ha="left", va="bottom")
     with atomic_output(path, overwrite) as tmp:
         fig.savefig(tmp, format="png", metadata={"Description": CAUTION,
                                                  "Software": f"geosim {geosim.__version__}"})
@@ -82,10 +106,16 @@ def _scale_bar(ax, grid) -> None:
             path_effects=halo)
 
 
-def plot_map(values: np.ndarray, grid, path: str | os.PathLike, *, title: str, units: str = "",
+def plot_map(values: np.ndarray, grid, path: str | os.PathLike | None = None, *, title: str, units: str = "",
              cmap: str = VALUE_CMAP, vmin: float | None = None, vmax: float | None = None,
-             log: bool = False, overwrite: bool = False) -> Path:
+             log: bool = False, overwrite: bool = False, ax=None):
     """A north-up map of one 2-D array on ``grid`` (one level of a 3-D grid: use its level grid).
+
+    Every plot function of geosim works the same way: with ``path`` it writes a PNG
+    (atomically, the caution in its ``Description`` chunk) and returns the path;
+    without it, it returns the :class:`matplotlib.figure.Figure`, which a notebook
+    shows.  ``ax`` (a matplotlib Axes, or a sequence of them for plots of several
+    panels) draws into the caller's figure instead of a new one.
 
     With ``log=True`` the colours follow the logarithm of the values (for log-normal
     variables such as hydraulic conductivity, whose few high values would otherwise
@@ -100,9 +130,12 @@ def plot_map(values: np.ndarray, grid, path: str | os.PathLike, *, title: str, u
     ...              pathlib.Path(tempfile.mkdtemp()) / "map.png", title="test", units="g/t")
     >>> p.read_bytes()[:8] == b"\\x89PNG\\r\\n\\x1a\\n"
     True
+    >>> type(plot_map(np.ones(g.shape), g, title="in a notebook")).__name__
+    'Figure'
     """
     import matplotlib
-    check_writable(path, overwrite)
+    if path is not None:
+        check_writable(path, overwrite)
     a = np.where(grid.mask, np.asarray(values, dtype=float), np.nan)
     norm = None
     if log:
@@ -112,8 +145,8 @@ def plot_map(values: np.ndarray, grid, path: str | os.PathLike, *, title: str, u
     a = np.ma.masked_invalid(a)
     colours = matplotlib.colormaps[cmap].with_extremes(bad=(0.0, 0.0, 0.0, 0.0))
     ratio = (grid.ymax - grid.ymin) / (grid.xmax - grid.xmin)
-    fig = _figure((7.0, float(np.clip(5.2 * ratio + 1.6, 3.0, 10.0))))
-    ax = fig.add_subplot()
+    own = ax is None
+    fig, (ax,) = axes_for(ax, (7.0, float(np.clip(5.2 * ratio + 1.6, 3.0, 10.0))))
     im = ax.imshow(a, extent=(grid.xmin, grid.xmax, grid.ymin, grid.ymax), origin="upper", cmap=colours,
                    vmin=vmin, vmax=vmax, norm=norm, interpolation="nearest")
     ax.set_aspect("equal")
@@ -126,7 +159,7 @@ def plot_map(values: np.ndarray, grid, path: str | os.PathLike, *, title: str, u
     _scale_bar(ax, grid)
     bar = fig.colorbar(im, ax=ax, shrink=0.9, aspect=30)
     bar.set_label(units or "no units")
-    return _save(fig, path, overwrite)
+    return finish(fig, path, overwrite, own)
 
 
 def plot_summary_maps(summary: Mapping[str, np.ndarray], grid, folder: str | os.PathLike, *,
@@ -180,8 +213,8 @@ def _ecdf(values, weights=None):
 
 
 def plot_histogram_reproduction(data: np.ndarray, realizations: Sequence[np.ndarray],
-                                path: str | os.PathLike, *, weights: np.ndarray | None = None,
-                                units: str = "", log: bool | None = None, overwrite: bool = False) -> Path:
+                                path: str | os.PathLike | None = None, *, weights: np.ndarray | None = None,
+                                units: str = "", log: bool | None = None, overwrite: bool = False, ax=None):
     """Cumulative distributions of the (declustered) data and of each realization.
 
     ``realizations`` holds one array of values per realization (a subsample is
@@ -189,14 +222,15 @@ def plot_histogram_reproduction(data: np.ndarray, realizations: Sequence[np.ndar
     realizations) are positive and span more than two orders of magnitude.
     """
     import matplotlib
-    check_writable(path, overwrite)
+    if path is not None:
+        check_writable(path, overwrite)
     d = np.asarray(data, dtype=float)
     if log is None:
         pooled = np.concatenate([d.ravel()] + [np.asarray(r, dtype=float).ravel() for r in realizations])
         finite = pooled[np.isfinite(pooled)]
         log = bool(finite.size and finite.min() > 0 and finite.max() / finite.min() > 100.0)
-    fig = _figure((7.0, 4.8))
-    ax = fig.add_subplot()
+    own = ax is None
+    fig, (ax,) = axes_for(ax, (7.0, 4.8))
     colour = matplotlib.colormaps[VALUE_CMAP](0.55)
     for i, r in enumerate(realizations):
         x, f = _ecdf(r)
@@ -213,11 +247,11 @@ def plot_histogram_reproduction(data: np.ndarray, realizations: Sequence[np.ndar
     ax.set_title("Histogram reproduction", fontsize=10)
     ax.grid(alpha=0.3)
     ax.legend(loc="lower right", fontsize=8)
-    return _save(fig, path, overwrite)
+    return finish(fig, path, overwrite, own)
 
 
-def plot_variogram_reproduction(section: Mapping, path: str | os.PathLike, *, model=None,
-                                ndim: int = 2, overwrite: bool = False) -> Path:
+def plot_variogram_reproduction(section: Mapping, path: str | os.PathLike | None = None, *, model=None,
+                                ndim: int = 2, overwrite: bool = False, ax=None):
     """Realization semivariograms against the model, one panel per grid axis.
 
     ``section`` is the ``"variogram"`` part of
@@ -225,10 +259,11 @@ def plot_variogram_reproduction(section: Mapping, path: str | os.PathLike, *, mo
     drawn as a smooth curve, otherwise through its values at the lags.
     """
     import matplotlib
-    check_writable(path, overwrite)
+    if path is not None:
+        check_writable(path, overwrite)
     directions = section["directions"]
-    fig = _figure((4.0 * len(directions), 4.2))
-    axes = fig.subplots(1, len(directions), squeeze=False)[0]
+    own = ax is None
+    fig, axes = axes_for(ax, (4.0 * len(directions), 4.2), len(directions))
     colour = matplotlib.colormaps[VALUE_CMAP](0.55)
     unit = {"east": 0, "north": 1, "up": 2}
     for ax, (name, d) in zip(axes, directions.items()):
@@ -257,16 +292,17 @@ def plot_variogram_reproduction(section: Mapping, path: str | os.PathLike, *, mo
         ax.grid(alpha=0.3)
     axes[0].set_ylabel("semivariance (normal scores)")
     axes[0].legend(loc="lower right", fontsize=7)
-    fig.suptitle(f"Variogram reproduction: {section['flag']}", fontsize=11)
-    return _save(fig, path, overwrite)
+    if own:
+        fig.suptitle(f"Variogram reproduction: {section['flag']}", fontsize=11)
+    return finish(fig, path, overwrite, own)
 
 
 _LABELS = {"tonnage": "tonnage (t)", "metal": "metal (grade units x t)", "fraction_above": "fraction above",
            "fraction_below": "fraction below", "area": "area (m\u00b2)", "volume": "volume (m\u00b3)"}
 
 
-def plot_decision_spread(figures: Sequence[Mapping[str, np.ndarray]], path: str | os.PathLike, *,
-                         units: str = "", overwrite: bool = False) -> Path:
+def plot_decision_spread(figures: Sequence[Mapping[str, np.ndarray]], path: str | os.PathLike | None = None, *,
+                         units: str = "", overwrite: bool = False, ax=None):
     """Each decision figure against cut-off: every realization, the P10-P90 band and P50.
 
     ``figures`` is the list of per-realization dicts of
@@ -276,13 +312,14 @@ def plot_decision_spread(figures: Sequence[Mapping[str, np.ndarray]], path: str 
     import matplotlib
 
     from ..summaries import QUANTILE_METHOD
-    check_writable(path, overwrite)
+    if path is not None:
+        check_writable(path, overwrite)
     if not figures:
         raise ValueError("no decision figures to plot")
     key, *quantities = list(figures[0])
     x = np.asarray(figures[0][key], dtype=float)
-    fig = _figure((4.2 * len(quantities), 4.2))
-    axes = fig.subplots(1, len(quantities), squeeze=False)[0]
+    own = ax is None
+    fig, axes = axes_for(ax, (4.2 * len(quantities), 4.2), len(quantities))
     cmap = matplotlib.colormaps[VALUE_CMAP]
     for ax, q in zip(axes, quantities):
         y = np.array([np.asarray(f[q], dtype=float) for f in figures])
@@ -303,5 +340,6 @@ def plot_decision_spread(figures: Sequence[Mapping[str, np.ndarray]], path: str 
         ax.ticklabel_format(axis="y", style="sci", scilimits=(-3, 4))
         ax.grid(alpha=0.3)
     axes[0].legend(fontsize=8)
-    fig.suptitle(f"Decision figures across {len(figures)} realizations", fontsize=11)
-    return _save(fig, path, overwrite)
+    if own:
+        fig.suptitle(f"Decision figures across {len(figures)} realizations", fontsize=11)
+    return finish(fig, path, overwrite, own)

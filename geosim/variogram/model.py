@@ -284,7 +284,8 @@ class Model:
         return self.text()
 
     def __repr__(self) -> str:
-        return f"Model({list(self.structures)!r})"
+        """One line of the text form, e.g. ``Model(nugget sill=0.1 + spherical sill=0.9 ranges=(100, 50, 100) ...)``."""
+        return f"Model({' '.join(str(self).split())})"
 
 
 def _route(s: Structure, d: int) -> str:

@@ -24,8 +24,8 @@ _MARKERS = ("o", "s", "^", "D", "v", "P", "X", "<", ">")
 def plot_variogram(experimentals: ExperimentalVariogram | Sequence[ExperimentalVariogram],
                    model: Model | None = None, path: str | os.PathLike | None = None, *,
                    overwrite: bool = False, title: str | None = None, value_unit: str | None = None,
-                   min_pairs: int = 1, dpi: int = 120) -> Path:
-    """Draw experimental semivariograms (and a model) into a PNG file.
+                   min_pairs: int = 1, dpi: int = 120, ax=None):
+    """Draw experimental semivariograms (and a model): into a PNG file, or a figure to show.
 
     Parameters
     ----------
@@ -34,8 +34,9 @@ def plot_variogram(experimentals: ExperimentalVariogram | Sequence[ExperimentalV
     model : Model, optional
         Drawn along each variogram's direction (for omnidirectional ones, averaged
         over directions the same way :func:`geosim.variogram.fit_model` does).
-    path : path-like
-        The PNG to write (atomically).
+    path : path-like, optional
+        The PNG to write (atomically).  Without it the figure is returned (a notebook
+        shows it).
     overwrite : bool
         Replace an existing file.
     title : str, optional
@@ -45,22 +46,19 @@ def plot_variogram(experimentals: ExperimentalVariogram | Sequence[ExperimentalV
         labels the axis without unit (normal scores are unitless).
     min_pairs : int
         Bins with fewer pairs are not drawn.
+    ax : matplotlib.axes.Axes, optional
+        Draw into this Axes instead of a new figure.
 
     Returns
     -------
-    pathlib.Path
-        The file written.  The PNG carries :data:`geosim.cautions.CAUTION` in its
-        ``Description`` text chunk.
+    pathlib.Path or matplotlib.figure.Figure
+        The file written (the PNG carries :data:`geosim.cautions.CAUTION` in its
+        ``Description`` text chunk), or the figure when no path is given.
     """
-    from matplotlib.backends.backend_agg import FigureCanvasAgg
-    from matplotlib.figure import Figure
     from matplotlib import colormaps
 
-    from ..io.atomic import atomic_output
     from .fitting import _unit_dirs
 
-    if path is None:
-        raise ValueError("give the path of the PNG to write")
     evs = [experimentals] if isinstance(experimentals, ExperimentalVariogram) else list(experimentals)
     if not evs:
         raise ValueError("nothing to plot: give at least one experimental variogram")
@@ -68,9 +66,7 @@ def plot_variogram(experimentals: ExperimentalVariogram | Sequence[ExperimentalV
     colours = [cmap(x) for x in (np.linspace(0.0, 0.9, len(evs)) if len(evs) > 1 else [0.0])]
     nmax = max(int(ev.npairs.max()) for ev in evs) or 1
 
-    fig = Figure(figsize=(8.5, 4.5), dpi=dpi, layout="constrained")
-    FigureCanvasAgg(fig)
-    ax = fig.add_subplot()
+    fig, ax = _axes(ax, (8.5, 4.5), dpi)
     hmax = 0.0
     for ev, colour, marker in zip(evs, colours, _MARKERS * (len(evs) // len(_MARKERS) + 1)):
         ok = ev.valid(min_pairs) & np.isfinite(ev.gamma)
@@ -99,30 +95,22 @@ def plot_variogram(experimentals: ExperimentalVariogram | Sequence[ExperimentalV
     ax.grid(True, color="0.9", zorder=0)
     ax.legend(fontsize="small", frameon=False, loc="upper left", bbox_to_anchor=(1.01, 1.0))
     ax.set_title(title or "Semivariogram (marker area grows with pair count)", fontsize="medium")
-    with atomic_output(path, overwrite=overwrite) as tmp:
-        fig.savefig(tmp, format="png", metadata={"Description": CAUTION, "Software": "geosim"})
-    return Path(path)
+    return _done(fig, path, overwrite)
 
 
-def plot_variogram_map(vmap: VariogramMap, path: str | os.PathLike, *, overwrite: bool = False,
-                       title: str | None = None, value_unit: str | None = None, dpi: int = 120) -> Path:
-    """Draw a :class:`~geosim.variogram.VariogramMap` into a PNG file (cividis, colour bar).
+def plot_variogram_map(vmap: VariogramMap, path: str | os.PathLike | None = None, *, overwrite: bool = False,
+                       title: str | None = None, value_unit: str | None = None, dpi: int = 120, ax=None):
+    """Draw a :class:`~geosim.variogram.VariogramMap` (cividis, colour bar): into a PNG or a figure.
 
     The axes are the east and north lag components in metres; cells with too
     few pairs are left blank.  The direction of slowest growth of the
-    semivariance is the major axis of continuity.  Returns the path written;
-    the PNG carries :data:`geosim.cautions.CAUTION` in its ``Description`` chunk.
+    semivariance is the major axis of continuity.  Returns the path written (the
+    PNG carries :data:`geosim.cautions.CAUTION` in its ``Description`` chunk), or
+    the figure without ``path``; ``ax`` draws into the caller's Axes.
     """
-    from matplotlib.backends.backend_agg import FigureCanvasAgg
-    from matplotlib.figure import Figure
-
-    from ..io.atomic import atomic_output
-
     half = vmap.cell / 2.0
     extent = (vmap.dx[0] - half, vmap.dx[-1] + half, vmap.dy[0] - half, vmap.dy[-1] + half)
-    fig = Figure(figsize=(6.0, 5.0), dpi=dpi, layout="constrained")
-    FigureCanvasAgg(fig)
-    ax = fig.add_subplot()
+    fig, ax = _axes(ax, (6.0, 5.0), dpi)
     image = ax.imshow(np.ma.masked_invalid(vmap.gamma), origin="lower", extent=extent, cmap="cividis",
                       interpolation="nearest")
     unit = f" [({value_unit})\u00b2]" if value_unit else ""
@@ -131,6 +119,25 @@ def plot_variogram_map(vmap: VariogramMap, path: str | os.PathLike, *, overwrite
     ax.set_ylabel("north lag (m)")
     ax.set_aspect("equal")
     ax.set_title(title or "Variogram map", fontsize="medium")
+    return _done(fig, path, overwrite)
+
+
+def _axes(ax, size, dpi):
+    """The caller's Axes and its figure, or a new figure (Agg canvas, no pyplot state) and Axes."""
+    if ax is not None:
+        return ax.figure, ax
+    from matplotlib.backends.backend_agg import FigureCanvasAgg
+    from matplotlib.figure import Figure
+    fig = Figure(figsize=size, dpi=dpi, layout="constrained")
+    FigureCanvasAgg(fig)
+    return fig, fig.add_subplot()
+
+
+def _done(fig, path, overwrite: bool):
+    """The figure without a path; else the PNG written atomically, the caution in its Description."""
+    if path is None:
+        return fig
+    from ..io.atomic import atomic_output
     with atomic_output(path, overwrite=overwrite) as tmp:
         fig.savefig(tmp, format="png", metadata={"Description": CAUTION, "Software": "geosim"})
     return Path(path)
