@@ -38,7 +38,7 @@ import numpy as np
 
 from .errors import InputError
 
-__all__ = ["VECTOR_SUFFIXES", "is_vector_path", "is_frame", "VectorTable", "read_vector", "frame_table",
+__all__ = ["VECTOR_SUFFIXES", "is_vector_path", "is_frame", "VectorTable", "read_vector", "frame_table", "frame_sha256",
            "sample_table", "read_polygons", "GEOMETRY_COLUMNS"]
 
 VECTOR_SUFFIXES = {".gpkg": "GeoPackage", ".shp": "ESRI Shapefile", ".geojson": "GeoJSON",
@@ -178,6 +178,20 @@ def _read_parquet(path: str) -> VectorTable:
         table = table.drop([col])
     columns = {name: np.asarray(table.column(name).to_numpy(zero_copy_only=False)) for name in table.column_names}
     return VectorTable(path, columns, geometry, crs)
+
+
+def frame_sha256(frame) -> str:
+    """SHA-256 of a data frame's content: column names, values (geometries as WKB) and CRS."""
+    import hashlib
+    vt = frame_table(frame)
+    digest = hashlib.sha256()
+    for name, values in vt.columns.items():
+        digest.update(name.encode() + b"\0" + "\0".join(map(_cell, values)).encode() + b"\1")
+    if vt.geometry is not None:
+        import shapely
+        digest.update(b"".join(b"" if g is None else shapely.to_wkb(g) for g in vt.geometry))
+        digest.update(str(None if vt.crs is None else vt.crs.to_wkt()).encode())
+    return digest.hexdigest()
 
 
 def frame_table(frame) -> VectorTable:

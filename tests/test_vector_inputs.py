@@ -171,3 +171,25 @@ def test_run_spec_keys_for_vector_files(tmp_path):
     text = str(err.value)
     assert "data.crs: required for CSV tables" in text and "data.x: required" in text and "data.layer" in text
     assert json.dumps(True)  # the spec module stays importable without the vector extra
+
+
+def test_data_frames_through_the_run_spec_equal_the_csv_run(csv_run, tmp_path):
+    spec_csv, _, out_csv = csv_run
+    # a GeoDataFrame brings its coordinates and CRS: the spec's x, y and crs are dropped
+    spec = load_spec(AQUIFER / "run.toml", overrides={**SMALL, "data.points": wells_layer(), "data.x": None,
+                                                       "data.y": None, "data.crs": None,
+                                                       "domain.polygon": domain_layer()})
+    assert spec["data.points"].startswith("<GeoDataFrame sha256:") and not spec.input_files().get("data.points")
+    geosim.pipeline.run(spec, tmp_path / "run")
+    import rasterio
+    with rasterio.open(out_csv / "summary.tif") as a, rasterio.open(tmp_path / "run" / "summary.tif") as b:
+        np.testing.assert_array_equal(a.read(), b.read())
+    # a plain DataFrame is read with the spec's column names and CRS
+    plain = load_spec(AQUIFER / "run.toml", overrides={**SMALL, "data.points": wells_frame()})
+    data, data_csv = geosim.pipeline.prepare_data(plain), geosim.pipeline.prepare_data(spec_csv)
+    np.testing.assert_array_equal(data.scores, data_csv.scores)
+    # the spec's hash follows the frame's content, so a resumed run never mixes data
+    changed = wells_frame()
+    changed.loc[0, "k_ms"] *= 2.0
+    assert load_spec(AQUIFER / "run.toml", overrides={**SMALL, "data.points": changed}).sha256 != plain.sha256
+    assert load_spec(AQUIFER / "run.toml", overrides={**SMALL, "data.points": wells_frame()}).sha256 == plain.sha256

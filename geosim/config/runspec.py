@@ -408,6 +408,7 @@ class RunSpec:
     base: Path
     values: dict = field(repr=False)
     sha256: str
+    frames: dict = field(default_factory=dict, repr=False, compare=False)
 
     def __getitem__(self, dotted: str):
         """Value at a dotted key path, e.g. ``spec["simulation.seed"]``."""
@@ -423,7 +424,10 @@ class RunSpec:
             return default
 
     def resolve(self, relative: str | os.PathLike) -> Path:
-        """A path from the spec, made absolute against the spec's folder."""
+        """A path from the spec, made absolute against the spec's folder (a data frame given for
+        the key: the frame itself)."""
+        if isinstance(relative, str) and relative in self.frames:
+            return self.frames[relative]
         p = Path(relative).expanduser()
         return p if p.is_absolute() else (self.base / p)
 
@@ -441,7 +445,7 @@ class RunSpec:
         for section, keys in INPUT_FILE_KEYS:
             for key in keys:
                 value = self.values[section].get(key)
-                if value is not None:
+                if value is not None and value not in self.frames:
                     out[f"{section}.{key}"] = self.resolve(value)
         return out
 
@@ -555,16 +559,17 @@ def spec_from_dict(values: Mapping, base: str | os.PathLike = ".", *,
             else:
                 node[parts[-1]] = value
 
+    frames = _take_frames(values)
     base = Path(base)
     problems += retire_spec_names(
         values, lambda text: warnings.warn(f"{name}: {text}", RetiredNameWarning, stacklevel=4))
     out = _check_sections(values, problems)
     _check_combinations(out, problems)
     if check_files:
-        _check_files(out, base, problems)
+        _check_files(out, base, problems, frames)
     if problems:
         raise SpecError(name, problems)
-    spec = RunSpec(path=Path(file) if file is not None else None, base=base, values=out, sha256="")
+    spec = RunSpec(path=Path(file) if file is not None else None, base=base, values=out, sha256="", frames=frames)
     object.__setattr__(spec, "sha256", hashlib.sha256(spec.canonical().encode()).hexdigest())
     return spec
 
@@ -651,7 +656,8 @@ def _check_combinations(spec: dict, problems: list[str]) -> None:
         problems.append('data: expected points = "file.csv" (point samples) or collars = "..." and '
                         'intervals = "..." (drillholes), found neither')
     from ..vector import is_vector_path
-    vector = is_vector_path(data["points"])
+    # a GIS layer or a GeoDataFrame may carry the coordinates and the CRS itself
+    vector = is_vector_path(data["points"]) or str(data["points"]).startswith("<GeoDataFrame")
     if data["crs"] is None and not vector:
         problems.append("data.crs: required for CSV tables, expected the CRS of the coordinates "
                         "(e.g. \"EPSG:32633\"), found nothing")
@@ -767,11 +773,27 @@ def _installed(group: str) -> list[str] | None:
         return None
 
 
-def _check_files(spec: dict, base: Path, problems: list[str]) -> None:
+def _take_frames(values: dict) -> dict:
+    """Replace data frames given for ``data.points`` or ``domain.polygon`` (through overrides) by
+    a text naming their content hash, so the spec's hash and resume key follow the data."""
+    from ..vector import frame_sha256, is_frame
+    frames = {}
+    for section, key in (("data", "points"), ("domain", "polygon")):
+        node = values.get(section)
+        if isinstance(node, dict) and is_frame(node.get(key)):
+            frame = node[key]
+            kind = "GeoDataFrame" if hasattr(frame, "geometry") else "DataFrame"
+            label = f"<{kind} sha256:{frame_sha256(frame)}>"
+            frames[label] = frame
+            node[key] = label
+    return frames
+
+
+def _check_files(spec: dict, base: Path, problems: list[str], frames: Mapping | None = None) -> None:
     for section, keys in INPUT_FILE_KEYS:
         for key in keys:
             value = spec[section].get(key)
-            if value is None:
+            if value is None or value in (frames or {}):
                 continue
             p = Path(value).expanduser()
             p = p if p.is_absolute() else base / p
