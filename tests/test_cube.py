@@ -146,3 +146,22 @@ def test_two_dimensional_results_convert_from_geotiffs(tmp_path):
     np.testing.assert_array_equal(est.to_xarray()["mean"].values, est.mean)
     with pytest.raises(ValueError, match="kind must be"):
         result.to_xarray("cube")
+
+
+def test_zarr_cube_from_a_dask_cluster_equals_the_serial_netcdf(ore_run, tmp_path):
+    pytest.importorskip("zarr")
+    distributed = pytest.importorskip("distributed")
+    spec, result, _ = ore_run
+    with distributed.LocalCluster(n_workers=2, threads_per_worker=1, processes=True, host="127.0.0.1",
+                                  dashboard_address=None) as cluster:
+        remote = load_spec(ORE, overrides={**SMALL, "simulation.workers": None, "outputs.cube": "zarr",
+                                           "simulation.cluster": cluster.scheduler_address,
+                                           "outputs.level_geotiffs": False, "outputs.block_model": []})
+        zarr_run = geosim.pipeline.run(remote, tmp_path / "dask")
+    assert Path(zarr_run.files["realizations_cube"][0]).name == "realizations.zarr"
+    var = geosim.pipeline._variable_name(spec["data.value"])
+    for kind, name in (("realizations", var), ("summary", "mean"), ("summary", "prob_above")):
+        got, want = zarr_run.to_xarray(kind), result.to_xarray(kind)
+        np.testing.assert_array_equal(got[name].values, want[name].values)
+        assert got[name].attrs["units"] == want[name].attrs["units"]
+        np.testing.assert_array_equal(got.x.values, want.x.values)

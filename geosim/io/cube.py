@@ -191,7 +191,7 @@ def write_zarr(path: str | os.PathLike, ds, *, overwrite: bool = False, region: 
     shutil.rmtree(tmp, ignore_errors=True)
     try:
         with _local_dask():
-            ds.to_zarr(tmp, mode="w", encoding=_encoding(ds, False), consolidated=True)
+            ds.to_zarr(tmp, mode="w", encoding=_encoding(ds, False), consolidated=False)
         if path.exists():
             shutil.rmtree(path)
         os.replace(tmp, path)
@@ -206,7 +206,7 @@ def open_cube(path: str | os.PathLike):
     xr = _need("xarray", "cube")
     path = Path(path)
     if path.is_dir():
-        return xr.open_zarr(path)
+        return xr.open_zarr(path, consolidated=False)
     return xr.open_dataset(path, engine="netcdf4")
 
 
