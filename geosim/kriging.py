@@ -204,7 +204,7 @@ def krige(data_coords, data_values, targets, model, *, method: str = "simple", m
     >>> pts = np.array([[0.0, 0.0], [50.0, 0.0], [0.0, 50.0]])
     >>> r = krige(pts, [1.0, 2.0, 3.0], [[50.0, 0.0], [500.0, 500.0]], model, method="ordinary")
     >>> np.round(r.estimate, 6).tolist(), round(float(r.variance[0]), 6)
-    ([2.0, nan], 0.0)
+    ([2.0, 2.0], 0.0)
     """
     ordinary = _check_method(method)
     model = _as_model(model)
@@ -700,7 +700,7 @@ progress
     >>> model = geosim.Nugget(0.2) + geosim.Spherical(0.8, geosim.Anisotropy((60.0, 60.0)))
     >>> cv = cross_validate(xy, rng.normal(size=30), model)
     >>> cv.error.shape, sorted(cv.summary())[:2]
-    ((30,), ['correlation', 'estimated'])
+    ((30,), ['below_min_samples', 'correlation'])
     """
     ordinary = _check_method(method)
     if leave_out not in ("sample", "hole"):
