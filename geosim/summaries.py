@@ -47,8 +47,8 @@ from ._forward import forward
 from .errors import InputError
 
 __all__ = ["QUANTILE_METHOD", "SUMMARY_PERCENTILES", "summary_band_names", "summary_band_descriptions",
-           "summary_bands", "summarize_ensemble", "summarize_windows", "grade_tonnage", "fraction_above",
-           "fraction_below", "decision_rows", "decision_spread", "figure_display"]
+           "summary_bands", "summarize_ensemble", "summarize_windows", "grade_tonnage", "tonnage_above",
+           "fraction_above", "fraction_below", "decision_rows", "decision_spread", "figure_display"]
 
 QUANTILE_METHOD = "linear"  # numpy's default; Hyndman and Fan (1996) definition 7
 SUMMARY_PERCENTILES = (10.0, 50.0, 90.0)
@@ -294,7 +294,19 @@ def grade_tonnage(field: np.ndarray, grid, cutoffs: Sequence[float], density: fl
     """
     f = _field(field, grid)
     tonnes = _cell_volume(grid, thickness) * np.asarray(density, dtype=float)
-    tonnes = np.broadcast_to(tonnes, grid.shape)
+    return tonnage_above(f, np.broadcast_to(tonnes, grid.shape), cutoffs, metal_factor)
+
+
+def tonnage_above(grades: np.ndarray, tonnes: np.ndarray, cutoffs: Sequence[float],
+                  metal_factor: float = 1.0) -> dict[str, np.ndarray]:
+    """Tonnage, mean grade and metal at or above each cut-off of units (cells or blocks) of known tonnes.
+
+    ``grades`` and ``tonnes`` have one shape; units where the grade is NaN are left
+    out.  :func:`grade_tonnage` uses it for grid cells, block support
+    (:mod:`geosim.support`) for blocks.  Returns what :func:`grade_tonnage` returns.
+    """
+    f = np.asarray(grades, dtype=float)
+    tonnes = np.asarray(tonnes, dtype=float)
     inside = ~np.isnan(f)
     cut = np.asarray(cutoffs, dtype=float).ravel()
     tonnage = np.empty(cut.size)

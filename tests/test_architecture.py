@@ -27,7 +27,7 @@ LAYERS = [
     ("data", ["geosim.grid", "geosim.crs", "geosim.tables", "geosim.vector", "geosim.points", "geosim.drillholes",
               "geosim.domain", "geosim.declustering", "geosim.transforms", "geosim.linalg"]),
     ("models", ["geosim.variogram.*", "geosim.search", "geosim.kriging", "geosim.simulation.*"]),
-    ("statistics", ["geosim.summaries", "geosim.validation", "geosim.inputchecks"]),
+    ("statistics", ["geosim.summaries", "geosim.validation", "geosim.inputchecks", "geosim.support"]),
     ("files", ["geosim.demo", "geosim.io.geotiff", "geosim.io.plots", "geosim.io.report", "geosim.io.crossval",
                "geosim.io.csvw", "geosim.io.decision", "geosim.io.lock", "geosim.io.cube"]),
     ("assembly", ["geosim.ensemble", "geosim.config.*", "geosim.io.runspec.*"]),
