@@ -40,7 +40,7 @@ from shapely.geometry import MultiPolygon, Polygon
 from .crs import CrsLike, parse_crs
 from .errors import GeosimWarning, InputError
 
-__all__ = ["read_domain", "read_domain_raster", "below_surface"]
+__all__ = ["read_domain", "read_domain_raster", "sample_raster", "below_surface"]
 
 _LONLAT = CRS.from_user_input("OGC:CRS84")  # RFC 7946 section 4: WGS 84, longitude then latitude
 # Lines between GeoJSON positions are straight in longitude/latitude (RFC 7946 section 3.1.1);
@@ -144,16 +144,32 @@ def read_domain_raster(path: str | os.PathLike, grid) -> np.ndarray:
         cells are inside the domain; zero, nodata and NaN cells are outside, and
         so is everything beyond the raster's extent.
     grid : geosim.grid.Grid
-        The grid to mask.  Each node takes the value of the raster cell its centre
-        falls in (nearest-cell resampling); node centres are reprojected to the
-        raster's CRS when the two differ.  If only one of the two has a CRS, both
-        are taken to be in it (with a warning).
+        The grid to mask, sampled as :func:`sample_raster` does.
 
     Returns
     -------
     bool ndarray of ``grid.shape``
         True inside.  A 3-D grid gets the same 2-D mask on every level.  Combine it
         with the grid's own mask: ``grid.with_mask(grid.mask & mask)``.
+
+    Raises
+    ------
+    InputError
+        If the file cannot be opened as a raster or the node centres cannot be
+        reprojected into its CRS.
+    """
+    values = sample_raster(path, grid)
+    return np.isfinite(values) & (values != 0)
+
+
+def sample_raster(path: str | os.PathLike, grid) -> np.ndarray:
+    """The first band of a raster at the nodes of ``grid``, as float64 (NaN where it has no value).
+
+    Each node takes the value of the raster cell its centre falls in (nearest-cell
+    resampling); node centres are reprojected to the raster's CRS when the two
+    differ.  If only one of the two has a CRS, both are taken to be in it (with a
+    warning).  Nodata, NaN and cells beyond the raster's extent give NaN.  A 3-D
+    grid gets the same values on every level.
 
     Raises
     ------
@@ -186,25 +202,23 @@ def read_domain_raster(path: str | os.PathLike, grid) -> np.ndarray:
         elif (raster_crs is None) != (grid_crs is None):
             warnings.warn(f"{path}: {'the raster' if raster_crs is None else 'the grid'} has no CRS; "
                           "taking raster and grid to be in the same coordinates", GeosimWarning,
-                          stacklevel=2)
+                          stacklevel=3)
         inv = ~src.transform
         col = np.floor(inv.a * x + inv.b * y + inv.c).astype(np.int64)
         row = np.floor(inv.d * x + inv.e * y + inv.f).astype(np.int64)
         covered = (row >= 0) & (row < src.height) & (col >= 0) & (col < src.width)
-        inside2d = np.zeros(covered.shape, dtype=bool)
+        out2d = np.full(covered.shape, np.nan)
         if covered.any():
             r0, r1 = int(row[covered].min()), int(row[covered].max()) + 1
             c0, c1 = int(col[covered].min()), int(col[covered].max()) + 1
             band = src.read(1, window=Window(c0, r0, c1 - c0, r1 - r0), masked=True)
             values = band[row[covered] - r0, col[covered] - c0]
-            keep = ~np.ma.getmaskarray(values)
-            data = np.ma.getdata(values)
-            if np.issubdtype(data.dtype, np.floating):
-                keep &= np.isfinite(data)
-            inside2d[covered] = keep & (data != 0)
+            data = np.ma.getdata(values).astype(np.float64)
+            data[np.ma.getmaskarray(values)] = np.nan
+            out2d[covered] = data
     if grid.ndim == 3:
-        return np.broadcast_to(inside2d, grid.shape).copy()
-    return inside2d
+        return np.broadcast_to(out2d, grid.shape).copy()
+    return out2d
 
 
 # ---------------------------------------------------------------------------

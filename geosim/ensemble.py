@@ -41,7 +41,7 @@ from .io.report import file_sha256
 from .summaries import (decision_rows, decision_spread, summarize_windows, summary_band_descriptions,
                         summary_band_names)
 
-__all__ = ["RealizationWriter", "summarize_realizations"]
+__all__ = ["RealizationWriter", "summarize_realizations", "record_files"]
 
 
 def summarize_realizations(paths: Sequence[str | os.PathLike], grid, cutoffs: Sequence[float],
@@ -90,6 +90,14 @@ def summarize_realizations(paths: Sequence[str | os.PathLike], grid, cutoffs: Se
                          overwrite=overwrite, progress=progress, what="summary")
 
 
+def record_files(record: Mapping) -> list[tuple[str, str]]:
+    """``(file relative to the writer's folder, SHA-256)`` of one realization record, derived outputs included."""
+    pairs = list(zip(record.get("files", []), record.get("sha256", [])))
+    for sub in (record.get("derived") or {}).values():
+        pairs += list(zip(sub.get("files", []), sub.get("sha256", [])))
+    return pairs
+
+
 class RealizationWriter:
     """Picklable sink that writes each realization in the worker, and assembles at the end.
 
@@ -119,19 +127,30 @@ class RealizationWriter:
         Unit of the ``metal`` decision figure, for the decision tables' metadata.
     overwrite : bool
         Replace existing outputs.
+    derived : sequence, optional
+        Sinks fed each realization in data units after it is written (change of
+        support, values at points; :mod:`geosim.support_outputs`): each has a
+        ``name``, is called ``d(index, values) -> record`` in the worker (``files``
+        and ``sha256`` in the record, if any, relative to ``folder``) and has
+        ``finish(records, indices=, cutoffs=, stack=, plots=, progress=) -> dict``
+        and ``realization_files(record) -> list``.
+    ranking : callable, optional
+        ``ranking(writer, records) -> dict`` of files, run by ``finish`` after
+        everything else is assembled and before realization files are removed.
 
     Notes
     -----
     ``writer(index, field)`` returns a record ``{"index", "files", "sha256",
-    "figures", "checks"}`` (``files`` relative to ``folder``).  ``finish``
-    takes the records of all realizations.
+    "figures", "checks"}`` (``files`` relative to ``folder``), and ``"derived"``
+    (name -> record) with ``derived`` sinks.  ``finish`` takes the records of all
+    realizations.
     """
 
     def __init__(self, folder: str | os.PathLike, grid, *, tags: Mapping[str, str] | None = None,
                  units: str = "", back_transform: Callable[[np.ndarray], np.ndarray] | None = None,
                  figures: Callable[[np.ndarray], dict] | None = None,
                  measure: Callable[[np.ndarray, np.ndarray], dict] | None = None, metal_unit: str = "",
-                 overwrite: bool = False):
+                 overwrite: bool = False, derived: Sequence = (), ranking: Callable | None = None):
         self.folder = Path(folder)
         self.grid = grid
         self.tags = dict(tags or {})
@@ -141,6 +160,8 @@ class RealizationWriter:
         self.measure = measure
         self.metal_unit = metal_unit
         self.overwrite = overwrite
+        self.derived = tuple(derived)
+        self.ranking = ranking
 
     def realization_paths(self, index: int) -> list[Path]:
         """The per-realization file(s) of realization ``index``."""
@@ -162,11 +183,14 @@ class RealizationWriter:
         u = f" ({self.units})" if self.units else ""
         written = write_raster(target, values, self.grid, descriptions=[(f"realization {index}{u}", self.units)],
                                tags={**self.tags, "realization": str(index)}, overwrite=self.overwrite)
-        return {"index": int(index),
-                "files": [str(p.relative_to(self.folder)) for p in written],
-                "sha256": [file_sha256(p) for p in written],
-                "figures": None if self.figures is None else self.figures(values),
-                "checks": None if self.measure is None else self.measure(scores, values)}
+        record = {"index": int(index),
+                  "files": [str(p.relative_to(self.folder)) for p in written],
+                  "sha256": [file_sha256(p) for p in written],
+                  "figures": None if self.figures is None else self.figures(values),
+                  "checks": None if self.measure is None else self.measure(scores, values)}
+        if self.derived:
+            record["derived"] = {d.name: d(index, values) for d in self.derived}
+        return record
 
     def finish(self, records: Sequence[Mapping], *, cutoffs: Sequence[float] = (),
                stack: bool = True, keep_realization_files: bool = True, plots: bool = False,
@@ -201,13 +225,13 @@ class RealizationWriter:
         if not records:
             raise ValueError("no realization records to assemble")
         for r in records:
-            for f, sha in zip(r["files"], r["sha256"]):
+            for f, sha in record_files(r):
                 if not verify_realization(self.folder / f, sha):
                     raise InputError("realization file is missing or changed since it was written",
                                      file=str(self.folder / f), fix="re-run that realization")
         indices = [r["index"] for r in records]
         out: dict[str, list[str]] = {
-            "realization_files": [str(self.folder / f) for r in records for f in r["files"]]}
+            "realization_files": [str(self.folder / f) for r in records for f, _ in record_files(r)]}
         if stack:
             out["realizations"] = []
         out["summary"] = []
@@ -237,11 +261,18 @@ class RealizationWriter:
             out["decision"] = [str(p1), str(p2)]
         if plots:
             out["plots"] = [str(p) for p in self._plots(records, cutoffs, out["summary"])]
+        for d in self.derived:
+            out.update(d.finish([r["derived"][d.name] for r in records], indices=indices, cutoffs=cutoffs,
+                                stack=stack, plots=plots, progress=progress))
+        if self.ranking is not None:
+            out.update(self.ranking(self, records))
         if not keep_realization_files:
-            for f in out.pop("realization_files"):
-                Path(f).unlink()
-            with contextlib.suppress(OSError):
-                (self.folder / "realizations").rmdir()
+            files = [Path(f) for f in out.pop("realization_files")]
+            for f in files:
+                f.unlink()
+            for folder in {f.parent for f in files}:
+                with contextlib.suppress(OSError):
+                    folder.rmdir()
         return out
 
     def validation(self, records: Sequence[Mapping]) -> dict | None:

@@ -511,12 +511,29 @@ def _figures(spec: RunSpec, grid):
     out = spec["outputs"]
     if not out["cutoffs"]:
         return None
-    if out["density"] is not None:
+    density = _density(spec, grid)
+    if density is not None:
         thickness = out["thickness"] if grid.ndim == 2 else None
         return functools.partial(_grade_tonnage, grid=grid, cutoffs=tuple(out["cutoffs"]),
-                                 density=out["density"], thickness=thickness, metal_factor=metal_factor(spec))
+                                 density=density, thickness=thickness, metal_factor=metal_factor(spec))
     func = summaries.fraction_above if out["above"] else summaries.fraction_below
     return functools.partial(func, grid=grid, thresholds=tuple(out["cutoffs"]))
+
+
+def _density(spec: RunSpec, grid) -> float | np.ndarray | None:
+    """``outputs.density``, or the density raster at every node (NaN outside the domain), or None."""
+    out = spec["outputs"]
+    if out["density_raster"] is None:
+        return out["density"]
+    from .domain import sample_raster
+    path = spec.resolve(out["density_raster"])
+    density = sample_raster(path, grid)
+    bad = grid.mask & ~(density > 0)
+    if bad.any():
+        raise InputError(f"the density raster has no positive value at {int(bad.sum())} of {grid.n_active} "
+                         "nodes inside the domain", file=str(path), field="outputs.density_raster",
+                         fix="give a density (t/m3) over the whole domain")
+    return np.where(grid.mask, density, np.nan)
 
 
 def _grade_tonnage(field, *, grid, cutoffs, density, thickness, metal_factor):
@@ -598,10 +615,131 @@ def _checks(data: PreparedData, model, grid):
 
 def _writer(spec: RunSpec, data: PreparedData, model, grid, out_dir: Path):
     from .ensemble import RealizationWriter
+    tags = provenance_tags(spec, data, model)
+    derived, ranking = _support_sinks(spec, grid, out_dir, tags)
     # overwrite=True: the folder was checked to belong to this run before anything is written
-    return RealizationWriter(out_dir, grid, tags=provenance_tags(spec, data, model), units=spec["data.units"],
+    return RealizationWriter(out_dir, grid, tags=tags, units=spec["data.units"],
                              back_transform=data.transform.inverse, figures=_figures(spec, grid),
-                             measure=_checks(data, model, grid), metal_unit=metal_unit(spec), overwrite=True)
+                             measure=_checks(data, model, grid), metal_unit=metal_unit(spec), overwrite=True,
+                             derived=derived, ranking=ranking)
+
+
+def _layout(spec: RunSpec, grid, section: str, key: str):
+    """The :class:`geosim.support.BlockLayout` of ``[blocks]`` or ``[upscaling]``, or None."""
+    from .support import block_layout
+    table = spec[section]
+    if table[key] is None and table["cells"] is None:
+        return None
+    size = table[key] or [n * c for n, c in zip(table["cells"], grid.cell)]
+    try:
+        return block_layout(grid, size, origin=table["origin"], min_fraction=table["min_fraction"],
+                            aligned=table["aligned"] or table["cells"] is not None)
+    except ValueError as exc:
+        raise InputError(str(exc), file=spec.name, field=f"{section}.{key}",
+                         fix="give sizes of at least one cell per axis (whole cells with aligned = true)") from None
+
+
+def _support_writer(spec: RunSpec, name: str, layout, out_dir: Path, tags: Mapping[str, str], *, figures=None,
+                    exponent: float | None = None, weights=None, key: str = "", what: str):
+    from .ensemble import RealizationWriter
+    from .support_outputs import SupportWriter
+    grid = layout.blocks
+    own = {**tags, "support": what, "support_grid": (
+        f"origin {', '.join(f'{o:.10g}' for o in (grid.xmin, grid.ymin) + ((grid.zmin,) if grid.ndim == 3 else ()))}, "
+        f"cell {' x '.join(f'{c:g}' for c in grid.cell)} m, shape {' x '.join(map(str, grid.shape))}, "
+        f"min_fraction {layout.min_fraction:g}")}
+    writer = RealizationWriter(out_dir / name, grid, tags=own, units=spec["data.units"], figures=figures,
+                               metal_unit=metal_unit(spec), overwrite=True)
+    return SupportWriter(name, layout, writer, exponent=exponent, weights=weights, key=key)
+
+
+def _support_sinks(spec: RunSpec, grid, out_dir: Path, tags: Mapping[str, str]) -> tuple[list, Any]:
+    """The change-of-support sinks the spec asks for (blocks, upscaling, query points, ranking figure)
+    and the ranker, for the realization writer."""
+    import functools
+
+    from . import summaries
+    from .support import block_tonnes, describe_power
+    from .support_outputs import FigureProbe, PointSampler, Ranker, block_grade_tonnage, read_query_points
+    out = spec["outputs"]
+    derived = []
+    blocks = _layout(spec, grid, "blocks", "size")
+    if blocks is not None:
+        figures, density = None, _density(spec, grid)
+        if out["cutoffs"] and density is not None:
+            thickness = out["thickness"] if grid.ndim == 2 else None
+            figures = functools.partial(block_grade_tonnage, tonnes=block_tonnes(blocks, density, thickness),
+                                        cutoffs=tuple(out["cutoffs"]), metal_factor=metal_factor(spec))
+        elif out["cutoffs"]:
+            func = summaries.fraction_above if out["above"] else summaries.fraction_below
+            figures = functools.partial(func, grid=blocks.blocks, thresholds=tuple(out["cutoffs"]))
+        weighting = ", weighted by the density map" if isinstance(density, np.ndarray) else ""
+        derived.append(_support_writer(spec, "blocks", blocks, out_dir, tags, figures=figures, weights=density,
+                                       what=f"block average: arithmetic mean of the nodes in each block{weighting}"))
+    upscaled = _layout(spec, grid, "upscaling", "cell")
+    if upscaled is not None:
+        up = spec["upscaling"]
+        figures = None
+        if out["cutoffs"] and out["density"] is None and out["density_raster"] is None:
+            func = summaries.fraction_above if out["above"] else summaries.fraction_below
+            figures = functools.partial(func, grid=upscaled.blocks, thresholds=tuple(out["cutoffs"]))
+        along = "horizontal (along the layering)" if grid.ndim == 3 else "in the plane of the grid"
+        derived.append(_support_writer(spec, "upscaled", upscaled, out_dir, tags, figures=figures,
+                                       exponent=up["exponent"], key="upscaling.exponent",
+                                       what=f"upscaled {along}: {describe_power(up['exponent'])}"))
+        if up["vertical_exponent"] is not None:
+            derived.append(_support_writer(spec, "upscaled_vertical", upscaled, out_dir, tags,
+                                           exponent=up["vertical_exponent"], key="upscaling.vertical_exponent",
+                                           what=f"upscaled vertical (across the layering): "
+                                                f"{describe_power(up['vertical_exponent'])}"))
+    q = spec["query_points"]
+    if q["file"] is not None:
+        ids, coords, index = read_query_points(spec.resolve(q["file"]), grid, x=q["x"], y=q["y"], z=q["z"],
+                                               id=q["id"], crs=q["crs"] or spec["data.crs"])
+        derived.append(PointSampler(out_dir, ids, coords, index, units=spec["data.units"], tags=tags,
+                                    overwrite=True))
+    rank = spec["ranking"]
+    if rank["figure"] is None:
+        return derived, None
+    if rank["figure"] in _DECISION_FIGURES:
+        source, unit = ("point" if rank["support"] == "point" else "blocks"), _figure_unit(spec, rank["figure"])
+    else:
+        derived.append(FigureProbe(_probe(spec, grid, rank)))
+        source, unit = FigureProbe.name, spec["data.units"] if rank["figure"] == "mean" else ""
+    cutoff = rank["cutoff"] if rank["figure"] in _DECISION_FIGURES else None
+    return derived, Ranker(rank["figure"], cutoff, source, rank["percentiles"], unit=unit, tags=tags,
+                           overwrite=True)
+
+
+_DECISION_FIGURES = ("tonnage", "mean_grade", "metal", "fraction_above", "fraction_below", "area", "volume")
+
+
+def _figure_unit(spec: RunSpec, figure: str) -> str:
+    return {"tonnage": "t", "mean_grade": spec["data.units"], "metal": metal_unit(spec), "area": "m2",
+            "volume": "m3"}.get(figure, "")
+
+
+def _probe(spec: RunSpec, grid, rank: Mapping):
+    """The per-realization figure to rank by: the mean over a region (or the domain), or a plugin's."""
+    import functools
+
+    from .support import region_mean
+    if rank["figure"] == "mean":
+        mask = grid.mask
+        if rank["region"] is not None:
+            from .domain import read_domain
+            mask = grid.clip_to_polygon(read_domain(spec.resolve(rank["region"]), grid.crs)).mask
+            if not mask.any():
+                raise InputError("no grid node of the domain falls inside the ranking region",
+                                 file=str(spec.resolve(rank["region"])), field="ranking.region",
+                                 fix="check the polygon and its CRS")
+        return functools.partial(region_mean, mask=mask)
+    from .plugins import get
+    return functools.partial(_plugin_figure, func=get("figures", rank["figure"]), grid=grid)
+
+
+def _plugin_figure(values, *, func, grid) -> float:
+    return float(func(values, grid))
 
 
 @with_folder_lock
@@ -629,12 +767,12 @@ def simulate(spec: RunSpec, data: PreparedData | None = None, model=None, grid=N
     data = data if data is not None else prepare_data(spec, progress)
     model = _model(spec, data, model, progress)
     grid = grid if grid is not None else make_grid(spec, data)
+    writer = _writer(spec, data, model, grid, Path(out_dir))  # reads query points: bad ones fail before writing
     out_dir = make_folder(out_dir)
     header = open_output(spec, out_dir, overwrite=overwrite, resume=resume)
     n = spec["simulation.realizations"]
     kept = completed_realizations(out_dir, header, n) if resume else {}
     missing = [i for i in range(n) if i not in kept]
-    writer = _writer(spec, data, model, grid, out_dir)
     sink = RecordingSink(writer, out_dir / STATE_DIR, header["resume_key"], header["seed"])
     sim = spec["simulation"]
     # hole ids only when the search limits samples per hole: a plugin engine need not take them
@@ -697,18 +835,24 @@ def summarize(spec: RunSpec, out_dir: str | os.PathLike, *, data: PreparedData |
     checks = [r.get("checks") for r in simulation.records]
     if all(c is not None for c in checks):
         report["validation"] = _checks(data, model, grid).summarize(checks)
+    support = _support_report(simulation.writer, simulation.records)
+    if support:
+        report["change_of_support"] = support
     if extra:
         report.update(extra)
     if out["plots"]:
         files["plots"] = [str(p) for p in _summary_plots(spec, data, model, grid, out_dir, simulation.records,
                                                          report.get("validation"))]
+        files["plots"] += [str(p) for p in _support_plots(spec, simulation.writer, simulation.records, out_dir)]
     files.update(_cubes_and_tables(spec, grid, out_dir, simulation.records, files,
                                    provenance_tags(spec, data, model)))
     if not out["keep_realizations"]:
-        for f in files.pop("realization_files"):
-            Path(f).unlink()
-        with contextlib.suppress(OSError):
-            (out_dir / "realizations").rmdir()
+        removed = [Path(f) for f in files.pop("realization_files")]  # block and upscaled ones too
+        for f in removed:
+            f.unlink()
+        for folder in {f.parent for f in removed}:
+            with contextlib.suppress(OSError):
+                folder.rmdir()
     if not level_geotiffs(spec, grid):
         for kind in ("summary", "realizations"):
             for f in files.pop(kind, []):
@@ -717,6 +861,47 @@ def summarize(spec: RunSpec, out_dir: str | os.PathLike, *, data: PreparedData |
     return files
 
 
+def _support_report(writer, records: Sequence[Mapping]) -> dict:
+    """The report's ``change_of_support`` section: each support's grid and decision spread, the ranking."""
+    from .summaries import decision_spread as spread
+    from .support_outputs import PointSampler, SupportWriter
+    section: dict[str, Any] = {}
+    for d in writer.derived:
+        if isinstance(d, SupportWriter):
+            g = d.grid
+            entry = {"method": d.writer.tags["support"], "grid": d.writer.tags["support_grid"],
+                     "blocks_with_values": int(g.mask.sum()), "description": d.layout.describe()}
+            figures = [r["derived"][d.name].get("figures") for r in records]
+            if figures and all(f is not None for f in figures):
+                entry["decision_spread"] = spread(figures)
+            section[d.name] = entry
+        elif isinstance(d, PointSampler):
+            section["query_points"] = {"points": len(d.ids), "table": "query_points.csv"}
+    if writer.ranking is not None:
+        section["ranking"] = writer.ranking.summary(records)
+    if "blocks" in section:
+        section["blocks"]["note"] = ("block values average the nodes inside each block, so their spread is "
+                                     "smaller than the nodes' (the support effect): compare decision_spread here "
+                                     "with the point-support decision_spread.csv")
+    return section
+
+
+def _support_plots(spec: RunSpec, writer, records: Sequence[Mapping], out_dir: Path) -> list:
+    """Decision figures at point support beside block or upscaled support (one PNG per support)."""
+    from .io import plots
+    from .support_outputs import SupportWriter
+    point = [r.get("figures") for r in records]
+    if not point or any(f is None for f in point):
+        return []
+    written = []
+    cell = " x ".join(f"{c:g}" for c in writer.grid.cell)
+    for d in writer.derived:
+        figures = [r["derived"][d.name].get("figures") for r in records] if isinstance(d, SupportWriter) else []
+        if figures and all(f is not None for f in figures):
+            size = " x ".join(f"{c:g}" for c in d.grid.cell)
+            written.append(plots.plot_support_comparison(
+                {f"nodes ({cell} m cells)": point, f"{d.name.replace('_', ' ')} ({size} m)": figures},
+                out_dir / f"support_{d.name}.png", units=spec["data.units"], overwrite=True))
 def _cubes_and_tables(spec: RunSpec, grid, out_dir: Path, records: Sequence[Mapping], files: Mapping,
                       tags: Mapping[str, str]) -> dict[str, list[str]]:
     """The summary and realization cubes and the block-model tables, from the run's GeoTIFFs."""
@@ -845,6 +1030,7 @@ def run(spec: RunSpec | str | os.PathLike, out_dir: str | os.PathLike, *, overwr
         log.info("%s", note)
     grid = timed("grid and domain", make_grid, spec, data)
     data.notes.extend(timed("checks", preflight, spec, data, grid))
+    _support_sinks(spec, grid, out_dir, {})  # bad query points or ranking region fail before the folder is claimed
     fresh = folder_is_empty(make_folder(out_dir))
     log.info("%r", grid)
     # claim the folder (or fail on another run's) before anything is written into it

@@ -12,6 +12,9 @@ engines        ``geosim.engines``       a simulation engine class (``prepare``,
                                         ``realize``; see DEVELOPERS.md)
 writers        ``geosim.writers``       an output writer class (a picklable sink with
                                         ``finish``; see DEVELOPERS.md)
+figures        ``geosim.figures``       a function ``figure(values, grid) -> float`` of
+                                        one realization in data units, a figure runs
+                                        can rank realizations by (``ranking.figure``)
 =============  =======================  ==============================================
 
 Each group is loaded once per process, on first use.  A plugin that fails to
@@ -43,6 +46,7 @@ GROUPS = {
     "structures": "geosim.structures",
     "engines": "geosim.engines",
     "writers": "geosim.writers",
+    "figures": "geosim.figures",
 }
 CHECKS_GROUP = "geosim.plugin_checks"  # group name -> check(name, obj, package, target), geosim's own only
 
@@ -166,7 +170,13 @@ def _check_writer_entry(name, obj, package, target):
     return None, "built-in" if package == OWN_PACKAGE else ""
 
 
-_CHECKS = {"engines": _check_engine_entry, "writers": _check_writer_entry}
+def _check_figure_entry(name, obj, package, target):
+    if not callable(obj):
+        return "a figure must be a function figure(values, grid) -> float of one realization", ""
+    return None, "built-in" if package == OWN_PACKAGE else ""
+
+
+_CHECKS = {"engines": _check_engine_entry, "writers": _check_writer_entry, "figures": _check_figure_entry}
 
 
 def _group_check(group: str):

@@ -226,6 +226,7 @@ def read_header(out_dir: Path) -> dict | None:
 
 def completed_realizations(out_dir: Path, header: Mapping, n_realizations: int) -> dict[int, dict]:
     """Records of realizations already written by an earlier run of this spec, verified by checksum."""
+    from .ensemble import record_files
     from .io.geotiff import verify_realization
     kept = {}
     for path in sorted((out_dir / STATE_DIR).glob("r[0-9]*.json")):
@@ -238,8 +239,8 @@ def completed_realizations(out_dir: Path, header: Mapping, n_realizations: int) 
                 or rec.get("seed") != header["seed"]):
             continue
         record = rec.get("record", {})
-        files = record.get("files", [])
-        if files and all(verify_realization(out_dir / f, sha) for f, sha in zip(files, record.get("sha256", []))):
+        files = record_files(record)
+        if record.get("files") and all(verify_realization(out_dir / f, sha) for f, sha in files):
             kept[index] = record
     return kept
 

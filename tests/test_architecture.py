@@ -29,8 +29,8 @@ LAYERS = [
     ("models", ["geosim.variogram.*", "geosim.search", "geosim.kriging", "geosim.simulation.*"]),
     ("statistics", ["geosim.summaries", "geosim.validation", "geosim.inputchecks", "geosim.support"]),
     ("files", ["geosim.demo", "geosim.io.geotiff", "geosim.io.plots", "geosim.io.report", "geosim.io.crossval",
-               "geosim.io.csvw", "geosim.io.decision", "geosim.io.lock", "geosim.io.cube"]),
-    ("assembly", ["geosim.ensemble", "geosim.config.*", "geosim.io.runspec.*"]),
+               "geosim.io.csvw", "geosim.io.decision", "geosim.io.lock", "geosim.io.cube", "geosim.io.support_tables"]),
+    ("assembly", ["geosim.ensemble", "geosim.support_outputs", "geosim.config.*", "geosim.io.runspec.*"]),
     ("job", ["geosim.pipeline", "geosim.runstate", "geosim.results"]),
     ("command line", ["geosim_cli.*"]),
 ]

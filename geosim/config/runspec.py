@@ -147,6 +147,16 @@ def _numbers(sizes: tuple[int, ...], lo=None, lo_open=False, ascending=False, wh
     return check
 
 
+def _counts(sizes: tuple[int, ...]):
+    one = _int(1)
+
+    def check(value):
+        wanted = f"a list of {' or '.join(map(str, sizes))} whole numbers >= 1"
+        out = _each(one, value) if isinstance(value, list) and len(value) in sizes else None
+        return (None, wanted) if out is None else (out, None)
+    return check
+
+
 def _number_list(lo=None):
     one = _number(lo)
 
@@ -198,11 +208,25 @@ class Key:
     help: str = ""
 
 
+def _coarse_grid_keys(unit: str, size_key: str) -> dict[str, Key]:
+    """Keys shared by [blocks] and [upscaling]: a grid of coarser cells over the simulation grid."""
+    return {
+        "cells": Key(_counts((2, 3)), help=f"{unit} size in whole grid cells [nx, ny(, nz)], instead of {size_key}"),
+        "origin": Key(_numbers((2, 3)), help=f"a {unit} corner [x, y(, z)] in the working CRS (default: the grid's "
+                                             "lower corner)"),
+        "aligned": Key(_bool, default=False, help=f"require {unit} edges on cell edges (whole cells)"),
+        "min_fraction": Key(_number(0.0, 1.0, lo_open=True), default=0.5,
+                            help=f"smallest fraction of a {unit}'s nodes inside the domain for it to get a value"),
+    }
+
+
 # section -> key -> Key.  Nested tables (data.composites) and lists of tables
 # (variogram.structures, variogram.directions) are described by their own entries.
 # the keys whose values name input files (checked to exist, hashed into the provenance)
 INPUT_FILE_KEYS = (("data", ("points", "collars", "surveys", "intervals")),
-                   ("variogram", ("model_file",)), ("domain", ("polygon", "raster")))
+                   ("variogram", ("model_file",)), ("domain", ("polygon", "raster")), ("outputs", ("density_raster",)),
+                   ("ranking", ("region",)),
+                   ("query_points", ("file",)))
 
 SCHEMA: dict[str, dict[str, Key]] = {
     "data": {
@@ -333,6 +357,8 @@ SCHEMA: dict[str, dict[str, Key]] = {
         "cutoffs": Key(_number_list(), default=[], help="thresholds in data units"),
         "above": Key(_bool, default=True, help="decision figures above (true) or below the cut-offs"),
         "density": Key(_number(0.0, lo_open=True), help="t/m3, for tonnage above cut-off"),
+        "density_raster": Key(_path, help="raster of density in t/m3 (nearest cell at each node; one map for "
+                                          "every level of a 3-D grid), instead of density"),
         "metal_factor": Key(_number(0.0, lo_open=True),
                             help="metal per tonne per grade unit (default: 0.01 when data.units has %, else 1)"),
         "thickness": Key(_number(0.0, lo_open=True), help="metres, for volumes of a 2-D grid"),
@@ -349,6 +375,42 @@ SCHEMA: dict[str, dict[str, Key]] = {
                            help='block-model table formats: "csv", "parquet"; "auto": CSV for 3-D grids'),
         "block_model_realizations": Key(_bool, default=False,
                                         help="one block-model column per realization"),
+    },
+    "blocks": {
+        "size": Key(_numbers((2, 3), lo=0.0, lo_open=True),
+                    help="block size [bx, by(, bz)] in metres, e.g. the selective mining unit: realizations "
+                         "averaged to blocks (arithmetic mean of grades, density-weighted); leave out for none"),
+        **_coarse_grid_keys("block", "size"),
+    },
+    "upscaling": {
+        "cell": Key(_numbers((2, 3), lo=0.0, lo_open=True),
+                    help="flow-model cell size [dx, dy(, dz)] in metres: realizations power-averaged to it; "
+                         "leave out for none"),
+        **_coarse_grid_keys("model cell", "cell"),
+        "exponent": Key(_number(-1.0, 1.0), help="power-average exponent along the layering (horizontal "
+                                                 "conductivity): 1 arithmetic, 0 geometric, -1 harmonic"),
+        "vertical_exponent": Key(_number(-1.0, 1.0), help="3-D grids: exponent across the layering (vertical "
+                                                          "conductivity), e.g. -1"),
+    },
+    "ranking": {
+        "figure": Key(_text, help="decision figure to rank realizations by: tonnage, metal, mean_grade, "
+                                  "fraction_above, fraction_below, area, volume, mean or a plugin figure; "
+                                  "leave out for no ranking"),
+        "cutoff": Key(_number(), help="the figure's cut-off or threshold (one of outputs.cutoffs)"),
+        "support": Key(_choice("point", "blocks"), default="point",
+                       help='figures of the simulation grid ("point") or of [blocks] ("blocks")'),
+        "region": Key(_path, help='figure = "mean": GeoJSON polygon of the region (default: the whole domain)'),
+        "percentiles": Key(_numbers((1, 2, 3, 4, 5), lo=0.0, ascending=True), default=[10.0, 50.0, 90.0],
+                           help="write the realizations nearest these percentiles of the figure"),
+    },
+    "query_points": {
+        "file": Key(_path, help="CSV of points (planned wells or holes) for P10/P50/P90 and probabilities "
+                                "at each; leave out for none"),
+        "x": Key(_text, help="x (east or longitude) column"),
+        "y": Key(_text, help="y (north or latitude) column"),
+        "z": Key(_text, help="z (elevation) column, for 3-D grids"),
+        "id": Key(_text, help="point name column"),
+        "crs": Key(_text, help="CRS of the points (default: data.crs)"),
     },
 }
 TOP_LEVEL = {"title": Key(_text, default="")}
@@ -757,12 +819,130 @@ def _check_combinations(spec: dict, problems: list[str]) -> None:
                         f"found {sim['realizations_per_path']}")
 
     out = spec["outputs"]
-    if out["density"] is not None and ndim == 2 and out["thickness"] is None:
+    if out["density"] is not None and out["density_raster"] is not None:
+        problems.append("outputs: expected density (one number) or density_raster (a map), found both")
+    if out["density_raster"] is not None and not out["cutoffs"]:
+        problems.append("outputs.density_raster: for tonnage above outputs.cutoffs, found no cut-offs")
+    if (out["density"] is not None or out["density_raster"] is not None) and ndim == 2 and out["thickness"] is None:
         problems.append("outputs.thickness: required with density on a 2-D grid, expected metres, "
                         "found nothing")
     if tr["log"] and any(c <= 0 for c in out["cutoffs"]):
         problems.append(f"outputs.cutoffs: expected positive numbers with transform.log = true, "
                         f"found {out['cutoffs']}")
+    _check_support(spec, ndim, problems)
+
+
+def run_figures(spec: Mapping) -> list[str]:
+    """Names of the per-realization decision figures a run computes (what ``ranking.figure`` may name).
+
+    Grade-tonnage figures with ``outputs.density``, else the fraction beyond each cut-off
+    and its area (2-D) or volume (3-D); ``mean`` (of the domain or ``ranking.region``)
+    always; and every installed figure plugin.
+    """
+    return decision_figures(spec) + ["mean"] + (_installed("figures") or [])
+
+
+def decision_figures(spec: Mapping) -> list[str]:
+    """The decision-table figures a run computes at each cut-off (none without ``outputs.cutoffs``)."""
+    out = spec["outputs"]
+    if not out["cutoffs"]:
+        return []
+    if out["density"] is not None or out["density_raster"] is not None:
+        return ["tonnage", "mean_grade", "metal"]
+    return ["fraction_above" if out["above"] else "fraction_below",
+            "volume" if len(spec["grid"]["cell"] or ()) == 3 else "area"]
+
+
+def _check_grid_like(section: str, key: str, spec: dict, ndim: int | None, problems: list[str]) -> None:
+    """Block or model-cell sizes: one per grid axis, at least the cell, whole cells when aligned."""
+    table, cell = spec[section], spec["grid"]["cell"]
+    size = table[key]
+    if size is not None and table["cells"] is not None:
+        problems.append(f"{section}: expected {key} (metres) or cells (whole grid cells), found both")
+        return
+    if table["cells"] is not None and ndim is not None:
+        if len(table["cells"]) != ndim:
+            problems.append(f"{section}.cells: expected {ndim} counts like grid.cell, found {table['cells']}")
+        size = None
+    if size is None:
+        if table["origin"] is not None and table["cells"] is None:
+            problems.append(f"{section}.origin: only with {section}.{key} or {section}.cells, found neither")
+        return
+    if ndim is None:
+        return
+    if len(size) != ndim:
+        problems.append(f"{section}.{key}: expected {ndim} sizes like grid.cell, found {size}")
+        return
+    for axis, (b, c) in enumerate(zip(size, cell)):
+        if b < c * (1 - 1e-9):
+            problems.append(f"{section}.{key}: expected sizes at least the grid cell ({c:g} m along "
+                            f"{'xyz'[axis]}), found {b:g}")
+        elif table["aligned"] and abs(b / c - round(b / c)) > 1e-6 * max(1.0, b / c):
+            problems.append(f"{section}.{key}: with aligned = true, expected whole multiples of grid.cell "
+                            f"({c:g} m along {'xyz'[axis]}), found {b:g}")
+    if table["origin"] is not None and len(table["origin"]) != ndim:
+        problems.append(f"{section}.origin: expected {ndim} coordinates, found {table['origin']}")
+
+
+def _check_support(spec: dict, ndim: int | None, problems: list[str]) -> None:
+    """Rules of [blocks], [upscaling], [ranking] and [query_points]."""
+    _check_grid_like("blocks", "size", spec, ndim, problems)
+    _check_grid_like("upscaling", "cell", spec, ndim, problems)
+    up = spec["upscaling"]
+    upscaling = up["cell"] is not None or up["cells"] is not None
+    if upscaling and up["exponent"] is None:
+        problems.append("upscaling.exponent: required with upscaling.cell or cells, expected a number from -1 to 1 "
+                        "(1 arithmetic, 0 geometric, -1 harmonic), found nothing")
+    if up["vertical_exponent"] is not None and (not upscaling or ndim != 3):
+        problems.append("upscaling.vertical_exponent: only when upscaling a 3-D grid, found it "
+                        + ("without upscaling.cell or cells" if not upscaling else "with a 2-D grid"))
+
+    rank = spec["ranking"]
+    figure = rank["figure"]
+    if figure is None:
+        for k in ("cutoff", "region"):
+            if rank[k] is not None:
+                problems.append(f"ranking.{k}: only with ranking.figure, found ranking.figure missing")
+    else:
+        names = run_figures(spec)
+        if figure not in names:
+            close = difflib.get_close_matches(figure, names, n=1)
+            hint = f" (did you mean {close[0]!r}?)" if close else ""
+            problems.append(f"ranking.figure: expected a figure this run computes ({', '.join(names)}), found "
+                            f"{figure!r}{hint}; grade-tonnage figures need outputs.density and outputs.cutoffs, "
+                            "fractions need outputs.cutoffs")
+        elif figure in decision_figures(spec):
+            cutoffs = spec["outputs"]["cutoffs"]
+            if rank["cutoff"] is None:
+                problems.append(f"ranking.cutoff: required for figure {figure!r}, expected one of "
+                                f"outputs.cutoffs {cutoffs}, found nothing")
+            elif not any(math.isclose(rank["cutoff"], c, rel_tol=1e-12) for c in cutoffs):
+                problems.append(f"ranking.cutoff: expected one of outputs.cutoffs {cutoffs} (the figure is computed "
+                                f"there only), found {rank['cutoff']:g}")
+        if rank["region"] is not None and figure != "mean":
+            problems.append(f'ranking.region: only with figure = "mean", found figure = {figure!r}')
+        if rank["support"] == "blocks" and spec["blocks"]["size"] is None and spec["blocks"]["cells"] is None:
+            problems.append('ranking.support: "blocks" needs [blocks] size = [...], found no block size')
+        elif rank["support"] == "blocks" and figure not in decision_figures(spec):
+            problems.append(f'ranking.support: "blocks" ranks by a decision figure of the blocks (one of '
+                            f'{", ".join(decision_figures(spec)) or "none: give outputs.cutoffs"}), found {figure!r}')
+        if any(p > 100.0 for p in rank["percentiles"]):
+            problems.append(f"ranking.percentiles: expected numbers from 0 to 100, found {rank['percentiles']}")
+
+    q = spec["query_points"]
+    if q["file"] is None:
+        for k in ("x", "y", "z", "id", "crs"):
+            if q[k] is not None:
+                problems.append(f"query_points.{k}: only with query_points.file, found query_points.file missing")
+    else:
+        for k in ("x", "y"):
+            if q[k] is None:
+                problems.append(f"query_points.{k}: required with query_points.file, expected the column name, "
+                                "found nothing")
+        if ndim == 3 and q["z"] is None:
+            problems.append("query_points.z: required on a 3-D grid, expected the elevation column, found nothing")
+        if ndim == 2 and q["z"] is not None:
+            problems.append(f"query_points.z: only for a 3-D grid, found {q['z']!r} with a 2-D grid.cell")
 
 
 def _installed(group: str) -> list[str] | None:

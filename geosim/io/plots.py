@@ -22,7 +22,7 @@ from ..cautions import CAUTION
 from .atomic import atomic_output, check_writable
 
 __all__ = ["scale_bar_length", "plot_map", "plot_summary_maps", "plot_histogram_reproduction",
-           "plot_variogram_reproduction", "plot_decision_spread"]
+           "plot_variogram_reproduction", "plot_decision_spread", "plot_support_comparison"]
 
 VALUE_CMAP = "viridis"
 SPREAD_CMAP = "cividis"
@@ -301,6 +301,19 @@ _LABELS = {"tonnage": "tonnage (t)", "metal": "metal (grade units x t)", "fracti
            "fraction_below": "fraction below", "area": "area (m\u00b2)", "volume": "volume (m\u00b3)"}
 
 
+def _decision_axes(ax, key: str, q: str, x: np.ndarray, units: str) -> None:
+    """Labels, scale and grid of one decision-figure panel (figure ``q`` against ``key``)."""
+    label = _LABELS.get(q, q.replace("_", " "))
+    if q == "mean_grade":
+        label = f"mean grade above cut-off ({units})" if units else "mean grade above cut-off"
+    ax.set_ylabel(label)
+    ax.set_xlabel(f"{key.replace('_', ' ')} ({units})" if units else key.replace("_", " "))
+    if np.all(x > 0) and x.max() >= 100.0 * x.min():  # cut-offs spanning decades (conductivity)
+        ax.set_xscale("log")
+    ax.ticklabel_format(axis="y", style="sci", scilimits=(-3, 4))
+    ax.grid(alpha=0.3)
+
+
 def plot_decision_spread(figures: Sequence[Mapping[str, np.ndarray]], path: str | os.PathLike | None = None, *,
                          units: str = "", overwrite: bool = False, ax=None):
     """Each decision figure against cut-off: every realization, the P10-P90 band and P50.
@@ -330,16 +343,45 @@ def plot_decision_spread(figures: Sequence[Mapping[str, np.ndarray]], path: str 
             p10, p50, p90 = np.nanpercentile(y, [10, 50, 90], axis=0, method=QUANTILE_METHOD)
         ax.fill_between(x, p10, p90, color=cmap(0.35), alpha=0.35, linewidth=0, label="P10 to P90")
         ax.plot(x, p50, color=cmap(0.15), linewidth=2.0, marker="o", markersize=3, label="P50")
-        label = _LABELS.get(q, q.replace("_", " "))
-        if q == "mean_grade":
-            label = f"mean grade above cut-off ({units})" if units else "mean grade above cut-off"
-        ax.set_ylabel(label)
-        ax.set_xlabel(f"{key.replace('_', ' ')} ({units})" if units else key.replace("_", " "))
-        if np.all(x > 0) and x.max() >= 100.0 * x.min():  # cut-offs spanning decades (conductivity)
-            ax.set_xscale("log")
-        ax.ticklabel_format(axis="y", style="sci", scilimits=(-3, 4))
-        ax.grid(alpha=0.3)
+        _decision_axes(ax, key, q, x, units)
     axes[0].legend(fontsize=8)
     if own:
         fig.suptitle(f"Decision figures across {len(figures)} realizations", fontsize=11)
     return finish(fig, path, overwrite, own)
+
+
+def plot_support_comparison(supports: Mapping[str, Sequence[Mapping[str, np.ndarray]]], path: str | os.PathLike, *,
+                            units: str = "", overwrite: bool = False) -> Path:
+    """Decision figures against cut-off at several supports: P50 line and P10-P90 band per support.
+
+    ``supports`` maps a label ("point (15 x 15 x 10 m cells)", "blocks 30 x 30 x 10 m") to
+    per-realization figures as :func:`plot_decision_spread` takes them; all share the cut-offs.
+    Point support overstates the spread of grades, so the tonnage above a high cut-off
+    falls and the tonnage above a low one rises on blocks: the plot shows by how much.
+    """
+    import matplotlib
+
+    from ..summaries import QUANTILE_METHOD
+    check_writable(path, overwrite)
+    if not supports or not all(supports.values()):
+        raise ValueError("no decision figures to plot")
+    first = next(iter(supports.values()))
+    key, *quantities = list(first[0])
+    x = np.asarray(first[0][key], dtype=float)
+    fig = _figure((4.2 * len(quantities), 4.2))
+    axes = fig.subplots(1, len(quantities), squeeze=False)[0]
+    cmap = matplotlib.colormaps[VALUE_CMAP]
+    styles = [("-", "o", 0.15), ("--", "s", 0.7), (":", "^", 0.45)]
+    for ax, q in zip(axes, quantities):
+        for (label, figures), (line, marker, tone) in zip(supports.items(), styles):
+            y = np.array([np.asarray(f[q], dtype=float) for f in figures])
+            with warnings.catch_warnings():
+                warnings.simplefilter("ignore", RuntimeWarning)  # all-NaN columns (nothing above cut-off)
+                p10, p50, p90 = np.nanpercentile(y, [10, 50, 90], axis=0, method=QUANTILE_METHOD)
+            ax.fill_between(x, p10, p90, color=cmap(tone), alpha=0.25, linewidth=0)
+            ax.plot(x, p50, color=cmap(tone), linestyle=line, marker=marker, markersize=3, linewidth=1.8,
+                    label=f"{label}: P50, band P10 to P90")
+        _decision_axes(ax, key, q, x, units)
+    axes[0].legend(fontsize=7)
+    fig.suptitle(f"Decision figures by support, {len(first)} realizations", fontsize=11)
+    return _save(fig, path, overwrite)
