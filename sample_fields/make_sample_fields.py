@@ -33,7 +33,7 @@ import numpy as np
 import scipy.linalg
 import shapely
 from pyproj import Transformer
-from shapely.geometry import MultiPoint, Polygon, mapping
+from shapely.geometry import MultiPoint, Point, Polygon, mapping
 from shapely.geometry.polygon import orient
 
 from geosim.io.atomic import atomic_output
@@ -60,6 +60,11 @@ AQUIFER_MODEL = Nugget(0.1) + Exponential(0.9, Anisotropy((1500.0, 300.0), azimu
 # log10(K in m/s) = mean + std * y
 AQUIFER_LOG10_MEAN = -4.0
 AQUIFER_LOG10_STD = 0.8
+# invented planned wells (name, lon, lat) and hole targets (name, x, y, z in EPSG:32750)
+AQUIFER_PLANNED = [("PW-A", -33.2050, -38.7100), ("PW-B", -33.1950, -38.6950), ("PW-C", -33.2150, -38.7250),
+                   ("PW-D", -33.1880, -38.6850)]
+ORE_PLANNED = [("PH-1 at 250 m", 454900.0, 5460000.0, 250.0), ("PH-2 at 280 m", 455050.0, 5460050.0, 280.0),
+               ("PH-3 at 230 m", 455000.0, 5459950.0, 230.0)]
 
 
 def _rng(stream: int) -> np.random.Generator:
@@ -270,6 +275,11 @@ def make_ore_prospect(out: Path) -> None:
     outline = MultiPoint(trace[:, :2]).convex_hull.buffer(40.0, quad_segs=4).simplify(2.0)
     outline = shapely.segmentize(outline, 25.0)
     _write_json(out / "domain.geojson", _domain_feature_collection(outline, ORE_EPSG, ORE_NAME))
+    # planned hole targets, for P10/P50/P90 at given points (query_points in run.toml)
+    if not all(outline.contains(Point(x, y)) for _, x, y, _ in ORE_PLANNED):
+        raise RuntimeError("a planned hole target lies outside the prospect outline")
+    _write_csv(out / "planned_holes.csv", ["target", "x", "y", "z"],
+               [[name, f"{x:.1f}", f"{y:.1f}", f"{z:.1f}"] for name, x, y, z in ORE_PLANNED])
     _write_json(out / "true_model.json", _true_model_record(
         ORE_MODEL, {"kind": "lognormal", "variable": "cu_pct", "mu": ORE_MU, "sigma": ORE_SIGMA,
                     "formula": "cu_pct = exp(mu + sigma * y)"},
@@ -341,6 +351,13 @@ def make_alluvial_aquifer(out: Path) -> None:
     _write_csv(out / "wells.csv", ["well_id", "lon", "lat", "k_ms"],
                [[f"LV{i + 1:02d}", f"{a:.7f}", f"{b:.7f}", f"{c:.3e}"] for i, (a, b, c) in enumerate(zip(lon, lat, k))])
     _write_json(out / "domain.geojson", _domain_feature_collection(valley, AQUIFER_EPSG, AQUIFER_NAME))
+    # planned wells, for P10/P50/P90 at given points (query_points in run.toml)
+    px, py = Transformer.from_crs(4326, AQUIFER_EPSG, always_xy=True).transform(
+        [p[1] for p in AQUIFER_PLANNED], [p[2] for p in AQUIFER_PLANNED])
+    if not all(valley.contains(Point(x, y)) for x, y in zip(px, py)):
+        raise RuntimeError("a planned well lies outside the valley outline")
+    _write_csv(out / "planned_wells.csv", ["name", "lon", "lat"],
+               [[name, f"{a:.4f}", f"{b:.4f}"] for name, a, b in AQUIFER_PLANNED])
     _write_json(out / "true_model.json", _true_model_record(
         AQUIFER_MODEL, {"kind": "lognormal", "variable": "k_ms", "log10_mean": AQUIFER_LOG10_MEAN,
                         "log10_std": AQUIFER_LOG10_STD, "formula": "k_ms = 10 ** (log10_mean + log10_std * y)"},
