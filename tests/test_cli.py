@@ -110,6 +110,7 @@ def test_bad_input_file_is_one_line_naming_file_row_and_field(tmp_path):
     (tmp_path / "wells.csv").write_text("\n".join(rows) + "\n")
     spec = tmp_path / "run.toml"
     spec.write_text(AQUIFER.read_text().replace('polygon = "domain.geojson"', ""))
+    (tmp_path / "planned_wells.csv").write_text((SAMPLES / "alluvial_aquifer" / "planned_wells.csv").read_text())
     result = invoke("check", spec)
     assert result.exit_code == 2
     errors = [line for line in result.stderr.splitlines() if line.startswith("geosim: error:")]

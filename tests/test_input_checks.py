@@ -23,7 +23,7 @@ def _renamed_ore(folder: Path, headers: dict[str, str]) -> Path:
     for name, header in headers.items():
         lines = (ORE / name).read_text().splitlines(keepends=True)
         (folder / name).write_text(header + "\n" + "".join(lines[1:]))
-    for name in ("run.toml", "domain.geojson"):
+    for name in ("run.toml", "domain.geojson", "planned_holes.csv"):
         shutil.copy(ORE / name, folder / name)
     return folder / "run.toml"
 
@@ -67,7 +67,7 @@ def _ore_holes(folder: Path, holes: int, in_line: bool = False) -> Path:
     for name in ("surveys.csv", "assays.csv"):
         lines = (ORE / name).read_text().splitlines()
         (folder / name).write_text("\n".join([lines[0], *[r for r in lines[1:] if r.split(",")[0] in ids]]) + "\n")
-    for name in ("run.toml", "domain.geojson"):
+    for name in ("run.toml", "domain.geojson", "planned_holes.csv"):
         shutil.copy(ORE / name, folder / name)
     return folder / "run.toml"
 

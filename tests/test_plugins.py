@@ -474,10 +474,19 @@ seed = 4
 workers = 1
 [outputs]
 plots = false
+[ranking]
+figure = "value_range"
 """)
     result = geosim.pipeline.run(tmp_path / "run.toml", tmp_path / "out")
     assert [s.kind for s in result.model.structures] == ["nugget", "wave"]
     assert result.computed == [0, 1, 2] and result.crossval is not None
+    # the realizations are ranked by the plugin figure, computed on each realization in the worker
+    ranked = (tmp_path / "out" / "ranking.csv").read_text().splitlines()[1:]
+    for line in ranked:
+        index, figure = int(line.split(",")[0]), float(line.split(",")[1])
+        with rasterio.open(tmp_path / "out" / "realizations" / f"r{index:04d}.tif") as src:
+            values = src.read(1)
+        assert figure == pytest.approx(float(np.nanmax(values) - np.nanmin(values)), rel=1e-6)
     tifs = sorted((tmp_path / "out").rglob("*.tif"))
     assert len(tifs) >= 3
     for tif in tifs:
