@@ -206,6 +206,8 @@ class Ranker:
         by_index = {r["index"]: r for r in records}
         folder = writer.folder / "ranked"
         folder.mkdir(exist_ok=True)
+        for old in folder.glob("*.tif"):  # picks of an earlier finish (fewer realizations, another figure)
+            old.unlink()
         written = []
         outputs = [("", writer.grid, writer.units, lambda r: r["files"])]
         outputs += [(f"_{d.name}", d.grid, d.writer.units, lambda r, n=d.name: r["derived"][n]["files"])

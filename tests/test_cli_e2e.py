@@ -95,7 +95,9 @@ def test_run_writes_described_outputs(reference):
     assert report["caution"] == geosim.CAUTION
     assert report["realizations"]["count"] == 60 and report["run_spec_sha256"]
     assert (out / "run-state" / "run.json").is_file()
-    assert_plain_tables(out, ["cross_validation.csv", "decision_figures.csv", "decision_spread.csv"])
+    assert_plain_tables(out, ["cross_validation.csv", "decision_figures.csv", "decision_spread.csv",
+                              "upscaled/decision_figures.csv", "upscaled/decision_spread.csv", "ranking.csv",
+                              "query_points.csv"])
 
 
 def test_killed_run_resumes_and_equals_an_uninterrupted_run(tmp_path, reference):
@@ -197,7 +199,8 @@ def test_ore_prospect_3d_run(tmp_path):
     spread = (out / "decision_spread.csv").read_text()
     assert "tonnage" in spread and "mean_grade" in spread
     assert_plain_tables(out, ["block_model.csv", "cross_validation.csv", "decision_figures.csv",
-                              "decision_spread.csv"])
+                              "decision_spread.csv", "blocks/decision_figures.csv", "blocks/decision_spread.csv",
+                              "ranking.csv", "query_points.csv"])
     metal = read_csv_metadata_columns(out / "decision_spread.csv-metadata.json")
     assert metal["cutoff"] == "% Cu"
     assert "tonnage at cutoff 0.3" in result.stdout

@@ -142,8 +142,11 @@ def test_resume_keeps_and_verifies_support_outputs(tmp_path):
     (tmp_path / "upscaled" / "realizations" / "r0001.tif").write_bytes(b"changed")
     again = pipeline.simulate(spec, out_dir=tmp_path)
     assert again.kept == [0, 2] and again.computed == [1]
+    (tmp_path / "ranked").mkdir()
+    (tmp_path / "ranked" / "fraction_above_0.0001_P10_r0099.tif").write_bytes(b"an earlier pick")
     files = pipeline.summarize(spec, tmp_path, simulation=again)
     assert files["ranking"] and len(files["ranked"]) == 6
+    assert sorted(p.name for p in (tmp_path / "ranked").iterdir()) == sorted(Path(p).name for p in files["ranked"])
 
 
 def test_ranking_by_the_mean_of_the_domain(tmp_path):
