@@ -25,13 +25,15 @@ keeps it.
 from __future__ import annotations
 
 import os
+import shutil
 from collections.abc import Callable, Mapping, Sequence
 from pathlib import Path
 
 import numpy as np
 
 from .errors import InputError
-from .io.geotiff import read_realization, write_raster
+from .io.atomic import atomic_output
+from .io.geotiff import level_paths
 from .io.support_tables import write_point_summary_csv, write_ranking_csv
 from .summaries import tonnage_above
 from .support import (block_average, describe_power, locate_nodes, point_summary, power_average, rank_realizations,
@@ -209,19 +211,18 @@ class Ranker:
         for old in folder.glob("*.tif"):  # picks of an earlier finish (fewer realizations, another figure)
             old.unlink()
         written = []
-        outputs = [("", writer.grid, writer.units, lambda r: r["files"])]
-        outputs += [(f"_{d.name}", d.grid, d.writer.units, lambda r, n=d.name: r["derived"][n]["files"])
+        outputs = [("", writer.grid, lambda r: r["files"])]
+        outputs += [(f"_{d.name}", d.grid, lambda r, n=d.name: r["derived"][n]["files"])
                     for d in writer.derived if isinstance(d, SupportWriter)]
         for label, i in picked.items():
-            record = by_index[i]
-            for suffix, grid, units, files in outputs:
-                data = read_realization([writer.folder / f for f in files(record)], grid)
-                u = f" ({units})" if units else ""
-                tags = {**self.tags, "realization": str(i), "ranked_by": what, "ranked_as": label,
-                        "ranking_note": note}
-                written += write_raster(folder / f"{self.label}_{label}_r{i:04d}{suffix}.tif", data, grid,
-                                        descriptions=[(f"realization {i}, {label} of {what}{u}", units)], tags=tags,
-                                        overwrite=self.overwrite)
+            for suffix, grid, files in outputs:
+                # the realization's own files (one per level in 3-D), copied whole with their provenance
+                # tags and caution; ranking.csv and its sidecar say what the pick means
+                targets = level_paths(folder / f"{self.label}_{label}_r{i:04d}{suffix}.tif", grid)
+                for source, target in zip(files(by_index[i]), targets):
+                    with atomic_output(target, overwrite=True) as tmp:
+                        shutil.copyfile(writer.folder / source, tmp)
+                    written.append(target)
         return {"ranking": [str(table)], "ranked": [str(p) for p in written]}
 
     def summary(self, records: Sequence[Mapping]) -> dict:

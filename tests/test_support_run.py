@@ -115,7 +115,7 @@ def test_ranking_picks_the_realizations_nearest_each_percentile_of_the_figure(su
             picked, _, tags = _read(out / "ranked" / f"fraction_above_0.0001_P{p}_r{nearest:04d}{suffix}.tif")
             original, _, _ = _read(out / folder / f"r{nearest:04d}.tif")
             np.testing.assert_array_equal(picked, original)
-            assert tags["ranked_as"] == f"P{p}" and "not the P10" in tags["ranking_note"]
+            assert tags["realization"] == str(nearest) and tags["caution"] == geosim.CAUTION
     sidecar = json.loads((out / "ranking.csv-metadata.json").read_text())
     assert any("is not the P10" in n for n in sidecar["notes"]) and sidecar["dc:description"] == geosim.CAUTION
 

@@ -1,17 +1,16 @@
 """Time that block averaging and upscaling add to a run, on the two sample fields.
 
 Each sample spec is run whole (``geosim.pipeline.run``: data, variogram fit,
-cross-validation, kriging, realizations, summaries, report) twice with its
-change-of-support sections and twice without them (no [blocks], [upscaling],
-[ranking], [query_points]), alternating, one worker (so the whole run is in
-this process), into fresh folders.  Times are the process's CPU time (all its
+cross-validation, kriging, realizations, summaries, report) three times in each
+configuration, alternating, one worker (so the whole run is in this process),
+into fresh folders.  Times are the process's CPU time (all its
 threads), which other jobs on a shared machine disturb far less than wall time;
-the best of three of each is compared.  It also
-times the per-realization work alone: the block or power average of one
-realization and the writing of its block GeoTIFF, against the simulation and
-writing of the point-support realization.
+the best of three of each is compared.  Three configurations: no change of
+support, block averaging or upscaling only, and ranking and points as well.
+The ore prospect runs again on a grid eight times finer with the same blocks,
+where simulation, not file writing, dominates as in real jobs.
 
-Run: ``python tests/benchmarks/bench_support.py [--realizations N]``; the last
+Run: ``python tests/benchmarks/bench_support.py [--realizations N] [--quick]``; the last
 line is JSON.
 """
 from __future__ import annotations
@@ -22,87 +21,54 @@ import tempfile
 import time
 from pathlib import Path
 
-import numpy as np
-
 import geosim.pipeline as pipeline
 from geosim.config.runspec import load_spec
 
 SAMPLES = Path(__file__).resolve().parents[2] / "sample_fields"
-WITHOUT = {"blocks.cells": None, "upscaling.cells": None, "upscaling.exponent": None, "ranking.figure": None,
-           "ranking.cutoff": None, "ranking.support": None, "query_points.file": None, "query_points.x": None,
-           "query_points.y": None, "query_points.z": None, "query_points.id": None}
+NO_RANKING = {"ranking.figure": None, "ranking.cutoff": None, "ranking.support": None, "query_points.file": None,
+              "query_points.x": None, "query_points.y": None, "query_points.z": None, "query_points.id": None}
+NO_SUPPORT = {"blocks.cells": None, "upscaling.cells": None, "upscaling.exponent": None}
+# what each run leaves out: everything, ranking and points only, nothing
+CONFIGS = {"none": {**NO_RANKING, **NO_SUPPORT}, "blocks or upscaling": NO_RANKING, "all": {}}
+# sample field, label, overrides: the ore prospect also on a grid 8 times finer (same 30 x 30 x 10 m blocks)
+CASES = [("alluvial_aquifer", "aquifer", {}),
+         ("ore_prospect", "ore", {}),
+         ("ore_prospect", "ore, 7.5 x 7.5 x 5 m cells", {"grid.cell": [7.5, 7.5, 5.0], "blocks.cells": [4, 4, 2]})]
 
 
-def whole_run(spec_path: Path, realizations: int, with_support: bool, folder: Path) -> float:
-    overrides = {"simulation.workers": 1, "simulation.realizations": realizations}
-    if not with_support:
-        overrides.update(WITHOUT)
+def whole_run(spec_path: Path, realizations: int, leave_out: dict, more: dict, folder: Path) -> float:
+    # a None value removes the key, so what a configuration leaves out wins over the case's settings
+    overrides = {"simulation.workers": 1, "simulation.realizations": realizations, **more, **leave_out}
     spec = load_spec(spec_path, overrides)
     t = time.process_time()
     pipeline.run(spec, folder)
     return time.process_time() - t
 
 
-def per_realization(spec_path: Path, folder: Path) -> dict:
-    """Seconds for one realization at point support (engine + writer) and for each support sink."""
-    from geosim.simulation import realization_rng
-    from geosim.plugins import get
-
-    spec = load_spec(spec_path, {"simulation.workers": 1})
-    data = pipeline.prepare_data(spec)
-    model = pipeline.variogram_model(spec, data).model
-    grid = pipeline.make_grid(spec, data)
-    writer = pipeline._writer(spec, data, model, grid, folder)
-    engine = get("engines", "sequential")()
-    prepared = engine.prepare(data.coords, data.scores, model, grid, neighbourhood=pipeline.neighbourhood(spec),
-                              hole_ids=data.samples.hole_ids if spec["search.max_per_hole"] else None)
-    field = engine.realize(prepared, realization_rng(spec["simulation.seed"], 0))  # compiles
-    best = {}
-    for i in range(1, 4):
-        t = time.perf_counter()
-        field = engine.realize(prepared, realization_rng(spec["simulation.seed"], i))
-        best["simulate"] = min(best.get("simulate", np.inf), time.perf_counter() - t)
-        derived, writer.derived = writer.derived, ()
-        t = time.perf_counter()
-        writer(i, field)
-        best["write point support"] = min(best.get("write point support", np.inf), time.perf_counter() - t)
-        writer.derived = derived
-        values = field.copy()
-        inside = ~np.isnan(field)
-        values[inside] = data.transform.inverse(field[inside])
-        for d in derived:
-            t = time.perf_counter()
-            d(i, values)
-            best[d.name] = min(best.get(d.name, np.inf), time.perf_counter() - t)
-    return {k: round(v, 4) for k, v in best.items()}
-
-
 def main(argv=None) -> None:
     parser = argparse.ArgumentParser(description=__doc__.split("\n\n")[0])
     parser.add_argument("--realizations", type=int, default=None,
                         help="realizations per run (default: the sample spec's own)")
+    parser.add_argument("--quick", action="store_true", help="the two sample fields only, not the finer ore grid")
     args = parser.parse_args(argv)
     results = {}
-    for name in ("alluvial_aquifer", "ore_prospect"):
-        spec_path = SAMPLES / name / "run.toml"
+    for sample, label, more in CASES[:2] if args.quick else CASES:
+        spec_path = SAMPLES / sample / "run.toml"
         n = args.realizations or load_spec(spec_path)["simulation.realizations"]
-        times = {True: [], False: []}
+        times: dict[str, list[float]] = {name: [] for name in CONFIGS}
         with tempfile.TemporaryDirectory() as tmp:
-            whole_run(spec_path, 2, True, Path(tmp) / "warm")  # numba caches and imports, not timed
+            whole_run(spec_path, 2, {}, more, Path(tmp) / "warm")  # numba caches and imports, not timed
             for rep in range(3):
-                for with_support in (False, True):
-                    folder = Path(tmp) / f"{with_support}-{rep}"
-                    times[with_support].append(whole_run(spec_path, n, with_support, folder))
-            parts = per_realization(spec_path, Path(tmp) / "parts")
-        without, with_ = min(times[False]), min(times[True])
-        results[name] = {"realizations": n, "run_without_s": round(without, 2), "run_with_s": round(with_, 2),
-                         "added_percent": round(100.0 * (with_ - without) / without, 1),
-                         "all_runs_s": {k: [round(t, 2) for t in v] for k, v in
-                                        (("without", times[False]), ("with", times[True]))},
-                         "per_realization_s": parts}
-        print(f"{name}: {n} realizations, whole run {without:.1f} s without change of support, {with_:.1f} s "
-              f"with it (+{100.0 * (with_ - without) / without:.1f} %); one realization: "
-              + ", ".join(f"{k} {v:.3f} s" for k, v in parts.items()))
+                for name, leave_out in CONFIGS.items():
+                    times[name].append(whole_run(spec_path, n, leave_out, more, Path(tmp) / f"{name}-{rep}"))
+        best = {name: min(t) for name, t in times.items()}
+        added = {name: round(100.0 * (best[name] - best["none"]) / best["none"], 1) for name in CONFIGS}
+        results[label] = {"realizations": n, "cpu_s": {k: round(v, 2) for k, v in best.items()},
+                          "added_percent": added, "all_runs_cpu_s": {k: [round(t, 2) for t in v]
+                                                                     for k, v in times.items()}}
+        print(f"{label}: {n} realizations, whole run {best['none']:.1f} s CPU without change of support; "
+              f"+{added['blocks or upscaling']:.1f} % with blocks or upscaling, +{added['all']:.1f} % with "
+              "ranking and points as well")
     print(json.dumps(results))
 
 
