@@ -42,6 +42,7 @@ def domain_layer():
 def vector_spec(folder, points, polygon, layer=None):
     """The sample run spec with the points and domain from vector files: no x, y or crs keys."""
     text = (AQUIFER / "run.toml").read_text()
+    text = text[:text.index("[query_points]")]  # its x and y name the planned wells' own columns
     text = re.sub(r'(?m)^(x|y|crs) = .*$', "", text)
     text = text.replace('points = "wells.csv"', f'points = "{points}"' + (f'\nlayer = "{layer}"' if layer else ""))
     text = text.replace('polygon = "domain.geojson"', f'polygon = "{polygon}"')
