@@ -98,7 +98,7 @@ def _aquifer(folder: Path, edit=None) -> Path:
     if edit is not None:
         edit(rows)
     (folder / "wells.csv").write_text("\n".join([lines[0], *(",".join(r) for r in rows)]) + "\n")
-    for name in ("run.toml", "domain.geojson"):
+    for name in ("run.toml", "domain.geojson", "planned_wells.csv"):
         shutil.copy(AQUIFER / name, folder / name)
     return folder / "run.toml"
 
