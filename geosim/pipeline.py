@@ -902,6 +902,9 @@ def _support_plots(spec: RunSpec, writer, records: Sequence[Mapping], out_dir: P
             written.append(plots.plot_support_comparison(
                 {f"nodes ({cell} m cells)": point, f"{d.name.replace('_', ' ')} ({size} m)": figures},
                 out_dir / f"support_{d.name}.png", units=spec["data.units"], overwrite=True))
+    return written
+
+
 def _cubes_and_tables(spec: RunSpec, grid, out_dir: Path, records: Sequence[Mapping], files: Mapping,
                       tags: Mapping[str, str]) -> dict[str, list[str]]:
     """The summary and realization cubes and the block-model tables, from the run's GeoTIFFs."""
