@@ -13,7 +13,7 @@ Examples
 ['alluvial_aquifer', 'ore_prospect']
 >>> folder = geosim.demo.copy_sample("alluvial_aquifer", pathlib.Path(tempfile.mkdtemp()) / "aquifer")
 >>> sorted(p.name for p in folder.iterdir())
-['README.md', 'domain.geojson', 'run.toml', 'true_model.json', 'wells.csv']
+['README.md', 'domain.geojson', 'planned_wells.csv', 'run.toml', 'true_model.json', 'wells.csv']
 """
 from __future__ import annotations
 
