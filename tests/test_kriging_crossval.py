@@ -62,13 +62,25 @@ def test_summary_statistics():
 
 
 def test_standardized_errors_are_unit_variance_for_the_true_model():
-    # Data drawn from the model itself: standardized LOO errors have variance 1 in expectation.
-    # With n = 300 correlated errors the MSSE spread is roughly sqrt(2/n) ~ 0.08 for independent
-    # errors; allow 0.25 for the correlation between overlapping neighbourhoods (fixed seed).
+    # Data drawn from the model itself: each standardized LOO error e / sigma has mean square 1
+    # exactly, whatever the neighbourhood (the kriging variance is the error variance of that
+    # estimator under the model).  The MSSE of one data set scatters because neighbouring errors
+    # are correlated, so the tolerance comes from the spread over 25 independent data sets at the
+    # same sites: the mean MSSE must lie within 3 standard errors (sd / sqrt(25)) of 1, and each
+    # data set within 4 standard deviations.  A 10 % error in the kriging variance moves the mean
+    # MSSE by 0.1, several of these standard errors (asserted: 3 SE < 0.06).
     rng = np.random.default_rng(21)
     xy = rng.uniform(0, 300, size=(300, 2))
-    cov = MODEL.cov_matrix(xy)
-    z = np.linalg.cholesky(cov) @ rng.normal(size=300)
-    cv = cross_validate(xy, z, MODEL, method="simple", neighbourhood=Neighbourhood(max_samples=16))
-    assert cv.mean_standardized_squared_error == pytest.approx(1.0, abs=0.25)
-    assert abs(cv.mean_error) < 4 * cv.rmse / np.sqrt(300)
+    lower = np.linalg.cholesky(MODEL.cov_matrix(xy))
+    fields = lower @ rng.normal(size=(300, 25))
+    msse, me = [], []
+    for z in fields.T:
+        cv = cross_validate(xy, z, MODEL, method="simple", neighbourhood=Neighbourhood(max_samples=16))
+        msse.append(cv.mean_standardized_squared_error)
+        me.append(cv.mean_error / cv.rmse)
+    msse = np.array(msse)
+    sd = msse.std(ddof=1)
+    assert 3 * sd / 5.0 < 0.06, sd
+    assert abs(msse.mean() - 1.0) <= 3 * sd / 5.0, (msse.mean(), sd)
+    assert np.all(np.abs(msse - 1.0) <= 4 * sd)
+    assert abs(np.mean(me)) < 4 / np.sqrt(300)

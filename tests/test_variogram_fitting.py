@@ -91,15 +91,31 @@ def test_degenerate_fit_warns():
 
 
 def test_matern_smoothness_is_fitted():
-    xy = np.random.default_rng(8).uniform(0, 300, (300, 2))
+    """The fitted Matern smoothness recovers the truth (1.5) within the replicates' spread.
+
+    Twenty-four exact simulations at 900 random points, 15 scale lengths across; each
+    omnidirectional variogram is fitted from an exponential-like template (smoothness 0.5).
+    Smoothness is weakly identified by one field (some replicates run to the bound 5), so
+    the median and its standard error from the replicates (1.2533 sigma / sqrt(n),
+    sigma = IQR / 1.349, as in the joint fit below) are used: the truth must lie within 3
+    standard errors, and those must be tight enough (< 0.3) to tell 1.5 from the template's
+    0.5 and from the bound.
+    """
+    xy = np.random.default_rng(8).uniform(0, 450, (900, 2))
     truth = Matern(1.0, 30.0, param=1.5)
-    z = _field(truth + Nugget(1e-6), xy, 1, 8)[:, 0]
-    ev = experimental_variogram(xy, z, lag=10.0, nlags=15)
+    fields = _field(truth + Nugget(1e-6), xy, 24, 8)
+    fitted = []
     with warnings.catch_warnings():
         warnings.simplefilter("ignore", GeosimWarning)
-        fit = fit_model(ev, Model([Matern(1.0, 50.0, param=0.5)]), weighting="pairs")
-    assert "0.smoothness" in fit.free_
-    assert fit.params_["0.smoothness"] != 0.5 and 0.1 <= fit.params_["0.smoothness"] <= 5.0
+        for k in range(fields.shape[1]):
+            ev = experimental_variogram(xy, fields[:, k], lag=5.0, nlags=20)
+            fit = fit_model(ev, Model([Matern(1.0, 50.0, param=0.5)]), weighting="pairs")
+            assert "0.smoothness" in fit.free_
+            fitted.append(fit.params_["0.smoothness"])
+    q75, q25 = np.percentile(fitted, [75, 25])
+    se = 1.2533 * (q75 - q25) / 1.349 / math.sqrt(len(fitted))
+    assert se < 0.3, fitted
+    assert abs(np.median(fitted) - 1.5) <= 3 * se, (np.median(fitted), se)
 
 
 def test_joint_fit_recovers_anisotropic_model():
