@@ -11,6 +11,7 @@ import geosim
 import geosim.pipeline as pipeline
 from geosim.errors import InputError, ResourceError
 from geosim.io.geotiff import read_realization
+from geosim.kriging import krige
 from geosim.config.runspec import load_spec
 
 AQUIFER = Path(__file__).resolve().parent.parent / "sample_fields" / "alluvial_aquifer" / "run.toml"
@@ -160,6 +161,45 @@ def test_estimate_is_consistent_with_its_normal_scores(prepared):
     lo, hi = data.transform.inverse(np.array([-8.0, 8.0]))
     assert np.all((est.mean[inside] > lo) & (est.mean[inside] < hi))
     assert np.all(est.scores_variance[inside] <= model.sill + 1e-9)
+
+
+def test_estimate_is_kriging_of_the_scores_with_its_data_unit_moments(prepared):
+    # The normal-score bands are exactly geosim's kriging with the run's settings; the data-unit
+    # bands are the mean and variance of the back-transform of N(kriged score, kriging variance).
+    data, model, grid = prepared
+    spec = small_spec()
+    est = pipeline.estimate(spec, data, model, grid)
+    ref = krige(data.coords, data.scores, grid.coords(), model, method=spec["simulation.kriging"],
+                neighbourhood=pipeline.neighbourhood(spec), hole_ids=data.samples.hole_ids)
+    np.testing.assert_array_equal(est.scores_mean[grid.mask], ref.estimate)
+    np.testing.assert_array_equal(est.scores_variance[grid.mask], ref.variance)
+    assert np.isfinite(ref.estimate).sum() > 50
+
+
+def _moments_by_dense_quadrature(transform, mean, variance):
+    """E and Var of transform.inverse(Y), Y ~ N(mean, variance): trapezoid rule on 40,001 points
+    over +-10 sd (the back-transform is piecewise linear with kinks, so a rule that assumes a
+    smooth integrand is not used; step 5e-4 sd, error far below 1e-4 here)."""
+    z = np.linspace(-10.0, 10.0, 40001)
+    pdf = np.exp(-0.5 * z * z) / np.sqrt(2.0 * np.pi)
+    y = mean[:, None] + np.sqrt(variance)[:, None] * z[None, :]
+    v = transform.inverse(y.ravel()).reshape(y.shape)
+    m1 = np.trapezoid(v * pdf, z, axis=1)
+    return m1, np.trapezoid(v * v * pdf, z, axis=1) - m1 ** 2
+
+
+@pytest.mark.xfail(strict=True, reason="multigaussian_moments uses 24-point Gauss-Hermite quadrature, which "
+                   "converges slowly on the kinked normal-score back-transform: up to 5 % off in the mean and "
+                   "7 % in the variance on this sample (open defect, reported)")
+def test_estimate_data_unit_moments_match_dense_quadrature(prepared):
+    data, model, grid = prepared
+    est = pipeline.estimate(small_spec(), data, model, grid)
+    inside = np.isfinite(est.scores_mean) & grid.mask
+    m, v = est.scores_mean[inside], est.scores_variance[inside]
+    pick = np.arange(0, m.size, max(1, m.size // 40))
+    mean, var = _moments_by_dense_quadrature(data.transform, m[pick], v[pick])
+    np.testing.assert_allclose(est.mean[inside][pick], mean, rtol=0.01)
+    np.testing.assert_allclose(est.variance[inside][pick], var, rtol=0.02)
 
 
 ORE = AQUIFER.parent.parent / "ore_prospect" / "run.toml"
