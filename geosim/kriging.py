@@ -1,5 +1,10 @@
 """Simple and ordinary kriging, leave-one-out cross-validation and estimation maps.
 
+Secondary information enters in two ways: simple kriging with a locally varying
+mean (:func:`krige_varying_mean`, residuals from a mean given per location) and
+collocated simple cokriging under the Markov model (:func:`collocated_cokrige`,
+:func:`collocated_update`).
+
 Every local system is the covariance matrix ``K`` of the selected samples,
 factored ``K = L L^T`` by the compiled :func:`geosim.linalg.chol_inplace`.  One
 factor serves the weights and the variance:
@@ -28,7 +33,7 @@ import warnings
 from collections.abc import Callable, Sequence
 from concurrent.futures import ThreadPoolExecutor
 from contextlib import nullcontext
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 
 import numpy as np
 from numba import njit
@@ -47,8 +52,8 @@ _MIN_ROWS_PER_THREAD = 256
 
 Progress = Callable[[int, int, str], None]
 
-__all__ = ["KrigingResult", "CrossValidationResult", "krige", "krige_grid", "cross_validate",
-           "PIVOT_RTOL"]
+__all__ = ["KrigingResult", "CokrigingResult", "CrossValidationResult", "krige", "krige_grid",
+           "krige_varying_mean", "collocated_cokrige", "collocated_update", "cross_validate", "PIVOT_RTOL"]
 
 
 @dataclass(frozen=True)
@@ -516,6 +521,233 @@ regularization, threads, progress
     est[grid.mask] = res.estimate
     var[grid.mask] = res.variance
     return est, var
+
+
+def _mean_at(values, n: int, what: str) -> np.ndarray:
+    """A per-location mean or secondary value: n finite floats, else an InputError naming ``what``."""
+    a = np.ascontiguousarray(values, dtype=np.float64).reshape(-1)
+    if a.shape[0] != n:
+        raise InputError(f"{a.shape[0]} values of {what} for {n} locations", field=what,
+                         fix="give one value per location, in the same order")
+    bad = ~np.isfinite(a)
+    if bad.any():
+        i = int(np.argmax(bad))
+        raise InputError(f"{int(bad.sum())} location(s) have a missing or non-finite {what}, the first at "
+                         f"index {i} (counting from 0)", field=what,
+                         fix="fill the gap in the mean or secondary grid, or leave those locations out")
+    return a
+
+
+def krige_varying_mean(data_coords, data_values, targets, model, data_mean, target_mean, *,
+                       neighbourhood: Neighbourhood | str = Neighbourhood(), hole_ids=None, sample_ids=None,
+                       regularization: float | None = None, return_weights: bool = False, threads: int = 1,
+                       progress: Progress | None = None) -> KrigingResult:
+    """Simple kriging with a locally varying mean.
+
+    The mean ``m(u)`` is known at every sample and target (a trend surface, a
+    mean grid).  The residuals ``z - m`` are kriged with mean zero and
+    ``model`` (the residual covariance) and the mean is added back:
+    ``z*(u) = m(u) + sum_a w_a (z(u_a) - m(u_a))``, with the simple-kriging
+    weights and variance (Goovaerts 1997, Geostatistics for Natural Resources
+    Evaluation, section 6.1, simple kriging with varying local means).
+
+    Parameters
+    ----------
+    data_coords, data_values, targets, model, neighbourhood, hole_ids, sample_ids, regularization, \
+return_weights, threads, progress
+        As for :func:`krige`.
+    data_mean : (n,) array_like
+        Mean at each sample.
+    target_mean : (m,) array_like
+        Mean at each target.
+
+    Returns
+    -------
+    KrigingResult
+        ``method`` is ``"simple"``; ``mean`` is NaN (the mean varies).  A target
+        without samples in its search gets its own mean and the sill.
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> import geosim
+    >>> from geosim.kriging import krige_varying_mean
+    >>> model = geosim.Exponential(1.0, geosim.Anisotropy((60.0, 60.0)))
+    >>> r = krige_varying_mean([[0.0, 0.0]], [3.0], [[0.0, 0.0], [1e4, 0.0]], model, [2.0], [2.0, 5.0])
+    >>> np.round(r.estimate, 6).tolist()
+    [3.0, 5.0]
+    """
+    xyz, z = _check_data(data_coords, data_values)
+    dm = _mean_at(data_mean, z.shape[0], "mean at the samples")
+    tm = _mean_at(target_mean, np.shape(np.atleast_2d(targets))[0], "mean at the targets")
+    res = krige(data_coords, z - dm, targets, model, method="simple", mean=0.0, neighbourhood=neighbourhood,
+                hole_ids=hole_ids, sample_ids=sample_ids, regularization=regularization,
+                return_weights=return_weights, threads=threads, progress=progress)
+    return replace(res, estimate=res.estimate + tm, mean=math.nan)
+
+
+@dataclass(frozen=True)
+class CokrigingResult:
+    """Collocated simple cokriging at a set of targets.
+
+    Attributes
+    ----------
+    estimate, variance : (m,) ndarray
+        Cokriged value and cokriging variance.
+    secondary_weight : (m,) ndarray
+        Weight of the collocated secondary residual ``s - secondary_mean``.
+    primary_factor : (m,) ndarray
+        The primary weights are the simple-kriging weights times this factor
+        (``1 - secondary_weight * b``, see :func:`collocated_update`).
+    kriging : KrigingResult
+        The primary-only simple kriging the update started from (its weights
+        and neighbours when asked for).
+    rho : float
+        Correlation coefficient between primary and secondary.
+    """
+
+    estimate: np.ndarray
+    variance: np.ndarray
+    secondary_weight: np.ndarray
+    primary_factor: np.ndarray
+    kriging: KrigingResult = field(repr=False)
+    rho: float
+
+    @property
+    def std(self) -> np.ndarray:
+        """Cokriging standard deviation."""
+        return np.sqrt(self.variance)
+
+    @property
+    def weights(self) -> np.ndarray | None:
+        """Primary weights (with ``return_weights=True``), aligned with ``kriging.neighbours``."""
+        w = self.kriging.weights
+        return None if w is None else w * self.primary_factor[:, None]
+
+
+def _check_rho(rho) -> float:
+    r = float(rho)
+    if not -1.0 < r < 1.0:
+        raise InputError(f"the correlation coefficient between primary and secondary is {rho!r}",
+                         field="rho", fix="give a value strictly between -1 and 1")
+    return r
+
+
+def collocated_update(estimate, variance, secondary, rho: float, sill: float, *,
+                      secondary_variance: float = 1.0) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Add a collocated secondary value to simple-kriging results, Markov model.
+
+    Under the Markov model of Almeida and Journel (1994, Mathematical Geology
+    26(5)) the cross-covariance is proportional to the primary covariance,
+    ``C_ps(h) = b C_p(h)`` with ``b = rho sqrt(secondary_variance / sill)``.
+    Then, given the primary value at the target, the collocated secondary
+    ``s = b y + e`` carries an error ``e`` of variance
+    ``secondary_variance (1 - rho^2)`` that is independent of every primary
+    value, and the collocated cokriging system (the simple-kriging system
+    bordered by one row for ``s``; Goovaerts 1997, Geostatistics for Natural
+    Resources Evaluation, section 6.2) reduces to one Gaussian update of the
+    simple-kriging estimate ``y`` and variance ``v``:
+
+    ``g = b v / (b^2 v + secondary_variance (1 - rho^2))``,
+    estimate ``y + g (s - b y)``, variance ``v (1 - g b)``; the primary weights
+    are the simple-kriging weights times ``1 - g b`` and ``g`` is the secondary
+    weight.  With ``rho = 0`` the inputs come back unchanged, bit for bit.
+
+    Parameters
+    ----------
+    estimate, variance : (m,) array_like
+        Simple-kriging estimate and variance of the primary residual (mean zero).
+    secondary : (m,) array_like
+        Secondary residual at the targets (its mean removed).
+    rho : float
+        Correlation coefficient between primary and secondary, in (-1, 1).
+    sill : float
+        Primary variance ``C_p(0)`` (the model's sill).
+    secondary_variance : float
+        Secondary variance ``C_s(0)``; 1 for normal scores.
+
+    Returns
+    -------
+    estimate, variance, secondary_weight : (m,) ndarray
+    """
+    rho = _check_rho(rho)
+    y = np.asarray(estimate, dtype=np.float64)
+    v = np.asarray(variance, dtype=np.float64)
+    if rho == 0.0:
+        return y.copy(), v.copy(), np.zeros_like(y)
+    if not sill > 0 or not secondary_variance > 0:
+        raise ValueError(f"sill and secondary_variance must be positive, got {sill!r} and {secondary_variance!r}")
+    s = np.asarray(secondary, dtype=np.float64)
+    b = rho * math.sqrt(secondary_variance / sill)
+    g = b * v / (b * b * v + secondary_variance * (1.0 - rho * rho))
+    return y + g * (s - b * y), np.maximum(v * (1.0 - g * b), 0.0), g
+
+
+def collocated_cokrige(data_coords, data_values, targets, model, secondary, rho: float, *, mean: float = 0.0,
+                       data_mean=None, target_mean=None, secondary_mean: float = 0.0,
+                       secondary_variance: float = 1.0, neighbourhood: Neighbourhood | str = Neighbourhood(),
+                       hole_ids=None, sample_ids=None, regularization: float | None = None,
+                       return_weights: bool = False, threads: int = 1,
+                       progress: Progress | None = None) -> CokrigingResult:
+    """Collocated simple cokriging under the Markov model.
+
+    The primary samples found by the search plus the secondary value at the
+    target itself (Almeida and Journel 1994, Mathematical Geology 26(5);
+    Goovaerts 1997, section 6.2).  For simulation both variables are normal
+    scores (``mean = secondary_mean = 0``, ``secondary_variance = 1``) and
+    ``rho`` is the correlation of the normal scores.  See
+    :func:`collocated_update` for the equations.
+
+    Parameters
+    ----------
+    data_coords, data_values, targets, model, neighbourhood, hole_ids, sample_ids, regularization, \
+return_weights, threads, progress
+        As for :func:`krige`.
+    secondary : (m,) array_like
+        Secondary value at each target.
+    rho : float
+        Correlation coefficient between primary and secondary, in (-1, 1).
+    mean : float
+        Known primary mean (ignored when ``data_mean`` and ``target_mean`` are given).
+    data_mean, target_mean : array_like, optional
+        A locally varying primary mean at the samples and the targets, as for
+        :func:`krige_varying_mean`.
+    secondary_mean, secondary_variance : float
+        Mean and variance of the secondary variable.
+
+    Returns
+    -------
+    CokrigingResult
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> import geosim
+    >>> from geosim.kriging import collocated_cokrige
+    >>> model = geosim.Exponential(1.0, geosim.Anisotropy((60.0, 60.0)))
+    >>> r = collocated_cokrige([[0.0, 0.0]], [1.0], [[1e4, 0.0]], model, [2.0], 0.5)
+    >>> round(float(r.estimate[0]), 6), round(float(r.variance[0]), 6)
+    (1.0, 0.75)
+    """
+    rho = _check_rho(rho)
+    m = np.shape(np.atleast_2d(targets))[0]
+    s = _mean_at(secondary, m, "secondary value at the targets") - float(secondary_mean)
+    varying = data_mean is not None or target_mean is not None
+    if varying and (data_mean is None or target_mean is None):
+        raise ValueError("give both data_mean and target_mean, or neither")
+    common = dict(neighbourhood=neighbourhood, hole_ids=hole_ids, sample_ids=sample_ids,
+                  regularization=regularization, return_weights=return_weights, threads=threads,
+                  progress=progress)
+    if varying:
+        res = krige_varying_mean(data_coords, data_values, targets, model, data_mean, target_mean, **common)
+        base = _mean_at(target_mean, m, "mean at the targets")
+    else:
+        res = krige(data_coords, data_values, targets, model, method="simple", mean=mean, **common)
+        base = float(mean)
+    y, v, g = collocated_update(res.estimate - base, res.variance, s, rho, float(_as_model(model).sill),
+                                secondary_variance=secondary_variance)
+    b = rho * math.sqrt(secondary_variance / float(_as_model(model).sill))
+    return CokrigingResult(y + base, v, g, 1.0 - g * b, res, rho)
 
 
 @dataclass(frozen=True)
