@@ -53,7 +53,8 @@ _MIN_ROWS_PER_THREAD = 256
 Progress = Callable[[int, int, str], None]
 
 __all__ = ["KrigingResult", "CokrigingResult", "CrossValidationResult", "krige", "krige_grid",
-           "krige_varying_mean", "collocated_cokrige", "collocated_update", "cross_validate", "PIVOT_RTOL"]
+           "krige_varying_mean", "collocated_cokrige", "collocated_update", "collocated_correlation",
+           "MIN_COLLOCATED_PAIRS", "cross_validate", "PIVOT_RTOL"]
 
 
 @dataclass(frozen=True)
@@ -631,6 +632,68 @@ def _check_rho(rho) -> float:
         raise InputError(f"the correlation coefficient between primary and secondary is {rho!r}",
                          field="rho", fix="give a value strictly between -1 and 1")
     return r
+
+
+# fewer collocated pairs than this give a correlation too uncertain to use: its standard
+# error is about (1 - rho^2) / sqrt(n), 0.2 or more below 20 pairs (common practice, no source)
+MIN_COLLOCATED_PAIRS = 20
+
+
+def collocated_correlation(primary, secondary, *, min_pairs: int = MIN_COLLOCATED_PAIRS) -> tuple[float, int]:
+    """Correlation coefficient of primary and secondary values at the same locations.
+
+    For the Markov model both are normal scores; pairs where either value is
+    missing (NaN: e.g. a sample outside the secondary grid) are left out.
+
+    Parameters
+    ----------
+    primary, secondary : (n,) array_like
+        Values at the samples.
+    min_pairs : int
+        Fewest complete pairs accepted.
+
+    Returns
+    -------
+    rho, n_pairs : float, int
+        Pearson correlation coefficient and the number of pairs it rests on.
+
+    Raises
+    ------
+    InputError
+        Fewer than ``min_pairs`` complete pairs, a constant variable, or a
+        correlation of +-1 (the Markov system would be singular).
+
+    Examples
+    --------
+    >>> from geosim.kriging import collocated_correlation
+    >>> collocated_correlation([0.0, 1.0, 2.0, 3.0], [0.0, 1.0, 1.0, 3.5], min_pairs=3)[1]
+    4
+    """
+    p = np.asarray(primary, dtype=np.float64).reshape(-1)
+    s = np.asarray(secondary, dtype=np.float64).reshape(-1)
+    if p.shape != s.shape:
+        raise InputError(f"{p.shape[0]} primary values but {s.shape[0]} secondary values", field="secondary",
+                         fix="give the secondary value at every sample (NaN where it is unknown)")
+    both = np.isfinite(p) & np.isfinite(s)
+    n = int(both.sum())
+    if n < min_pairs:
+        raise InputError(f"only {n} samples have both a primary and a secondary value; at least {min_pairs} "
+                         "are needed to estimate their correlation", field="rho",
+                         fix="give the correlation coefficient yourself, or extend the secondary grid over "
+                             "more samples")
+    dp = p[both] - p[both].mean()
+    ds = s[both] - s[both].mean()
+    norm = math.sqrt(float(dp @ dp) * float(ds @ ds))
+    if norm == 0.0:
+        raise InputError("the primary or the secondary value is the same at every collocated sample, so "
+                         "their correlation is undefined", field="rho",
+                         fix="give the correlation coefficient yourself")
+    rho = float(dp @ ds) / norm
+    if abs(rho) >= 1.0 - 1e-12:
+        raise InputError(f"primary and secondary are perfectly correlated (rho = {rho:.6f}) at the "
+                         f"{n} collocated samples", field="rho",
+                         fix="use the secondary as the primary, or give a coefficient strictly between -1 and 1")
+    return rho, n
 
 
 def collocated_update(estimate, variance, secondary, rho: float, sill: float, *,

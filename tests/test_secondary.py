@@ -8,7 +8,7 @@ import pytest
 import geosim
 import independent
 from geosim.errors import InputError
-from geosim.kriging import collocated_cokrige, collocated_update, krige, krige_varying_mean
+from geosim.kriging import collocated_cokrige, collocated_correlation, collocated_update, krige, krige_varying_mean
 from geosim.search import Neighbourhood
 from geosim.trend import fit_trend, trend_terms
 
@@ -345,3 +345,39 @@ def test_secondary_with_gaps_or_wrong_length_is_refused():
         collocated_cokrige([[0.0, 0.0]], [1.0], [[1.0, 1.0], [2.0, 2.0]], _model(), [0.0], 0.5)
     with pytest.raises(InputError, match="index 1"):
         collocated_cokrige([[0.0, 0.0]], [1.0], [[1.0, 1.0], [2.0, 2.0]], _model(), [0.0, np.inf], 0.5)
+
+
+# ---- the correlation coefficient from collocated pairs ------------------------------------
+
+def test_collocated_correlation_equals_scipy_pearson_and_counts_the_pairs():
+    # Reference: scipy.stats.pearsonr (Pearson product-moment correlation) on the complete pairs
+    from scipy.stats import pearsonr
+
+    rng = np.random.default_rng(12)
+    p = rng.normal(size=200)
+    s = 0.6 * p + 0.8 * rng.normal(size=200)
+    s[[3, 50, 51]] = np.nan        # samples outside the secondary grid
+    p[9] = np.nan
+    rho, n = collocated_correlation(p, s)
+    keep = np.isfinite(p) & np.isfinite(s)
+    assert n == 196
+    assert rho == pytest.approx(pearsonr(p[keep], s[keep])[0], abs=1e-12)
+    # and the population value 0.6 within 4 standard errors (1 - 0.36) / sqrt(196) = 0.046
+    assert abs(rho - 0.6) < 4 * 0.64 / np.sqrt(196)
+
+
+def test_collocated_correlation_needs_enough_pairs():
+    rng = np.random.default_rng(0)
+    p, s = rng.normal(size=30), rng.normal(size=30)
+    s[:15] = np.nan
+    with pytest.raises(InputError, match="only 15 samples") as err:
+        collocated_correlation(p, s, min_pairs=20)
+    assert err.value.field == "rho"
+    assert collocated_correlation(p, s, min_pairs=15)[1] == 15
+
+
+@pytest.mark.parametrize("s", [np.arange(30.0) * 2 + 1, np.full(30, 4.0)])
+def test_collocated_correlation_refuses_a_degenerate_secondary(s):
+    with pytest.raises(InputError) as err:
+        collocated_correlation(np.arange(30.0), s)
+    assert err.value.field == "rho" and err.value.fix
