@@ -361,6 +361,27 @@ def preflight(spec: RunSpec, data: PreparedData, grid) -> list[str]:
 
 
 @with_folder_lock
+def _preflight_notes(spec: RunSpec, data: PreparedData, grid) -> None:
+    """:func:`preflight` for a step run on its own (``geosim simulate``, ``geosim estimate``):
+    its refusals raise, its notes are warnings."""
+    import warnings
+
+    from .errors import GeosimWarning
+    for note in preflight(spec, data, grid):
+        warnings.warn(note, GeosimWarning, stacklevel=3)
+
+
+def sample_ids(data: PreparedData) -> list[str]:
+    """A label per sample for messages: its file and row (``wells.csv row 14``), or its hole
+    and depths for composites."""
+    from .inputchecks import sample_label
+    labels = []
+    for i in range(len(data.values)):
+        file, row, text = sample_label(data.samples, i)
+        labels.append(f"{Path(file).name} {text}" if row is not None and file else text)
+    return labels
+
+
 def variogram_model(spec: RunSpec, data: PreparedData | None = None, *, out_dir: str | os.PathLike | None = None,
                     overwrite: bool = False, progress: Progress | None = None) -> VariogramResult:
     """The covariance model of the normal scores: from a model file, from the spec's
@@ -451,12 +472,15 @@ def estimate(spec: RunSpec, data: PreparedData | None = None, model=None, grid=N
     standard deviation in data units, kriged normal score and its kriging variance.
     """
     from .kriging import krige
+    standalone = data is None
     data = data if data is not None else prepare_data(spec, progress)
-    model = _model(spec, data, model, progress)
     grid = grid if grid is not None else make_grid(spec, data)
+    if standalone:
+        _preflight_notes(spec, data, grid)
+    model = _model(spec, data, model, progress)
     result = krige(data.coords, data.scores, grid.coords(), model, method=spec["simulation.kriging"],
                    mean=0.0, neighbourhood=neighbourhood(spec), hole_ids=data.samples.hole_ids,
-                   progress=progress)
+                   sample_ids=sample_ids(data), progress=progress)
     mean, var = multigaussian_moments(data.transform, result.estimate, result.variance)
     maps = []
     for values in (result.estimate, result.variance, mean, var):
@@ -764,9 +788,12 @@ def simulate(spec: RunSpec, data: PreparedData | None = None, model=None, grid=N
         ``progress(done, total, "realizations")``.
     """
     from .simulation import simulate as run_engine
+    standalone = data is None
     data = data if data is not None else prepare_data(spec, progress)
-    model = _model(spec, data, model, progress)
     grid = grid if grid is not None else make_grid(spec, data)
+    if standalone:
+        _preflight_notes(spec, data, grid)
+    model = _model(spec, data, model, progress)
     writer = _writer(spec, data, model, grid, Path(out_dir))  # reads query points: bad ones fail before writing
     out_dir = make_folder(out_dir)
     header = open_output(spec, out_dir, overwrite=overwrite, resume=resume)
@@ -777,6 +804,8 @@ def simulate(spec: RunSpec, data: PreparedData | None = None, model=None, grid=N
     sim = spec["simulation"]
     # hole ids only when the search limits samples per hole: a plugin engine need not take them
     options = {"hole_ids": data.samples.hole_ids} if spec["search.max_per_hole"] else {}
+    if sim["engine"] in ("sequential", "exact"):  # geosim's own engines name samples in their errors
+        options["sample_ids"] = sample_ids(data)
     records = dict(kept)
     if missing:
         new = run_engine(data.coords, data.scores, model, grid, n_realizations=n, seed=sim["seed"],

@@ -10,6 +10,7 @@ import pytest
 
 import geosim
 import geosim.config.runspec
+import geosim.errors
 import geosim.pipeline
 import geosim.variogram.modelfile
 from geosim.errors import InputError, SpecError
@@ -105,7 +106,7 @@ def _aquifer(folder: Path, edit=None) -> Path:
 
 def _check(spec_path, overrides=None):
     """prepare_data, make_grid and preflight: what `geosim check` runs."""
-    spec = geosim.io.runspec.load_spec(spec_path, {**QUICK, **(overrides or {})})
+    spec = geosim.config.runspec.load_spec(spec_path, {**QUICK, **(overrides or {})})
     data = geosim.pipeline.prepare_data(spec)
     grid = geosim.pipeline.make_grid(spec, data)
     return data, geosim.pipeline.preflight(spec, data, grid)
@@ -128,6 +129,11 @@ def test_samples_that_condition_nothing_are_refused(tmp_path, capsys):
     code, err = _cli(capsys, "run", spec_path, "--out", tmp_path / "out", "--set", 'data.x="lat"',
                      "--set", 'data.y="lon"')
     assert code == 2 and not (tmp_path / "out").exists()
+    # and so do the steps run on their own
+    for step in ("simulate", "estimate"):
+        code, err = _cli(capsys, step, spec_path, "--out", tmp_path / "out", "--set", 'data.x="lat"',
+                         "--set", 'data.y="lon"')
+        assert code == 2 and "would not be conditioned" in err, (step, err)
 
 
 def test_samples_far_outside_the_domain_get_a_note(tmp_path):
@@ -195,11 +201,11 @@ def test_upward_hole_from_surface_collars_gets_a_note(tmp_path):
     flipped = [",".join(r.split(",")[:3] + [str(-float(r.split(",")[3]))]) if r.split(",")[0] == hole else r
                for r in lines[1:]]
     (tmp_path / "surveys.csv").write_text("\n".join([lines[0], *flipped]) + "\n")
-    spec = geosim.io.runspec.load_spec(spec_path)
+    spec = geosim.config.runspec.load_spec(spec_path)
     notes = geosim.pipeline.load_samples(spec).notes
     assert any(f"surveyed upward at the collar although the collars are the ground surface: {hole}" in n
                for n in notes)
-    plain = geosim.pipeline.load_samples(geosim.io.runspec.load_spec(ORE / "run.toml")).notes
+    plain = geosim.pipeline.load_samples(geosim.config.runspec.load_spec(ORE / "run.toml")).notes
     assert not any("upward" in n for n in plain)
 
 
@@ -246,7 +252,7 @@ def test_empty_value_column_names_file_and_column(tmp_path):
     lines = (tmp_path / "assays.csv").read_text().splitlines()
     (tmp_path / "assays.csv").write_text("\n".join([lines[0]] + [r.rsplit(",", 1)[0] + "," for r in lines[1:]]) + "\n")
     with pytest.raises(InputError, match="'cu_pct' is empty in every row") as err:
-        geosim.pipeline.prepare_data(geosim.io.runspec.load_spec(spec_path))
+        geosim.pipeline.prepare_data(geosim.config.runspec.load_spec(spec_path))
     assert err.value.file.endswith("assays.csv") and err.value.field == "cu_pct"
 
 
@@ -279,3 +285,14 @@ def test_docstring_examples(name):
     import importlib
     result = doctest.testmod(importlib.import_module(name), optionflags=doctest.ELLIPSIS | doctest.NORMALIZE_WHITESPACE)
     assert result.attempted > 0 and result.failed == 0
+
+
+def test_kriging_failures_name_the_file_rows(tmp_path):
+    def twin(rows):  # a well 1e-7 degree (about 9 mm) from another: a Gaussian model cannot tell them apart
+        rows.append(["LV99", f"{float(rows[5][1]) + 1e-7:.7f}", rows[5][2], "7e-05"])
+    gaussian = [{"kind": "gaussian", "sill": 1.0, "ranges": [1200.0, 400.0], "azimuth": 30.0}]
+    spec = geosim.config.runspec.load_spec(_aquifer(tmp_path, twin), {**QUICK, **FIXED, "variogram.structures": gaussian})
+    data = geosim.pipeline.prepare_data(spec)
+    with pytest.raises(geosim.errors.NotPositiveDefiniteError) as err:
+        geosim.pipeline.estimate(spec, data)
+    assert "wells.csv row 7" in str(err.value) or "wells.csv row 82" in str(err.value), str(err.value)
