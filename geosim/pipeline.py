@@ -207,6 +207,12 @@ def read_domain_geometry(spec: RunSpec, crs):
     return read_domain(spec.resolve(path), crs, layer=spec["domain.layer"])
 
 
+# the summaries hold every realization of one window (at most 256 x 256 cells, the tile size) at
+# a time: the float32 values read, a float64 copy and the sorted copy percentiles need, rounded up
+SUMMARY_WINDOW = 256
+SUMMARY_BYTES_PER_VALUE = 24
+
+
 def make_grid(spec: RunSpec, data: PreparedData | None = None):
     """The simulation grid: over ``grid.bounds``, else the domain, else the data (plus
     ``grid.padding``), masked by the domain polygon or raster."""
@@ -239,6 +245,10 @@ def make_grid(spec: RunSpec, data: PreparedData | None = None):
     from .simulation.runner import REALIZATION_BYTES_PER_NODE
     check_memory(nodes * REALIZATION_BYTES_PER_NODE, f"one realization of a grid of {nodes:,} nodes",
                  fix="choose larger grid.cell or smaller grid.bounds, or run on a machine with more memory")
+    n = spec["simulation.realizations"]
+    check_memory(n * SUMMARY_WINDOW**2 * SUMMARY_BYTES_PER_VALUE,
+                 f"the summaries of {n:,} realizations (read {SUMMARY_WINDOW} x {SUMMARY_WINDOW} cells at a time)",
+                 fix="run fewer realizations, or on a machine with more memory")
     if nodes > MAX_NODES:
         raise InputError(f"the grid would have {nodes:.3g} nodes (more than {MAX_NODES:.0e})", file=spec.name,
                          field="grid.cell", fix="choose larger cells or smaller grid.bounds")
