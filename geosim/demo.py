@@ -33,6 +33,11 @@ def _root():
     try:
         return resources.files(_PACKAGE)
     except ModuleNotFoundError:
+        # imported from a source tree (e.g. tests run in a clone beside a regular install):
+        # the package's folder is then the clone's sample_fields/, next to geosim/
+        clone = Path(__file__).resolve().parent.parent / "sample_fields"
+        if (clone / "__init__.py").is_file():
+            return clone
         raise InputError("the sample fields are not installed with this geosim",
                          fix="reinstall geosim (pip install --force-reinstall geosim)") from None
 
