@@ -729,7 +729,7 @@ def _support_sinks(spec: RunSpec, grid, out_dir: Path, tags: Mapping[str, str]) 
     q = spec["query_points"]
     if q["file"] is not None:
         ids, coords, index = read_query_points(spec.resolve(q["file"]), grid, x=q["x"], y=q["y"], z=q["z"],
-                                               id=q["id"], crs=q["crs"] or spec["data.crs"])
+                                               id=q["id"], crs=q["crs"] or spec["data.crs"] or _samples_crs(spec))
         derived.append(PointSampler(out_dir, ids, coords, index, units=spec["data.units"], tags=tags,
                                     overwrite=True))
     rank = spec["ranking"]
@@ -746,6 +746,20 @@ def _support_sinks(spec: RunSpec, grid, out_dir: Path, tags: Mapping[str, str]) 
 
 
 _DECISION_FIGURES = ("tonnage", "mean_grade", "metal", "fraction_above", "fraction_below", "area", "volume")
+
+
+def _samples_crs(spec: RunSpec):
+    """The CRS the samples' own vector file or data frame carries (None for CSV and drillholes):
+    tables such as the query points default to it when neither they nor ``data.crs`` name one."""
+    from .vector import is_frame, is_vector_path, read_vector
+    if spec["data.points"] is None:
+        return None
+    source = spec.resolve(spec["data.points"])
+    if is_frame(source):
+        return getattr(source, "crs", None)
+    if not is_vector_path(source):
+        return None
+    return read_vector(source, layer=spec["data.layer"]).crs
 
 
 def _figure_unit(spec: RunSpec, figure: str) -> str:
