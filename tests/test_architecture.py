@@ -25,14 +25,14 @@ LAYERS = [
     ("base", ["geosim", "geosim._forward", "geosim.cautions", "geosim.errors", "geosim.retired", "geosim.progress",
               "geosim.resources", "geosim.plugins", "geosim.io", "geosim.io.atomic"]),
     ("data", ["geosim.grid", "geosim.crs", "geosim.tables", "geosim.vector", "geosim.points", "geosim.drillholes",
-              "geosim.domain", "geosim.declustering", "geosim.transforms", "geosim.linalg"]),
+              "geosim.domain", "geosim.declustering", "geosim.transforms", "geosim.linalg", "geosim.units"]),
     ("models", ["geosim.variogram.*", "geosim.search", "geosim.kriging", "geosim.trend",
                 "geosim.simulation.*"]),
     ("statistics", ["geosim.summaries", "geosim.validation", "geosim.inputchecks", "geosim.support"]),
     ("files", ["geosim.demo", "geosim.io.geotiff", "geosim.io.plots", "geosim.io.report", "geosim.io.crossval",
                "geosim.io.csvw", "geosim.io.decision", "geosim.io.lock", "geosim.io.cube", "geosim.io.support_tables"]),
     ("assembly", ["geosim.ensemble", "geosim.support_outputs", "geosim.config.*", "geosim.io.runspec.*"]),
-    ("job", ["geosim.pipeline", "geosim.runstate", "geosim.results"]),
+    ("job", ["geosim.pipeline", "geosim.runstate", "geosim.results", "geosim.units_run"]),
     ("command line", ["geosim_cli.*"]),
 ]
 
