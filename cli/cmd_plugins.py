@@ -1,7 +1,7 @@
 """``geosim plugins``: list the installed structures, engines, writers and commands."""
 from __future__ import annotations
 
-import warnings
+import logging
 from importlib.metadata import entry_points
 
 import click
@@ -22,10 +22,11 @@ def plugins(groups):
     name already taken). Unusable plugins are skipped everywhere else in geosim.
     """
     import geosim.plugins
-    from geosim.errors import GeosimWarning
 
-    with warnings.catch_warnings():  # the listing itself reports what the warnings would say
-        warnings.simplefilter("ignore", GeosimWarning)
+    logger = logging.getLogger("geosim")
+    level = logger.level
+    logger.setLevel(logging.ERROR)  # the listing itself reports what the notes would say
+    try:
         rows = []
         for group in groups or _GROUPS:
             if group == "commands":
@@ -33,6 +34,8 @@ def plugins(groups):
             else:
                 rows += [(group, i.name, f"{i.package} {i.version}".strip(), i.status, i.detail)
                          for i in geosim.plugins.installed(group)]
+    finally:
+        logger.setLevel(level)
     _print(rows)
 
 

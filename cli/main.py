@@ -196,8 +196,8 @@ def _log_handler(session: Session):
 
 
 def _warning_printer(session: Session):
-    """Show geosim's own warnings (choices it made, merged samples) as one-line notes;
-    other libraries' warnings only with --debug."""
+    """Show geosim's own Python warnings (retired names of settings) as one-line notes, like the
+    notes of its logger; other libraries' warnings only with --debug."""
     default = warnings.showwarning
 
     def show(message, category, filename, lineno, file=None, line=None):

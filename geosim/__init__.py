@@ -12,14 +12,16 @@ True
 from __future__ import annotations
 
 import importlib
-import logging
 from importlib.metadata import PackageNotFoundError, version as _dist_version
 
 from .cautions import CAUTION
 from .errors import GeosimError, GeosimWarning, InputError, NotPositiveDefiniteError, SpecError
 
-# notes go to the "geosim" logger; an application (or the command line) attaches handlers
-logging.getLogger("geosim").addHandler(logging.NullHandler())
+# Notes for the user (choices geosim made, data it changed) are WARNING records of the "geosim"
+# logger and its children; a run's steps and timings are INFO records.  No handler is attached here:
+# where the application configures no logging, Python's last-resort handler prints the notes on
+# stderr (as warnings were shown before); logging.getLogger("geosim").setLevel(logging.ERROR)
+# silences them, and any handler captures them.  The command line attaches its own.
 
 try:
     __version__ = _dist_version("geosim")

@@ -4,7 +4,7 @@ geosim computes every distance in metres of a projected CRS.  Geographic input
 (longitude/latitude) is reprojected with pyproj before anything else; when the
 user names no target CRS, the UTM zone of the data centroid is chosen (WGS 84 /
 UTM, EPSG:326zz north of the equator, EPSG:327zz south of it) and the choice is
-reported in the returned note and through a :class:`geosim.errors.GeosimWarning`.
+reported in the returned note and as a note on the ``geosim`` logger.
 
 Axis order: coordinates are always ``(x, y[, z])`` = (east, north[, up]), which for
 geographic input means ``(longitude, latitude)``, whatever axis order the CRS
@@ -14,13 +14,15 @@ as given: only the horizontal position is reprojected.
 from __future__ import annotations
 
 import math
-import warnings
+import logging
 
 import numpy as np
 from pyproj import CRS, Transformer
 from pyproj.exceptions import CRSError
 
-from .errors import GeosimWarning, InputError
+from .errors import InputError
+
+log = logging.getLogger(__name__)
 
 CrsLike = CRS | str | int
 
@@ -155,20 +157,17 @@ def to_projected(coords: np.ndarray, crs: CrsLike | None, target: CrsLike | None
         declared in a projected CRS: every point within +-180, +-90 and, read as metres
         of that CRS, outside the CRS's area of use.
 
-    Warns
+    Notes
     -----
-    GeosimWarning
-        When the UTM zone is chosen for the user, and when coordinates said to be
-        projected (or local) look like decimal degrees (within +-180 and +-90,
-        spanning under 5 units, with digits below a thousandth), a hint that the
-        CRS is wrong.
+    A note (a warning of the ``geosim`` logger) says when the UTM zone is chosen
+    for the user, and when coordinates said to be projected (or local) look like
+    decimal degrees (within +-180 and +-90, spanning under 5 units, with digits
+    below a thousandth), a hint that the CRS is wrong.
 
     Examples
     --------
-    >>> import numpy, warnings, geosim.crs
-    >>> with warnings.catch_warnings():
-    ...     warnings.simplefilter("ignore")
-    ...     xy, crs, note = geosim.crs.to_projected(numpy.array([[15.0, 0.0]]), "EPSG:4326")
+    >>> import numpy, geosim.crs
+    >>> xy, crs, note = geosim.crs.to_projected(numpy.array([[15.0, 0.0]]), "EPSG:4326")
     >>> crs.to_epsg(), round(float(xy[0, 0]), 3), round(float(xy[0, 1]), 3)
     (32633, 500000.0, 0.0)
     """
@@ -222,7 +221,7 @@ def to_projected(coords: np.ndarray, crs: CrsLike | None, target: CrsLike | None
     note = f"reprojected {_crs_name(source)} -> {_crs_name(target_crs)}"
     if chosen_for_user:
         note += " (UTM zone of the data centroid)"
-        warnings.warn(f"{note}; give a target CRS to choose another", GeosimWarning, stacklevel=2)
+        log.warning("%s; give a target CRS to choose another", note)
     return out, target_crs, note
 
 
@@ -285,6 +284,5 @@ def _warn_if_degrees(xyz: np.ndarray, crs: CRS | None) -> None:
     if len(x) > 1 and np.all(np.abs(x) <= 180.0) and np.all(np.abs(y) <= 90.0) and 0 < np.ptp(x) < 5.0 \
             and 0 < np.ptp(y) < 5.0 and fine_digits:
         where = "a local grid (no CRS)" if crs is None else _crs_name(crs)
-        warnings.warn(f"coordinates span less than 5 units in {where} and look like degrees; "
-                      "if they are longitude/latitude, give a geographic CRS such as EPSG:4326",
-                      GeosimWarning, stacklevel=3)
+        log.warning("coordinates span less than 5 units in %s and look like degrees; if they are "
+                    "longitude/latitude, give a geographic CRS such as EPSG:4326", where)

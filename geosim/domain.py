@@ -6,7 +6,7 @@ FlatGeobuf or GeoParquet file (through :mod:`geosim.vector`; the CRS is the
 file's), or a GeoPandas GeoDataFrame.  RFC 7946 says GeoJSON positions are WGS 84
 longitude, latitude; older files (the 2008 GeoJSON specification) may name
 another CRS in a top-level ``"crs"`` member, which is honoured.  The polygons are
-united, checked, repaired when invalid (with a :class:`geosim.errors.GeosimWarning`
+united, checked, repaired when invalid (with a note on the ``geosim`` logger
 saying what was wrong) and reprojected with pyproj into the CRS of the grid.
 
 A raster domain is any file rasterio opens: nonzero cells of its first band are
@@ -29,7 +29,7 @@ from __future__ import annotations
 
 import json
 import os
-import warnings
+import logging
 from pathlib import Path
 
 import numpy as np
@@ -38,7 +38,9 @@ from pyproj import CRS, Transformer
 from shapely.geometry import MultiPolygon, Polygon
 
 from .crs import CrsLike, parse_crs
-from .errors import GeosimWarning, InputError
+from .errors import InputError
+
+log = logging.getLogger(__name__)
 
 __all__ = ["read_domain", "read_domain_raster", "sample_raster", "below_surface"]
 
@@ -87,19 +89,19 @@ def read_domain(path, target_crs: CrsLike | None, *, source_crs: CrsLike | None 
         coordinates that are not longitude/latitude when they should be, or
         cannot be reprojected.  The message names the file and the feature.
 
-    Warns
+    Notes
     -----
-    GeosimWarning
-        When an invalid polygon (self-intersecting ring, ...) was repaired with
-        :func:`shapely.make_valid`, naming the problem shapely found, and when
-        ``target_crs`` is None but the coordinates look like longitude/latitude.
+    A note (a warning of the ``geosim`` logger) says when an invalid polygon
+    (self-intersecting ring, ...) was repaired with :func:`shapely.make_valid`,
+    naming the problem shapely found, and when ``target_crs`` is None but the
+    coordinates look like longitude/latitude.
     """
     from .vector import is_frame, is_vector_path
     if is_frame(path) or (is_vector_path(path) and Path(path).suffix.lower() != ".geojson"):
         geom, own, path = _layer_polygons(path, layer)
         if own is None and source_crs is None and target_crs is not None:
-            warnings.warn(f"{path}: the domain file declares no CRS; taken to be the data's "
-                          f"({_name(parse_crs(target_crs))})", GeosimWarning, stacklevel=2)
+            log.warning("%s: the domain file declares no CRS; taken to be the data's (%s)", path,
+                        _name(parse_crs(target_crs)))
         own = own if own is not None else target_crs
         doc = {} if own is None else {"crs": own}
         source_crs = source_crs if source_crs is not None else own
@@ -116,9 +118,9 @@ def read_domain(path, target_crs: CrsLike | None, *, source_crs: CrsLike | None 
                                  "without a 'crs' member")
         xy = shapely.get_coordinates(geom)
         if np.all(np.abs(xy) <= [180.0, 90.0]) and np.ptp(xy[:, 0]) < 5.0 and np.ptp(xy[:, 1]) < 5.0:
-            warnings.warn(f"{path}: the domain's coordinates look like longitude/latitude but the data have "
-                          "no CRS, so they are used as local metres; give the data's CRS if they are "
-                          "longitude/latitude", GeosimWarning, stacklevel=2)
+            log.warning("%s: the domain's coordinates look like longitude/latitude but the data have no CRS, "
+                        "so they are used as local metres; give the data's CRS if they are longitude/latitude",
+                        path)
         return _valid(geom, path, "as read")
     source = _source_crs(doc, path, source_crs)
     target = parse_crs(target_crs, field="target CRS")
@@ -200,9 +202,8 @@ def sample_raster(path: str | os.PathLike, grid) -> np.ndarray:
                                  f"{_name(raster_crs)}", file=path,
                                  fix="give a raster in (or near) the grid's CRS")
         elif (raster_crs is None) != (grid_crs is None):
-            warnings.warn(f"{path}: {'the raster' if raster_crs is None else 'the grid'} has no CRS; "
-                          "taking raster and grid to be in the same coordinates", GeosimWarning,
-                          stacklevel=3)
+            log.warning("%s: %s has no CRS; taking raster and grid to be in the same coordinates", path,
+                        "the raster" if raster_crs is None else "the grid")
         inv = ~src.transform
         col = np.floor(inv.a * x + inv.b * y + inv.c).astype(np.int64)
         row = np.floor(inv.d * x + inv.e * y + inv.f).astype(np.int64)
@@ -374,9 +375,8 @@ def _valid(geom, path: str, when: str) -> Polygon | MultiPolygon:
     if repaired.is_empty or repaired.area <= 0.0:
         raise InputError(f"the domain polygon is invalid ({reason}) and nothing with an area is left after "
                          "repair", file=path, fix="redraw the outline without self-intersections")
-    warnings.warn(f"{path}: the domain polygon was invalid {when} ({reason}) and was repaired with "
-                  f"shapely.make_valid to an area of {repaired.area:.6g} (CRS units squared); check the outline",
-                  GeosimWarning, stacklevel=3)
+    log.warning("%s: the domain polygon was invalid %s (%s) and was repaired with shapely.make_valid to an "
+                "area of %.6g (CRS units squared); check the outline", path, when, reason, repaired.area)
     return repaired
 
 

@@ -13,7 +13,12 @@ class GeosimError(Exception):
 
 
 class GeosimWarning(UserWarning):
-    """Something geosim changed or chose for the user (merged duplicates, a picked CRS)."""
+    """Base class of geosim's Python warnings: words for the people who write specs and scripts
+    (:class:`RetiredNameWarning`).
+
+    What geosim changed or chose for the user while working (merged duplicates, a picked
+    CRS) is a note on the ``geosim`` logger instead (:mod:`logging`, level WARNING).
+    """
 
 
 class RetiredNameWarning(GeosimWarning, FutureWarning):

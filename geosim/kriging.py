@@ -29,7 +29,7 @@ error names the samples.  ``regularization=eps`` retries such a system with
 from __future__ import annotations
 
 import math
-import warnings
+import logging
 from collections.abc import Callable, Sequence
 from concurrent.futures import ThreadPoolExecutor
 from contextlib import nullcontext
@@ -38,11 +38,13 @@ from dataclasses import dataclass, field, replace
 import numpy as np
 from numba import njit
 
-from .errors import GeosimWarning, InputError, NotPositiveDefiniteError
+from .errors import InputError, NotPositiveDefiniteError
 from .linalg import backward_t_inplace, chol_inplace, forward_inplace
 from .search import DataSearch, Neighbourhood, as_xyz, exclusion_arrays, select_neighbours
 from .transforms import multigaussian_moments
 from .variogram.compiled import cov_lag
+
+log = logging.getLogger(__name__)
 
 # a conditional variance (Cholesky pivot) below this fraction of the sill is
 # treated as singular: rounding noise, not information (common practice, no source)
@@ -181,8 +183,8 @@ def krige(data_coords, data_values, targets, model, *, method: str = "simple", m
         Labels for error messages (default: row numbers, with the hole).
     regularization : float, optional
         If a system cannot be factored, retry it with ``regularization * C(0)``
-        added to its diagonal; the count is in ``n_regularized`` and a
-        :class:`~geosim.errors.GeosimWarning` is issued.
+        added to its diagonal; the count is in ``n_regularized`` and a note
+        goes to the ``geosim`` logger.
     return_weights : bool
         Keep the weights and their sample indices (memory ``m * max_samples``).
     threads : int
@@ -231,9 +233,8 @@ def krige(data_coords, data_values, targets, model, *, method: str = "simple", m
         res = _krige_local(search, z, txyz, model, ordinary, float(mean), regularization, labels,
                            return_weights, progress, None, None, threads)
     if res.n_regularized:
-        warnings.warn(f"kriging: {res.n_regularized} local system(s) were singular and were "
-                      f"regularized with {regularization:g} x sill on the diagonal", GeosimWarning,
-                      stacklevel=2)
+        log.warning("kriging: %d local system(s) were singular and were regularized with %g x sill on the "
+                    "diagonal", res.n_regularized, regularization)
     return res
 
 
@@ -1024,9 +1025,8 @@ progress
                            progress, np.arange(n), search.holes if leave_out == "hole" else None,
                            _check_threads(threads))
         if res.n_regularized:
-            warnings.warn(f"cross-validation: {res.n_regularized} local system(s) were singular and "
-                          f"were regularized with {regularization:g} x sill on the diagonal",
-                          GeosimWarning, stacklevel=2)
+            log.warning("cross-validation: %d local system(s) were singular and were regularized with %g x "
+                        "sill on the diagonal", res.n_regularized, regularization)
         est, var, n_used = res.estimate, res.variance, res.n_used
     short = 0 if isinstance(neighbourhood, str) else res.n_short  # a global system holds every sample
     return CrossValidationResult(xyz[:, :d].copy(), z.copy(), est, var, n_used,

@@ -373,12 +373,9 @@ def preflight(spec: RunSpec, data: PreparedData, grid) -> list[str]:
 @with_folder_lock
 def _preflight_notes(spec: RunSpec, data: PreparedData, grid) -> None:
     """:func:`preflight` for a step run on its own (``geosim simulate``, ``geosim estimate``):
-    its refusals raise, its notes are warnings."""
-    import warnings
-
-    from .errors import GeosimWarning
+    its refusals raise, its notes go to the ``geosim`` logger as warnings."""
     for note in preflight(spec, data, grid):
-        warnings.warn(note, GeosimWarning, stacklevel=3)
+        log.warning("%s", note)
 
 
 def sample_ids(data: PreparedData) -> list[str]:
@@ -609,11 +606,8 @@ def cube_format(spec: RunSpec, grid) -> str | None:
     if fmt == "auto":
         import importlib.util
         if not all(importlib.util.find_spec(m) for m in ("xarray", "netCDF4", "dask")):
-            import warnings
-
-            from .errors import GeosimWarning
-            warnings.warn('3-D outputs are written as one GeoTIFF per level; pip install "geosim[cube]" for '
-                          "one NetCDF cube per output kind", GeosimWarning, stacklevel=2)
+            log.warning('3-D outputs are written as one GeoTIFF per level; pip install "geosim[cube]" for one '
+                        "NetCDF cube per output kind")
             return None
         return "netcdf"
     return fmt

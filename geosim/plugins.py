@@ -18,7 +18,7 @@ figures        ``geosim.figures``       a function ``figure(values, grid) -> flo
 =============  =======================  ==============================================
 
 Each group is loaded once per process, on first use.  A plugin that fails to
-import, or that fails its checks, is reported with one :class:`GeosimWarning`
+import, or that fails its checks, is reported with one note (a warning of the ``geosim`` logger)
 naming the package, the entry point and the reason, and is skipped: a broken
 plugin never takes geosim down.
 
@@ -34,13 +34,15 @@ structures are evaluated is described in :mod:`geosim.variogram.plugin_forms`.
 """
 from __future__ import annotations
 
-import warnings
+import logging
 from dataclasses import dataclass
 from importlib.metadata import entry_points
 
 from ._forward import forward
-from .errors import GeosimError, GeosimWarning
+from .errors import GeosimError
 from .errors import InvalidStructureError  # noqa: F401  (its old home; raised by geosim.variogram.checks)
+
+log = logging.getLogger(__name__)
 
 GROUPS = {
     "structures": "geosim.structures",
@@ -227,9 +229,8 @@ def _load(group: str) -> tuple[dict[str, object], list[PluginInfo]]:
                     usable[ep.name] = obj
                     origin[ep.name] = info
         if not info.usable:
-            warnings.warn(f"skipped the {_singular(group)} {info.name!r} from package {info.package} "
-                          f"(entry point {info.target}): {info.status}: {info.detail}",
-                          GeosimWarning, stacklevel=3)
+            log.warning("skipped the %s %r from package %s (entry point %s): %s: %s", _singular(group),
+                        info.name, info.package, info.target, info.status, info.detail)
         infos.append(info)
     _loaded[group] = (usable, infos)
     return _loaded[group]

@@ -10,7 +10,7 @@ merges coincident samples, recording what it did in ``PointSet.notes``.
 from __future__ import annotations
 
 import os
-import warnings
+import logging
 from collections.abc import Sequence
 from dataclasses import dataclass, field, replace
 
@@ -18,9 +18,11 @@ import numpy as np
 from pyproj import CRS
 
 from .crs import CrsLike, parse_crs, to_projected
-from .errors import GeosimWarning, InputError
+from .errors import InputError
 from .tables import read_table
 from .vector import GEOMETRY_COLUMNS
+
+log = logging.getLogger(__name__)
 
 
 @dataclass(frozen=True, repr=False)
@@ -172,10 +174,10 @@ def read_points(path, *, x: str | None = None, y: str | None = None, z: str | No
         error.
     target_crs : CRS-like, optional
         Projected CRS in metres to work in.  Geographic input without it goes to
-        the UTM zone of the data centroid (reported in ``notes`` and by a warning).
+        the UTM zone of the data centroid (reported in ``notes`` and on the ``geosim`` logger).
     duplicates : {"average", "error"}
         What to do with samples at the same position (within ``tolerance`` metres
-        after reprojection): average them (with a :class:`GeosimWarning` and a note)
+        after reprojection): average them (with a note, also logged)
         or raise :class:`InputError` naming the rows.  Coincident samples make the
         kriging covariance singular, so they are never kept as they are.
     tolerance : float
@@ -249,8 +251,8 @@ def merge_coincident(points: PointSet, *, tolerance: float = 1e-3, mode: str = "
     Groups are the connected components of the "closer than tolerance" relation.
     Values and floating-point attributes are averaged (NaN ignored); the first
     sample's hole id and other attributes (such as its file ``row``) are kept.  A
-    :class:`GeosimWarning` and a note report how many samples were merged.  With
-    ``mode="error"`` the first coincident pair raises :class:`InputError` naming
+    note (in ``notes`` and on the ``geosim`` logger) reports how many samples were
+    merged.  With ``mode="error"`` the first coincident pair raises :class:`InputError` naming
     both file rows (the ``row`` attribute; sample numbers when it is absent).
     """
     from scipy.sparse import coo_matrix
@@ -303,7 +305,7 @@ def merge_coincident(points: PointSet, *, tolerance: float = 1e-3, mode: str = "
         where = f"holes {', '.join(holes)}, " + where
     note = (f"merged {merged + int((counts > 1).sum())} coincident samples into "
             f"{int((counts > 1).sum())} (averaged; e.g. {where} {', '.join(map(str, example))})")
-    warnings.warn(note + (f" in {file}" if file else ""), GeosimWarning, stacklevel=3)
+    log.warning("%s%s", note, f" in {file}" if file else "")
     return replace(points, coords=average(points.coords), values=average(points.values),
                    hole_ids=None if points.hole_ids is None else points.hole_ids[keep],
                    attributes=attributes, notes=points.notes + (note,))

@@ -52,14 +52,22 @@ transform of values outside the data range inverts the same tail model, so
 """
 from __future__ import annotations
 
-import warnings
+import logging
 from collections.abc import Mapping, Sequence
 from typing import Any
 
 import numpy as np
 
-from .errors import GeosimWarning, InputError, RetiredNameWarning
+from .errors import InputError
 from .retired import accepts_retired
+
+log = logging.getLogger(__name__)
+
+
+def _no_note(record: logging.LogRecord) -> bool:
+    """A logging filter that drops every record."""
+    return False
+
 
 _TINY = 1e-12  # probabilities are kept in [_TINY, 1 - _TINY] so scores stay finite
 LOWER_TAILS = ("uniform", "power")
@@ -214,7 +222,7 @@ class NormalScoreTransform:
     lower_exponent, upper_exponent : float, optional
         The tails' exponents ``k`` (module docstring); default 1 for a uniform,
         1.5 for a power and 3 for a Pareto tail.  A Pareto tail needs ``k >= 1``
-        and warns (:class:`~geosim.errors.GeosimWarning`) for ``k <= 2``, where its
+        and logs a note (a warning of the ``geosim`` logger) for ``k <= 2``, where its
         variance is infinite.
     ties : {"random", "order"}
         How equal values are ordered before scores are assigned.
@@ -263,7 +271,7 @@ class NormalScoreTransform:
         if upper_tail == "pareto" and upper_exponent < 1.0:
             raise ValueError(f"the Pareto tail needs upper_exponent >= 1 (a finite mean), got {upper_exponent}")
         if upper_tail == "pareto" and upper_exponent <= 2.0:
-            warnings.warn(infinite_variance_note(upper_exponent, name), GeosimWarning, stacklevel=3)
+            log.warning("%s", infinite_variance_note(upper_exponent, name))
         if ties not in ("random", "order"):
             raise ValueError(f"ties must be 'random' or 'order', got {ties!r}")
         self.lower, self.upper = lower, upper
@@ -425,11 +433,12 @@ class NormalScoreTransform:
         follow the stored, sorted order, since the input order is not stored)."""
         # a dictionary written before the renames carries lower_omega/upper_omega
         exponents = {k: d[k] for k in ("lower_exponent", "upper_exponent", "lower_omega", "upper_omega") if k in d}
-        with warnings.catch_warnings():  # the tail was judged when the transform was first made
-            warnings.simplefilter("ignore", GeosimWarning)
-            warnings.simplefilter("default", RetiredNameWarning)
+        log.addFilter(_no_note)  # the tail was judged when the transform was first made
+        try:
             t = cls(lower=d["lower"], upper=d["upper"], lower_tail=d["lower_tail"], upper_tail=d["upper_tail"],
                     ties="order", seed=d.get("seed", 0), name=d.get("name"), **exponents)
+        finally:
+            log.removeFilter(_no_note)
         # the stored values are already in their broken-tie order, so "order" reproduces the table
         t.fit(d["values"], d["weights"])
         t.ties = d.get("ties", "random")

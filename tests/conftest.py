@@ -42,3 +42,32 @@ def pytest_collection_modifyitems(config, items):
              and not item.obj._hypothesis_internal_use_settings.derandomize]
     if loose:
         raise pytest.UsageError("property tests must be reproducible (derandomize=True): " + ", ".join(loose))
+
+
+@pytest.fixture
+def notes(caplog):
+    """``with notes(pattern): ...`` asserts that geosim logged a note (a WARNING record of the
+    ``geosim`` logger or a child) matching the regular expression ``pattern`` inside the block;
+    ``notes.logged()`` lists the notes' texts so far, ``notes.clear()`` forgets them."""
+    import contextlib
+    import logging
+    import re
+
+    class Notes:
+        def logged(self) -> list[str]:
+            return [r.getMessage() for r in caplog.records
+                    if r.levelno >= logging.WARNING and (r.name == "geosim" or r.name.startswith("geosim."))]
+
+        def clear(self) -> None:
+            caplog.clear()
+
+        @contextlib.contextmanager
+        def __call__(self, pattern: str = ""):
+            before = len(self.logged())
+            yield
+            new = self.logged()[before:]
+            assert any(re.search(pattern, text) for text in new), \
+                f"no geosim note matching {pattern!r} was logged; notes: {new}"
+
+    caplog.set_level(logging.INFO, logger="geosim")
+    return Notes()

@@ -11,7 +11,7 @@ from pyproj.database import query_utm_crs_info
 
 import geosim
 from geosim.crs import centroid_lonlat, parse_crs, to_projected, utm_crs
-from geosim.errors import GeosimWarning, InputError
+from geosim.errors import InputError
 
 
 def test_iogp_transverse_mercator_worked_example():
@@ -55,9 +55,9 @@ def test_parse_crs_rejects_text_pyproj_cannot_read(text):
     assert "EPSG" in err.value.fix
 
 
-def test_geographic_input_goes_to_utm_zone_of_centroid_with_warning():
+def test_geographic_input_goes_to_utm_zone_of_centroid_with_warning(notes):
     lonlat = np.array([[15.1, 48.2], [15.3, 48.0]])
-    with pytest.warns(GeosimWarning, match="UTM zone of the data centroid"):
+    with notes("UTM zone of the data centroid"):
         xy, crs, note = to_projected(lonlat, "EPSG:4326")
     assert crs.to_epsg() == 32633
     assert note == "reprojected EPSG:4326 -> EPSG:32633 (UTM zone of the data centroid)"
@@ -66,8 +66,8 @@ def test_geographic_input_goes_to_utm_zone_of_centroid_with_warning():
     np.testing.assert_allclose(xy, np.column_stack(ref), atol=1e-6)
 
 
-def test_southern_hemisphere_zone():
-    with pytest.warns(GeosimWarning):
+def test_southern_hemisphere_zone(notes):
+    with notes():
         _, crs, _ = to_projected(np.array([[-33.2, -38.7]]), 4326)
     assert crs.to_epsg() == 32725
 
@@ -138,13 +138,15 @@ def test_degrees_out_of_range_and_swapped_axes():
     assert err.value.file == "wells.csv"
 
 
-def test_projected_coordinates_that_look_like_degrees_warn():
+def test_projected_coordinates_that_look_like_degrees_warn(notes):
     # EPSG:3857 covers the world, so small numbers are possible metres there: only a hint
-    with pytest.warns(GeosimWarning, match="look like degrees"):
+    with notes("look like degrees"):
         to_projected(np.array([[15.12345, 48.21234], [15.2, 48.3]]), "EPSG:3857")
+    notes.clear()
     with warnings.catch_warnings():
         warnings.simplefilter("error")  # a small survey in metres with round coordinates is fine
         to_projected(np.array([[15.1, 48.2], [15.2, 48.3]]), "EPSG:3857")
+    assert not notes.logged()
 
 
 def test_degrees_declared_projected_are_refused_naming_the_row():
@@ -167,10 +169,12 @@ def test_projected_declared_geographic_names_the_row():
     assert err.value.row == 3 and "point" not in err.value.message
 
 
-def test_no_warning_when_target_given():
+def test_no_warning_when_target_given(notes):
+    notes.clear()
     with warnings.catch_warnings():
         warnings.simplefilter("error")
         _, crs, note = to_projected(np.array([[15.1, 48.2]]), 4326, "EPSG:32634")
+    assert not notes.logged()
     assert crs.to_epsg() == 32634 and "UTM zone of the data centroid" not in note
 
 
@@ -178,6 +182,6 @@ def test_public_names():
     assert geosim.parse_crs is parse_crs and geosim.to_projected is to_projected
 
 
-def test_local_grid_that_looks_like_degrees_warns():
-    with pytest.warns(GeosimWarning, match="local grid"):
+def test_local_grid_that_looks_like_degrees_warns(notes):
+    with notes("local grid"):
         to_projected(np.array([[15.1, 48.2], [15.2, 48.30001]]), None)

@@ -11,7 +11,7 @@ from hypothesis import given, settings, strategies as st
 
 import geosim
 from geosim.drillholes import Drillholes, composite, desurvey, direction, read_drillholes
-from geosim.errors import GeosimWarning, InputError
+from geosim.errors import InputError
 
 SAMPLES = Path(__file__).resolve().parents[1] / "sample_fields" / "ore_prospect"
 
@@ -174,10 +174,10 @@ def test_renamed_columns(tmp_path):
     assert err.value.field == "columns.collar.easting"
 
 
-def test_geographic_collars_are_reprojected(tmp_path):
+def test_geographic_collars_are_reprojected(tmp_path, notes):
     col = write(tmp_path, "c.csv", "hole_id,x,y,z,depth\nA,15.1,48.2,300,50\nB,15.101,48.2,301,50\n")
     itv = write(tmp_path, "i.csv", "hole_id,from,to,cu\nA,0,10,1\nB,0,10,2\n")
-    with pytest.warns(GeosimWarning, match="UTM"):
+    with notes("UTM"):
         h = read_drillholes(col, None, itv, values="cu", crs="EPSG:4326")
     assert h.crs.to_epsg() == 32633 and h.notes[0].startswith("reprojected EPSG:4326")
     spacing = np.linalg.norm(h.collars[1, :2] - h.collars[0, :2])
@@ -243,13 +243,15 @@ def test_composite_arguments(files):
 
 # -- the ore prospect sample field -------------------------------------------------------------------
 
-def test_reads_and_composites_the_ore_prospect():
+def test_reads_and_composites_the_ore_prospect(notes):
     if not (SAMPLES / "assays.csv").exists():
         pytest.skip("sample_fields not present")
+    notes.clear()
     with warnings.catch_warnings():
         warnings.simplefilter("error")  # the sample field needs no silent fixes
         h = read_drillholes(SAMPLES / "collars.csv", SAMPLES / "surveys.csv", SAMPLES / "assays.csv",
                             values="cu_pct", crs="EPSG:32750")
+    assert not notes.logged()
     assert len(h.ids) == 40 and len(h.hole) == 5041 and h.crs.to_epsg() == 32750
     c = composite(h, 2.0, residual="merge", min_sampled_fraction=0.0)
     assert c.ndim == 3 and set(c.hole_ids) <= set(h.ids.tolist())
@@ -268,11 +270,11 @@ def test_reads_and_composites_the_ore_prospect():
     assert geosim.composite is composite and geosim.read_drillholes is read_drillholes
 
 
-def test_twin_holes_give_merged_composites_with_warning(tmp_path):
+def test_twin_holes_give_merged_composites_with_warning(tmp_path, notes):
     col = write(tmp_path, "c.csv", "hole_id,x,y,z,depth\nT1,0,0,0,10\nT2,0,0,0,10\n")
     itv = write(tmp_path, "i.csv", "hole_id,from,to,cu\nT1,0,2,1.0\nT2,0,2,3.0\n")
     h = read_drillholes(col, None, itv, values="cu", crs=None)
-    with pytest.warns(GeosimWarning, match="merged 2 coincident samples into 1"):
+    with notes("merged 2 coincident samples into 1"):
         c = composite(h, 2.0)
     assert len(c) == 1 and c.column().tolist() == [2.0]
     assert "holes T1, T2" in c.notes[-1]

@@ -22,7 +22,7 @@ import geosim
 import geosim.io.geotiff
 import geosim.config.runspec
 import geosim.pipeline
-from geosim.errors import GeosimWarning, InputError, ResourceError
+from geosim.errors import InputError, ResourceError
 from geosim.grid import Grid
 from geosim.io.lock import LOCK_NAME, folder_lock, lock_holder
 from geosim.io.report import file_sha256
@@ -111,11 +111,11 @@ def test_unwritable_output_folder_is_bad_input_naming_it(read_only_folder, capsy
     assert "internal error" not in err
 
 
-def test_memory_estimate_refuses_or_reduces_workers():
+def test_memory_estimate_refuses_or_reduces_workers(notes):
     grid = Grid(0.0, 0.0, (1.0, 1.0), (1000, 1000))
     one = grid.size * REALIZATION_BYTES_PER_NODE
     assert fitting_workers(grid, None, 4, available=10 * one) == 4
-    with pytest.warns(GeosimWarning, match="using 2 worker"):
+    with notes("using 2 worker"):
         assert fitting_workers(grid, None, 4, available=2 * one + 1) == 2
     with pytest.raises(ResourceError, match="needs more memory"):
         fitting_workers(grid, None, 4, available=one - 1)
@@ -150,7 +150,7 @@ with folder_lock(sys.argv[1]):
 """
 
 
-def test_lock_refuses_a_second_holder_and_is_taken_over_after_a_kill(tmp_path):
+def test_lock_refuses_a_second_holder_and_is_taken_over_after_a_kill(tmp_path, notes):
     folder = tmp_path / "run"
     holder = subprocess.Popen([sys.executable, "-c", _HOLDER, str(folder)], stdout=subprocess.PIPE, text=True)
     try:
@@ -166,14 +166,16 @@ def test_lock_refuses_a_second_holder_and_is_taken_over_after_a_kill(tmp_path):
             holder.kill()
             holder.wait(timeout=30)
     # the kernel released the dead holder's lock; its record is stale and is reported
-    with pytest.warns(GeosimWarning, match=f"process {holder.pid}.*ended without releasing"):
+    with notes(f"process {holder.pid}.*ended without releasing"):
         with folder_lock(folder):
             assert lock_holder(folder)["pid"] == os.getpid()
     assert lock_holder(folder) is None
+    notes.clear()
     with warnings.catch_warnings():
         warnings.simplefilter("error")  # released cleanly: nothing to report
         with folder_lock(folder):
             pass
+    assert not notes.logged()
 
 
 def test_two_runs_into_one_folder_second_is_refused_first_completes(tmp_path):
@@ -254,7 +256,7 @@ def test_a_watched_process_ending_ends_the_watcher():
 
 
 @pytest.mark.skipif(not Path("/proc/self/stat").exists(), reason="finds worker processes through /proc (Linux)")
-def test_workers_exit_when_the_main_process_is_killed(tmp_path):
+def test_workers_exit_when_the_main_process_is_killed(tmp_path, notes):
     out = tmp_path / "run"
     main_proc = subprocess.Popen(GEOSIM + ["-q", "run", str(AQUIFER), "--out", str(out), "--set",
                                            "grid.cell=[50.0, 50.0]", "--set", "simulation.realizations=200",
@@ -287,7 +289,7 @@ def test_workers_exit_when_the_main_process_is_killed(tmp_path):
             if _running(pid):
                 os.kill(pid, signal.SIGKILL)
     # the killed run's lock did not outlive it: the folder resumes without --overwrite
-    with pytest.warns(GeosimWarning, match="ended without releasing"):
+    with notes("ended without releasing"):
         with folder_lock(out):
             pass
 
@@ -298,11 +300,9 @@ def test_source_date_epoch_gives_byte_identical_outputs(tmp_path, monkeypatch):
     monkeypatch.setenv("SOURCE_DATE_EPOCH", "1767225600")  # 2026-01-01T00:00:00Z
     spec = geosim.config.runspec.load_spec(AQUIFER, {"grid.cell": [200.0, 200.0], "simulation.realizations": 2,
                                                  "simulation.workers": 1})
-    with warnings.catch_warnings():
-        warnings.simplefilter("ignore", GeosimWarning)
-        for name in ("a", "b"):
-            geosim.pipeline.run(spec, tmp_path / name)
-            time.sleep(1.1)  # a clock read would now differ by a second
+    for name in ("a", "b"):
+        geosim.pipeline.run(spec, tmp_path / name)
+        time.sleep(1.1)  # a clock read would now differ by a second
     files = sorted(p.relative_to(tmp_path / "a") for p in (tmp_path / "a").rglob("*") if p.is_file())
     assert sum(p.suffix == ".tif" for p in files) >= 4 and any(p.suffix == ".png" for p in files)
     assert sorted(p.relative_to(tmp_path / "b") for p in (tmp_path / "b").rglob("*") if p.is_file()) == files
@@ -341,17 +341,15 @@ def test_overwrite_removes_every_file_of_the_old_run_and_nothing_else(tmp_path):
     out = tmp_path / "run"
     quick = {"grid.cell": [200.0, 200.0], "simulation.realizations": 2, "simulation.workers": 1}
     first = geosim.config.runspec.load_spec(AQUIFER, {**quick, "outputs.plots": True, "outputs.estimate": True})
-    with warnings.catch_warnings():
-        warnings.simplefilter("ignore", GeosimWarning)
-        geosim.pipeline.run(first, out)
-        old = _files(out)
-        assert any(name.endswith(".png") for name in old) and "estimate.tif" in old
-        (out / "my notes.txt").write_text("kept: not written by geosim")
-        second = geosim.config.runspec.load_spec(AQUIFER, {**quick, "outputs.plots": False, "outputs.estimate": False,
-                                                       "simulation.seed": 5})
-        with pytest.raises(InputError, match="different spec"):
-            geosim.pipeline.run(second, out)
-        result = geosim.pipeline.run(second, out, overwrite=True)
+    geosim.pipeline.run(first, out)
+    old = _files(out)
+    assert any(name.endswith(".png") for name in old) and "estimate.tif" in old
+    (out / "my notes.txt").write_text("kept: not written by geosim")
+    second = geosim.config.runspec.load_spec(AQUIFER, {**quick, "outputs.plots": False, "outputs.estimate": False,
+                                                   "simulation.seed": 5})
+    with pytest.raises(InputError, match="different spec"):
+        geosim.pipeline.run(second, out)
+    result = geosim.pipeline.run(second, out, overwrite=True)
     new = _files(out)
     written = {Path(p).resolve().relative_to(out.resolve()).as_posix() for g in result.files.values() for p in g}
     assert not any(name.endswith(".png") for name in new) and "estimate.tif" not in new
@@ -367,12 +365,10 @@ def test_overwrite_with_fewer_levels_leaves_no_level_files(tmp_path):
     ore = SAMPLES / "ore_prospect" / "run.toml"
     small = {"grid.cell": [60.0, 60.0, 40.0], "simulation.realizations": 2, "simulation.workers": 1,
              "outputs.plots": False, "outputs.cross_validation": False, "outputs.estimate": False}
-    with warnings.catch_warnings():
-        warnings.simplefilter("ignore", GeosimWarning)
-        geosim.pipeline.run(geosim.config.runspec.load_spec(ore, {**small, "grid.z_range": [100.0, 340.0]}), out)
-        six = _files(out)
-        geosim.pipeline.run(geosim.config.runspec.load_spec(ore, {**small, "grid.z_range": [180.0, 340.0]}), out,
-                            overwrite=True)
+    geosim.pipeline.run(geosim.config.runspec.load_spec(ore, {**small, "grid.z_range": [100.0, 340.0]}), out)
+    six = _files(out)
+    geosim.pipeline.run(geosim.config.runspec.load_spec(ore, {**small, "grid.z_range": [180.0, 340.0]}), out,
+                        overwrite=True)
     four = _files(out)
     assert any("_z005" in n for n in six)
     assert not any("_z004" in n or "_z005" in n for n in four)

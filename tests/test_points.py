@@ -10,7 +10,7 @@ import pytest
 from pyproj import Transformer
 
 import geosim
-from geosim.errors import GeosimWarning, InputError
+from geosim.errors import InputError
 from geosim.points import PointSet, merge_coincident, read_points
 from geosim.tables import read_table
 
@@ -97,9 +97,9 @@ def test_table_structure_errors(tmp_path):
     assert err.value.row == 3
 
 
-def test_geographic_wells_are_reprojected(tmp_path):
+def test_geographic_wells_are_reprojected(tmp_path, notes):
     f = write(tmp_path / "wells.csv", "well,lon,lat,k\nW1,15.10,48.20,1e-5\nW2,15.12,48.21,3e-5\n")
-    with pytest.warns(GeosimWarning, match="UTM zone"):
+    with notes("UTM zone"):
         p = read_points(f, x="lon", y="lat", values="k", hole="well", crs="EPSG:4326")
     assert p.crs.to_epsg() == 32633
     assert p.notes == ("reprojected EPSG:4326 -> EPSG:32633 (UTM zone of the data centroid)",)
@@ -113,9 +113,9 @@ def test_bad_crs_text_is_an_input_error(table):
         read_points(table, x="east", y="north", values="au_gpt", crs="EPSG:12345678")
 
 
-def test_coincident_samples_are_averaged_with_warning_and_note(tmp_path):
+def test_coincident_samples_are_averaged_with_warning_and_note(tmp_path, notes):
     f = write(tmp_path / "dup.csv", "h,x,y,v\nA,0,0,1\nB,10,0,2\nC,0,0.0004,4\nD,20,0,5\nE,10,0,6\n")
-    with pytest.warns(GeosimWarning, match="merged 4 coincident samples into 2"):
+    with notes("merged 4 coincident samples into 2"):
         p = read_points(f, x="x", y="y", values="v", hole="h", crs=None)
     assert len(p) == 3
     # groups keep the order of their first row; the first row's hole id stays
@@ -132,11 +132,13 @@ def test_coincident_samples_error_mode_names_rows(tmp_path):
     assert err.value.row == 4
 
 
-def test_merge_keeps_distinct_points():
+def test_merge_keeps_distinct_points(notes):
     p = PointSet(np.array([[0.0, 0.0], [0.01, 0.0]]), np.array([1.0, 2.0]), ("v",))
+    notes.clear()
     with warnings.catch_warnings():
         warnings.simplefilter("error")
         assert merge_coincident(p, tolerance=1e-3) is p
+    assert not notes.logged()
 
 
 def test_pointset_contract():
@@ -159,13 +161,13 @@ def test_pointset_contract():
         PointSet(np.zeros((2, 2)), np.zeros((2, 1)), ("v",), attributes={"w": [1.0]})
 
 
-def test_reads_the_aquifer_sample_field():
+def test_reads_the_aquifer_sample_field(notes):
     wells = SAMPLES / "alluvial_aquifer" / "wells.csv"
     if not wells.exists():
         pytest.skip("sample_fields not present")
     with open(wells, newline="") as fh:
         rows = list(csv.DictReader(fh))
-    with pytest.warns(GeosimWarning):
+    with notes():
         p = read_points(wells, x="lon", y="lat", values="k_ms", hole="well_id", crs="EPSG:4326")
     assert len(p) == len(rows)
     assert p.crs.is_projected and "UTM zone" in p.notes[0]
@@ -178,10 +180,10 @@ def test_reads_the_aquifer_sample_field():
     assert geosim.read_points is read_points
 
 
-def test_rows_travel_with_samples_and_check_positive_names_them(tmp_path):
+def test_rows_travel_with_samples_and_check_positive_names_them(tmp_path, notes):
     from geosim.points import check_positive
     f = write(tmp_path / "k.csv", "x,y,k\n0,0,1e-5\n10,0,2e-5\n0,0,3e-5\n20,0,0\n")
-    with pytest.warns(GeosimWarning):
+    with notes():
         p = read_points(f, x="x", y="y", values="k", crs=None)
     assert p.attributes["row"].tolist() == [2, 3, 5]  # merged rows keep the first row number
     with pytest.raises(InputError, match="not positive") as err:

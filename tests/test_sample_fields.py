@@ -5,7 +5,6 @@ import csv
 import importlib.util
 import json
 import math
-import warnings
 from pathlib import Path
 
 import numpy as np
@@ -42,10 +41,8 @@ def ore_holes():
 
 @pytest.fixture(scope="module")
 def wells():
-    with warnings.catch_warnings():
-        warnings.simplefilter("ignore", geosim.GeosimWarning)  # the UTM zone chosen for us
-        return geosim.read_points(AQUIFER / "wells.csv", x="lon", y="lat", values="k_ms", hole="well_id",
-                                  crs="EPSG:4326")
+    return geosim.read_points(AQUIFER / "wells.csv", x="lon", y="lat", values="k_ms", hole="well_id",
+                              crs="EPSG:4326")
 
 
 # ---------------------------------------------------------------------------

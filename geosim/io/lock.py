@@ -16,11 +16,13 @@ import json
 import os
 import socket
 import threading
-import warnings
+import logging
 from collections.abc import Iterator
 from pathlib import Path
 
-from ..errors import GeosimWarning, InputError
+from ..errors import InputError
+
+log = logging.getLogger(__name__)
 
 __all__ = ["LOCK_NAME", "folder_lock", "lock_holder"]
 
@@ -96,8 +98,8 @@ def _acquire(folder: Path) -> int:
         os.close(fd)  # the holder removed the file as it released it: lock the new one
     previous = lock_holder(folder)
     if previous:
-        warnings.warn(f"took over the output folder {folder} from {_describe(previous)}, which ended "
-                      "without releasing it (killed or crashed)", GeosimWarning, stacklevel=4)
+        log.warning("took over the output folder %s from %s, which ended without releasing it (killed or "
+                    "crashed)", folder, _describe(previous))
     me = json.dumps({"pid": os.getpid(), "host": socket.gethostname(), "started_utc": utc_now()})
     os.ftruncate(fd, 0)
     os.pwrite(fd, me.encode(), 0)
@@ -129,10 +131,10 @@ def folder_lock(folder: str | os.PathLike) -> Iterator[Path]:
         When another process holds the lock (naming it), or the folder cannot be
         created or written.
 
-    Warns
+    Notes
     -----
-    GeosimWarning
-        When the lock file names a holder that ended without releasing it.
+    A note (a warning of the ``geosim`` logger) says when the lock file names a
+    holder that ended without releasing it.
 
     Examples
     --------

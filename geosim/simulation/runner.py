@@ -16,6 +16,7 @@ workers exit at once instead of finishing and writing their realizations
 """
 from __future__ import annotations
 
+import logging
 import os
 import select
 import threading
@@ -25,6 +26,8 @@ from collections.abc import Callable, Iterable
 import numpy as np
 
 from .. import plugins
+
+log = logging.getLogger(__name__)
 
 # per-process state of pool workers, set once by the initializer
 _WORKER: dict = {}
@@ -274,12 +277,11 @@ def fitting_workers(grid, prepared, n_workers: int, available: int | None = None
     ResourceError
         When not even one realization fits, with the estimate and the fix.
 
-    Warns
+    Notes
     -----
-    GeosimWarning
-        When fewer workers than asked are used.
+    A note (a warning of the ``geosim`` logger) says when fewer workers than asked are used.
     """
-    from ..errors import GeosimWarning, ResourceError
+    from ..errors import ResourceError
     from ..resources import available_memory
     available = available_memory() if available is None else available
     if available is None:
@@ -293,10 +295,8 @@ def fitting_workers(grid, prepared, n_workers: int, available: int | None = None
                             "machine has available", needed=int(plan + per_worker), available=int(available),
                             fix="use larger cells or a smaller grid.bounds, or run on a machine with more memory")
     if fit < n_workers:
-        import warnings
-        warnings.warn(f"{n_workers} workers would need about {(plan + n_workers * per_worker) / 1e9:.1f} GB of "
-                      f"memory, {available / 1e9:.1f} GB are available: using {fit} worker(s)", GeosimWarning,
-                      stacklevel=3)
+        log.warning("%d workers would need about %.1f GB of memory, %.1f GB are available: using %d worker(s)",
+                    n_workers, (plan + n_workers * per_worker) / 1e9, available / 1e9, fit)
         return int(fit)
     return n_workers
 

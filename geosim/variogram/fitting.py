@@ -32,16 +32,18 @@ isotropic model that average is exact.
 from __future__ import annotations
 
 import math
-import warnings
+import logging
 from collections.abc import Mapping, Sequence
 from dataclasses import dataclass, field
 
 import numpy as np
 
-from ..errors import GeosimWarning, InputError
+from ..errors import InputError
 from .anisotropy import Anisotropy, axes
 from .experimental import ExperimentalVariogram
 from .model import Model
+
+log = logging.getLogger(__name__)
 
 WEIGHTINGS = ("cressie", "pairs", "equal")
 _COVERED = math.cos(math.radians(30.0))
@@ -75,7 +77,7 @@ class FitResult:
     message_ : str
         The optimizer's message.
     warnings_ : list of str
-        Signs of a degenerate fit (also issued as :class:`geosim.GeosimWarning`).
+        Signs of a degenerate fit (also logged as notes on the ``geosim`` logger).
     weighting : str
         The weighting used.
     ndim_ : int
@@ -311,7 +313,7 @@ def fit_model(experimental: ExperimentalVariogram | Sequence[ExperimentalVariogr
     raw = np.concatenate(raw_all) if raw_all else np.array([np.nan])
     notes = _diagnose(model, values, free, lo, hi, extent, variance, success, message, evs)
     for w in notes:
-        warnings.warn(w, GeosimWarning, stacklevel=2)
+        log.warning("%s", w)
     return FitResult(model, values, tuple(free), float(wres @ wres), float(np.sqrt(np.mean(raw**2))),
                      raw_by, nbins, success, message, notes, weighting, dim)
 

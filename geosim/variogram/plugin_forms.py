@@ -18,11 +18,11 @@ per process (:func:`note_numpy_only`).
 from __future__ import annotations
 
 import contextlib
-import warnings
+import logging
 
 import numpy as np
 
-from ..errors import GeosimWarning
+log = logging.getLogger(__name__)
 
 _numpy_only_noted: set[str] = set()
 _correlation_kernel = None  # (correlation loop, covariance loop)
@@ -128,14 +128,12 @@ def note_numpy_only(cls: type, where: str = "") -> None:
         return
     _numpy_only_noted.add(kind)
     source = f" ({where})" if where else ""
-    warnings.warn(
-        f"covariance structure {kind!r}{source} supplies only a numpy form: inside the compiled "
-        f"kriging and simulation kernels it is read from a table like every non-built-in structure, "
-        f"but wherever geosim evaluates it directly (covariance matrices of the exact engine and of "
-        f"global kriging, fitting) it runs through numpy, which is slower. Its author can add "
-        f"numba_correlation(r, param) for compiled speed; see DEVELOPERS.md, 'Adding a covariance "
-        f"structure'.",
-        GeosimWarning, stacklevel=3)
+    log.warning(
+        "covariance structure %r%s supplies only a numpy form: inside the compiled kriging and simulation "
+        "kernels it is read from a table like every non-built-in structure, but wherever geosim evaluates it "
+        "directly (covariance matrices of the exact engine and of global kriging, fitting) it runs through "
+        "numpy, which is slower. Its author can add numba_correlation(r, param) for compiled speed; see "
+        "DEVELOPERS.md, 'Adding a covariance structure'.", kind, source)
 
 
 @contextlib.contextmanager
