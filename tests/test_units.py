@@ -7,7 +7,7 @@ import pytest
 import rasterio
 from rasterio.transform import from_origin
 
-from geosim.errors import GeosimWarning, InputError
+from geosim.errors import InputError
 from geosim.grid import Grid
 from geosim.points import read_points
 from geosim.units import NODATA, NODE_SOURCES, SAMPLE_SOURCES, Unit, UnitTable, node_units, sample_units, unit_counts
@@ -67,11 +67,11 @@ def test_sample_codes_from_a_column_follow_the_file_rows(tmp_path):
     assert unit_counts(codes, TABLE) == {1: 3, 2: 2, 9: 1}
 
 
-def test_sample_codes_of_merged_samples_come_from_the_first_row(tmp_path):
+def test_sample_codes_of_merged_samples_come_from_the_first_row(tmp_path, notes):
     # rows 2 and 3 (file lines) sit on the same spot: merged into one sample keeping row 2
     path = tmp_path / "points.csv"
     path.write_text("x,y,grade,unit\n0,0,1,oxide\n0,0,3,oxide\n50,0,2,fresh\n")
-    with pytest.warns(GeosimWarning, match="merged 2 coincident samples"):
+    with notes("merged 2 coincident samples"):
         samples = read_points(path, x="x", y="y", values="grade")
     assert sample_units(samples, {"column": "unit"}, TABLE).tolist() == [1, 2]
 
