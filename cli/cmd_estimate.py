@@ -21,13 +21,14 @@ def estimate(ctx, spec, out_dir, overrides, overwrite):
     import numpy as np
 
     import geosim.pipeline
+    import geosim.results
 
     run_spec = load(ctx, spec, overrides)
     est = geosim.pipeline.estimate(run_spec, out_dir=out_dir, overwrite=overwrite, progress=reporter(ctx))
     units = run_spec["data.units"]
     done = np.isfinite(est.mean)
     table([("nodes estimated", f"{int(done.sum())}"),
-           ("search", geosim.pipeline.short_note(est.n_short, int(done.sum()) + est.n_unestimated, "grid nodes",
+           ("search", geosim.results.short_note(est.n_short, int(done.sum()) + est.n_unestimated, "grid nodes",
                                                  run_spec, est.n_unestimated)),
            ("mean of the map", f"{float(np.nanmean(est.mean)):.4g} {units}".strip()),
            ("files", files_text(est.files, out_dir))], title="kriging estimate")

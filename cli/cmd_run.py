@@ -30,6 +30,7 @@ def run(ctx, spec, out_dir, overrides, workers, cluster, overwrite, no_resume, c
     written (verified by checksum) and computes only the rest. A folder holding a
     run of a different spec is refused unless --overwrite is given.
     """
+    import geosim.outputs
     import geosim.pipeline
 
     run_spec = load(ctx, spec, overrides, workers=workers, cluster=cluster)
@@ -54,7 +55,7 @@ def run(ctx, spec, out_dir, overrides, workers, cluster, overwrite, no_resume, c
     rows.append(("realizations", realizations))
     if result.decision:
         rows.append(("decision figures", decision_text(result.decision, units=run_spec["data.units"],
-                                                       metal_unit=geosim.pipeline.metal_unit(run_spec))))
+                                                       metal_unit=geosim.outputs.metal_unit(run_spec))))
     rows += [("note", note) for note in result.notes]
     rows += [("files", files_text(result.files, result.out_dir)),
              ("time", seconds(time.perf_counter() - start) + " (" + ", ".join(

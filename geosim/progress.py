@@ -24,9 +24,16 @@ from collections.abc import Callable
 
 from .errors import InputError
 
-__all__ = ["Progress", "tqdm_progress", "logging_progress"]
+__all__ = ["Progress", "tqdm_progress", "logging_progress", "relabel"]
 
 Progress = Callable[[int, int, str], None]
+
+
+def relabel(progress: Progress | None, label: str) -> Progress | None:
+    """A progress callback that reports under ``label`` whatever a step calls its work."""
+    if progress is None:
+        return None
+    return lambda done, total, what: progress(done, total, label)
 
 
 class _Bars:

@@ -1,8 +1,9 @@
-"""What the steps of :mod:`geosim.pipeline` return, and short descriptions of a spec and its data.
+"""What the steps of :mod:`geosim.pipeline` return, and short descriptions of a spec, its data and a run.
 
 Plain containers: each step's result holds what it computed and the files it
 wrote (``files``: output kind -> paths).  :func:`describe_spec` and
-:func:`describe_data` give the (label, text) rows the command line prints.
+:func:`describe_data` give the (label, text) rows the command line prints;
+:func:`short_note` and :func:`extremes_note` the one-line notes of a run.
 """
 from __future__ import annotations
 
@@ -17,7 +18,7 @@ from .config.runspec import RunSpec
 from .errors import InputError
 
 __all__ = ["PreparedData", "VariogramResult", "CrossValidation", "EstimateResult", "SimulationResult",
-           "RunResult", "describe_spec", "describe_data"]
+           "RunResult", "describe_spec", "describe_data", "short_note", "extremes_note"]
 
 
 @dataclass
@@ -130,6 +131,12 @@ class SimulationResult:
     computed: list[int]
     writer: Any
 
+    def decision_spread(self) -> list[dict]:
+        """P10/P50/P90 of each decision figure across the realizations (empty without cut-offs)."""
+        from .summaries import decision_spread as spread
+        figures = [r.get("figures") for r in self.records]
+        return spread(figures) if figures and all(f is not None for f in figures) else []
+
 
 @dataclass
 class RunResult:
@@ -202,3 +209,29 @@ def describe_data(data: PreparedData) -> list[tuple[str, str]]:
     rows.append(("transform", data.transform.describe()))
     rows += [("note", n) for n in data.notes]
     return rows
+
+
+def short_note(short: int, total: int, what: str, spec: RunSpec, unestimated: int = 0) -> str:
+    """One line saying how many kriging searches held fewer than ``search.min_samples`` samples
+    and what was done about it."""
+    k = spec["search.min_samples"]
+    if spec["search.widen"]:
+        done = f"their search was widened to the nearest {k}"
+    elif spec["simulation.kriging"] == "simple":
+        done = "simple kriging estimated them from the samples found and the mean"
+    else:
+        done = "ordinary kriging left them without an estimate"
+    text = f"kriging: {short} of {total} {what} had fewer than {k} sample(s) in the search"
+    text += f"; {done}" if short else ""
+    return text + (f"; {unestimated} without an estimate" if unestimated else "")
+
+
+def extremes_note(extremes: Mapping[str, Any], units: str | None = None) -> str:
+    """One line comparing the largest simulated value with the largest datum."""
+    u = f" {units}" if units else ""
+    ratio = extremes["largest_over_largest_datum"]
+    return (f"largest simulated value {extremes['largest_simulated']:.4g}{u} (realization "
+            f"{extremes['realization_of_largest']}) against the largest datum {extremes['largest_datum']:.4g}{u}"
+            + (f" ({ratio:.2f} times)" if ratio is not None else "")
+            + f"; {extremes['realizations_above_largest_datum']} realization(s) exceed the largest datum")
+

@@ -9,6 +9,7 @@ import numpy as np
 import pytest
 
 import geosim
+import geosim.outputs
 import geosim.pipeline
 from geosim.io.csvw import read_csv_metadata
 from geosim.config.runspec import load_spec
@@ -60,7 +61,7 @@ def test_gdal_reads_the_cube_where_and_as_the_geotiffs(ore_run, kind, tif, varia
     spec, result, out = ore_run
     name = f"{kind}.nc"
     if variable is None:
-        variable = geosim.pipeline._variable_name(spec["data.value"])
+        variable = geosim.outputs.variable_name(spec["data.value"])
     levels = sorted(out.glob(f"{tif}_z*.tif"))
     assert len(levels) == 13
     with rasterio.open(f"netcdf:{out / name}:{variable}") as cube:
@@ -105,7 +106,7 @@ def test_block_model_table_equals_the_cube(ore_run):
         np.testing.assert_array_equal(table[f"prob_above_{c:g}"].to_numpy(dtype=np.float32),
                                       ds["prob_above"].values[c_index, k, i, j])
     reals = result.to_xarray("realizations")
-    var = geosim.pipeline._variable_name(spec["data.value"])
+    var = geosim.outputs.variable_name(spec["data.value"])
     for r in range(3):
         np.testing.assert_array_equal(table[f"r{r:04d}"].to_numpy(dtype=np.float32), reals[var].values[r, k, i, j])
     parquet = pd.read_parquet(out / "block_model.parquet")
@@ -159,7 +160,7 @@ def test_zarr_cube_from_a_dask_cluster_equals_the_serial_netcdf(ore_run, tmp_pat
                                            "outputs.level_geotiffs": False, "outputs.block_model": []})
         zarr_run = geosim.pipeline.run(remote, tmp_path / "dask")
     assert Path(zarr_run.files["realizations_cube"][0]).name == "realizations.zarr"
-    var = geosim.pipeline._variable_name(spec["data.value"])
+    var = geosim.outputs.variable_name(spec["data.value"])
     for kind, name in (("realizations", var), ("summary", "mean"), ("summary", "prob_above")):
         got, want = zarr_run.to_xarray(kind), result.to_xarray(kind)
         np.testing.assert_array_equal(got[name].values, want[name].values)

@@ -56,6 +56,7 @@ def test_demo_estimate_map_has_no_empty_active_cell(demo):
 def test_fixed_search_with_simple_kriging_still_fills_every_node(demo):
     import geosim.config.runspec
     import geosim.pipeline
+    import geosim.results
     spec, data, grid, model = demo
     fixed = geosim.config.runspec.load_spec(AQUIFER, overrides={"search.widen": False})
     est = geosim.pipeline.estimate(fixed, data, model, grid)
@@ -67,7 +68,7 @@ def test_fixed_search_with_simple_kriging_still_fills_every_node(demo):
                                                                "simulation.kriging": "ordinary"})
     est_ok = geosim.pipeline.estimate(ordinary, data, model, grid)
     assert est_ok.n_unestimated == est_ok.n_short > 0
-    note = geosim.pipeline.short_note(est_ok.n_short, grid.n_active, "grid nodes", ordinary, est_ok.n_unestimated)
+    note = geosim.results.short_note(est_ok.n_short, grid.n_active, "grid nodes", ordinary, est_ok.n_unestimated)
     assert f"{est_ok.n_short} of {grid.n_active} grid nodes had fewer than 1 sample" in note
     assert "left them without an estimate" in note
 

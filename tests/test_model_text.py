@@ -23,13 +23,14 @@ def test_2d_text_has_two_ranges_and_no_vertical_angles():
 @pytest.mark.parametrize("folder,ranges", [("alluvial_aquifer", 2), ("ore_prospect", 3)])
 def test_run_outputs_print_the_model_for_the_grid_dimension(folder, ranges):
     import geosim.config.runspec
+    import geosim.outputs
     import geosim.pipeline
     spec = geosim.config.runspec.load_spec(SAMPLES / folder / "run.toml")
     data = geosim.pipeline.prepare_data(spec)
     with warnings.catch_warnings():
         warnings.simplefilter("ignore")
         vg = geosim.pipeline.variogram_model(spec, data)
-    tag = geosim.pipeline.provenance_tags(spec, data, vg.model)["variogram_model"]
+    tag = geosim.outputs.provenance_tags(spec, data, vg.model)["variogram_model"]
     line = [s for s in tag.splitlines() if "ranges=" in s][0]
     assert line.split("ranges=(")[1].split(")")[0].count(",") == ranges - 1
     assert ("dip=" in line) == (ranges == 3)

@@ -8,6 +8,7 @@ import numpy as np
 import pytest
 
 import geosim
+import geosim.outputs
 import geosim.pipeline as pipeline
 from geosim.errors import InputError, ResourceError
 from geosim.io.geotiff import read_realization
@@ -232,6 +233,6 @@ def test_below_collars_is_refused_for_point_data():
 
 
 def test_metal_of_percent_grades_is_in_tonnes():
-    assert pipeline.metal_factor(load_spec(ORE)) == 0.01          # data.units = "% Cu"
-    assert pipeline.metal_factor(load_spec(ORE, ['data.units="g/t"'])) == 1.0
-    assert pipeline.metal_factor(load_spec(ORE, ["outputs.metal_factor=0.5"])) == 0.5
+    assert geosim.outputs.metal_factor(load_spec(ORE)) == 0.01          # data.units = "% Cu"
+    assert geosim.outputs.metal_factor(load_spec(ORE, ['data.units="g/t"'])) == 1.0
+    assert geosim.outputs.metal_factor(load_spec(ORE, ["outputs.metal_factor=0.5"])) == 0.5
