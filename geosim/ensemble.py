@@ -260,7 +260,7 @@ class RealizationWriter:
                                     **meta)
             out["decision"] = [str(p1), str(p2)]
         if plots:
-            out["plots"] = [str(p) for p in self._plots(records, cutoffs, out["summary"])]
+            out["plots"] = [str(p) for p in self.plots(records, out["summary"], cutoffs)]
         for d in self.derived:
             out.update(d.finish([r["derived"][d.name] for r in records], indices=indices, cutoffs=cutoffs,
                                 stack=stack, plots=plots, progress=progress))
@@ -282,29 +282,53 @@ class RealizationWriter:
             return None
         return self.measure.summarize(checks)
 
-    def _plots(self, records, cutoffs, summaries) -> list[Path]:
+    def plots(self, records: Sequence[Mapping], summaries: Sequence[str | os.PathLike],
+              cutoffs: Sequence[float] = (), *, levels: Sequence[int] | None = None,
+              log: bool = False) -> list[Path]:
+        """Draw the ensemble's PNGs into the folder (:mod:`geosim.io.plots`).
+
+        Parameters
+        ----------
+        records : sequence of dict
+            The realization records, in index order.
+        summaries : sequence of path
+            The summary raster of each level, as ``finish`` returns them.
+        cutoffs : sequence of float
+            The summaries' exceedance cut-offs.
+        levels : sequence of int, optional
+            Levels whose summary is mapped (prefixed ``z000_``... for 3-D grids); all by default.
+        log : bool
+            Map values on a logarithmic colour scale.
+
+        Returns
+        -------
+        list of Path
+            Summary maps; ``histogram_reproduction.png`` and ``variogram_reproduction.png``
+            when ``measure`` is a :class:`geosim.validation.RunChecks`; ``decision_spread.png``
+            with decision figures.
+        """
         out = []
         names = summary_band_names(cutoffs)
-        for k, path in enumerate(summaries):
+        for k in range(len(summaries)) if levels is None else levels:
             g2 = level_grid(self.grid, k)
-            with open_checked(path, g2) as src:
+            with open_checked(summaries[k], g2) as src:
                 summary = {name: src.read(b + 1).astype(np.float64) for b, name in enumerate(names)}
             prefix = "" if self.grid.ndim == 2 else f"z{k:03d}_"
-            out += io_plots.plot_summary_maps(summary, g2, self.folder, units=self.units, prefix=prefix,
-                                           overwrite=self.overwrite)
-        figures = [r["figures"] for r in records]
-        if figures and all(f is not None for f in figures):
-            out.append(io_plots.plot_decision_spread(figures, self.folder / "decision_spread.png", units=self.units,
-                                                  overwrite=self.overwrite))
+            out += io_plots.plot_summary_maps(summary, g2, self.folder, units=self.units, prefix=prefix, log=log,
+                                              overwrite=self.overwrite)
         section = self.validation(records)
         if section is not None:
-            out.append(io_plots.plot_variogram_reproduction(section["variogram"],
-                                                         self.folder / "variogram_reproduction.png",
-                                                         model=self.measure.model, ndim=self.grid.ndim,
-                                                         overwrite=self.overwrite))
             samples = [r["checks"].get("quantiles") for r in records]
             if self.measure.data_values is not None and all(q is not None for q in samples):
                 out.append(io_plots.plot_histogram_reproduction(
                     self.measure.data_values, samples, self.folder / "histogram_reproduction.png",
                     weights=self.measure.weights, units=self.units, overwrite=self.overwrite))
+            out.append(io_plots.plot_variogram_reproduction(section["variogram"],
+                                                            self.folder / "variogram_reproduction.png",
+                                                            model=self.measure.model, ndim=self.grid.ndim,
+                                                            overwrite=self.overwrite))
+        figures = [r["figures"] for r in records]
+        if figures and all(f is not None for f in figures):
+            out.append(io_plots.plot_decision_spread(figures, self.folder / "decision_spread.png", units=self.units,
+                                                     overwrite=self.overwrite))
         return out

@@ -39,6 +39,7 @@ from .config.runspec import RunSpec
 from .errors import InputError
 from .progress import Progress, relabel
 from .results import CrossValidation, EstimateResult, PreparedData, SimulationResult, VariogramResult
+from .runstate import input_checksums
 
 log = logging.getLogger(__name__)
 
@@ -49,19 +50,20 @@ __all__ = ["provenance_tags", "write_variogram", "write_crossval", "write_estima
 
 # -- provenance ------------------------------------------------------------------------------------
 
-def _inputs(spec: RunSpec) -> dict[str, str]:
-    """{input file path: SHA-256} for provenance."""
-    from .io.report import file_sha256
-    return {str(path): file_sha256(path) for path in spec.input_files().values()}
+def _provenance(spec: RunSpec, data: PreparedData, model, extra: Mapping[str, str] | None = None) -> dict[str, str]:
+    """:func:`geosim.io.report.provenance` of the run, its input checksums (those of the run
+    state, :func:`geosim.runstate.input_checksums`) listed by file path."""
+    from .io.report import provenance
+    paths = spec.input_files()
+    inputs = {str(paths[key]): sha for key, sha in input_checksums(spec).items()}
+    return provenance(seed=spec["simulation.seed"], engine=spec["simulation.engine"],
+                      model=model.text(len(spec["grid.cell"])), transform=data.transform, inputs=inputs,
+                      units=spec["data.units"] or None, extra=extra)
 
 
 def provenance_tags(spec: RunSpec, data: PreparedData, model) -> dict[str, str]:
-    """The provenance tags every raster of the run carries."""
-    from .io.report import provenance
-    return provenance(seed=spec["simulation.seed"], engine=spec["simulation.engine"],
-                      model=model.text(len(spec["grid.cell"])),
-                      transform=data.transform, inputs=_inputs(spec), units=spec["data.units"] or None,
-                      extra={"run_spec_sha256": spec.sha256})
+    """The provenance tags every output file of the run carries."""
+    return _provenance(spec, data, model, extra={"run_spec_sha256": spec.sha256})
 
 
 # -- the files of the modelling steps ------------------------------------------------------------
@@ -213,20 +215,18 @@ def variable_name(name: str) -> str:
     return clean if clean[0].isalpha() else f"v_{clean}"
 
 
-def _checks(data: PreparedData, model, grid):
-    """The per-realization reproduction checks of :mod:`geosim.validation`."""
-    from .validation import RunChecks
-    return RunChecks(grid, model, data.coords, data.scores, weights=data.weights, data_values=data.values)
-
-
 def realization_writer(spec: RunSpec, data: PreparedData, model, grid, out_dir: Path):
+    """The :class:`geosim.ensemble.RealizationWriter` of the run: data units, provenance, the decision
+    figures of ``[outputs]``, the reproduction checks and the sinks of :func:`support_sinks`."""
     from .ensemble import RealizationWriter
+    from .validation import RunChecks
     tags = provenance_tags(spec, data, model)
     derived, ranking = support_sinks(spec, grid, out_dir, tags)
     # overwrite=True: the folder was checked to belong to this run before anything is written
     return RealizationWriter(out_dir, grid, tags=tags, units=spec["data.units"],
                              back_transform=data.transform.inverse, figures=_figures(spec, grid),
-                             measure=_checks(data, model, grid), metal_unit=metal_unit(spec), overwrite=True,
+                             measure=RunChecks(grid, model, data.coords, data.scores, weights=data.weights,
+                                               data_values=data.values), metal_unit=metal_unit(spec), overwrite=True,
                              derived=derived, ranking=ranking)
 
 
@@ -371,30 +371,30 @@ def write_summaries(spec: RunSpec, out_dir: Path, data: PreparedData, model, gri
 
     Returns output kind -> list of paths.
     """
-    from .io.report import provenance, write_report
+    from .io.report import write_report
     n = spec["simulation.realizations"]
     out = spec["outputs"]
     files = simulation.writer.finish(simulation.records, cutoffs=out["cutoffs"], stack=True,
                                      keep_realization_files=True, progress=relabel(progress, "summary windows"))
-    report = dict(provenance(seed=spec["simulation.seed"], engine=spec["simulation.engine"],
-                      model=model.text(len(spec["grid.cell"])),
-                             transform=data.transform, inputs=_inputs(spec), units=spec["data.units"] or None))
+    report = _provenance(spec, data, model)  # the report gives run_spec_sha256 beside the spec itself
     report.update({"title": spec["title"], "run_spec": spec.name, "run_spec_sha256": spec.sha256,
                    "parameters": spec.to_dict(), "samples": int(len(data.values)), "notes": list(data.notes),
                    "grid": {"shape": list(grid.shape), "cell": list(grid.cell), "active_nodes": grid.n_active,
                             "crs": grid.crs.to_string() if grid.crs is not None else None},
                    "realizations": {"count": n, "kept_from_earlier_run": simulation.kept}})
-    checks = [r.get("checks") for r in simulation.records]
-    if all(c is not None for c in checks):
-        report["validation"] = _checks(data, model, grid).summarize(checks)
+    validation = simulation.writer.validation(simulation.records)
+    if validation is not None:
+        report["validation"] = validation
     support = _support_report(simulation.writer, simulation.records)
     if support:
         report["change_of_support"] = support
     if extra:
         report.update(extra)
     if out["plots"]:
-        files["plots"] = [str(p) for p in _summary_plots(spec, data, model, grid, out_dir, simulation.records,
-                                                         report.get("validation"))]
+        # the summary maps of one level of a 3-D grid: the one nearest the samples' mean elevation
+        files["plots"] = [str(p) for p in simulation.writer.plots(
+            simulation.records, files["summary"], out["cutoffs"], levels=[_plot_level(data, grid)],
+            log=spec["transform.log"])]
         files["plots"] += [str(p) for p in _support_plots(spec, simulation.writer, simulation.records, out_dir)]
     files.update(_cubes_and_tables(spec, grid, out_dir, simulation.records, files,
                                    provenance_tags(spec, data, model)))
@@ -508,35 +508,3 @@ def _plot_level(data: PreparedData, grid) -> int:
         return 0
     z = grid.axes()[0]
     return int(np.argmin(np.abs(z - data.coords[:, 2].mean())))
-
-
-def _summary_plots(spec: RunSpec, data: PreparedData, model, grid, out_dir: Path, records: Sequence[Mapping],
-                   validation: Mapping | None) -> list[Path]:
-    """Maps of the summary (one level for 3-D grids), reproduction and decision-spread plots."""
-    import rasterio
-
-    from .io import plots
-    from .io.geotiff import level_grid, level_paths
-    from .summaries import summary_band_names
-    units = spec["data.units"]
-    k = _plot_level(data, grid)
-    g2 = level_grid(grid, k)
-    with rasterio.open(level_paths(out_dir / "summary.tif", grid)[k]) as src:
-        summary = dict(zip(summary_band_names(spec["outputs.cutoffs"]), src.read().astype(float)))
-    prefix = "" if grid.ndim == 2 else f"z{k:03d}_"
-    written = list(plots.plot_summary_maps(summary, g2, out_dir, units=units, prefix=prefix,
-                                           log=spec["transform.log"], overwrite=True))
-    quantiles = [r["checks"]["quantiles"] for r in records if r.get("checks") and "quantiles" in r["checks"]]
-    if quantiles:
-        written.append(plots.plot_histogram_reproduction(
-            data.values, [np.asarray(q, dtype=float) for q in quantiles], out_dir / "histogram_reproduction.png",
-            weights=data.weights, units=units, overwrite=True))
-    if validation:
-        written.append(plots.plot_variogram_reproduction(validation["variogram"],
-                                                         out_dir / "variogram_reproduction.png", model=model,
-                                                         ndim=grid.ndim, overwrite=True))
-    figures = [r.get("figures") for r in records]
-    if figures and all(f is not None for f in figures):
-        written.append(plots.plot_decision_spread(figures, out_dir / "decision_spread.png", units=units,
-                                                  overwrite=True))
-    return written

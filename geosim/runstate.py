@@ -42,7 +42,7 @@ from .io.lock import LOCK_NAME
 
 __all__ = ["STATE_DIR", "resume_key", "with_folder_lock", "make_folder", "claim_folder", "open_output",
            "read_header", "completed_realizations", "RecordingSink", "record_outputs", "folder_is_empty",
-           "empty_folder"]
+           "empty_folder", "input_checksums"]
 
 STATE_DIR = "run-state"
 _STATE_FORMAT = 1
@@ -136,7 +136,9 @@ def resume_key(spec: RunSpec) -> str:
     return hashlib.sha256(canonical_json(values).encode()).hexdigest()
 
 
-def _input_checksums(spec: RunSpec) -> dict[str, str]:
+def input_checksums(spec: RunSpec) -> dict[str, str]:
+    """{spec key: SHA-256} of every input file the spec names: the run state compares them on a
+    rerun, and the outputs' provenance lists them."""
     from .io.report import file_sha256
     return {key: file_sha256(path) for key, path in spec.input_files().items()}
 
@@ -178,7 +180,7 @@ def open_output(spec: RunSpec, out_dir: Path, *, overwrite: bool, resume: bool) 
     """Check the output folder belongs to this run (or is new); return the run-state header."""
     state_dir = out_dir / STATE_DIR
     header = {"format": _STATE_FORMAT, "spec_sha256": spec.sha256, "resume_key": resume_key(spec),
-              "seed": spec["simulation.seed"], "inputs": _input_checksums(spec),
+              "seed": spec["simulation.seed"], "inputs": input_checksums(spec),
               "spec": json.loads(canonical_json(spec.values))}
     state_file = state_dir / "run.json"
     if state_file.is_file():
