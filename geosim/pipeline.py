@@ -23,9 +23,11 @@ Steps, in the order :func:`run` calls them:
                             plots and the JSON run report
 ==========================  =========================================================
 
-Where things live: what each step writes and how (provenance, formats, the
-realization writer and its change-of-support sinks, the summaries and the report)
-is :mod:`geosim.outputs`; the run state (who owns an output folder, what a rerun
+Where things live: how the steps read the spec (samples, checks, grid extent and
+domain, search, variogram directions and structures) is :mod:`geosim.inputs`;
+what each step writes and how (provenance, formats, the realization writer and
+its change-of-support sinks, the summaries and the report) is
+:mod:`geosim.outputs`; the run state (who owns an output folder, what a rerun
 keeps) is :mod:`geosim.runstate`; the result classes and the descriptions the
 command line prints are :mod:`geosim.results`; the transform chain and the
 multi-Gaussian moments are in :mod:`geosim.transforms`.  This module only wires
@@ -34,7 +36,6 @@ the steps together.
 from __future__ import annotations
 
 import logging
-import math
 import os
 import time
 from collections.abc import Mapping
@@ -45,6 +46,9 @@ import numpy as np
 
 from .config.runspec import RunSpec, load_spec
 from .errors import InputError
+from .inputs import (check_samples, decluster, default_template, experimental_variograms, fit_transform,
+                     grid_extent, load_samples, mask_domain, neighbourhood, read_domain_geometry, read_holes,
+                     sample_ids, structures_model)
 from .outputs import (realization_writer, support_sinks, write_crossval, write_estimate, write_summaries,
                       write_variogram)
 from .progress import Progress, relabel
@@ -57,119 +61,14 @@ from .transforms import TransformChain, multigaussian_moments
 log = logging.getLogger("geosim")  # notes of a run at INFO; the command line shows what it chooses
 
 __all__ = ["PreparedData", "VariogramResult", "CrossValidation", "EstimateResult", "SimulationResult",
-           "RunResult", "TransformChain", "RecordingSink", "load_samples", "decluster", "fit_transform",
-           "prepare_data", "make_grid", "read_domain_geometry", "neighbourhood", "experimental_variograms",
-           "variogram_model", "cross_validate", "multigaussian_moments", "estimate", "simulate", "summarize",
-           "run", "open_output", "completed_realizations", "resume_key",
-           "describe_spec", "describe_data", "STATE_DIR"]
-
-# a guard against a mistyped cell size (one realization of 2e8 float64 nodes is 1.6 GB)
-MAX_NODES = 200_000_000
+           "RunResult", "TransformChain", "RecordingSink", "load_samples", "read_holes", "decluster",
+           "fit_transform", "prepare_data", "make_grid", "read_domain_geometry", "neighbourhood",
+           "experimental_variograms", "variogram_model", "cross_validate", "multigaussian_moments", "estimate",
+           "simulate", "summarize", "run", "open_output", "completed_realizations", "resume_key", "describe_spec",
+           "describe_data", "STATE_DIR"]
 
 
-# -- data -------------------------------------------------------------------------------------
-
-def load_samples(spec: RunSpec):
-    """Read the samples the spec names, in metres of a projected CRS.
-
-    Points come from one CSV; drillholes from collar, survey and interval tables,
-    desurveyed and composited to ``data.composites.length``.
-
-    Returns
-    -------
-    geosim.points.PointSet
-    """
-    d = spec["data"]
-    crs, target = _spec_crs(spec)
-    if d["points"] is not None:
-        from .points import read_points
-        return read_points(spec.resolve(d["points"]), x=d["x"], y=d["y"], z=d["z"], values=d["value"],
-                           hole=d["id"], crs=crs, target_crs=target, layer=d["layer"])
-    from .drillholes import composite
-    from .inputchecks import upward_holes_note
-    comp = d["composites"]
-    holes = read_holes(spec)
-    samples = composite(holes, comp["length"], min_fraction=comp["min_fraction"], residual=comp["residual"],
-                        min_sampled_fraction=comp["min_sampled_fraction"])
-    note = upward_holes_note(holes, surface_collars=spec["domain.below_collars"])
-    return samples if note is None else samples.with_note(note)
-
-
-def _spec_crs(spec: RunSpec):
-    """``data.crs`` (None: the data file's own) and ``data.working_crs`` (None for "auto")
-    as CRSs; unreadable text is an error naming the spec key, not the data file."""
-    from .crs import parse_crs
-    d = spec["data"]
-    crs = None if d["crs"] is None else parse_crs(d["crs"], file=spec.name, field="data.crs")
-    target = None if d["working_crs"] == "auto" else parse_crs(d["working_crs"], file=spec.name,
-                                                                 field="data.working_crs")
-    return crs, target
-
-
-def read_holes(spec: RunSpec):
-    """The drillhole tables the spec names (:class:`geosim.drillholes.Drillholes`), in metres."""
-    from .drillholes import read_drillholes
-    d = spec["data"]
-    crs, target = _spec_crs(spec)
-    return read_drillholes(spec.resolve(d["collars"]),
-                           None if d["surveys"] is None else spec.resolve(d["surveys"]),
-                           spec.resolve(d["intervals"]), values=d["value"], crs=crs, target_crs=target,
-                           columns=d["columns"] or None, survey_dip=d["survey_dip"])
-
-
-def decluster(spec: RunSpec, samples, progress: Progress | None = None):
-    """Cell declustering of the samples as the spec asks, or None for ``method = "none"``."""
-    dc = spec["declustering"]
-    if dc["method"] == "none" or len(samples) < 3:
-        return None
-    from .declustering import cell_declustering
-    values = samples.column(spec["data.value"])
-    return cell_declustering(samples.coords, values, size_range=dc["size_range"], size_count=dc["size_count"],
-                             origin_shifts=dc["origin_shifts"], pick_mean=dc["pick_mean"],
-                             progress=relabel(progress, "declustering sizes"))
-
-
-def fit_transform(spec: RunSpec, values: np.ndarray, weights: np.ndarray | None = None) -> TransformChain:
-    """The transform to normal scores the spec asks for, fitted to the data (and weights)."""
-    from .transforms import LogTransform, NormalScoreTransform
-    tr = spec["transform"]
-    name = spec["data.value"]
-    lower, upper = tr["lower"], tr["upper"]
-    steps = []
-    if tr["log"]:
-        steps.append(LogTransform(base=10.0, name=name))
-        lower = None if lower is None else math.log10(lower)
-        upper = None if upper is None else math.log10(upper)
-    steps.append(NormalScoreTransform(lower=lower, upper=upper, lower_tail=tr["lower_tail"],
-                                      upper_tail=tr["upper_tail"], lower_exponent=tr["lower_exponent"],
-                                      upper_exponent=tr["upper_exponent"], seed=spec["simulation.seed"],
-                                      name=name))
-    return TransformChain(steps).fit(values, weights)
-
-
-def _check_transform_inputs(spec: RunSpec, samples, values: np.ndarray) -> None:
-    """Values a log has none of, and tail bounds inside the data, named by file row and in
-    the units the spec gave (the transforms would see them as log10 and sample numbers)."""
-    from .inputchecks import sample_label
-    tr, name = spec["transform"], spec["data.value"]
-    if tr["log"] and (values <= 0.0).any():
-        i = int(np.argmax(values <= 0.0))
-        file, row, where = sample_label(samples, i)
-        raise InputError(f"{'' if row else where + ': '}value {values[i]:g} has no logarithm (transform.log = true)",
-                         file=file, row=row, field=name,
-                         fix="correct or remove non-positive values (a value below detection is usually entered "
-                             "as half the detection limit), or set transform.log = false")
-    bounds = (("lower", tr["lower"], int(np.argmin(values)), lambda b, v: b > v, "above the smallest"),
-              ("upper", tr["upper"], int(np.argmax(values)), lambda b, v: b < v, "below the largest"))
-    for key, bound, i, wrong, relation in bounds:
-        if bound is None or not wrong(bound, values[i]):
-            continue
-        where = sample_label(samples, i)
-        raise InputError(f"transform.{key} is {bound:g}, {relation} value {values[i]:g} of {name!r} "
-                         f"({where[0]}, {where[2]})", file=spec.name, field=f"transform.{key}",
-                         fix=f"set transform.{key} {'at or below' if key == 'lower' else 'at or above'} "
-                             f"{values[i]:g}, or correct that value")
-
+# -- data and grid -------------------------------------------------------------------------------
 
 def prepare_data(spec: RunSpec, progress: Progress | None = None) -> PreparedData:
     """Read, decluster and transform the samples (:func:`load_samples`, :func:`decluster`,
@@ -177,14 +76,7 @@ def prepare_data(spec: RunSpec, progress: Progress | None = None) -> PreparedDat
     name = spec["data.value"]
     samples = load_samples(spec).complete(name)  # composites may lack the value over a gap
     values = samples.column(name)
-    value_file = samples.source[-1] if samples.source else None  # the points or the interval table
-    if len(values) == 0:
-        raise InputError(f"the value column {name!r} is empty in every row", file=value_file, field=name,
-                         fix="fill in the values, or name another column in data.value")
-    if len(values) < 3:
-        raise InputError(f"only {len(values)} usable samples of {name!r}; simulation needs at least 3",
-                         file=value_file, field=name, fix="check the value column and the composite settings")
-    _check_transform_inputs(spec, samples, values)
+    check_samples(spec, samples, values)  # enough values, and a log or tail bounds that fit them
     dc = decluster(spec, samples, progress)
     weights = None if dc is None else np.asarray(dc.weights, dtype=float)
     from .inputchecks import check_variability, negative_values_note
@@ -198,128 +90,18 @@ def prepare_data(spec: RunSpec, progress: Progress | None = None) -> PreparedDat
     return PreparedData(samples, values, weights, dc, transform, np.asarray(scores, dtype=float), notes)
 
 
-# -- grid and domain ----------------------------------------------------------------------------
-
-def read_domain_geometry(spec: RunSpec, crs):
-    """The domain polygon in the working CRS, or None when the spec names none."""
-    path = spec["domain.polygon"]
-    if path is None:
-        return None
-    from .domain import read_domain
-    return read_domain(spec.resolve(path), crs, layer=spec["domain.layer"])
-
-
-# the summaries hold every realization of one window (at most 256 x 256 cells, the tile size) at
-# a time: the float32 values read, a float64 copy and the sorted copy percentiles need, rounded up
-SUMMARY_WINDOW = 256
-SUMMARY_BYTES_PER_VALUE = 24
-
-
 def make_grid(spec: RunSpec, data: PreparedData | None = None):
     """The simulation grid: over ``grid.bounds``, else the domain, else the data (plus
     ``grid.padding``), masked by the domain polygon or raster."""
     from .grid import Grid
     data = data if data is not None else prepare_data(spec)
-    g = spec["grid"]
     geometry = read_domain_geometry(spec, data.crs)
-    coords = data.coords
-    if g["bounds"] is not None:
-        bounds = tuple(g["bounds"])
-    elif geometry is not None:
-        bounds = geometry.bounds
-    else:
-        bounds = (coords[:, 0].min(), coords[:, 1].min(), coords[:, 0].max(), coords[:, 1].max())
-    if len(g["cell"]) == 2 and coords.shape[1] == 3:
-        raise InputError("the samples are 3-D but grid.cell has two sizes", file=spec.name, field="grid.cell",
-                         fix="give cell = [dx, dy, dz]")
-    zrange = None
-    if len(g["cell"]) == 3:
-        if g["z_range"] is not None:
-            zrange = tuple(g["z_range"])
-        elif coords.shape[1] == 3:
-            zrange = (coords[:, 2].min(), coords[:, 2].max())
-        else:
-            raise InputError("a 3-D grid needs z_range = [bottom, top] for 2-D samples", file=spec.name,
-                             field="grid.z_range", fix="give grid.z_range or a 2-D cell [dx, dy]")
-    extent = [bounds[2] - bounds[0], bounds[3] - bounds[1]] + ([zrange[1] - zrange[0]] if zrange else [])
-    nodes = math.prod(math.ceil((e + 2 * g["padding"]) / c) for e, c in zip(extent, g["cell"]))
-    from .resources import check_memory
-    from .simulation.runner import REALIZATION_BYTES_PER_NODE
-    check_memory(nodes * REALIZATION_BYTES_PER_NODE, f"one realization of a grid of {nodes:,} nodes",
-                 fix="choose larger grid.cell or smaller grid.bounds, or run on a machine with more memory")
-    n = spec["simulation.realizations"]
-    check_memory(n * SUMMARY_WINDOW**2 * SUMMARY_BYTES_PER_VALUE,
-                 f"the summaries of {n:,} realizations (read {SUMMARY_WINDOW} x {SUMMARY_WINDOW} cells at a time)",
-                 fix="run fewer realizations, or on a machine with more memory")
-    if nodes > MAX_NODES:
-        raise InputError(f"the grid would have {nodes:.3g} nodes (more than {MAX_NODES:.0e})", file=spec.name,
-                         field="grid.cell", fix="choose larger cells or smaller grid.bounds")
-    grid = Grid.covering(bounds, g["cell"], crs=data.crs, zrange=zrange, pad=g["padding"])
-    if geometry is not None:
-        grid = grid.clip_to_polygon(geometry)
-    if spec["domain.raster"] is not None:
-        from .domain import read_domain_raster
-        mask = read_domain_raster(spec.resolve(spec["domain.raster"]), grid)
-        grid = grid.with_mask(grid.mask & np.broadcast_to(mask, grid.shape))
-    if spec["domain.below_collars"] and grid.ndim == 3:
-        from .domain import below_surface
-        grid = grid.with_mask(grid.mask & below_surface(grid, read_holes(spec).collars, file=spec.name))
-    if grid.n_active == 0:
-        raise InputError("no grid node falls inside the domain", file=spec.name, field="domain",
-                         fix="check the domain file, its CRS and grid.bounds")
-    return grid
-
-
-def neighbourhood(spec: RunSpec):
-    """The :class:`geosim.search.Neighbourhood` of ``[search]``."""
-    from .search import Neighbourhood
-    s = spec["search"]
-    return Neighbourhood(max_samples=s["max_samples"], min_samples=s["min_samples"], sectors=s["sectors"],
-                         max_per_sector=s["max_per_sector"], max_per_hole=s["max_per_hole"],
-                         max_nodes=s["max_nodes"], widen=s["widen"])
+    bounds, zrange = grid_extent(spec, data, geometry)  # refuses a grid too large for memory
+    grid = Grid.covering(bounds, spec["grid.cell"], crs=data.crs, zrange=zrange, pad=spec["grid.padding"])
+    return mask_domain(spec, grid, geometry)  # polygon, raster and below the collars
 
 
 # -- variogram ---------------------------------------------------------------------------------
-
-def _structures_model(spec: RunSpec):
-    from .plugins import structures as registered
-    from .variogram import Model
-    dicts = [{k: v for k, v in item.items() if v is not None} for item in spec["variogram.structures"]]
-    try:
-        return Model.from_dicts(dicts, registered())
-    except (ValueError, TypeError) as exc:
-        raise InputError(str(exc), file=spec.name, field="variogram.structures",
-                         fix="check each structure's kind, sill, ranges and angles") from None
-
-
-def _default_template(data: PreparedData):
-    """Start values for a fit when the spec gives none: 0.1 nugget + 0.9 spherical, ranges a
-    third of the data extent (common practice, no source)."""
-    from .variogram import Anisotropy, Nugget, Spherical
-    span = np.ptp(data.coords, axis=0)
-    horizontal = max(float(np.hypot(span[0], span[1])) / 3.0, 1.0)
-    vertical = max(float(span[2]) / 3.0, 1.0) if span.size == 3 else horizontal
-    return Nugget(0.1) + Spherical(0.9, Anisotropy((horizontal, horizontal, vertical)))
-
-
-def experimental_variograms(spec: RunSpec, data: PreparedData, progress: Progress | None = None) -> list:
-    """Experimental variograms of the normal scores in the spec's directions (omnidirectional
-    when it names none)."""
-    from .variogram.experimental import Direction, directional_variograms
-    vg = spec["variogram"]
-    lag = vg["lag"]
-    if lag is None:
-        # half the diagonal of the data's horizontal extent, split into lag_count bins
-        # (common practice, no source)
-        lag = float(np.hypot(*np.ptp(data.coords[:, :2], axis=0))) / 2.0 / vg["lag_count"]
-    directions = [Direction(d["azimuth"], d["dip"], horizontal_half_angle=d["horizontal_half_angle"],
-                            vertical_half_angle=d["vertical_half_angle"],
-                            horizontal_max_offset=d["horizontal_max_offset"] or np.inf,
-                            vertical_max_offset=d["vertical_max_offset"] or np.inf)
-                  for d in spec["variogram.directions"]] or [None]
-    return directional_variograms(data.coords, data.scores, directions, lag=lag, nlags=vg["lag_count"],
-                                  progress=progress)
-
 
 def given_model(spec: RunSpec, data: PreparedData | None = None):
     """The model the spec gives: from ``variogram.model_file`` or ``variogram.structures``
@@ -333,10 +115,10 @@ def given_model(spec: RunSpec, data: PreparedData | None = None):
         model = load_model(spec.resolve(vg["model_file"]))
         where = dict(file=str(spec.resolve(vg["model_file"])), field="structure sills")
     elif vg["structures"]:
-        model = _structures_model(spec)
+        model = structures_model(spec)
         where = dict(file=spec.name, field="variogram.structures")
     else:
-        return _default_template(data if data is not None else prepare_data(spec))
+        return default_template(data if data is not None else prepare_data(spec))
     if not vg["fit"]:
         from .inputchecks import check_score_sill
         check_score_sill(model, **where)
@@ -371,17 +153,6 @@ def _preflight_notes(spec: RunSpec, data: PreparedData, grid) -> None:
     its refusals raise, its notes go to the ``geosim`` logger as warnings."""
     for note in preflight(spec, data, grid):
         log.warning("%s", note)
-
-
-def sample_ids(data: PreparedData) -> list[str]:
-    """A label per sample for messages: its file and row (``wells.csv row 14``), or its hole
-    and depths for composites."""
-    from .inputchecks import sample_label
-    labels = []
-    for i in range(len(data.values)):
-        file, row, text = sample_label(data.samples, i)
-        labels.append(f"{Path(file).name} {text}" if row is not None and file else text)
-    return labels
 
 
 def variogram_model(spec: RunSpec, data: PreparedData | None = None, *, out_dir: str | os.PathLike | None = None,
@@ -512,7 +283,8 @@ def simulate(spec: RunSpec, data: PreparedData | None = None, model=None, grid=N
     if standalone:
         _preflight_notes(spec, data, grid)
     model = _model(spec, data, model, progress)
-    writer = realization_writer(spec, data, model, grid, Path(out_dir))  # reads query points: bad ones fail before writing
+    # reads the query points: bad ones fail before anything is written
+    writer = realization_writer(spec, data, model, grid, Path(out_dir))
     out_dir = make_folder(out_dir)
     header = open_output(spec, out_dir, overwrite=overwrite, resume=resume)
     n = spec["simulation.realizations"]

@@ -32,7 +32,8 @@ LAYERS = [
     ("files", ["geosim.demo", "geosim.io.geotiff", "geosim.io.plots", "geosim.io.report", "geosim.io.crossval",
                "geosim.io.csvw", "geosim.io.decision", "geosim.io.lock", "geosim.io.cube", "geosim.io.support_tables"]),
     ("assembly", ["geosim.ensemble", "geosim.support_outputs", "geosim.config.*", "geosim.io.runspec.*"]),
-    ("job", ["geosim.pipeline", "geosim.outputs", "geosim.runstate", "geosim.results", "geosim.units_run"]),
+    ("job", ["geosim.pipeline", "geosim.inputs", "geosim.outputs", "geosim.runstate", "geosim.results",
+             "geosim.units_run"]),
     ("command line", ["geosim_cli.*"]),
 ]
 
