@@ -41,7 +41,7 @@ from numba import njit
 from .errors import InputError, NotPositiveDefiniteError
 from .linalg import backward_t_inplace, chol_inplace, forward_inplace
 from .search import DataSearch, Neighbourhood, as_xyz, exclusion_arrays, select_neighbours
-from .transforms import multigaussian_moments
+from .moments import multigaussian_moments
 from .variogram.compiled import cov_lag
 
 log = logging.getLogger(__name__)

@@ -56,7 +56,8 @@ from .results import (CrossValidation, EstimateResult, PreparedData, RunResult, 
                       describe_data, describe_spec, extremes_note, short_note)
 from .runstate import (STATE_DIR, RecordingSink, claim_folder, completed_realizations, empty_folder, folder_is_empty,
                        make_folder, open_output, read_header, resume_key, with_folder_lock)
-from .transforms import TransformChain, multigaussian_moments
+from .moments import multigaussian_moments
+from .transforms import TransformChain
 
 log = logging.getLogger("geosim")  # notes of a run at INFO; the command line shows what it chooses
 

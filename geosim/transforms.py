@@ -58,6 +58,7 @@ from typing import Any
 
 import numpy as np
 
+from ._forward import forward
 from .errors import InputError
 from .retired import accepts_retired
 
@@ -99,6 +100,24 @@ def _first_nonfinite(v: np.ndarray, what: str, name: str | None) -> None:
         i = int(np.argmax(bad))
         raise InputError(f"{what} {i + 1} is {v[i]}", field=name,
                          fix="remove samples without a value before transforming")
+
+
+def lower_tail(p, lower, v1, p1, inv_k):
+    """Values below the smallest datum ``v1`` at probabilities ``p = Phi(y) < p1``: the
+    uniform (``inv_k = 1``) and power lower tails of the module docstring.
+
+    Plain arithmetic on numbers or arrays, so that :mod:`geosim.moments` compiles this
+    same function into its kernel."""
+    return lower + (v1 - lower) * (p / p1) ** inv_k
+
+
+def upper_tail(q, vn, upper, pn, inv_k, pareto):
+    """Values above the largest datum ``vn`` at ``q = 1 - Phi(y) < 1 - pn``: the uniform,
+    power and (``pareto``) Pareto upper tails of the module docstring (like
+    :func:`lower_tail`, compiled into :mod:`geosim.moments` too)."""
+    if pareto:
+        return vn * ((1.0 - pn) / np.maximum(q, 1e-300)) ** inv_k
+    return vn + (upper - vn) * np.minimum(np.maximum(1.0 - q / (1.0 - pn), 0.0), 1.0) ** inv_k
 
 
 class IdentityTransform:
@@ -379,24 +398,25 @@ class NormalScoreTransform:
         y = np.asarray(scores, dtype=np.float64)
         shape, y = y.shape, y.ravel()
         out = np.interp(y, self.scores_, self.values_)
-        v1, vn = self.values_[0], self.values_[-1]
-        p1, pn = self.probabilities_[0], self.probabilities_[-1]
         low = y < self.scores_[0]
         if low.any():
-            frac = _ndtr(y[low]) / p1
-            om = self.lower_exponent if self.lower_tail == "power" else 1.0
-            out[low] = self.lower_ + (v1 - self.lower_) * frac ** (1.0 / om)
+            out[low] = lower_tail(_ndtr(y[low]), *self.tail_parameters()[:4])
         high = y > self.scores_[-1]
         if high.any():
-            q = _ndtr(-y[high])  # 1 - Phi(y) without cancellation in the far tail
-            if self.upper_tail == "pareto":
-                out[high] = vn * ((1.0 - pn) / np.maximum(q, 1e-300)) ** (1.0 / self.upper_exponent)
-            else:
-                om = self.upper_exponent if self.upper_tail == "power" else 1.0
-                frac = np.clip(1.0 - q / (1.0 - pn), 0.0, 1.0)
-                out[high] = vn + (self.upper_ - vn) * frac ** (1.0 / om)
+            # 1 - Phi(y) without cancellation in the far tail
+            out[high] = upper_tail(_ndtr(-y[high]), *self.tail_parameters()[4:])
         out[np.isnan(y)] = np.nan
         return out.reshape(shape)
+
+    def tail_parameters(self) -> tuple[float, float, float, float, float, float, float, float, bool]:
+        """``(lower_, v_1, p_1, 1/k_lower, v_n, upper_, p_n, 1/k_upper, pareto)``: the arguments
+        of :func:`lower_tail` (first four) and :func:`upper_tail` (the rest) for this fit."""
+        self._check_fitted()
+        k_low = self.lower_exponent if self.lower_tail == "power" else 1.0
+        k_up = self.upper_exponent if self.upper_tail != "uniform" else 1.0
+        return (self.lower_, float(self.values_[0]), float(self.probabilities_[0]), 1.0 / k_low,
+                float(self.values_[-1]), self.upper_, float(self.probabilities_[-1]), 1.0 / k_up,
+                self.upper_tail == "pareto")
 
     def fit_transform(self, values, weights=None) -> np.ndarray:
         """Fit, then return the scores of the data in input order (ties distinct)."""
@@ -526,35 +546,4 @@ class TransformChain:
         return {"kind": "chain", "steps": [step.to_dict() for step in self.steps]}
 
 
-def multigaussian_moments(transform, mean: np.ndarray, variance: np.ndarray,
-                          points: int = 24) -> tuple[np.ndarray, np.ndarray]:
-    """Mean and variance of ``transform.inverse(Y)`` for ``Y ~ N(mean, variance)``, elementwise.
-
-    Gauss-Hermite quadrature with ``points`` nodes (probabilists' form,
-    ``numpy.polynomial.hermite_e.hermegauss``).  NaN in, NaN out.
-
-    Examples
-    --------
-    >>> import numpy as np
-    >>> from geosim.transforms import multigaussian_moments
-    >>> class Exp:  # log-normal: E[exp(Y)] = exp(m + v/2), Var = (e^v - 1) e^(2m + v)
-    ...     inverse = staticmethod(np.exp)
-    >>> m, v = multigaussian_moments(Exp, np.array([0.0]), np.array([1.0]))
-    >>> bool(np.isclose(m[0], np.exp(0.5)) and np.isclose(v[0], (np.e - 1) * np.e))
-    True
-    """
-    from numpy.polynomial.hermite_e import hermegauss
-    z, w = hermegauss(points)
-    w = w / w.sum()
-    mean = np.asarray(mean, dtype=float)
-    sd = np.sqrt(np.maximum(np.asarray(variance, dtype=float), 0.0))
-    out_mean = np.full(mean.shape, np.nan)
-    out_var = np.full(mean.shape, np.nan)
-    ok = np.isfinite(mean) & np.isfinite(sd)
-    if ok.any():
-        y = mean[ok][:, None] + sd[ok][:, None] * z[None, :]
-        v = np.asarray(transform.inverse(y.ravel()), dtype=float).reshape(y.shape)
-        m1 = v @ w
-        out_mean[ok] = m1
-        out_var[ok] = np.maximum((v - m1[:, None]) ** 2 @ w, 0.0)
-    return out_mean, out_var
+__getattr__ = forward(__name__, {"multigaussian_moments": "geosim.moments"})
