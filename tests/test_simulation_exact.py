@@ -138,6 +138,32 @@ def test_ordinary_kriging_option_matches_bordered_system():
     assert mean.mean() > 1.5  # the test means something: simple kriging would pull towards 0
 
 
+def test_ordinary_realization_is_the_unconditional_draw_conditioned_by_ordinary_kriging():
+    # One realization rebuilt without geosim: the joint covariance of data and nodes from
+    # tests/independent.py, numpy's Cholesky factor L, u = L w with the realization's own normal
+    # deviates w, then y = u_nodes + W' (z - u_data), W the ordinary-kriging weights of the bordered
+    # system (conditioning by kriging: Journel and Huijbregts 1978, Mining Geostatistics, section
+    # VII, from memory). Three clustered data far from mean 0: the unbiasedness term carries much
+    # of the weight, so a wrong sign or size of it moves every node.
+    grid = geosim.Grid(0.0, 0.0, (10.0, 10.0), (6, 7))
+    model = _model()
+    xy = np.array([[31.0, 22.0], [36.0, 27.0], [33.0, 31.0]])
+    z = np.array([2.4, 3.1, 2.7])
+    engine = ExactEngine()
+    plan = engine.prepare(xy, z, model, grid, kriging="ordinary")
+    nodes = grid.coords()
+    factor = np.linalg.cholesky(independent.covariance(model, np.vstack([xy, nodes])))
+    _, _, weights = independent.ordinary_kriging(model, xy, z, nodes)
+    # the unbiasedness term matters here: simple kriging (mean 0) differs by more than 1 somewhere
+    assert np.abs(weights.T @ z - independent.simple_kriging(model, xy, z, nodes)[0]).max() > 1.0
+    for i in range(3):
+        w = geosim.simulation.realization_rng(11, i).standard_normal(len(z) + len(nodes))
+        u = factor @ w
+        expected = u[len(z):] + weights.T @ (z - u[:len(z)])
+        field = engine.realize(plan, geosim.simulation.realization_rng(11, i))
+        np.testing.assert_allclose(field[grid.mask], expected, atol=1e-8)
+
+
 def test_datum_on_a_node_is_reproduced_and_not_singular():
     grid = geosim.Grid(0.0, 0.0, (10.0, 10.0), (5, 5))
     xy = np.array([[25.0, 25.0], [5.0, 45.0]])  # centres of nodes (2, 2) and (0, 0)
