@@ -46,6 +46,7 @@ after a log) plus 192 for the tails; memory is that of the outputs.
 """
 from __future__ import annotations
 
+import logging
 import math
 
 import numpy as np
@@ -55,6 +56,8 @@ from .transforms import (IdentityTransform, LogTransform, NormalScoreTransform, 
                          upper_tail)
 
 __all__ = ["multigaussian_moments", "REACH", "PANELS"]
+
+log = logging.getLogger(__name__)
 
 REACH = 8.5        # standard deviations: N(0, 1) puts less than 1e-17 beyond; left out everywhere
 PANELS = 6         # panels of the tails' Gauss-Legendre rule
@@ -212,7 +215,7 @@ def _piecewise_form(transform):
     return core, (steps[0] if steps else None)
 
 
-def _tail_limits(core: NormalScoreTransform, log: LogTransform | None, m: np.ndarray, s: np.ndarray):
+def _tail_limits(core: NormalScoreTransform, log_step: LogTransform | None, m: np.ndarray, s: np.ndarray):
     """Per node: ``(lower from, lower to, upper from, upper to)`` in ``T`` for the tails'
     rule, and where the mean and the variance are infinite.
 
@@ -231,7 +234,7 @@ def _tail_limits(core: NormalScoreTransform, log: LogTransform | None, m: np.nda
     no = np.zeros(m.size, dtype=bool)
     if core.upper_tail != "pareto":
         return limits, no, no
-    if log is not None:
+    if log_step is not None:
         limits[:, 3] = limits[:, 2]
         return limits, ~no, ~no
     k = core.upper_exponent
@@ -243,23 +246,29 @@ def _tail_limits(core: NormalScoreTransform, log: LogTransform | None, m: np.nda
     return limits, inf_mean, inf_var
 
 
-def _piecewise_moments(transform, core, log, m, s):
+def _piecewise_moments(transform, core, log_step, m, s):
     """Mean and variance for nodes with ``s > 0`` when ``transform`` has a piecewise form."""
-    lam = 0.0 if log is None else math.log(log.base)
-    offset = 0.0 if log is None else log.offset
+    lam = 0.0 if log_step is None else math.log(log_step.base)
+    offset = 0.0 if log_step is None else log_step.offset
     if core is None:
-        if log is None:
+        if log_step is None:
             return m.copy(), s * s
         # log-normal: Aitchison and Brown (1957), ch. 2, from memory
         with np.errstate(over="ignore"):
             return (np.exp(lam * m + 0.5 * (lam * s) ** 2) - offset,
                     np.expm1((lam * s) ** 2) * np.exp(2.0 * lam * m + (lam * s) ** 2))
     r = np.asarray(transform.inverse(m), dtype=float)   # the median: moments about it cancel little
-    limits, inf_mean, inf_var = _tail_limits(core, log, m, s)
+    limits, inf_mean, inf_var = _tail_limits(core, log_step, m, s)
     tails = np.array(core.tail_parameters(), dtype=float)
     first, second = np.empty(m.size), np.empty(m.size)
     _kernel(m, s, r, np.ascontiguousarray(core.scores_, dtype=float), np.ascontiguousarray(core.values_, dtype=float),
             lam, offset, tails, limits, *_rule(PANELS, GRADE), first, second)
+    if inf_var.any():
+        behind = "behind a log, where no moment is finite" if log_step is not None else \
+            f"with exponent {core.upper_exponent:g}, where twice the kriging variance reaches it"
+        log.warning("the data-unit variance is infinite at %d of %d nodes (%d with an infinite mean): the "
+                    "Pareto upper tail %s; use a bounded upper tail (\"uniform\" or \"power\") or a larger "
+                    "exponent", int(inf_var.sum()), m.size, int(inf_mean.sum()), behind)
     mean = np.where(inf_mean, np.inf, r + first)
     var = np.where(inf_var, np.inf, np.maximum(second - first * first, 0.0))
     return mean, var
