@@ -60,7 +60,8 @@ from typing import Any
 from ..errors import InputError, RetiredNameWarning, SpecError
 from ..retired import retire_spec_names
 
-__all__ = ["RunSpec", "load_spec", "spec_from_dict", "parse_overrides", "reference", "SCHEMA", "EXECUTION_KEYS"]
+__all__ = ["RunSpec", "load_spec", "spec_from_dict", "parse_overrides", "reference", "SCHEMA", "EXECUTION_KEYS",
+           "has_units", "unit_spec", "unit_table"]
 
 # Keys that change how a run executes but not what it computes; they are left out
 # of the spec hash so that a run resumed with more workers keeps its realizations.
@@ -435,7 +436,7 @@ def reference() -> str:
         lines.append(f"[{section}]" + (f" ({kind}: [[{section}]] or {section.split('.')[-1]} = [{{...}}])"
                                        if kind != "table" else ""))
         lines += [_reference_line(k, key) for k, key in keys.items()]
-    return "\n".join(lines)
+    return "\n".join(lines + _unit_reference_lines())
 
 
 def _reference_line(name: str, key: Key) -> str:
@@ -509,6 +510,7 @@ class RunSpec:
                 value = self.values[section].get(key)
                 if value is not None and value not in self.frames:
                     out[f"{section}.{key}"] = self.resolve(value)
+        out.update({k: self.resolve(v) for k, v in unit_input_files(self.values).items()})
         return out
 
     def canonical(self) -> str:
@@ -627,6 +629,7 @@ def spec_from_dict(values: Mapping, base: str | os.PathLike = ".", *,
         values, lambda text: warnings.warn(f"{name}: {text}", RetiredNameWarning, stacklevel=4))
     out = _check_sections(values, problems)
     _check_combinations(out, problems)
+    _check_units(values, out, problems)
     if check_files:
         _check_files(out, base, problems, frames)
     if problems:
@@ -676,7 +679,7 @@ def _check_sections(values: dict, problems: list[str]) -> dict:
     out: dict[str, Any] = {}
     sections = [s for s in SCHEMA if "." not in s]
     for k in values:
-        if k not in sections and k not in TOP_LEVEL:
+        if k not in sections and k not in TOP_LEVEL and k not in UNIT_SECTIONS:
             close = difflib.get_close_matches(k, sections + list(TOP_LEVEL), n=1)
             hint = f" (did you mean [{close[0]}]?)" if close else ""
             problems.append(f"{k}: unknown section{hint}; expected sections {', '.join(sections)}")
@@ -970,13 +973,236 @@ def _take_frames(values: dict) -> dict:
 
 
 def _check_files(spec: dict, base: Path, problems: list[str], frames: Mapping | None = None) -> None:
-    for section, keys in INPUT_FILE_KEYS:
-        for key in keys:
-            value = spec[section].get(key)
-            if value is None or value in (frames or {}):
+    named = [(f"{section}.{key}", spec[section].get(key)) for section, keys in INPUT_FILE_KEYS for key in keys]
+    for dotted, value in named + list(unit_input_files(spec).items()):
+        if value is None or value in (frames or {}):
+            continue
+        p = Path(value).expanduser()
+        p = p if p.is_absolute() else base / p
+        if not p.is_file():
+            problems.append(f"{dotted}: expected an existing file (relative to the spec's "
+                            f"folder {base}), found no file at {value!r}")
+
+
+# -- several geological units: [units] and [unit.<name>] ------------------------------------------
+# ``[units]`` says where the codes come from and how units meet; one ``[unit.<name>]`` table per
+# unit gives its code and overrides any key of the top-level [declustering], [transform],
+# [variogram], [search] and the cut-offs of [outputs]; whatever a unit leaves out it takes from the
+# top level.  :func:`unit_spec` gives one unit's view of the spec, so every step that builds a
+# one-unit run builds each unit's piece.  A spec without these sections is normalized and hashed
+# exactly as before they existed (they appear in the normalized spec only when given).
+UNIT_SECTIONS = ("units", "unit")
+OVERRIDABLE = ("declustering", "transform", "variogram", "search", "outputs")
+# of [outputs], a unit overrides only what is computed per unit
+OUTPUT_OVERRIDES = ("cutoffs",)
+# source keys that name files (resolved against the spec's folder, hashed into the provenance)
+SOURCE_FILE_KEYS = ("raster", "polygons", "cube", "intervals")
+
+
+def _source(value):
+    from ..units import NODE_SOURCES, SAMPLE_SOURCES
+    kinds = sorted(set(NODE_SOURCES) | set(SAMPLE_SOURCES))
+    if isinstance(value, dict) and value:
+        return dict(value), None
+    return None, f"a table naming one source, e.g. {{ column = \"unit\" }} or {{ raster = \"units.tif\" }} " \
+                 f"(sources: {', '.join(kinds)})"
+
+
+def _pair_list(value):
+    if isinstance(value, list) and all(isinstance(v, dict) for v in value):
+        return [dict(v) for v in value], None
+    return None, 'a list of tables such as { units = ["oxide", "fresh"], distance = 20.0 }'
+
+
+def _two_units(value):
+    if (isinstance(value, list) and len(value) == 2
+            and all(isinstance(v, (str, int)) and not isinstance(v, bool) for v in value)):
+        return list(value), None
+    return None, "two unit names (or codes)"
+
+
+def _unit_keys():
+    units = {
+        "samples": Key(_source, required=True, help="unit code of each sample: { column = \"unit\" } (a column of "
+                                                    "the point table) or { intervals = \"logged_units.csv\" }"),
+        "nodes": Key(_source, required=True, help="unit code of each node: { raster = \"units.tif\" }, "
+                                                  "{ polygons = \"units.geojson\", attribute = \"code\" }, "
+                                                  "{ surfaces = [...] } or { cube = \"...\" }"),
+        "soft": Key(_pair_list, default=[], help="soft boundaries: samples of the neighbouring unit within "
+                                                 "distance metres of the node's unit also condition it"),
+        "min_fit_samples": Key(_int(3), default=30, help="fewest samples of a unit whose variogram is fitted "
+                                                         "(common practice, no source)"),
+    }
+    unit = {
+        "code": Key(_int(0), required=True, help="the integer code of the unit in tables and rasters"),
+        "modelled": Key(_bool, default=True, help="false: the unit's nodes stay nodata (waste, cover)"),
+        "description": Key(_text, default="", help="free text for the report"),
+    }
+    soft = {
+        "units": Key(_two_units, required=True, help="the two units (names or codes) that meet"),
+        "distance": Key(_number(0.0, lo_open=True), required=True,
+                        help="metres from the contact (the nearest node of the other unit) within which "
+                             "samples cross it"),
+    }
+    return units, unit, soft
+
+
+UNITS_KEYS, UNIT_KEYS, SOFT_KEYS = _unit_keys()
+
+
+def has_units(spec) -> bool:
+    """Whether a spec (RunSpec or normalized dict) models several units."""
+    values = spec if isinstance(spec, Mapping) else spec.values
+    return values.get("units") is not None
+
+
+def _check_units(values: Mapping, out: dict, problems: list[str]) -> None:
+    """Validate ``[units]`` and ``[unit.<name>]`` of the raw spec ``values`` into ``out``.
+
+    The cross-key rules of a whole spec (:func:`_check_combinations`) run on each
+    unit's merged view, their problems prefixed ``unit.<name>:``.
+    """
+    units_keys, unit_keys, soft_keys = UNITS_KEYS, UNIT_KEYS, SOFT_KEYS
+    given = [s for s in UNIT_SECTIONS if s in values]
+    if not given:
+        return
+    if len(given) == 1:
+        problems.append("units: expected both [units] (where codes come from) and one [unit.<name>] table per "
+                        f"unit, found only [{given[0]}]")
+        return
+    units = _check_table(values["units"], units_keys, "units", problems)
+    units["soft"] = [_check_table(item, soft_keys, f"units.soft[{i}]", problems)
+                     for i, item in enumerate(units["soft"] or [])]
+    from ..units import NODE_SOURCES, SAMPLE_SOURCES
+    for key, registry in (("samples", SAMPLE_SOURCES), ("nodes", NODE_SOURCES)):
+        source = units[key]
+        if isinstance(source, dict):
+            kinds = [k for k in source if k in registry]
+            if len(kinds) != 1:
+                problems.append(f"units.{key}: expected exactly one of {', '.join(registry)}, found "
+                                f"{', '.join(sorted(source)) or 'none'}")
+    raw_units = values["unit"]
+    if not isinstance(raw_units, dict) or not raw_units:
+        problems.append(f"unit: expected one [unit.<name>] table per unit, found {_found(raw_units)}")
+        return
+    tables: dict[str, dict] = {}
+    for name, table in raw_units.items():
+        where = f"unit.{name}"
+        if not isinstance(table, dict):
+            problems.append(f"{where}: expected a table, found {_found(table)}")
+            continue
+        own = _check_table({k: v for k, v in table.items() if k not in OVERRIDABLE}, unit_keys, where, problems)
+        for section in OVERRIDABLE:
+            if section not in table:
                 continue
-            p = Path(value).expanduser()
-            p = p if p.is_absolute() else base / p
-            if not p.is_file():
-                problems.append(f"{section}.{key}: expected an existing file (relative to the spec's "
-                                f"folder {base}), found no file at {value!r}")
+            override = table[section]
+            if not isinstance(override, dict):
+                problems.append(f"{where}.{section}: expected a table of [{section}] keys, found {_found(override)}")
+                continue
+            schema = SCHEMA[section]
+            allowed = OUTPUT_OVERRIDES if section == "outputs" else tuple(schema)
+            checked = {}
+            for k, v in override.items():
+                if k not in allowed:
+                    close = difflib.get_close_matches(k, list(allowed), n=1)
+                    hint = f" (did you mean {close[0]!r}?)" if close else ""
+                    problems.append(f"{where}.{section}.{k}: not a key a unit can override{hint}; expected one "
+                                    f"of {', '.join(allowed)}")
+                    continue
+                value, err = schema[k].check(v)
+                if err:
+                    problems.append(f"{where}.{section}.{k}: expected {err}, found {_found(v)}")
+                    continue
+                if section == "variogram" and k in ("structures", "directions"):
+                    value = [_check_table(item, SCHEMA[f"variogram.{k}"], f"{where}.variogram.{k}[{i}]", problems)
+                             for i, item in enumerate(value)]
+                checked[k] = value
+            own[section] = checked
+        tables[name] = own
+    out["units"] = units
+    out["unit"] = tables
+    try:
+        table = unit_table(out)
+    except (ValueError, TypeError) as exc:
+        problems.append(f"unit: {exc}")
+        return
+    if not table.modelled_codes:
+        problems.append("unit: expected at least one modelled unit, found every unit with modelled = false")
+    for i, pair in enumerate(units["soft"]):
+        names = pair.get("units") or []
+        found = []
+        for token in names:
+            hit = [u for u in table.units if token in (u.name, u.code)]
+            if not hit:
+                problems.append(f"units.soft[{i}].units: expected names or codes of [unit.<name>] tables "
+                                f"({', '.join(table.names)}), found {token!r}")
+            elif not hit[0].modelled:
+                problems.append(f"units.soft[{i}].units: {hit[0].name} is not modelled; a soft boundary joins two "
+                                "modelled units")
+            else:
+                found.append(hit[0].code)
+        if len(found) == 2 and found[0] == found[1]:
+            problems.append(f"units.soft[{i}].units: expected two different units, found {names}")
+    if out.get("simulation", {}).get("realizations_per_path", 1) != 1:
+        problems.append("simulation.realizations_per_path: expected 1 in a run of several units (each unit "
+                        f"draws its own path), found {out['simulation']['realizations_per_path']}")
+    for name in tables:
+        merged = merged_values(out, name)
+        found: list[str] = []
+        _check_combinations(merged, found)
+        problems.extend(f"unit.{name}: {p}" for p in found if p not in problems)
+
+
+def merged_values(values: Mapping, name: str) -> dict:
+    """The normalized spec as unit ``name`` sees it: its overrides replace the top-level keys."""
+    merged = copy.deepcopy(dict(values))
+    for section, override in values["unit"][name].items():
+        if section in OVERRIDABLE:
+            merged[section] = {**merged[section], **copy.deepcopy(override)}
+    return merged
+
+
+def unit_spec(spec, name: str):
+    """Unit ``name``'s view of a :class:`~geosim.config.runspec.RunSpec`: the same spec with the
+    unit's ``[declustering]``, ``[transform]``, ``[variogram]``, ``[search]`` and cut-offs."""
+    values = merged_values(spec.values, name)
+    return RunSpec(path=spec.path, base=spec.base, values=values,
+                   sha256=hashlib.sha256(canonical_json(values).encode()).hexdigest(), frames=spec.frames)
+
+
+def unit_table(spec):
+    """The :class:`geosim.units.UnitTable` of a spec's ``[unit.<name>]`` tables (spec order)."""
+    from ..units import UnitTable
+    values = spec if isinstance(spec, Mapping) else spec.values
+    return UnitTable.from_mapping(values["unit"])
+
+
+def unit_input_files(values: Mapping) -> dict[str, Any]:
+    """``{"units.nodes.raster": path text, ...}``: the files the unit sources name."""
+    out = {}
+    units = values.get("units")
+    if not units:
+        return out
+    for key in ("samples", "nodes"):
+        source = units.get(key) or {}
+        for k in SOURCE_FILE_KEYS:
+            if isinstance(source.get(k), str):
+                out[f"units.{key}.{k}"] = source[k]
+        if isinstance(source.get("surfaces"), list):
+            for i, path in enumerate(source["surfaces"]):
+                if isinstance(path, str):
+                    out[f"units.{key}.surfaces[{i}]"] = path
+    return out
+
+
+def _unit_reference_lines() -> list[str]:
+    """The reference lines of the unit keys (see :func:`geosim.config.runspec.reference`)."""
+    units_keys, unit_keys, soft_keys = UNITS_KEYS, UNIT_KEYS, SOFT_KEYS
+    lines = ["[units] (only in a run of several units)"]
+    lines += [_reference_line(k, key) for k, key in units_keys.items()]
+    lines.append("[units.soft] (list of tables)")
+    lines += [_reference_line(k, key) for k, key in soft_keys.items()]
+    lines.append(f"[unit.<name>] (one table per unit; also {', '.join(OVERRIDABLE[:-1])} = {{...}} overriding "
+                 "those sections, and outputs = { cutoffs = [...] })")
+    lines += [_reference_line(k, key) for k, key in unit_keys.items()]
+    return lines
