@@ -63,7 +63,7 @@ log = logging.getLogger("geosim")  # notes of a run at INFO; the command line sh
 
 __all__ = ["PreparedData", "VariogramResult", "CrossValidation", "EstimateResult", "SimulationResult",
            "RunResult", "TransformChain", "RecordingSink", "load_samples", "read_holes", "decluster",
-           "fit_transform", "prepare_data", "make_grid", "read_domain_geometry", "neighbourhood",
+           "fit_transform", "prepare_data", "prepare_samples", "make_grid", "read_domain_geometry", "neighbourhood",
            "experimental_variograms", "variogram_model", "cross_validate", "multigaussian_moments", "estimate",
            "simulate", "summarize", "run", "open_output", "completed_realizations", "resume_key", "describe_spec",
            "describe_data", "STATE_DIR"]
@@ -74,8 +74,14 @@ __all__ = ["PreparedData", "VariogramResult", "CrossValidation", "EstimateResult
 def prepare_data(spec: RunSpec, progress: Progress | None = None) -> PreparedData:
     """Read, decluster and transform the samples (:func:`load_samples`, :func:`decluster`,
     :func:`fit_transform`)."""
+    samples = load_samples(spec).complete(spec["data.value"])  # composites may lack the value over a gap
+    return prepare_samples(spec, samples, progress)
+
+
+def prepare_samples(spec: RunSpec, samples, progress: Progress | None = None) -> PreparedData:
+    """Decluster and transform given samples as the spec asks (one unit's samples, in a run of
+    several units; :func:`prepare_data` for all samples of the spec)."""
     name = spec["data.value"]
-    samples = load_samples(spec).complete(name)  # composites may lack the value over a gap
     values = samples.column(name)
     check_samples(spec, samples, values)  # enough values, and a log or tail bounds that fit them
     dc = decluster(spec, samples, progress)
