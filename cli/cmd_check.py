@@ -31,16 +31,21 @@ def check(ctx, spec, overrides, spec_only):
     fix; 5 says the grid will not fit in this machine's memory.
 
     A run spec has the sections [data], [declustering], [transform], [variogram],
-    [grid], [domain], [search], [simulation] and [outputs]; `geosim check --keys`
+    [grid], [domain], [search], [simulation] and [outputs] (and, for several geological
+    units, [units] and one [unit.<name>] each); `geosim check --keys`
     lists every key with its expected form and default, and the sample fields'
     run.toml files are complete examples.
     """
+    import geosim.config.runspec
     import geosim.pipeline
 
     run_spec = load(ctx, spec, overrides)
     rows = [("run spec", run_spec.name), ("spec sha256", run_spec.sha256)]
     rows += geosim.pipeline.describe_spec(run_spec)
-    if not spec_only:
+    if not spec_only and geosim.config.runspec.has_units(run_spec):
+        import geosim.units_run
+        rows += geosim.units_run.describe_units(geosim.units_run.prepare_units(run_spec, progress=reporter(ctx)))
+    elif not spec_only:
         data = geosim.pipeline.prepare_data(run_spec, progress=reporter(ctx))
         grid = geosim.pipeline.make_grid(run_spec, data)
         data.notes.extend(geosim.pipeline.preflight(run_spec, data, grid))

@@ -30,11 +30,19 @@ def run(ctx, spec, out_dir, overrides, workers, cluster, overwrite, no_resume, c
     written (verified by checksum) and computes only the rest. A folder holding a
     run of a different spec is refused unless --overwrite is given.
     """
+    import geosim.config.runspec
     import geosim.outputs
     import geosim.pipeline
 
     run_spec = load(ctx, spec, overrides, workers=workers, cluster=cluster)
     progress = reporter(ctx)
+    units = geosim.config.runspec.has_units(run_spec)
+    if check_only and units:
+        import geosim.units_run
+        rows = geosim.pipeline.describe_spec(run_spec)
+        rows += geosim.units_run.describe_units(geosim.units_run.prepare_units(run_spec, progress))
+        table(rows, title="run spec and inputs are valid; nothing was computed")
+        return
     if check_only:
         data = geosim.pipeline.prepare_data(run_spec, progress)
         grid = geosim.pipeline.make_grid(run_spec, data)
@@ -44,12 +52,18 @@ def run(ctx, spec, out_dir, overrides, workers, cluster, overwrite, no_resume, c
         table(rows, title="run spec and inputs are valid; nothing was computed")
         return
     start = time.perf_counter()
-    result = geosim.pipeline.run(run_spec, out_dir, overwrite=overwrite, resume=not no_resume, progress=progress)
+    if units:  # several geological units: each modelled on its own, joined
+        import geosim.units_run
+        job = geosim.units_run.run
+    else:
+        job = geosim.pipeline.run
+    result = job(run_spec, out_dir, overwrite=overwrite, resume=not no_resume, progress=progress)
     progress.close()
     n = len(result.kept) + len(result.computed)
     realizations = f"{n} ({len(result.computed)} computed"
     realizations += f", {len(result.kept)} kept from an earlier run)" if result.kept else ")"
-    rows = [("output folder", str(result.out_dir)), ("variogram model", result.model.text(result.ndim).strip())]
+    rows = [("output folder", str(result.out_dir)),
+            ("variogram model" + (" per unit" if units else ""), result.model.text(result.ndim).strip())]
     if result.crossval:
         rows.append(("cross-validation", crossval_text(result.crossval)))
     rows.append(("realizations", realizations))

@@ -36,7 +36,7 @@ from .errors import InputError
 from .io import plots as io_plots
 from .io.decision import write_decision_csv
 from .io.geotiff import (GDAL_SETTINGS, as_stored, assemble_realizations, grid_windows, level_grid, level_paths, level_tags,
-                         open_checked, read_windows, verify_realization, write_raster, write_windows)
+                         open_checked, read_windows, verify_realization, with_layers, write_raster, write_windows)
 from .io.report import file_sha256
 from .summaries import (decision_rows, decision_spread, summarize_windows, summary_band_descriptions,
                         summary_band_names)
@@ -48,7 +48,8 @@ def summarize_realizations(paths: Sequence[str | os.PathLike], grid, cutoffs: Se
                            out_path: str | os.PathLike, units: str = "",
                            tags: Mapping[str, str] | None = None, window: int | None = None,
                            overwrite: bool = False,
-                           progress: Callable[[int, int, str], None] | None = None) -> Path:
+                           progress: Callable[[int, int, str], None] | None = None,
+                           layers: Sequence[tuple[np.ndarray, str, str]] = ()) -> Path:
     """Stream single-band realization GeoTIFFs into a summary GeoTIFF (COG layout).
 
     Reads all ``paths`` one window at a time (memory is about
@@ -74,6 +75,9 @@ def summarize_realizations(paths: Sequence[str | os.PathLike], grid, cutoffs: Se
     overwrite : bool
     progress : callable, optional
         ``progress(done, total, "summary")`` after each window.
+    layers : sequence, optional
+        ``(array of the grid's shape, description, unit)`` written as last bands
+        (e.g. unit codes).
     """
     if len(paths) < 1:
         raise ValueError("no realization files to summarize")
@@ -83,10 +87,11 @@ def summarize_realizations(paths: Sequence[str | os.PathLike], grid, cutoffs: Se
         block = first.block_shapes[0][0] if first.profile.get("tiled") else 256
     win = int(window or block)
     windows = grid_windows(grid, win)
-    bands = summarize_windows(read_windows(paths, grid, windows), cutoffs)
-    return write_windows(out_path, grid, len(summary_band_names(cutoffs)), bands,
+    bands = with_layers(summarize_windows(read_windows(paths, grid, windows), cutoffs), layers)
+    return write_windows(out_path, grid, len(summary_band_names(cutoffs)) + len(layers), bands,
                          total=sum(1 for _ in windows()),
-                         descriptions=summary_band_descriptions(cutoffs, units), tags=tags,
+                         descriptions=summary_band_descriptions(cutoffs, units) + [(d, u) for _, d, u in layers],
+                         tags=tags,
                          overwrite=overwrite, progress=progress, what="summary")
 
 
@@ -137,6 +142,9 @@ class RealizationWriter:
     ranking : callable, optional
         ``ranking(writer, records) -> dict`` of files, run by ``finish`` after
         everything else is assembled and before realization files are removed.
+    layers : sequence, optional
+        ``(array of grid.shape, description, unit)``: fixed layers (e.g. unit codes)
+        that ``finish`` appends as last bands to ``realizations.tif`` and ``summary.tif``.
 
     Notes
     -----
@@ -150,7 +158,8 @@ class RealizationWriter:
                  units: str = "", back_transform: Callable[[np.ndarray], np.ndarray] | None = None,
                  figures: Callable[[np.ndarray], dict] | None = None,
                  measure: Callable[[np.ndarray, np.ndarray], dict] | None = None, metal_unit: str = "",
-                 overwrite: bool = False, derived: Sequence = (), ranking: Callable | None = None):
+                 overwrite: bool = False, derived: Sequence = (), ranking: Callable | None = None,
+                 layers: Sequence[tuple[np.ndarray, str, str]] = ()):
         self.folder = Path(folder)
         self.grid = grid
         self.tags = dict(tags or {})
@@ -162,6 +171,7 @@ class RealizationWriter:
         self.overwrite = overwrite
         self.derived = tuple(derived)
         self.ranking = ranking
+        self.layers = tuple(layers)
 
     def realization_paths(self, index: int) -> list[Path]:
         """The per-realization file(s) of realization ``index``."""
@@ -242,14 +252,15 @@ class RealizationWriter:
                 g2 = level_grid(self.grid, k)
                 files = [self.folder / r["files"][k] for r in records]
                 tags = {**self.tags, **level_tags(self.grid, k)}
+                layers = [(a if self.grid.ndim == 2 else a[k], d, u) for a, d, u in self.layers]
                 if stack:
                     target = level_paths(self.folder / "realizations.tif", self.grid)[k]
                     assemble_realizations(files, g2, target, units=self.units, tags=tags, indices=indices,
-                                          overwrite=self.overwrite, progress=progress)
+                                          overwrite=self.overwrite, progress=progress, layers=layers)
                     out["realizations"].append(str(target))
                 target = level_paths(self.folder / "summary.tif", self.grid)[k]
                 summarize_realizations(files, g2, cutoffs, target, units=self.units, tags=tags,
-                                       overwrite=self.overwrite, progress=progress)
+                                       overwrite=self.overwrite, progress=progress, layers=layers)
                 out["summary"].append(str(target))
         figures = [r["figures"] for r in records]
         if all(f is not None for f in figures):

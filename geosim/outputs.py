@@ -458,8 +458,9 @@ def _support_plots(spec: RunSpec, writer, records: Sequence[Mapping], out_dir: P
 
 
 def _cubes_and_tables(spec: RunSpec, grid, out_dir: Path, records: Sequence[Mapping], files: Mapping,
-                      tags: Mapping[str, str]) -> dict[str, list[str]]:
-    """The summary and realization cubes and the block-model tables, from the run's GeoTIFFs."""
+                      tags: Mapping[str, str], layers: Mapping[str, tuple] | None = None) -> dict[str, list[str]]:
+    """The summary and realization cubes and the block-model tables, from the run's GeoTIFFs;
+    ``layers`` (``name -> (array of grid.shape, long name, units)``, e.g. unit codes) are added to each."""
     from .io.geotiff import read_realization
     from .summaries import summary_band_names
     fmt, tables = cube_format(spec, grid), block_model_formats(spec, grid)
@@ -474,7 +475,7 @@ def _cubes_and_tables(spec: RunSpec, grid, out_dir: Path, records: Sequence[Mapp
     indices = [int(r["index"]) for r in records]
     written: dict[str, list[str]] = {}
     if fmt is not None:
-        from .io.cube import realizations_dataset, summary_dataset, write_cube
+        from .io.cube import add_layers, realizations_dataset, summary_dataset, write_cube
         name = variable_name(spec["data.value"])
         u = f" ({units})" if units else ""
 
@@ -482,16 +483,18 @@ def _cubes_and_tables(spec: RunSpec, grid, out_dir: Path, records: Sequence[Mapp
             return read_realization(paths[j], grid).astype(np.float32)
 
         suffix = CUBE_SUFFIX[fmt]
-        written["summary_cube"] = [str(write_cube(out_dir / f"summary{suffix}", summary_dataset(
-            grid, bands, cutoffs, units=units, provenance=tags), overwrite=True))]
-        written["realizations_cube"] = [str(write_cube(out_dir / f"realizations{suffix}", realizations_dataset(
-            grid, reader, indices, name=name, long_name=f"{spec['data.value']}{u}, conditional realization",
-            units=units, provenance=tags), overwrite=True))]
+        written["summary_cube"] = [str(write_cube(out_dir / f"summary{suffix}", add_layers(summary_dataset(
+            grid, bands, cutoffs, units=units, provenance=tags), layers), overwrite=True))]
+        written["realizations_cube"] = [str(write_cube(out_dir / f"realizations{suffix}", add_layers(
+            realizations_dataset(grid, reader, indices, name=name,
+                                 long_name=f"{spec['data.value']}{u}, conditional realization", units=units,
+                                 provenance=tags), layers), overwrite=True))]
     if tables:
         from .io.cube import summary_variables, write_block_model
         variables, _ = summary_variables(bands, cutoffs, units)
         variables.pop("prob_above", None)
         table = {k: (v, d, u) for k, (v, d, u) in variables.items()}
+        table.update(layers or {})
         for c, band in zip(cutoffs, bands[5:]):
             table[f"prob_above_{c:g}"] = (band, f"probability above {c:g} (fraction 0-1 of realizations)", "")
         if out["block_model_realizations"]:

@@ -44,7 +44,7 @@ from typing import Any
 
 import numpy as np
 
-from .config.runspec import RunSpec, load_spec
+from .config.runspec import RunSpec, has_units, load_spec
 from .errors import InputError
 from .inputs import (check_samples, decluster, default_template, experimental_variograms, fit_transform,
                      grid_extent, load_samples, mask_domain, neighbourhood, read_domain_geometry, read_holes,
@@ -74,6 +74,10 @@ __all__ = ["PreparedData", "VariogramResult", "CrossValidation", "EstimateResult
 def prepare_data(spec: RunSpec, progress: Progress | None = None) -> PreparedData:
     """Read, decluster and transform the samples (:func:`load_samples`, :func:`decluster`,
     :func:`fit_transform`)."""
+    if has_units(spec):
+        raise InputError("the run spec models several units ([units] and [unit.<name>] tables)", file=spec.name,
+                         field="units", fix="run the whole job: `geosim run` (geosim.units_run.run); its steps "
+                                            "cannot be run one by one")
     samples = load_samples(spec).complete(spec["data.value"])  # composites may lack the value over a gap
     return prepare_samples(spec, samples, progress)
 

@@ -244,6 +244,18 @@ def summary_dataset(grid, bands: np.ndarray, cutoffs: Sequence[float], *, units:
     return ds
 
 
+def add_layers(ds, layers: Mapping[str, tuple] | None):
+    """``ds`` with fixed grid variables added (``name -> (array of the grid's shape, long_name, units)``),
+    e.g. the unit code of every node beside realizations or summaries."""
+    spatial = tuple(d for d in ("z", "y", "x") if d in ds.dims)
+    for name, (data, long_name, units) in (layers or {}).items():
+        attrs = {"long_name": long_name, "grid_mapping": GRID_MAPPING}
+        if units:
+            attrs["units"] = units
+        ds[name] = (spatial, np.asarray(data), attrs)
+    return ds
+
+
 def realizations_dataset(grid, reader: Callable[[int], np.ndarray], indices: Sequence[int], *, name: str,
                          long_name: str, units: str = "", provenance: Mapping[str, str] | None = None):
     """The realization cube, read lazily one realization at a time (``reader(j)`` gives the j-th)."""

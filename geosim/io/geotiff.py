@@ -334,22 +334,37 @@ def read_realization(paths: Sequence[str | os.PathLike], grid, band: int = 1) ->
 def assemble_realizations(paths: Sequence[str | os.PathLike], grid, out_path: str | os.PathLike, *,
                           units: str = "", tags: Mapping[str, str] | None = None,
                           indices: Sequence[int] | None = None, overwrite: bool = False,
-                          progress: Callable[[int, int, str], None] | None = None) -> Path:
+                          progress: Callable[[int, int, str], None] | None = None,
+                          layers: Sequence[tuple[np.ndarray, str, str]] = ()) -> Path:
     """Stack single-band realization files of one 2-D level into one multiband COG.
 
     Band ``b`` holds ``paths[b - 1]`` and is described "realization i" with
-    ``i`` from ``indices`` (default 0, 1, ...).  Memory is one window of every
-    band (``tile_size(grid)**2 x len(paths)`` values).
+    ``i`` from ``indices`` (default 0, 1, ...); ``layers`` (``(array of the 2-D
+    grid's shape, description, unit)``, e.g. unit codes) follow as last bands.
+    Memory is one window of every band (``tile_size(grid)**2 x len(paths)`` values).
     """
     indices = list(range(len(paths))) if indices is None else list(indices)
     u = f" ({units})" if units else ""
-    descriptions = [(f"realization {i}{u}", units) for i in indices]
+    descriptions = [(f"realization {i}{u}", units) for i in indices] + [(d, unit) for _, d, unit in layers]
     size = tile_size(grid)
 
     windows = grid_windows(grid, size)
-    return write_windows(out_path, grid, len(paths), read_windows(paths, grid, windows),
+    return write_windows(out_path, grid, len(paths) + len(layers),
+                         with_layers(read_windows(paths, grid, windows), layers),
                          total=sum(1 for _ in windows()), descriptions=descriptions, tags=tags,
                          overwrite=overwrite, progress=progress, what="realizations")
+
+
+def with_layers(blocks: Iterable[tuple[Any, np.ndarray]], layers: Sequence[tuple[np.ndarray, str, str]]
+                ) -> Iterator[tuple[Any, np.ndarray]]:
+    """Each window's stack with the same window of every 2-D layer appended as further bands."""
+    for w, stack in blocks:
+        if layers:
+            rows = slice(int(w.row_off), int(w.row_off) + int(w.height))
+            cols = slice(int(w.col_off), int(w.col_off) + int(w.width))
+            stack = np.concatenate([stack, np.stack([np.asarray(a)[rows, cols] for a, _, _ in layers]
+                                                    ).astype(stack.dtype)])
+        yield w, stack
 
 
 # moved up to geosim.ensemble, which puts rasters, statistics and figures together;
