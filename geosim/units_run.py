@@ -284,7 +284,11 @@ def _soft_samples(spec: RunSpec, table: UnitTable, samples, codes: np.ndarray, p
 def fit_units(units: UnitsModel, progress=None) -> None:
     """Each unit's variogram model and, when the outputs ask, its cross-validation (own samples)."""
     for p in units.pieces.values():
-        p.variogram = variogram_model(p.spec, p.data, progress=progress)
+        try:
+            p.variogram = variogram_model(p.spec, p.data, progress=progress)
+        except InputError as exc:  # name the unit: its own settings or the top-level ones it takes
+            raise InputError(f"unit {p.name}: {exc.message}", file=exc.file, row=exc.row,
+                             field=f"unit.{p.name}.{exc.field}" if exc.field else None, fix=exc.fix) from None
         p.model = p.variogram.model
         if p.spec["outputs.cross_validation"]:
             p.crossval = cross_validate(p.spec, p.data, p.model, progress=progress)

@@ -350,6 +350,7 @@ def make_alluvial_aquifer(out: Path) -> None:
         raise RuntimeError(f"wells' centroid lies in UTM zone {zone}, not in EPSG:{AQUIFER_EPSG}")
     _write_csv(out / "wells.csv", ["well_id", "lon", "lat", "k_ms"],
                [[f"LV{i + 1:02d}", f"{a:.7f}", f"{b:.7f}", f"{c:.3e}"] for i, (a, b, c) in enumerate(zip(lon, lat, k))])
+    make_aquifer_units(out, xy, (lon, lat), valley)
     _write_json(out / "domain.geojson", _domain_feature_collection(valley, AQUIFER_EPSG, AQUIFER_NAME))
     # planned wells, for P10/P50/P90 at given points (query_points in run.toml)
     px, py = Transformer.from_crs(4326, AQUIFER_EPSG, always_xy=True).transform(
@@ -362,6 +363,67 @@ def make_alluvial_aquifer(out: Path) -> None:
         AQUIFER_MODEL, {"kind": "lognormal", "variable": "k_ms", "log10_mean": AQUIFER_LOG10_MEAN,
                         "log10_std": AQUIFER_LOG10_STD, "formula": "k_ms = 10 ** (log10_mean + log10_std * y)"},
         f"EPSG:{AQUIFER_EPSG}", "exact Gaussian simulation at the wells in UTM, then lon/lat with pyproj"))
+
+
+# Two units of the same aquifer, for a run of several units (run_units.toml): the channel belt of
+# gravel and sand, within CHANNEL_HALF_WIDTH of the meandering channel axis, and the overbank silt and
+# clay around it, each with its own model and marginal
+CHANNEL_HALF_WIDTH = 250.0  # metres across the valley
+UNIT_CODES = {"gravel": 1, "silt": 2}
+GRAVEL_MODEL = Nugget(0.1) + Exponential(0.9, Anisotropy((1800.0, 300.0), azimuth=30.0))
+GRAVEL_LOG10_MEAN, GRAVEL_LOG10_STD = -3.3, 0.5
+SILT_MODEL = Nugget(0.2) + Spherical(0.8, Anisotropy((700.0, 700.0)))
+SILT_LOG10_MEAN, SILT_LOG10_STD = -5.2, 0.6
+UNITS_CELL = 25.0  # metres, the cells of the unit-code raster
+
+
+def make_aquifer_units(out: Path, xy: np.ndarray, lonlat: tuple, valley: Polygon) -> None:
+    """The channel-belt and overbank units of the aquifer: the wells' values drawn again from each
+    unit's own model and marginal (``wells_units.csv``), and the unit code of every 25 m cell
+    (``units.tif``, EPSG:32725)."""
+    import rasterio
+    from rasterio.transform import from_origin
+    centre = np.array([482500.0, 5716000.0])
+    axis, _, _ = _valley_frame(centre)
+    a = math.radians(30.0)
+    along, across = np.array([math.sin(a), math.cos(a)]), np.array([math.cos(a), -math.sin(a)])
+
+    def code_at(points: np.ndarray) -> np.ndarray:
+        u, v = (points - centre) @ along, (points - centre) @ across
+        return np.where(np.abs(v - axis(u)) <= CHANNEL_HALF_WIDTH, UNIT_CODES["gravel"], UNIT_CODES["silt"])
+
+    unit = code_at(xy)
+    log10k = np.empty(len(xy))
+    for code, model, mean, std, stream in ((1, GRAVEL_MODEL, GRAVEL_LOG10_MEAN, GRAVEL_LOG10_STD, 5),
+                                           (2, SILT_MODEL, SILT_LOG10_MEAN, SILT_LOG10_STD, 6)):
+        sel = unit == code
+        log10k[sel] = mean + std * gaussian_at(xy[sel], model, _rng(stream))
+    names = {c: n for n, c in UNIT_CODES.items()}
+    lon, lat = lonlat
+    _write_csv(out / "wells_units.csv", ["well_id", "lon", "lat", "k_ms", "unit"],
+               [[f"LV{i + 1:02d}", f"{x:.7f}", f"{y:.7f}", f"{10.0 ** k:.3e}", names[int(c)]]
+                for i, (x, y, k, c) in enumerate(zip(lon, lat, log10k, unit))])
+    x0, y0, x1, y1 = (math.floor(b / UNITS_CELL) * UNITS_CELL if i < 2 else math.ceil(b / UNITS_CELL) * UNITS_CELL
+                      for i, b in enumerate(valley.bounds))
+    nx, ny = int(round((x1 - x0) / UNITS_CELL)), int(round((y1 - y0) / UNITS_CELL))
+    cx = x0 + (np.arange(nx) + 0.5) * UNITS_CELL
+    cy = y1 - (np.arange(ny) + 0.5) * UNITS_CELL
+    gx, gy = np.meshgrid(cx, cy)
+    codes = code_at(np.column_stack([gx.ravel(), gy.ravel()])).reshape(ny, nx).astype(np.uint8)
+    with atomic_output(out / "units.tif", overwrite=True) as tmp:
+        with rasterio.open(tmp, "w", driver="GTiff", height=ny, width=nx, count=1, dtype="uint8",
+                           crs=f"EPSG:{AQUIFER_EPSG}", transform=from_origin(x0, y1, UNITS_CELL, UNITS_CELL),
+                           nodata=0, compress="deflate") as dst:
+            dst.write(codes, 1)
+            dst.set_band_description(1, "unit code: 1 gravel (channel belt), 2 silt (overbank)")
+    _write_json(out / "units_true_model.json", {
+        "units": {name: {"code": code, **_true_model_record(model, {
+            "kind": "lognormal", "variable": "k_ms", "log10_mean": mean, "log10_std": std,
+            "formula": "k_ms = 10 ** (log10_mean + log10_std * y)"}, f"EPSG:{AQUIFER_EPSG}",
+            "exact Gaussian simulation of the unit's model at its wells in UTM")}
+            for name, code, model, mean, std in (("gravel", 1, GRAVEL_MODEL, GRAVEL_LOG10_MEAN, GRAVEL_LOG10_STD),
+                                                 ("silt", 2, SILT_MODEL, SILT_LOG10_MEAN, SILT_LOG10_STD))},
+        "channel_half_width_m": CHANNEL_HALF_WIDTH, "unit_raster_cell_m": UNITS_CELL})
 
 
 def make_all(out: Path = HERE) -> None:
