@@ -157,6 +157,25 @@ def test_true_model_files_and_readmes_state_the_script_model(script, folder, nam
     assert f"EPSG:{getattr(script, name + '_EPSG')}" in readme
 
 
+def test_aquifer_units_agree_with_their_raster_and_readme(script):
+    # each well's logged unit is the unit of the raster cell it falls in (both made by one rule),
+    # and the README states both unit models
+    import rasterio
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", geosim.GeosimWarning)
+        wells = geosim.read_points(AQUIFER / "wells_units.csv", x="lon", y="lat", values="k_ms", crs="EPSG:4326")
+    header, rows = _rows(AQUIFER / "wells_units.csv")
+    logged = [script.UNIT_CODES[r[header.index("unit")]] for r in rows]
+    with rasterio.open(AQUIFER / "units.tif") as src:
+        assert src.crs.to_epsg() == script.AQUIFER_EPSG
+        mapped = [int(v[0]) for v in src.sample(wells.coords)]
+    assert mapped == logged and set(logged) == {1, 2}
+    readme = (AQUIFER / "README.md").read_text()
+    assert str(script.GRAVEL_MODEL) in readme and str(script.SILT_MODEL) in readme
+    record = json.loads((AQUIFER / "units_true_model.json").read_text())
+    assert Model.from_dicts(record["units"]["silt"]["model"]) == script.SILT_MODEL
+
+
 # ---------------------------------------------------------------------------
 # the script
 # ---------------------------------------------------------------------------
