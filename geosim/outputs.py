@@ -371,7 +371,6 @@ def write_summaries(spec: RunSpec, out_dir: Path, data: PreparedData, model, gri
 
     Returns output kind -> list of paths.
     """
-    from .io.report import write_report
     n = spec["simulation.realizations"]
     out = spec["outputs"]
     files = simulation.writer.finish(simulation.records, cutoffs=out["cutoffs"], stack=True,
@@ -398,7 +397,14 @@ def write_summaries(spec: RunSpec, out_dir: Path, data: PreparedData, model, gri
         files["plots"] += [str(p) for p in _support_plots(spec, simulation.writer, simulation.records, out_dir)]
     files.update(_cubes_and_tables(spec, grid, out_dir, simulation.records, files,
                                    provenance_tags(spec, data, model)))
-    if not out["keep_realizations"]:
+    return close_outputs(spec, grid, out_dir, files, report)
+
+
+def close_outputs(spec: RunSpec, grid, out_dir: Path, files: dict[str, list[str]], report: Mapping) -> dict:
+    """Remove what the outputs do not keep (realization files, per-level GeoTIFFs beside a cube)
+    and write the JSON run report; returns ``files`` without the removed ones."""
+    from .io.report import write_report
+    if not spec["outputs.keep_realizations"]:
         removed = [Path(f) for f in files.pop("realization_files")]  # block and upscaled ones too
         for f in removed:
             f.unlink()

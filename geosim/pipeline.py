@@ -38,7 +38,7 @@ from __future__ import annotations
 import logging
 import os
 import time
-from collections.abc import Mapping
+from collections.abc import Callable, Mapping
 from pathlib import Path
 from typing import Any
 
@@ -383,29 +383,39 @@ def run(spec: RunSpec | str | os.PathLike, out_dir: str | os.PathLike, *, overwr
         spec = load_spec(spec)
     out_dir = Path(out_dir)
     timings: dict[str, float] = {}
-
-    def timed(name, func, *args, **kwargs):
-        t0 = time.perf_counter()
-        value = func(*args, **kwargs)
-        timings[name] = time.perf_counter() - t0
-        log.info("%s: %.1f s", name, timings[name])
-        return value
-
+    timed = step_timer(timings)
     data = timed("read and transform data", prepare_data, spec, progress)
     for note in data.notes:
         log.info("%s", note)
     grid = timed("grid and domain", make_grid, spec, data)
     data.notes.extend(timed("checks", preflight, spec, data, grid))
     support_sinks(spec, grid, out_dir, {})  # bad query points or ranking region fail before the folder is claimed
-    fresh = folder_is_empty(make_folder(out_dir))
     log.info("%r", grid)
-    # claim the folder (or fail on another run's) before anything is written into it
+    return run_in_folder(spec, out_dir, overwrite, resume,
+                         lambda: _run_steps(spec, data, grid, out_dir, resume, progress, timed, timings))
+
+
+def step_timer(timings: dict[str, float]) -> Callable:
+    """``timed(name, func, *args, **kwargs)``: calls ``func``, logs its time and keeps it in ``timings``."""
+    def timed(name, func, *args, **kwargs):
+        t0 = time.perf_counter()
+        value = func(*args, **kwargs)
+        timings[name] = time.perf_counter() - t0
+        log.info("%s: %.1f s", name, timings[name])
+        return value
+    return timed
+
+
+def run_in_folder(spec: RunSpec, out_dir: Path, overwrite: bool, resume: bool, steps: Callable[[], RunResult]
+                  ) -> RunResult:
+    """Claim ``out_dir`` for the spec's run (or fail on another run's) before anything is written into
+    it, then run ``steps``.  A run that fails before finishing a realization leaves a new folder as it
+    found it, so the same folder takes the corrected spec without ``overwrite``."""
+    fresh = folder_is_empty(make_folder(out_dir))
     open_output(spec, make_folder(out_dir), overwrite=overwrite, resume=resume)
     try:
-        return _run_steps(spec, data, grid, out_dir, resume, progress, timed, timings)
+        return steps()
     except BaseException:
-        # a run that failed before finishing a realization leaves a new folder as it found it,
-        # so the same folder takes the corrected spec without --overwrite
         if fresh and not any((out_dir / STATE_DIR).glob("r[0-9]*.json")):
             empty_folder(out_dir)
         raise

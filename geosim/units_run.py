@@ -36,7 +36,6 @@ farther than ``d`` from every node of ``a`` have no influence on ``a`` at all.
 from __future__ import annotations
 
 import os
-import time
 from collections.abc import Mapping, Sequence
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -49,8 +48,7 @@ from .errors import InputError
 from .pipeline import (cross_validate, load_samples, make_grid, metal_unit, neighbourhood, prepare_samples,
                        preflight, sample_ids, variogram_model)
 from .results import PreparedData, RunResult, SimulationResult
-from .runstate import (STATE_DIR, RecordingSink, completed_realizations, empty_folder, folder_is_empty, make_folder,
-                       open_output, with_folder_lock)
+from .runstate import STATE_DIR, RecordingSink, completed_realizations, make_folder, open_output, with_folder_lock
 from .units import NODATA, UnitTable, node_units, sample_units
 
 __all__ = ["UnitPiece", "UnitsModel", "UnitsEngine", "UnitsPlan", "UnitsBackTransform", "UnitsMeasure",
@@ -598,11 +596,8 @@ def summarize_units(spec: RunSpec, units: UnitsModel, simulation: SimulationResu
                     extra: Mapping[str, Any] | None = None, progress=None) -> dict[str, list[str]]:
     """Joined rasters (with the unit-code layer), total and per-unit decision figures, per-unit
     reproduction checks and plots, and the report with one section per unit."""
-    import contextlib
-
     from .io import plots
-    from .io.report import write_report
-    from .pipeline import _cubes_and_tables, _relabel as relabel, _support_plots, _support_report, level_geotiffs
+    from .pipeline import _cubes_and_tables, _relabel as relabel, _support_plots, _support_report, close_outputs
     from .summaries import decision_spread
     out = spec["outputs"]
     records = simulation.records
@@ -678,19 +673,7 @@ def summarize_units(spec: RunSpec, units: UnitsModel, simulation: SimulationResu
         report["change_of_support"] = support
     if extra:
         report.update(extra)
-    if not out["keep_realizations"]:
-        removed = [Path(f) for f in files.pop("realization_files")]
-        for f in removed:
-            f.unlink()
-        for folder in {f.parent for f in removed}:
-            with contextlib.suppress(OSError):
-                folder.rmdir()
-    if not level_geotiffs(spec, grid):
-        for kind in ("summary", "realizations"):
-            for f in files.pop(kind, []):
-                Path(f).unlink()
-    files["report"] = [str(write_report(out_dir / "report.json", report, overwrite=True))]
-    return files
+    return close_outputs(spec, grid, out_dir, files, report)
 
 
 @with_folder_lock
@@ -707,32 +690,18 @@ def run(spec: RunSpec | str | os.PathLike, out_dir: str | os.PathLike, *, overwr
         ``model`` is the :class:`UnitsModel` (its ``text()`` lists each unit's model).
     """
     import logging
-    log = logging.getLogger("geosim")
+    from .pipeline import _support_sinks, run_in_folder, step_timer
     if not isinstance(spec, RunSpec):
         spec = load_spec(spec)
     out_dir = Path(out_dir)
     timings: dict[str, float] = {}
-
-    def timed(name, func, *args, **kwargs):
-        t0 = time.perf_counter()
-        value = func(*args, **kwargs)
-        timings[name] = time.perf_counter() - t0
-        log.info("%s: %.1f s", name, timings[name])
-        return value
-
+    timed = step_timer(timings)
     units = timed("read data and units", prepare_units, spec, progress)
     for note in units.notes:
-        log.info("%s", note)
-    from .pipeline import _support_sinks
+        logging.getLogger("geosim").info("%s", note)
     _support_sinks(spec, units.modelled_grid, out_dir, {})  # bad query points fail before the folder is claimed
-    fresh = folder_is_empty(make_folder(out_dir))
-    open_output(spec, make_folder(out_dir), overwrite=overwrite, resume=resume)
-    try:
-        return _run_steps(spec, units, out_dir, resume, progress, timed, timings)
-    except BaseException:
-        if fresh and not any((out_dir / STATE_DIR).glob("r[0-9]*.json")):
-            empty_folder(out_dir)
-        raise
+    return run_in_folder(spec, out_dir, overwrite, resume,
+                         lambda: _run_steps(spec, units, out_dir, resume, progress, timed, timings))
 
 
 def _run_steps(spec, units, out_dir, resume, progress, timed, timings) -> RunResult:
