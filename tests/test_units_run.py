@@ -380,3 +380,37 @@ def test_sample_field_with_units_runs_from_the_command_line(tmp_path):
         "decision_spread_by_unit.csv", "units/gravel/cross_validation.csv", "units/silt/cross_validation.csv"])
     checked = geosim_cmd("check", tmp_path / "aq" / "run_units.toml")
     assert checked.returncode == 0 and "unit gravel (1)" in checked.stdout and "unit silt (2)" in checked.stdout
+
+
+def test_three_dimensional_units_and_the_plan_size(tmp_path, field):
+    """A 3-D grid: the raster's codes on every level, each unit simulated on its own nodes, the unit
+    band in each level's summary; the memory check counts every unit's plan."""
+    from geosim.simulation.runner import plan_bytes
+    xy, unit, grade = field
+    rng = np.random.default_rng(2)
+    path = _write(tmp_path / "a", xy, unit, grade, realizations=2)
+    table = path.read_text()
+    rows = (tmp_path / "a" / "pts.csv").read_text().splitlines()
+    (tmp_path / "a" / "pts.csv").write_text("\n".join([rows[0] + ",z"] + [
+        f"{r},{rng.uniform(0.0, 30.0):.2f}" for r in rows[1:]]) + "\n")
+    path.write_text(table.replace('y = "y"', 'y = "y"\nz = "z"').replace(
+        "cell = [10.0, 10.0]", "cell = [20.0, 20.0, 10.0]\nz_range = [0.0, 30.0]").replace(
+        "ranges = [120.0]", "ranges = [120.0, 120.0, 30.0]").replace("ranges = [220.0]", "ranges = [220.0, 220.0, 40.0]"
+        ).replace("plots = false", 'plots = false\ncube = "none"'))
+    spec = load_spec(path)
+    units = units_run.prepare_units(spec)
+    assert units.node_codes.shape == (3, 20, 30)
+    assert (units.node_codes[0] == units.node_codes[2]).all() and set(np.unique(units.node_codes)) == {1, 2}
+    units_run.fit_units(units)
+    plan = units_run.UnitsEngine("sequential").prepare(None, None, None, units.modelled_grid,
+                                                       parts=units_run._parts(spec, units),
+                                                       node_codes=units.node_codes)
+    assert plan_bytes(plan) > sum(plan_bytes(p) for p in plan.prepared[:1]) > 0
+    result = units_run.run(spec, tmp_path / "out")
+    assert result.ndim == 3
+    for k in range(3):
+        with rasterio.open(tmp_path / "out" / f"summary_z{k:03d}.tif") as src:
+            assert src.descriptions[-1] == "unit code"
+            np.testing.assert_array_equal(src.read(src.count), units.node_codes[k].astype(float))
+    blocks = _csv(tmp_path / "out" / "block_model.csv")  # 3-D: a block-model table, with each node's unit
+    assert len(blocks) == 1800 and {float(b["unit_code"]) for b in blocks} == {1.0, 2.0}

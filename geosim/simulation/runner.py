@@ -261,8 +261,15 @@ def simulate(data_coords, data_scores, model, grid, *, n_realizations: int, seed
 
 
 def plan_bytes(prepared) -> int:
-    """Bytes of the arrays an engine's prepared plan holds (its own attributes)."""
-    return sum(v.nbytes for v in getattr(prepared, "__dict__", {}).values() if isinstance(v, np.ndarray))
+    """Bytes of the arrays an engine's prepared plan holds (its own attributes, and those of the plans
+    in a tuple attribute, as a plan per geological unit)."""
+    total = 0
+    for v in getattr(prepared, "__dict__", {}).values():
+        if isinstance(v, np.ndarray):
+            total += v.nbytes
+        elif isinstance(v, tuple):
+            total += sum(plan_bytes(p) for p in v if hasattr(p, "__dict__"))
+    return total
 
 
 def fitting_workers(grid, prepared, n_workers: int, available: int | None = None, members: int = 1) -> int:
