@@ -146,8 +146,9 @@ def load_unit_samples(spec: RunSpec):
                              file=spec.name, field="units.samples.intervals",
                              fix="give the unit of each composite as a column of a point table")
         from .pipeline import read_holes
+        columns = {"hole": "hole", "from": "start", "to": "end", "code": "code"}  # spec key -> keyword
         logged = read_intervals(spec.resolve(source["intervals"]), table,
-                                **{k: source[k] for k in ("hole", "from", "to", "code") if k in source})
+                                **{columns[k]: source[k] for k in columns if k in source})
         comp = spec["data.composites"]
         samples = composite_by_unit(read_holes(spec), logged, comp["length"], min_fraction=comp["min_fraction"],
                                     residual=comp["residual"], min_sampled_fraction=comp["min_sampled_fraction"])
