@@ -254,6 +254,10 @@ def test_joined_outputs_carry_unit_codes_and_per_unit_figures(tmp_path, field):
         assert section["nodes"] == 1200 and section["samples"] == int((unit == section["code"]).sum())
     assert (out / "units" / "low" / "cross_validation.csv").exists()
     assert (out / "units" / "high" / "variogram_model.toml").exists()
+    # resumed with one more realization: the two written are kept (their per-unit records read back)
+    more = units_run.run(load_spec(tmp_path / "a" / "run.toml", {"simulation.realizations": 3}), out)
+    assert more.kept == [0, 1] and more.computed == [2]
+    assert len({r["realization"] for r in _csv(out / "decision_figures_by_unit.csv")}) == 3
 
 
 def _csv(path):
