@@ -45,7 +45,7 @@ import numpy as np
 
 from .config.runspec import RunSpec, has_units, load_spec, unit_spec, unit_table
 from .errors import InputError
-from .pipeline import (cross_validate, load_samples, make_grid, metal_unit, neighbourhood, prepare_samples,
+from .pipeline import (_relabel, cross_validate, load_samples, make_grid, metal_unit, neighbourhood, prepare_samples,
                        preflight, sample_ids, variogram_model)
 from .results import PreparedData, RunResult, SimulationResult
 from .runstate import STATE_DIR, RecordingSink, completed_realizations, make_folder, open_output, with_folder_lock
@@ -228,12 +228,6 @@ def prepare_units(spec: RunSpec, progress=None) -> UnitsModel:
     for p in pieces.values():
         notes.extend(f"{p.name}: {n}" for n in preflight(p.spec, p.data, p.grid))
     return UnitsModel(table, samples, codes, grid, nodes, pieces, notes)
-
-
-def _relabel(progress, label: str):
-    if progress is None:
-        return None
-    return lambda done, total, what: progress(done, total, label)
 
 
 def _source_text(source: Mapping) -> str:
@@ -598,13 +592,13 @@ def summarize_units(spec: RunSpec, units: UnitsModel, simulation: SimulationResu
     """Joined rasters (with the unit-code layer), total and per-unit decision figures, per-unit
     reproduction checks and plots, and the report with one section per unit."""
     from .io import plots
-    from .pipeline import _cubes_and_tables, _relabel as relabel, _support_plots, _support_report, close_outputs
+    from .pipeline import _cubes_and_tables, _support_plots, _support_report, close_outputs
     from .summaries import decision_spread
     out = spec["outputs"]
     records = simulation.records
     writer = simulation.writer
     files = writer.finish(records, cutoffs=out["cutoffs"], stack=True, keep_realization_files=True,
-                          plots=out["plots"], progress=relabel(progress, "summary windows"))
+                          plots=out["plots"], progress=_relabel(progress, "summary windows"))
     tags = _tags(spec, units)
     grid = units.modelled_grid
     measures = [r["checks"] for r in records]
