@@ -144,7 +144,8 @@ class RealizationWriter:
         everything else is assembled and before realization files are removed.
     layers : sequence, optional
         ``(array of grid.shape, description, unit)``: fixed layers (e.g. unit codes)
-        that ``finish`` appends as last bands to ``realizations.tif`` and ``summary.tif``.
+        written as last bands of each realization's file, and appended by ``finish`` to
+        ``realizations.tif`` and ``summary.tif``.
 
     Notes
     -----
@@ -191,8 +192,10 @@ class RealizationWriter:
         (self.folder / "realizations").mkdir(parents=True, exist_ok=True)
         target = self.folder / "realizations" / f"r{index:04d}.tif"  # write_raster adds _z000... in 3-D
         u = f" ({self.units})" if self.units else ""
-        written = write_raster(target, values, self.grid, descriptions=[(f"realization {index}{u}", self.units)],
-                               tags={**self.tags, "realization": str(index)}, overwrite=self.overwrite)
+        bands = np.stack([values] + [a for a, _, _ in self.layers]) if self.layers else values
+        written = write_raster(target, bands, self.grid, descriptions=[(f"realization {index}{u}", self.units)] + [
+            (d, unit) for _, d, unit in self.layers], tags={**self.tags, "realization": str(index)},
+                               overwrite=self.overwrite)
         record = {"index": int(index),
                   "files": [str(p.relative_to(self.folder)) for p in written],
                   "sha256": [file_sha256(p) for p in written],

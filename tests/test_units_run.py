@@ -237,6 +237,9 @@ def test_joined_outputs_carry_unit_codes_and_per_unit_figures(tmp_path, field):
         np.testing.assert_array_equal(src.read(src.count), codes)
     with rasterio.open(tmp_path / "a" / "units.tif") as src:
         np.testing.assert_array_equal(codes, src.read(1).astype(float))
+    with rasterio.open(out / "realizations" / "r0001.tif") as src:  # each realization's own file too
+        assert src.count == 2 and src.descriptions[-1] == "unit code"
+        np.testing.assert_array_equal(src.read(2), codes)
     # per-unit decision figures add up to the total: areas above a cut-off are additive
     total = {(int(r["realization"]), float(r["threshold"])): float(r["area"]) for r in _csv(out / "decision_figures.csv")}
     by_unit: dict = {}
