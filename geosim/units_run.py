@@ -618,6 +618,11 @@ def summarize_units(spec: RunSpec, units: UnitsModel, simulation: SimulationResu
             files["unit_plots"].append(str(plots.plot_variogram_reproduction(
                 validation[p.code]["variogram"], folder / "variogram_reproduction.png", model=p.model,
                 ndim=grid.ndim, overwrite=True)))
+            figures = [r["checks"]["units"][str(p.code)]["figures"] for r in records]
+            if figures and all(f is not None for f in figures):
+                files["unit_plots"].append(str(plots.plot_decision_spread(
+                    [{k: np.asarray(v) for k, v in f.items()} for f in figures], folder / "decision_spread.png",
+                    units=spec["data.units"], overwrite=True)))
         files.setdefault("plots", [])
         files["plots"] += [str(x) for x in _support_plots(spec, writer, records, out_dir)]
     layer = {"unit_code": (_code_layer(units), "unit code", "")}
