@@ -45,8 +45,10 @@ import numpy as np
 
 from .config.runspec import RunSpec, has_units, load_spec, unit_spec, unit_table
 from .errors import InputError
-from .pipeline import (_relabel, cross_validate, load_samples, make_grid, metal_unit, neighbourhood, prepare_samples,
-                       preflight, sample_ids, variogram_model)
+from .inputs import load_samples, neighbourhood, read_holes, sample_ids
+from .outputs import metal_unit
+from .pipeline import cross_validate, make_grid, prepare_samples, preflight, variogram_model
+from .progress import relabel
 from .results import PreparedData, RunResult, SimulationResult
 from .runstate import STATE_DIR, RecordingSink, completed_realizations, make_folder, open_output, with_folder_lock
 from .units import NODATA, UnitTable, node_units, sample_units
@@ -145,7 +147,6 @@ def load_unit_samples(spec: RunSpec):
             raise InputError("logged-unit interval tables are not available in this version of geosim",
                              file=spec.name, field="units.samples.intervals",
                              fix="give the unit of each composite as a column of a point table")
-        from .pipeline import read_holes
         columns = {"hole": "hole", "from": "start", "to": "end", "code": "code"}  # spec key -> keyword
         logged = read_intervals(spec.resolve(source["intervals"]), table,
                                 **{columns[k]: source[k] for k in columns if k in source})
@@ -222,7 +223,7 @@ def prepare_units(spec: RunSpec, progress=None) -> UnitsModel:
                              fix=f"give the unit a fixed model ([unit.{unit.name}] variogram = {{ fit = false, "
                                  "structures = [...] }), or merge it with a neighbouring unit (give both one code)")
         own = samples.take(np.flatnonzero(codes == c))
-        data = prepare_samples(uspec, own, _relabel(progress, f"{unit.name}: declustering sizes"))
+        data = prepare_samples(uspec, own, relabel(progress, f"{unit.name}: declustering sizes"))
         pieces[c] = UnitPiece(c, unit.name, uspec, data, grid.with_mask(nodes == c))
     _soft_samples(spec, table, samples, codes, pieces)
     for p in pieces.values():
@@ -412,23 +413,27 @@ def _parts(spec: RunSpec, units: UnitsModel) -> list[UnitPart]:
     return parts
 
 
+def _provenance(spec: RunSpec, units: UnitsModel, extra: Mapping[str, Any] | None = None) -> dict[str, str]:
+    """The run's provenance (:func:`geosim.outputs.provenance_tags` of a one-unit run), with every
+    unit's model and transform."""
+    from types import SimpleNamespace
+
+    from .outputs import _provenance as one_unit
+    return one_unit(spec, SimpleNamespace(transform=units.transform_text()), units, extra)
+
+
 def _tags(spec: RunSpec, units: UnitsModel) -> dict[str, str]:
-    from .io.report import provenance
-    from .pipeline import _inputs
-    ndim = len(spec["grid.cell"])
-    return provenance(seed=spec["simulation.seed"], engine=spec["simulation.engine"], model=units.text(ndim),
-                      transform=units.transform_text(), inputs=_inputs(spec), units=spec["data.units"] or None,
-                      extra={"run_spec_sha256": spec.sha256, "unit_codes": {p.name: p.code for p in
-                                                                              units.pieces.values()}})
+    return _provenance(spec, units, {"run_spec_sha256": spec.sha256,
+                                     "unit_codes": {p.name: p.code for p in units.pieces.values()}})
 
 
 def _writer(spec: RunSpec, units: UnitsModel, out_dir: Path):
     from .ensemble import RealizationWriter
-    from .pipeline import _figures, _support_sinks
+    from .outputs import _figures, support_sinks
     from .validation import RunChecks
     grid = units.modelled_grid
     tags = _tags(spec, units)
-    derived, ranking = _support_sinks(spec, grid, out_dir, tags)
+    derived, ranking = support_sinks(spec, grid, out_dir, tags)
     transforms = {c: p.data.transform for c, p in units.pieces.items()}
     back = UnitsBackTransform(units.node_codes[grid.mask], transforms)
     checks = {c: RunChecks(p.grid, p.model, p.data.coords, p.data.scores, weights=p.data.weights,
@@ -475,7 +480,7 @@ def estimate_units(spec: RunSpec, units: UnitsModel, out_dir: Path | None = None
     search), joined; with ``out_dir``, ``estimate.tif`` (per level for 3-D) or the estimate cube,
     each with the unit-code layer.  Returns the files and the per-unit counts of short searches."""
     from .kriging import krige
-    from .pipeline import CUBE_SUFFIX, cube_format, level_geotiffs
+    from .outputs import CUBE_SUFFIX, cube_format, level_geotiffs
     from .results import EstimateResult
     from .transforms import multigaussian_moments
     grid = units.grid
@@ -592,13 +597,13 @@ def summarize_units(spec: RunSpec, units: UnitsModel, simulation: SimulationResu
     """Joined rasters (with the unit-code layer), total and per-unit decision figures, per-unit
     reproduction checks and plots, and the report with one section per unit."""
     from .io import plots
-    from .pipeline import _cubes_and_tables, _support_plots, _support_report, close_outputs
+    from .outputs import _cubes_and_tables, _support_plots, _support_report, close_outputs
     from .summaries import decision_spread
     out = spec["outputs"]
     records = simulation.records
     writer = simulation.writer
     files = writer.finish(records, cutoffs=out["cutoffs"], stack=True, keep_realization_files=True,
-                          plots=out["plots"], progress=_relabel(progress, "summary windows"))
+                          plots=out["plots"], progress=relabel(progress, "summary windows"))
     tags = _tags(spec, units)
     grid = units.modelled_grid
     measures = [r["checks"] for r in records]
@@ -651,12 +656,7 @@ def summarize_units(spec: RunSpec, units: UnitsModel, simulation: SimulationResu
             if unit.name in spreads:
                 entry["decision_spread"] = spreads[unit.name]
         sections.append(entry)
-    from .io.report import provenance
-    from .pipeline import _inputs
-    report = dict(provenance(seed=spec["simulation.seed"], engine=spec["simulation.engine"],
-                             model=units.text(grid.ndim), transform=units.transform_text(),
-                             inputs=_inputs(spec),
-                             units=spec["data.units"] or None))
+    report = dict(_provenance(spec, units))
     report.update({"title": spec["title"], "run_spec": spec.name, "run_spec_sha256": spec.sha256,
                    "parameters": spec.to_dict(), "samples": int(len(units.samples)), "notes": list(units.notes),
                    "grid": {"shape": list(grid.shape), "cell": list(grid.cell), "active_nodes": units.grid.n_active,
@@ -690,7 +690,8 @@ def run(spec: RunSpec | str | os.PathLike, out_dir: str | os.PathLike, *, overwr
         ``model`` is the :class:`UnitsModel` (its ``text()`` lists each unit's model).
     """
     import logging
-    from .pipeline import _support_sinks, run_in_folder, step_timer
+    from .outputs import support_sinks
+    from .pipeline import run_in_folder, step_timer
     if not isinstance(spec, RunSpec):
         spec = load_spec(spec)
     out_dir = Path(out_dir)
@@ -699,13 +700,13 @@ def run(spec: RunSpec | str | os.PathLike, out_dir: str | os.PathLike, *, overwr
     units = timed("read data and units", prepare_units, spec, progress)
     for note in units.notes:
         logging.getLogger("geosim").info("%s", note)
-    _support_sinks(spec, units.modelled_grid, out_dir, {})  # bad query points fail before the folder is claimed
+    support_sinks(spec, units.modelled_grid, out_dir, {})  # bad query points fail before the folder is claimed
     return run_in_folder(spec, out_dir, overwrite, resume,
                          lambda: _run_steps(spec, units, out_dir, resume, progress, timed, timings))
 
 
 def _run_steps(spec, units, out_dir, resume, progress, timed, timings) -> RunResult:
-    from .pipeline import extremes_note, short_note
+    from .results import extremes_note, short_note
     timed("variograms and cross-validation", fit_units, units, progress)
     extra: dict[str, Any] = {}
     notes = list(units.notes)
@@ -725,8 +726,7 @@ def _run_steps(spec, units, out_dir, resume, progress, timed, timings) -> RunRes
         checks = [r["checks"]["units"][str(p.code)]["checks"] for r in sim.records]
         if all("extremes" in c for c in checks):
             notes.append(f"{p.name}: " + extremes_note(extremes_summary(p.data.values, checks), spec["data.units"]))
-    from .pipeline import decision_spread
-    return RunResult(out_dir, spec.sha256, files, units, sim.kept, sim.computed, None, decision_spread(sim),
+    return RunResult(out_dir, spec.sha256, files, units, sim.kept, sim.computed, None, sim.decision_spread(),
                      timings, notes, units.grid.ndim)
 
 
