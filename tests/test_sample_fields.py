@@ -161,9 +161,7 @@ def test_aquifer_units_agree_with_their_raster_and_readme(script):
     # each well's logged unit is the unit of the raster cell it falls in (both made by one rule),
     # and the README states both unit models
     import rasterio
-    with warnings.catch_warnings():
-        warnings.simplefilter("ignore", geosim.GeosimWarning)
-        wells = geosim.read_points(AQUIFER / "wells_units.csv", x="lon", y="lat", values="k_ms", crs="EPSG:4326")
+    wells = geosim.read_points(AQUIFER / "wells_units.csv", x="lon", y="lat", values="k_ms", crs="EPSG:4326")
     header, rows = _rows(AQUIFER / "wells_units.csv")
     logged = [script.UNIT_CODES[r[header.index("unit")]] for r in rows]
     with rasterio.open(AQUIFER / "units.tif") as src:
