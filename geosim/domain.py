@@ -42,7 +42,7 @@ from .errors import InputError
 
 log = logging.getLogger(__name__)
 
-__all__ = ["read_domain", "read_domain_raster", "sample_raster", "below_surface"]
+__all__ = ["read_domain", "read_polygon_features", "read_domain_raster", "sample_raster", "below_surface"]
 
 _LONLAT = CRS.from_user_input("OGC:CRS84")  # RFC 7946 section 4: WGS 84, longitude then latitude
 # Lines between GeoJSON positions are straight in longitude/latitude (RFC 7946 section 3.1.1);
@@ -99,26 +99,100 @@ def read_domain(path, target_crs: CrsLike | None, *, source_crs: CrsLike | None 
     from .vector import is_frame, is_vector_path
     if is_frame(path) or (is_vector_path(path) and Path(path).suffix.lower() != ".geojson"):
         geom, own, path = _layer_polygons(path, layer)
-        if own is None and source_crs is None and target_crs is not None:
-            log.warning("%s: the domain file declares no CRS; taken to be the data's (%s)", path,
-                        _name(parse_crs(target_crs)))
-        own = own if own is not None else target_crs
-        doc = {} if own is None else {"crs": own}
-        source_crs = source_crs if source_crs is not None else own
+        doc, source_crs = _layer_crs(own, path, source_crs, target_crs)
     else:
         path = os.fspath(path)
         doc = _load_json(path)
         geom = _polygons(doc, path)
+    return _bring(geom, doc, path, target_crs, source_crs)
+
+
+def read_polygon_features(path, target_crs: CrsLike | None, *, attribute: str, layer: str | int | None = None
+                          ) -> tuple[str, list]:
+    """Each polygon feature of a vector file with one attribute, in ``target_crs``.
+
+    Read, checked, repaired and reprojected as :func:`read_domain` does a domain,
+    but feature by feature (the polygons are not united).
+
+    Returns
+    -------
+    (str, list of (str, object, shapely geometry))
+        The file's label, and per feature with a polygon: its name in messages
+        (``"feature 3"``, counted from 1 in files), its value of ``attribute``
+        (None where empty) and its (multi)polygon.
+
+    Raises
+    ------
+    InputError
+        As :func:`read_domain`, and for a missing attribute (with a suggestion).
+    """
+    from .tables import suggest
+    from .vector import frame_table, is_frame, is_vector_path, read_vector
+    if is_frame(path) or (is_vector_path(path) and Path(path).suffix.lower() != ".geojson"):
+        vt = frame_table(path) if is_frame(path) else read_vector(path, layer=layer, what="polygon layer")
+        label = vt.label
+        if vt.geometry is None:
+            raise InputError("the layer has no geometry column", file=label, fix="save it as a polygon layer")
+        doc, source_crs = _layer_crs(vt.crs, label, None, target_crs)
+        names = list(vt.columns)
+        column = vt.columns.get(attribute)
+        items = [(f"feature {i + vt.first_row}", None if column is None else column[i],
+                  None if g is None or g.is_empty else shapely.geometry.mapping(g)) for i, g in enumerate(vt.geometry)]
+    else:
+        label = os.fspath(path)
+        doc, source_crs = _load_json(label), None
+        features = doc.get("features") if isinstance(doc, dict) and doc.get("type") == "FeatureCollection" else None
+        if not isinstance(features, list):
+            raise InputError("not a GeoJSON FeatureCollection", file=label, field="type",
+                             fix="give a FeatureCollection of polygon features, each with the attribute")
+        names = sorted({k for f in features if isinstance(f, dict) and isinstance(f.get("properties"), dict)
+                        for k in f["properties"]})
+        items = []
+        for i, feat in enumerate(features):
+            if not isinstance(feat, dict) or feat.get("type") != "Feature":
+                raise InputError(f"item {i + 1} of 'features' is not a Feature", file=label, field=f"features[{i}]",
+                                 fix="make every item a GeoJSON Feature")
+            props = feat.get("properties") if isinstance(feat.get("properties"), dict) else {}
+            items.append((f"feature {i + 1}", props.get(attribute), feat.get("geometry")))
+    if attribute not in names:
+        hint = suggest(attribute, names)
+        raise InputError(f"the features have no attribute {attribute!r}", file=label, field=attribute,
+                         fix=(hint + " " if hint else "") + f"attributes: {', '.join(names) or 'none'}")
+    out = []
+    for where, value, obj in items:
+        if obj is None:
+            continue
+        parts = _polygon_parts(obj, label, where)
+        if parts:
+            geom = parts[0] if len(parts) == 1 else shapely.union_all(parts)
+            out.append((where, value, _bring(geom, doc, f"{label}, {where}", target_crs, source_crs)))
+    if not out:
+        raise InputError("the file holds no polygon", file=label, fix="add polygon features")
+    return label, out
+
+
+def _layer_crs(own, label: str, source_crs, target_crs):
+    """The CRS document and source CRS of a vector layer whose own CRS is ``own`` (None: the data's)."""
+    if own is None and source_crs is None and target_crs is not None:
+        log.warning("%s: the file declares no CRS; taken to be the data's (%s)", label,
+                    _name(parse_crs(target_crs)))
+    own = own if own is not None else target_crs
+    doc = {} if own is None else {"crs": own}
+    return doc, (source_crs if source_crs is not None else own)
+
+
+def _bring(geom, doc, path: str, target_crs: CrsLike | None, source_crs: CrsLike | None):
+    """``geom`` checked, repaired and reprojected from its file's CRS to ``target_crs``."""
     if target_crs is None:
         named = source_crs if source_crs is not None else (doc.get("crs") if isinstance(doc, dict) else None)
         if named is not None:
-            raise InputError("the domain names a CRS but the data have none, so it cannot be brought to them",
+            raise InputError("the file names a CRS but the data have none, so it cannot be brought to them",
                              file=path, field="crs",
-                             fix="give the data's CRS, or store the domain in the data's local coordinates "
+                             fix="give the data's CRS, or store the polygons in the data's local coordinates "
                                  "without a 'crs' member")
         xy = shapely.get_coordinates(geom)
         if np.all(np.abs(xy) <= [180.0, 90.0]) and np.ptp(xy[:, 0]) < 5.0 and np.ptp(xy[:, 1]) < 5.0:
-            log.warning("%s: the domain's coordinates look like longitude/latitude but the data have no CRS, "
+            log.warning("%s: the polygons' coordinates look like longitude/latitude but the data have no CRS, "
                         "so they are used as local metres; give the data's CRS if they are longitude/latitude",
                         path)
         return _valid(geom, path, "as read")

@@ -562,6 +562,44 @@ position (twin holes) are averaged, with a warning and a note.  The last run of 
     >>> c.column().tolist(), c.attributes["depth"].tolist()   # (1*1 + 1*3)/2, then 3 over 2 m
     ([2.0, 3.0], [1.0, 3.0])
     """
+    if start not in ("sample", "collar"):
+        raise ValueError(f"start must be 'sample' or 'collar', got {start!r}")
+    runs = []
+    for hole_id in holes.ids.tolist():
+        idx = holes.intervals_of(hole_id)
+        if len(idx):
+            first = 0.0 if start == "collar" else float(holes.top[idx][0])
+            runs.append(CompositeRun(hole_id, holes.top[idx], holes.bottom[idx], holes.values[idx], first))
+    return composite_runs(holes, runs, length, min_fraction=min_fraction, residual=residual,
+                          min_sampled_fraction=min_sampled_fraction)
+
+
+@dataclass(frozen=True)
+class CompositeRun:
+    """One stretch of a hole composited on its own: a whole hole, or one unit's part of it.
+
+    ``top``, ``bottom`` and ``values`` are its intervals (sorted, not overlapping,
+    cut to the stretch); compositing starts at ``first`` and ends at the last
+    interval's bottom.  ``labels`` are attributes every composite of the run
+    carries (e.g. ``{"unit": 2}``).
+    """
+
+    hole_id: str
+    top: np.ndarray
+    bottom: np.ndarray
+    values: np.ndarray
+    first: float
+    labels: Mapping = field(default_factory=dict)
+
+
+def composite_runs(holes: Drillholes, runs: Sequence[CompositeRun], length: float, *, min_fraction: float = 0.5,
+                   residual: str = "merge", min_sampled_fraction: float = 0.5) -> PointSet:
+    """Composites of each run separately (:func:`composite` is this on whole holes).
+
+    Runs of one hole never share a composite, so a caller that cuts holes at
+    contacts gets composites that never straddle one.  Parameters and result as
+    :func:`composite`; each run's ``labels`` become attributes of its composites.
+    """
     if not length > 0:
         raise ValueError(f"composite length must be positive, got {length}")
     if not 0.0 <= min_fraction <= 1.0:
@@ -570,21 +608,17 @@ position (twin holes) are averaged, with a warning and a note.  The last run of 
         raise ValueError(f"min_sampled_fraction must be between 0 and 1, got {min_sampled_fraction}")
     if residual not in ("merge", "drop"):
         raise ValueError(f"residual must be 'merge' or 'drop', got {residual!r}")
-    if start not in ("sample", "collar"):
-        raise ValueError(f"start must be 'sample' or 'collar', got {start!r}")
     k = len(holes.names)
+    label_keys = sorted({key for run in runs for key in run.labels})
     parts: dict[str, list] = {key: [] for key in ("coords", "values", "hole", "length", "depth", "from",
-                                                  "to")}
+                                                  "to", *label_keys)}
     merged = dropped = undersampled = 0
     set_aside = np.zeros(k, dtype=np.int64)
-    for hole_id in holes.ids.tolist():
-        idx = holes.intervals_of(hole_id)
-        if len(idx) == 0:
+    for run in runs:
+        hole_id, a, b, v = run.hole_id, run.top, run.bottom, run.values
+        if len(a) == 0:
             continue
-        a, b, v = holes.top[idx], holes.bottom[idx], holes.values[idx]
-        first = 0.0 if start == "collar" else float(a[0])
-        last = float(b[-1])
-        edges, how = _edges(first, last, float(length), min_fraction, residual)
+        edges, how = _edges(float(run.first), float(b[-1]), float(length), min_fraction, residual)
         merged += how == "merged"
         dropped += how == "dropped"
         if len(edges) < 2:
@@ -620,6 +654,8 @@ position (twin holes) are averaged, with a warning and a note.  The last run of 
         parts["depth"].append(centre)
         parts["from"].append(top)
         parts["to"].append(bottom)
+        for key in label_keys:
+            parts[key].append(np.full(keep.sum(), run.labels[key]))
     if not parts["coords"] and undersampled:
         raise InputError(f"no composites: all {undersampled} were sampled over less than "
                          f"{min_sampled_fraction:g} of their {length:g} m length",
@@ -648,8 +684,9 @@ position (twin holes) are averaged, with a warning and a note.  The last run of 
         note += "; values set aside for the same reason: " + ", ".join(
             f"{name} {int(c)}" for name, c in zip(holes.names, set_aside) if c)
     note += ")"
-    points = PointSet(cat["coords"], cat["values"], holes.names, holes.crs, cat["hole"],
-                      {"length": cat["length"], "depth": cat["depth"], "from": cat["from"], "to": cat["to"]},
+    attributes = {"length": cat["length"], "depth": cat["depth"], "from": cat["from"], "to": cat["to"]}
+    attributes.update({key: cat[key] for key in label_keys})
+    points = PointSet(cat["coords"], cat["values"], holes.names, holes.crs, cat["hole"], attributes,
                       holes.source, holes.notes + (note,))
     # twin holes collared at the same spot give coincident composites, which kriging cannot use
     return merge_coincident(points)
