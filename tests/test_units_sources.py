@@ -139,11 +139,11 @@ def test_surfaces_tops_by_hand(tmp_path):
     assert _column(codes, 1) == [2, 2, 2, 2, 2, 1, 1, 1, N, N]
     # column 2: oxide (3, 10]: 3.5 ... 9.5; fresh 0.5, 1.5, 2.5
     assert _column(codes, 2) == [2, 2, 2, 1, 1, 1, 1, 1, 1, 1]
-    # one more surface, the base of the lowest unit: below it nodata
-    base = _surface(tmp_path / "base.tif", [1.0, 2.0, 0.0])
+    # one more surface, the base of the lowest unit: at or below it nodata (z = 1.5 sits on it in column 0)
+    base = _surface(tmp_path / "base.tif", [1.5, 2.0, 0.0])
     codes = node_units(GRID3, {"surfaces": [top_a, top_b, base], "units": ["oxide", "fresh"]}, TABLE,
                        base=tmp_path)
-    assert _column(codes, 0) == [N, 2, 2, 2, 2, 2, 1, 1, 1, N]
+    assert _column(codes, 0) == [N, N, 2, 2, 2, 2, 1, 1, 1, N]
     assert _column(codes, 1) == [N, N, 2, 2, 2, 1, 1, 1, N, N]
     assert _column(codes, 2) == [2, 2, 2, 1, 1, 1, 1, 1, 1, 1]
 
