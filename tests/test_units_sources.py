@@ -43,10 +43,10 @@ GRID = geosim.Grid(0.0, 0.0, (10.0, 10.0), (4, 4))
 # -- polygons -------------------------------------------------------------------------------------
 
 def test_polygons_by_the_node_centre_rule(tmp_path):
-    # oxide: x 0-20 (columns 0, 1); fresh: x 20-30, y 10-40 (column 2, rows 0-2; y = 5 is outside);
-    # column 3 (x = 35) is in no polygon; the two touch along x = 20
+    # oxide: x 0-20 (columns 0, 1); fresh: x 20-30, y 8-40 (column 2, rows 0-2; row 3's cell, y 0-10, is
+    # touched but its centre y = 5 is outside); column 3 (x = 35) is in no polygon; the two touch along x = 20
     _features(tmp_path / "u.geojson", [({"code": "oxide"}, _square(0, 0, 20, 40)),
-                                       ({"code": 2}, _square(20, 10, 30, 40))])
+                                       ({"code": 2}, _square(20, 8, 30, 40))])
     codes = node_units(GRID, {"polygons": "u.geojson", "attribute": "code"}, TABLE, base=tmp_path)
     expected = np.array([[1, 1, 2, N],
                          [1, 1, 2, N],
@@ -65,16 +65,18 @@ def test_polygons_by_the_node_centre_rule(tmp_path):
 
 
 def test_polygons_reprojected_to_the_grid(tmp_path):
-    # the polygons in UTM 33 N (a legacy 'crs' member), the grid in the same CRS shifted: nothing moves
+    # the polygon in UTM 33 N (a legacy 'crs' member) as the grid: x 0-24 m from the grid's edge holds the
+    # centres of columns 0 and 1; column 2's cell is touched, its centre (25 m) is not inside
     utm = parse_crs(32633)
     grid = geosim.Grid(500000.0, 0.0, (10.0, 10.0), (4, 4), crs=utm)
-    _features(tmp_path / "u.geojson", [({"unit": 1}, _square(500000, 0, 500020, 40))], crs="EPSG:32633")
+    _features(tmp_path / "u.geojson", [({"unit": 1}, _square(500000, 0, 500024, 40))], crs="EPSG:32633")
     codes = node_units(grid, {"polygons": "u.geojson", "attribute": "unit"}, TABLE, base=tmp_path)
     assert (codes[:, :2] == 1).all() and (codes[:, 2:] == N).all()
 
 
 def test_polygons_of_one_code_may_overlap(tmp_path):
-    _features(tmp_path / "u.geojson", [({"code": 1}, _square(0, 0, 20, 40)), ({"code": 1}, _square(10, 0, 30, 40))])
+    # together x 0-32: centres of columns 0-2; column 3's cell is touched, its centre (35) is outside
+    _features(tmp_path / "u.geojson", [({"code": 1}, _square(0, 0, 20, 40)), ({"code": 1}, _square(10, 0, 32, 40))])
     codes = node_units(GRID, {"polygons": "u.geojson"}, TABLE, base=tmp_path)
     assert (codes[:, :3] == 1).all() and (codes[:, 3] == N).all()
 
@@ -329,6 +331,7 @@ def test_logged_holes_must_exist_and_fit(tmp_path):
 @pytest.mark.parametrize("rows, row, field, words", [
     ("A,0,5,1\nB,0,4,2\nA,4,9,2\n", 4, "from", "logged units of hole 'A' overlap: oxide (1) 0-5 m (row 2) and "
                                                 "fresh (2) 4-9 m (row 4)"),
+    ("A,0,5,1\nA,5,7,2\nA,6.5,9,2\n", 4, "from", "overlap: fresh (2) 5-7 m (row 3) and fresh (2) 6.5-9 m (row 4)"),
     ("A,0,5,1\nA,5,5,2\n", 3, "to", "'from' 5 is not less than 'to' 5"),
     ("A,-1,5,1\n", 2, "from", "above the collar"),
     ("A,0,5,1.5\n", 2, "unit", "neither an integer nor a unit name"),
@@ -348,3 +351,21 @@ def test_logged_units_columns_renamed(tmp_path):
     assert logged.codes.tolist() == [1, 2] and logged.rows.tolist() == [3, 2] and logged.starts.tolist() == [0, 5]
     with pytest.raises(InputError, match="LITH"):
         read_unit_intervals(path, TABLE, hole="HOLE", start="FROM_M", end="TO_M")
+
+
+def test_polygons_from_a_geopackage_layer(tmp_path):
+    gpd = pytest.importorskip("geopandas")
+    shapely = pytest.importorskip("shapely")
+    utm = parse_crs(32633)
+    grid = geosim.Grid(500000.0, 0.0, (10.0, 10.0), (4, 4), crs=utm)
+    boxes = [shapely.box(500000, 0, 500020, 40), shapely.box(500020, 0, 500040, 40)]
+    gpd.GeoDataFrame({"lith": ["oxide", "fresh"]}, geometry=boxes, crs="EPSG:32633").to_file(
+        tmp_path / "u.gpkg", layer="units")
+    codes = node_units(grid, {"polygons": "u.gpkg", "attribute": "lith"}, TABLE, base=tmp_path)
+    np.testing.assert_array_equal(codes, np.repeat([[1, 1, 2, 2]], 4, axis=0))
+    # fresh drawn 2 m into oxide: 2 x 40 = 80 square metres of overlap, refused
+    boxes[1] = shapely.box(500018, 0, 500040, 40)
+    gpd.GeoDataFrame({"lith": ["oxide", "fresh"]}, geometry=boxes, crs="EPSG:32633").to_file(
+        tmp_path / "v.gpkg", layer="units")
+    with pytest.raises(InputError, match="feature 1 .oxide .1.. and feature 2 .fresh .2.. overlap over 80 square"):
+        node_units(grid, {"polygons": "v.gpkg", "attribute": "lith"}, TABLE, base=tmp_path)
