@@ -19,7 +19,11 @@ Realization writer layout (see :class:`RealizationWriter`)::
     <folder>/*.png                        with finish(plots=True): maps and checks
 
 For 3-D grids the rasters get ``_z000``... per level (``realizations_z000.tif``,
-``summary_z000.tif``, ``realizations/r0007_z000.tif``).  Hidden temporaries
+``summary_z000.tif``, ``realizations/r0007_z000.tif``).  A writer given a
+``cube`` format writes 3-D realizations one NetCDF cube each instead
+(``realizations/r0007.nc``), and assembles ``summary.nc`` and ``realizations.nc``
+(or ``.zarr``) from them, with the per-level GeoTIFFs only on request
+(``level_geotiffs``); in 2-D it writes the cubes beside the GeoTIFFs.  Hidden temporaries
 (``.<name>.<hex>.partial<suffix>``, ``.<name>.<hex>.stage.tif``) exist only while
 a file is being written; a killed run may leave them, and they can be deleted.
 """
@@ -35,13 +39,15 @@ import numpy as np
 from .errors import InputError
 from .io import plots as io_plots
 from .io.decision import write_decision_csv
+from .io.cube import CUBE_SUFFIX
 from .io.geotiff import (GDAL_SETTINGS, as_stored, assemble_realizations, grid_windows, level_grid, level_paths, level_tags,
-                         open_checked, read_windows, verify_realization, with_layers, write_raster, write_windows)
+                         open_checked, read_realization, read_windows, tile_size, verify_realization, with_layers,
+                         write_raster, write_windows)
 from .io.report import file_sha256
 from .summaries import (decision_rows, decision_spread, summarize_windows, summary_band_descriptions,
                         summary_band_names)
 
-__all__ = ["RealizationWriter", "summarize_realizations", "record_files"]
+__all__ = ["RealizationWriter", "summarize_realizations", "record_files", "read_realization_file"]
 
 
 def summarize_realizations(paths: Sequence[str | os.PathLike], grid, cutoffs: Sequence[float],
@@ -95,6 +101,14 @@ def summarize_realizations(paths: Sequence[str | os.PathLike], grid, cutoffs: Se
                          overwrite=overwrite, progress=progress, what="summary")
 
 
+def read_realization_file(paths: Sequence[str | os.PathLike], grid) -> np.ndarray:
+    """One realization a :class:`RealizationWriter` wrote (GeoTIFF per level, or one cube) as ``grid.shape``."""
+    if len(paths) == 1 and Path(paths[0]).suffix == ".nc":
+        from .io.cube import read_cube_values
+        return read_cube_values(paths[0])
+    return read_realization(paths, grid)
+
+
 def record_files(record: Mapping) -> list[tuple[str, str]]:
     """``(file relative to the writer's folder, SHA-256)`` of one realization record, derived outputs included."""
     pairs = list(zip(record.get("files", []), record.get("sha256", [])))
@@ -145,7 +159,24 @@ class RealizationWriter:
     layers : sequence, optional
         ``(array of grid.shape, description, unit)``: fixed layers (e.g. unit codes)
         written as last bands of each realization's file, and appended by ``finish`` to
-        ``realizations.tif`` and ``summary.tif``.
+        ``realizations.tif`` and ``summary.tif`` (GeoTIFF realizations only).
+    cube : {"netcdf", "zarr"}, optional
+        Also assemble ``summary`` and ``realizations`` cubes
+        (:mod:`geosim.io.cube`).  On a 3-D grid each realization is then one
+        NetCDF file instead of one GeoTIFF per level.
+    level_geotiffs : bool
+        With ``cube`` on a 3-D grid, also write the per-level GeoTIFF stacks and
+        summaries (always written without a cube, and in 2-D).
+    variable : str
+        Name of the realization variable in the cubes.
+    long_name : str, optional
+        Its long name (default: ``"<variable> (<units>), conditional realization"``).
+    tables : sequence of str
+        Suffixes (``".csv"``, ``".parquet"``) of block-model tables to write
+        (:func:`geosim.io.cube.write_block_model`): one row per active node of
+        ``grid`` with the summary.
+    table_realizations : bool
+        Add one column per realization to those tables.
 
     Notes
     -----
@@ -160,7 +191,9 @@ class RealizationWriter:
                  figures: Callable[[np.ndarray], dict] | None = None,
                  measure: Callable[[np.ndarray, np.ndarray], dict] | None = None, metal_unit: str = "",
                  overwrite: bool = False, derived: Sequence = (), ranking: Callable | None = None,
-                 layers: Sequence[tuple[np.ndarray, str, str]] = ()):
+                 layers: Sequence[tuple[np.ndarray, str, str]] = (), cube: str | None = None,
+                 level_geotiffs: bool = True, variable: str = "value", long_name: str | None = None,
+                 tables: Sequence[str] = (), table_realizations: bool = False):
         self.folder = Path(folder)
         self.grid = grid
         self.tags = dict(tags or {})
@@ -173,9 +206,27 @@ class RealizationWriter:
         self.derived = tuple(derived)
         self.ranking = ranking
         self.layers = tuple(layers)
+        if cube is not None and cube not in CUBE_SUFFIX:
+            raise ValueError(f"cube must be one of {sorted(CUBE_SUFFIX)} or None, got {cube!r}")
+        if layers and (cube is not None or tables):
+            raise ValueError("layers go into GeoTIFF realizations only; leave out cube and tables with layers")
+        self.cube = cube
+        self.level_geotiffs = level_geotiffs or grid.ndim == 2 or cube is None
+        self.variable = variable
+        u = f" ({units})" if units else ""
+        self.long_name = long_name or f"{variable}{u}, conditional realization"
+        self.tables = tuple(tables)
+        self.table_realizations = table_realizations
+
+    @property
+    def cube_files(self) -> bool:
+        """Whether each realization is one cube file (3-D grids with a cube) rather than GeoTIFFs."""
+        return self.cube is not None and self.grid.ndim == 3
 
     def realization_paths(self, index: int) -> list[Path]:
         """The per-realization file(s) of realization ``index``."""
+        if self.cube_files:
+            return [self.folder / "realizations" / f"r{index:04d}.nc"]
         return level_paths(self.folder / "realizations" / f"r{index:04d}.tif", self.grid)
 
     def __call__(self, index: int, field: np.ndarray) -> dict:
@@ -190,12 +241,18 @@ class RealizationWriter:
         # file agrees, also at a cut-off on a plateau of equal values
         values = as_stored(values)
         (self.folder / "realizations").mkdir(parents=True, exist_ok=True)
-        target = self.folder / "realizations" / f"r{index:04d}.tif"  # write_raster adds _z000... in 3-D
-        u = f" ({self.units})" if self.units else ""
-        bands = np.stack([values] + [a for a, _, _ in self.layers]) if self.layers else values
-        written = write_raster(target, bands, self.grid, descriptions=[(f"realization {index}{u}", self.units)] + [
-            (d, unit) for _, d, unit in self.layers], tags={**self.tags, "realization": str(index)},
-                               overwrite=self.overwrite)
+        tags = {**self.tags, "realization": str(index)}
+        if self.cube_files:  # one file, not one per level: a tenth of the time
+            from .io.cube import write_realization_cube
+            written = [write_realization_cube(self.realization_paths(index)[0], values, self.grid, index=index,
+                                              name=self.variable, long_name=self.long_name, units=self.units,
+                                              provenance=tags, overwrite=self.overwrite)]
+        else:
+            target = self.folder / "realizations" / f"r{index:04d}.tif"  # write_raster adds _z000... in 3-D
+            u = f" ({self.units})" if self.units else ""
+            bands = np.stack([values] + [a for a, _, _ in self.layers]) if self.layers else values
+            written = write_raster(target, bands, self.grid, descriptions=[(f"realization {index}{u}", self.units)]
+                                   + [(d, unit) for _, d, unit in self.layers], tags=tags, overwrite=self.overwrite)
         record = {"index": int(index),
                   "files": [str(p.relative_to(self.folder)) for p in written],
                   "sha256": [file_sha256(p) for p in written],
@@ -245,26 +302,14 @@ class RealizationWriter:
         indices = [r["index"] for r in records]
         out: dict[str, list[str]] = {
             "realization_files": [str(self.folder / f) for r in records for f, _ in record_files(r)]}
-        if stack:
-            out["realizations"] = []
-        out["summary"] = []
         import rasterio
 
         with rasterio.Env(**GDAL_SETTINGS):  # no folder listing on each of the many opens below
-            for k in range(self.grid.nz if self.grid.ndim == 3 else 1):
-                g2 = level_grid(self.grid, k)
-                files = [self.folder / r["files"][k] for r in records]
-                tags = {**self.tags, **level_tags(self.grid, k)}
-                layers = [(a if self.grid.ndim == 2 else a[k], d, u) for a, d, u in self.layers]
-                if stack:
-                    target = level_paths(self.folder / "realizations.tif", self.grid)[k]
-                    assemble_realizations(files, g2, target, units=self.units, tags=tags, indices=indices,
-                                          overwrite=self.overwrite, progress=progress, layers=layers)
-                    out["realizations"].append(str(target))
-                target = level_paths(self.folder / "summary.tif", self.grid)[k]
-                summarize_realizations(files, g2, cutoffs, target, units=self.units, tags=tags,
-                                       overwrite=self.overwrite, progress=progress, layers=layers)
-                out["summary"].append(str(target))
+            if self.cube_files:
+                out.update(self._assemble_cubes(records, cutoffs, stack, progress))
+            else:
+                out.update(self._assemble_geotiffs(records, cutoffs, stack, progress))
+        figures = [r["figures"] for r in records]
         figures = [r["figures"] for r in records]
         if all(f is not None for f in figures):
             rows = decision_rows(figures, indices)
@@ -274,7 +319,7 @@ class RealizationWriter:
                                     **meta)
             out["decision"] = [str(p1), str(p2)]
         if plots:
-            out["plots"] = [str(p) for p in self.plots(records, out["summary"], cutoffs)]
+            out["plots"] = [str(p) for p in self.plots(records, out.get("summary", []), cutoffs)]
         for d in self.derived:
             out.update(d.finish([r["derived"][d.name] for r in records], indices=indices, cutoffs=cutoffs,
                                 stack=stack, plots=plots, progress=progress))
@@ -287,6 +332,88 @@ class RealizationWriter:
             for folder in {f.parent for f in files}:
                 with contextlib.suppress(OSError):
                     folder.rmdir()
+        return out
+
+    def _assemble_geotiffs(self, records, cutoffs, stack, progress) -> dict[str, list[str]]:
+        """Per-level multiband realizations and summaries from GeoTIFF realizations; the cubes from them."""
+        out: dict[str, list[str]] = {"summary": []}
+        if stack:
+            out["realizations"] = []
+        indices = [r["index"] for r in records]
+        for k in range(self.grid.nz if self.grid.ndim == 3 else 1):
+            g2 = level_grid(self.grid, k)
+            files = [self.folder / r["files"][k] for r in records]
+            tags = {**self.tags, **level_tags(self.grid, k)}
+            layers = [(a if self.grid.ndim == 2 else a[k], d, u) for a, d, u in self.layers]
+            if stack:
+                target = level_paths(self.folder / "realizations.tif", self.grid)[k]
+                assemble_realizations(files, g2, target, units=self.units, tags=tags, indices=indices,
+                                      overwrite=self.overwrite, progress=progress, layers=layers)
+                out["realizations"].append(str(target))
+            target = level_paths(self.folder / "summary.tif", self.grid)[k]
+            summarize_realizations(files, g2, cutoffs, target, units=self.units, tags=tags,
+                                   overwrite=self.overwrite, progress=progress, layers=layers)
+            out["summary"].append(str(target))
+        if self.cube is not None or self.tables:
+            bands = np.stack([read_realization(out["summary"], self.grid, band=b + 1)
+                              for b in range(len(summary_band_names(cutoffs)))])
+            out.update(self._cubes_and_tables(records, cutoffs, bands))
+        return out
+
+    def _assemble_cubes(self, records, cutoffs, stack, progress) -> dict[str, list[str]]:
+        """Summary and realization cubes from one cube per realization, streamed box by box (whole levels
+        of a small grid, windows of one level of a large one); the per-level GeoTIFFs only with
+        ``level_geotiffs``."""
+        import functools
+
+        from .io.cube import cube_boxes, read_cube_boxes
+        files = [self.folder / r["files"][0] for r in records]
+        bands = np.full((len(summary_band_names(cutoffs)),) + self.grid.shape, np.nan)
+        boxes = cube_boxes(self.grid)
+        for done, (box, b) in enumerate(summarize_windows(read_cube_boxes(files, boxes), cutoffs), start=1):
+            bands[(slice(None),) + box] = b
+            if progress is not None:
+                progress(done, len(boxes), "summary")
+        out: dict[str, list[str]] = {}
+        if self.level_geotiffs and stack:
+            for k in range(self.grid.nz):
+                target = level_paths(self.folder / "realizations.tif", self.grid)[k]
+                g2 = level_grid(self.grid, k)
+                read = functools.partial(_level_windows, level=k)
+                assemble_realizations(files, g2, target, units=self.units, indices=[r["index"] for r in records],
+                                      tags={**self.tags, **level_tags(self.grid, k)}, overwrite=self.overwrite,
+                                      read=read)
+                out.setdefault("realizations", []).append(str(target))
+        if self.level_geotiffs:
+            out["summary"] = [str(p) for p in write_raster(
+                self.folder / "summary.tif", bands, self.grid, tags=self.tags, overwrite=self.overwrite,
+                descriptions=summary_band_descriptions(cutoffs, self.units))]
+        out.update(self._cubes_and_tables(records, cutoffs, bands))
+        return out
+
+    def _cubes_and_tables(self, records, cutoffs, bands) -> dict[str, list[str]]:
+        """The cubes (with ``cube``) and block-model tables (with ``tables``) of the summary ``bands``."""
+        from .io.cube import summary_table_columns, write_block_model, write_ensemble_cubes
+        paths = [[self.folder / f for f in r["files"]] for r in records]
+        indices = [r["index"] for r in records]
+
+        def reader(j: int) -> np.ndarray:
+            return read_realization_file(paths[j], self.grid).astype(np.float32)
+
+        out: dict[str, list[str]] = {}
+        if self.cube is not None:
+            out.update(write_ensemble_cubes(self.folder, self.grid, CUBE_SUFFIX[self.cube], bands=bands,
+                                            cutoffs=cutoffs, reader=reader, indices=indices, name=self.variable,
+                                            long_name=self.long_name, units=self.units, provenance=self.tags,
+                                            overwrite=self.overwrite))
+        if self.tables:
+            table = summary_table_columns(bands, cutoffs, self.units)
+            if self.table_realizations:
+                for j, i in enumerate(indices):
+                    table[f"r{i:04d}"] = (reader(j), f"realization {i}", self.units)
+            out["block_model"] = [str(write_block_model(self.folder / f"block_model{s}", self.grid, table,
+                                                        provenance=self.tags, overwrite=self.overwrite))
+                                  for s in self.tables]
         return out
 
     def validation(self, records: Sequence[Mapping]) -> dict | None:
@@ -346,3 +473,9 @@ class RealizationWriter:
             out.append(io_plots.plot_decision_spread(figures, self.folder / "decision_spread.png", units=self.units,
                                                      overwrite=self.overwrite))
         return out
+
+
+def _level_windows(paths, grid, windows, *, level: int):
+    """:func:`geosim.io.cube.read_cube_windows` of one level, in the call form of ``read_windows``."""
+    from .io.cube import read_cube_windows
+    return read_cube_windows(paths, level, windows)

@@ -37,6 +37,7 @@ import numpy as np
 
 from .config.runspec import RunSpec
 from .errors import InputError
+from .io.cube import CUBE_SUFFIX
 from .progress import Progress, relabel
 from .results import CrossValidation, EstimateResult, PreparedData, SimulationResult, VariogramResult
 from .runstate import input_checksums
@@ -171,9 +172,6 @@ def metal_unit(spec: RunSpec) -> str:
     return f"t x {units or 'grade unit'} x {factor:g}"
 
 
-CUBE_SUFFIX = {"netcdf": ".nc", "zarr": ".zarr"}
-
-
 def cube_format(spec: RunSpec, grid) -> str | None:
     """``"netcdf"``, ``"zarr"`` or None: the cube the outputs ask for (``outputs.cube``).
 
@@ -254,8 +252,18 @@ def _support_writer(spec: RunSpec, name: str, layout, out_dir: Path, tags: Mappi
         f"origin {', '.join(f'{o:.10g}' for o in (grid.xmin, grid.ymin) + ((grid.zmin,) if grid.ndim == 3 else ()))}, "
         f"cell {' x '.join(f'{c:g}' for c in grid.cell)} m, shape {' x '.join(map(str, grid.shape))}, "
         f"min_fraction {layout.min_fraction:g}")}
-    writer = RealizationWriter(out_dir / name, grid, tags=own, units=spec["data.units"], figures=figures,
-                               metal_unit=metal_unit(spec), overwrite=True)
+    if exponent is not None:
+        own["support_exponent"] = f"{exponent:g}"
+    units = spec["data.units"]
+    u = f" ({units})" if units else ""
+    # the cube and raster forms of the point-support outputs (layout.grid is the simulation grid)
+    writer = RealizationWriter(out_dir / name, grid, tags=own, units=units, figures=figures,
+                               metal_unit=metal_unit(spec), overwrite=True, cube=cube_format(spec, layout.grid),
+                               level_geotiffs=level_geotiffs(spec, layout.grid),
+                               variable=variable_name(spec["data.value"]),
+                               tables=block_model_formats(spec, layout.grid),
+                               table_realizations=spec["outputs.block_model_realizations"],
+                               long_name=f"{spec['data.value']}{u}, {what.split(':')[0]} of a conditional realization")
     return SupportWriter(name, layout, writer, exponent=exponent, weights=weights, key=key)
 
 
@@ -481,28 +489,19 @@ def _cubes_and_tables(spec: RunSpec, grid, out_dir: Path, records: Sequence[Mapp
     indices = [int(r["index"]) for r in records]
     written: dict[str, list[str]] = {}
     if fmt is not None:
-        from .io.cube import add_layers, realizations_dataset, summary_dataset, write_cube
-        name = variable_name(spec["data.value"])
+        from .io.cube import write_ensemble_cubes
         u = f" ({units})" if units else ""
 
         def reader(j: int) -> np.ndarray:
             return read_realization(paths[j], grid).astype(np.float32)
 
-        suffix = CUBE_SUFFIX[fmt]
-        written["summary_cube"] = [str(write_cube(out_dir / f"summary{suffix}", add_layers(summary_dataset(
-            grid, bands, cutoffs, units=units, provenance=tags), layers), overwrite=True))]
-        written["realizations_cube"] = [str(write_cube(out_dir / f"realizations{suffix}", add_layers(
-            realizations_dataset(grid, reader, indices, name=name,
-                                 long_name=f"{spec['data.value']}{u}, conditional realization", units=units,
-                                 provenance=tags), layers), overwrite=True))]
+        written.update(write_ensemble_cubes(out_dir, grid, CUBE_SUFFIX[fmt], bands=bands, cutoffs=cutoffs,
+                                            reader=reader, indices=indices, name=variable_name(spec["data.value"]),
+                                            long_name=f"{spec['data.value']}{u}, conditional realization",
+                                            units=units, provenance=tags, overwrite=True, layers=layers))
     if tables:
-        from .io.cube import summary_variables, write_block_model
-        variables, _ = summary_variables(bands, cutoffs, units)
-        variables.pop("prob_above", None)
-        table = {k: (v, d, u) for k, (v, d, u) in variables.items()}
-        table.update(layers or {})
-        for c, band in zip(cutoffs, bands[5:]):
-            table[f"prob_above_{c:g}"] = (band, f"probability above {c:g} (fraction 0-1 of realizations)", "")
+        from .io.cube import summary_table_columns, write_block_model
+        table = summary_table_columns(bands, cutoffs, units, layers)
         if out["block_model_realizations"]:
             for i, p in zip(indices, paths):
                 table[f"r{i:04d}"] = (read_realization(p, grid), f"realization {i}", units)

@@ -160,24 +160,30 @@ class RunResult:
         return (f"RunResult({str(self.out_dir)!r}, {n} realizations ({len(self.computed)} computed), "
                 f"model {' '.join(str(self.model).split())!r}{rmse})")
 
-    def to_xarray(self, kind: str = "summary"):
+    def to_xarray(self, kind: str = "summary", support: str | None = None):
         """One output as an :class:`xarray.Dataset`: ``"summary"``, ``"realizations"`` or ``"estimate"``.
 
         Opens the run's NetCDF or Zarr cube lazily when it wrote one; otherwise reads
         the GeoTIFF(s) into the same CF layout (``pip install "geosim[cube]"``).
+        ``support`` picks the block or model-cell outputs (``"blocks"``,
+        ``"upscaled"``, ``"upscaled_vertical"``) instead of the nodes'.
         """
         from .io.cube import open_cube, raster_dataset
         choices = ("summary", "realizations", "estimate")
         if kind not in choices:
             raise ValueError(f"kind must be one of {choices}, got {kind!r}")
-        cube = self.files.get("estimate" if kind == "estimate" else f"{kind}_cube", [])
+        if support is not None and kind == "estimate":
+            raise ValueError("the kriging estimate is at point support only; leave support out")
+        prefix = f"{support}_" if support else ""
+        cube = self.files.get("estimate" if kind == "estimate" else f"{prefix}{kind}_cube", [])
         cube = [f for f in cube if not f.endswith(".tif")]
         if cube:
             return open_cube(cube[0])
-        tifs = [f for f in self.files.get(kind, []) if f.endswith(".tif")]
+        tifs = [f for f in self.files.get(f"{prefix}{kind}", []) if f.endswith(".tif")]
         if not tifs:
-            raise InputError(f"this run wrote no {kind} output", file=str(self.out_dir),
-                             fix="turn the output on in [outputs] and run again")
+            what = f"{kind} at {support} support" if support else kind
+            raise InputError(f"this run wrote no {what} output", file=str(self.out_dir),
+                             fix="turn the output on in [outputs] (or [blocks], [upscaling]) and run again")
         return raster_dataset(tifs, kind)
 
 

@@ -208,7 +208,7 @@ class Ranker:
         by_index = {r["index"]: r for r in records}
         folder = writer.folder / "ranked"
         folder.mkdir(exist_ok=True)
-        for old in folder.glob("*.tif"):  # picks of an earlier finish (fewer realizations, another figure)
+        for old in [*folder.glob("*.tif"), *folder.glob("*.nc")]:  # picks of an earlier finish
             old.unlink()
         written = []
         outputs = [("", writer.grid, lambda r: r["files"])]
@@ -216,10 +216,13 @@ class Ranker:
                     for d in writer.derived if isinstance(d, SupportWriter)]
         for label, i in picked.items():
             for suffix, grid, files in outputs:
-                # the realization's own files (one per level in 3-D), copied whole with their provenance
-                # tags and caution; ranking.csv and its sidecar say what the pick means
-                targets = level_paths(folder / f"{self.label}_{label}_r{i:04d}{suffix}.tif", grid)
-                for source, target in zip(files(by_index[i]), targets):
+                # the realization's own files (one per level in 3-D, or one cube), copied whole with their
+                # provenance and caution; ranking.csv and its sidecar say what the pick means
+                sources = files(by_index[i])
+                stem = f"{self.label}_{label}_r{i:04d}{suffix}"
+                kind = Path(sources[0]).suffix
+                targets = level_paths(folder / f"{stem}.tif", grid) if kind == ".tif" else [folder / f"{stem}{kind}"]
+                for source, target in zip(sources, targets):
                     with atomic_output(target, overwrite=True) as tmp:
                         shutil.copyfile(writer.folder / source, tmp)
                     written.append(target)

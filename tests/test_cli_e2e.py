@@ -199,7 +199,8 @@ def test_ore_prospect_3d_run(tmp_path):
     spread = (out / "decision_spread.csv").read_text()
     assert "tonnage" in spread and "mean_grade" in spread
     assert_plain_tables(out, ["block_model.csv", "cross_validation.csv", "decision_figures.csv",
-                              "decision_spread.csv", "blocks/decision_figures.csv", "blocks/decision_spread.csv",
+                              "decision_spread.csv", "blocks/block_model.csv", "blocks/decision_figures.csv",
+                              "blocks/decision_spread.csv",
                               "ranking.csv", "query_points.csv"])
     metal = read_csv_metadata_columns(out / "decision_spread.csv-metadata.json")
     assert metal["cutoff"] == "% Cu"

@@ -35,12 +35,19 @@ from ..cautions import CAUTION
 from ..errors import InputError
 from .atomic import atomic_output
 
-__all__ = ["CF_VERSION", "grid_coords", "grid_dataset", "summary_dataset", "realizations_dataset", "write_cube",
-           "write_netcdf", "write_zarr", "open_cube", "block_model_table", "write_block_model"]
+__all__ = ["CF_VERSION", "CUBE_SUFFIX", "grid_coords", "grid_dataset", "summary_dataset", "realizations_dataset",
+           "write_cube", "write_realization_cube", "cube_boxes", "read_cube_boxes", "read_cube_windows",
+           "read_cube_values", "write_ensemble_cubes",
+           "write_netcdf", "write_zarr", "open_cube", "block_model_table", "write_block_model",
+           "summary_table_columns"]
 
 CF_VERSION = "CF-1.8"
 GRID_MAPPING = "spatial_ref"
 CHUNK_XY = 512
+#: the file suffix of each cube format
+CUBE_SUFFIX = {"netcdf": ".nc", "zarr": ".zarr"}
+#: realization cubes up to this size (float32) are stacked in memory rather than streamed through Dask
+SMALL_CUBE_BYTES = 32 * 2**20
 
 
 def _need(module: str, extra: str):
@@ -276,6 +283,111 @@ def write_cube(path: str | os.PathLike, ds, *, overwrite: bool = False) -> Path:
     return write_netcdf(path, ds, overwrite=overwrite)
 
 
+# -- one realization per file -------------------------------------------------------------------
+
+def write_realization_cube(path: str | os.PathLike, values: np.ndarray, grid, *, index: int, name: str,
+                           long_name: str, units: str = "", provenance: Mapping[str, str] | None = None,
+                           overwrite: bool = False) -> Path:
+    """One realization of a 3-D grid as one NetCDF cube (the layout of :func:`grid_dataset`).
+
+    What a worker writes per realization instead of one GeoTIFF per level: one
+    file, one realization on the ``realization`` dimension, read back level by
+    level (:func:`read_cube_windows`) to assemble the run's cubes.
+    """
+    data = np.asarray(values, dtype=np.float32)[None]
+    ds = grid_dataset(grid, {name: (data, long_name, units)}, realizations=[int(index)],
+                      title="geosim conditional realization", provenance=provenance)
+    return write_netcdf(path, ds, overwrite=overwrite)
+
+
+def _first_variable(ds):
+    """The data variable of a per-realization cube (the one that is not the grid mapping)."""
+    return next(v for n, v in ds.variables.items() if v.dimensions[:1] == ("realization",))
+
+
+def read_cube_values(path: str | os.PathLike) -> np.ndarray:
+    """The values of a cube of :func:`write_realization_cube` as float64 of the grid's shape (NaN outside)."""
+    netCDF4 = _need("netCDF4", "cube")
+    with netCDF4.Dataset(path) as ds:
+        var = _first_variable(ds)
+        var.set_auto_mask(False)
+        return np.asarray(var[0], dtype=np.float64)
+
+
+def cube_boxes(grid, nodes: int = 256 * 256) -> list[tuple[slice, ...]]:
+    """Boxes ``(levels, rows, cols)`` of a 3-D grid (``(rows, cols)`` in 2-D) of at most about ``nodes``
+    nodes that tile it: whole levels stacked while they fit, else windows of one level.
+
+    Reading every realization one box at a time keeps memory at ``nodes`` values per
+    realization, and reads a small grid (blocks, model cells) in one pass.
+    """
+    ny, nx = grid.shape[-2:]
+    if ny * nx <= nodes:
+        planes = [(slice(0, ny), slice(0, nx))]
+        depth = max(1, nodes // (ny * nx))
+    else:
+        side = max(1, int(np.sqrt(nodes)))
+        planes = [(slice(r, min(r + side, ny)), slice(c, min(c + side, nx)))
+                  for r in range(0, ny, side) for c in range(0, nx, side)]
+        depth = 1
+    if grid.ndim == 2:
+        return planes
+    return [(slice(k, min(k + depth, grid.nz)),) + plane for k in range(0, grid.nz, depth) for plane in planes]
+
+
+def read_cube_boxes(paths: Sequence[str | os.PathLike], boxes: Sequence[tuple[slice, ...]]) -> Any:
+    """Every cube's values in one box at a time: ``(box, stack (len(paths), *box shape) float32)``.
+
+    The counterpart of :func:`geosim.io.geotiff.read_windows` for files of
+    :func:`write_realization_cube`; ``boxes`` as from :func:`cube_boxes`.
+    Memory is one box of every file.
+    """
+    netCDF4 = _need("netCDF4", "cube")
+    for box in boxes:
+        stack = np.empty((len(paths),) + tuple(b.stop - b.start for b in box), dtype=np.float32)
+        for i, p in enumerate(paths):
+            with netCDF4.Dataset(p) as ds:
+                var = _first_variable(ds)
+                var.set_auto_mask(False)
+                stack[i] = var[(0,) + box]
+        yield box, stack
+
+
+def read_cube_windows(paths: Sequence[str | os.PathLike], level: int | None,
+                      windows: Callable[[], Any]) -> Any:
+    """:func:`read_cube_boxes` of the rasterio windows ``windows()`` of one level (None in 2-D), as
+    ``(window, stack (len(paths), h, w))``: the call form of :func:`geosim.io.geotiff.read_windows`."""
+    wins = list(windows())
+    boxes = [((slice(level, level + 1),) if level is not None else ())
+             + (slice(w.row_off, w.row_off + w.height), slice(w.col_off, w.col_off + w.width)) for w in wins]
+    for w, (_, stack) in zip(wins, read_cube_boxes(paths, boxes)):
+        yield w, stack.reshape(len(paths), w.height, w.width)
+
+
+def write_ensemble_cubes(folder: str | os.PathLike, grid, suffix: str, *, bands: np.ndarray,
+                         cutoffs: Sequence[float], reader: Callable[[int], np.ndarray], indices: Sequence[int],
+                         name: str, long_name: str, units: str = "", provenance: Mapping[str, str] | None = None,
+                         overwrite: bool = False, layers: Mapping[str, tuple] | None = None) -> dict[str, list[str]]:
+    """A run's ``summary`` and ``realizations`` cubes (``suffix`` ``.nc`` or ``.zarr``) in ``folder``.
+
+    ``bands`` are the summary bands (:func:`geosim.summaries.summary_bands`) of
+    the grid; ``reader(j)`` gives the j-th realization, read when that chunk is
+    written (all at once when they take at most :data:`SMALL_CUBE_BYTES`); ``layers`` are added to both
+    (:func:`add_layers`).  Returns ``{"summary_cube": [path], "realizations_cube": [path]}``.
+    """
+    folder = Path(folder)
+    summary = write_cube(folder / f"summary{suffix}", add_layers(summary_dataset(
+        grid, bands, cutoffs, units=units, provenance=provenance), layers), overwrite=overwrite)
+    if len(indices) * grid.size * 4 <= SMALL_CUBE_BYTES:  # blocks, model cells: no task graph
+        stack = grid_dataset(grid, {name: (np.stack([reader(j) for j in range(len(indices))]), long_name, units)},
+                             realizations=indices, title="geosim conditional realizations", provenance=provenance)
+    else:
+        stack = realizations_dataset(grid, reader, indices, name=name, long_name=long_name, units=units,
+                                     provenance=provenance)
+    realizations = write_cube(folder / f"realizations{suffix}", add_layers(stack, layers), overwrite=overwrite)
+    return {"summary_cube": [str(summary)], "realizations_cube": [str(realizations)]}
+
+
 # -- block model table --------------------------------------------------------------------------
 
 def block_model_columns(grid, variables: Sequence[tuple[str, str, str]]):
@@ -290,6 +402,19 @@ def block_model_columns(grid, variables: Sequence[tuple[str, str, str]]):
         cols.append(Column("dz", "block size along z", unit="m"))
     cols += [Column(name, description, unit=unit) for name, description, unit in variables]
     return cols
+
+
+def summary_table_columns(bands: np.ndarray, cutoffs: Sequence[float], units: str,
+                          layers: Mapping[str, tuple] | None = None) -> dict[str, tuple[np.ndarray, str, str]]:
+    """Block-model columns of the summary bands: mean, std, P10, P50, P90, the ``layers`` (e.g. unit
+    codes, as :func:`add_layers` takes them) and ``prob_above_<cut-off>``."""
+    variables, _ = summary_variables(bands, cutoffs, units)
+    variables.pop("prob_above", None)
+    table = dict(variables)
+    table.update(layers or {})
+    for c, band in zip(cutoffs, bands[5:]):
+        table[f"prob_above_{c:g}"] = (band, f"probability above {c:g} (fraction 0-1 of realizations)", "")
+    return table
 
 
 def block_model_table(grid, variables: Mapping[str, tuple[np.ndarray, str, str]]):

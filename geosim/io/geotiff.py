@@ -335,13 +335,16 @@ def assemble_realizations(paths: Sequence[str | os.PathLike], grid, out_path: st
                           units: str = "", tags: Mapping[str, str] | None = None,
                           indices: Sequence[int] | None = None, overwrite: bool = False,
                           progress: Callable[[int, int, str], None] | None = None,
-                          layers: Sequence[tuple[np.ndarray, str, str]] = ()) -> Path:
+                          layers: Sequence[tuple[np.ndarray, str, str]] = (),
+                          read: Callable = read_windows) -> Path:
     """Stack single-band realization files of one 2-D level into one multiband COG.
 
     Band ``b`` holds ``paths[b - 1]`` and is described "realization i" with
     ``i`` from ``indices`` (default 0, 1, ...); ``layers`` (``(array of the 2-D
     grid's shape, description, unit)``, e.g. unit codes) follow as last bands.
     Memory is one window of every band (``tile_size(grid)**2 x len(paths)`` values).
+    ``read(paths, grid, windows)`` reads the files window by window
+    (:func:`read_windows`: GeoTIFFs).
     """
     indices = list(range(len(paths))) if indices is None else list(indices)
     u = f" ({units})" if units else ""
@@ -350,7 +353,7 @@ def assemble_realizations(paths: Sequence[str | os.PathLike], grid, out_path: st
 
     windows = grid_windows(grid, size)
     return write_windows(out_path, grid, len(paths) + len(layers),
-                         with_layers(read_windows(paths, grid, windows), layers),
+                         with_layers(read(paths, grid, windows), layers),
                          total=sum(1 for _ in windows()), descriptions=descriptions, tags=tags,
                          overwrite=overwrite, progress=progress, what="realizations")
 
