@@ -145,9 +145,9 @@ def main(argv=None) -> None:
                                            for k, v in steps.items()}}
         spread = ", ".join(f"{k} {min(v):.1f}-{max(v):.1f}" for k, v in times.items())
         print(f"{label}: {n} realizations, whole run {median['none']:.1f} s CPU (median) without change of "
-              f"support; +{added['blocks or upscaling']:.1f} % with blocks or upscaling "
-              f"(best runs: +{added_best['blocks or upscaling']:.1f} %), +{added['all']:.1f} % with ranking and "
-              f"points as well (best: +{added_best['all']:.1f} %); spread of the runs (s): {spread}")
+              f"support; {added['blocks or upscaling']:+.1f} % with blocks or upscaling "
+              f"(best runs: {added_best['blocks or upscaling']:+.1f} %), {added['all']:+.1f} % with ranking and "
+              f"points as well (best: {added_best['all']:+.1f} %); spread of the runs (s): {spread}")
         for name in ("blocks or upscaling", "all"):
             share = steps[name]["support code, % of the run"]
             print(f"  {name}: change-of-support code {statistics.median(share):.1f} % of the run's CPU time "
