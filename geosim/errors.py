@@ -136,6 +136,15 @@ def format_bytes(n: float) -> str:
     return f"{n:.1f} TB"
 
 
+class RunAbandoned(GeosimError):
+    """The run a task belongs to has ended (its client died or cancelled it): the task
+    stops and writes nothing further.
+
+    Raised in workers (see :func:`geosim.io.atomic.writes_wanted_while`); nobody is left
+    to receive it, so it only ends the task.
+    """
+
+
 class InvalidStructureError(GeosimError, ValueError):
     """A covariance structure that fails geosim's checks (e.g. not positive definite)."""
 

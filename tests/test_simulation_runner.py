@@ -129,3 +129,55 @@ def test_repeated_calls_on_one_client_neither_hang_nor_lose_the_shared_data(dask
     done = subprocess.run([sys.executable, "-c", script], capture_output=True, text=True, timeout=180)
     assert done.returncode == 0, done.stderr[-2000:]
     assert done.stdout.strip().endswith("ok")
+
+
+class _CountingEngine:
+    """Counts its realizations; each is a constant field."""
+
+    def __init__(self):
+        self.realized = []
+
+    def realize(self, prepared, rng):
+        self.realized.append(rng)
+        return np.zeros((2, 3))
+
+
+def test_a_task_whose_run_has_ended_computes_and_writes_nothing_further(tmp_path):
+    import threading
+
+    from geosim.errors import RunAbandoned
+    from geosim.io.atomic import atomic_output, writes_wanted_while
+    from geosim.simulation.runner import run_group
+
+    engine, handed = _CountingEngine(), []
+    sink = lambda i, field: handed.append(i) or i  # noqa: E731
+    # wanted at first, not after the first realization: the second is neither handed over nor computed
+    answers = iter([True, True, False])
+    with pytest.raises(RunAbandoned, match="realization 1"):
+        run_group(engine, None, sink, 5, [0, 1, 2], 1, wanted=lambda: next(answers))
+    assert handed == [0] and len(engine.realized) == 1
+    # computed, then found unwanted: not handed to the sink
+    answers = iter([True, False])
+    with pytest.raises(RunAbandoned):
+        run_group(engine, None, sink, 5, [3], 1, wanted=lambda: next(answers))
+    assert handed == [0] and len(engine.realized) == 2
+
+    # an atomic write under a failed condition leaves nothing; the condition is this thread's only
+    alive = True
+
+    def write_other():
+        with atomic_output(tmp_path / "other.txt") as tmp:
+            tmp.write_text("another run's file")
+
+    with writes_wanted_while(lambda: alive):
+        with pytest.raises(RunAbandoned, match="late.txt"):
+            with atomic_output(tmp_path / "late.txt") as tmp:
+                tmp.write_text("done")
+                alive = False  # the run ends while the file is written
+        other = threading.Thread(target=write_other)
+        other.start()
+        other.join(timeout=30)
+    assert sorted(p.name for p in tmp_path.iterdir()) == ["other.txt"]
+    with atomic_output(tmp_path / "after.txt") as tmp:  # outside the block: no condition
+        tmp.write_text("written")
+    assert (tmp_path / "after.txt").read_text() == "written"

@@ -5,18 +5,68 @@ written to a temporary file in the target's own folder (so the final rename
 stays on one file system) and moved into place with :func:`os.replace` only
 when writing succeeded.  A failed or interrupted write leaves no half-written
 file behind, and an existing output is never replaced unless the caller asks.
+
+A task running for someone else (a realization on a Dask worker) may set a condition
+for its thread with :func:`writes_wanted_while`: once the condition fails (the run's
+client is gone), :func:`atomic_output` moves nothing into place and raises
+:class:`~geosim.errors.RunAbandoned`, so a run that has ended gets no further files.
 """
 from __future__ import annotations
 
 import contextlib
 import os
 import secrets
-from collections.abc import Iterator
+import threading
+from collections.abc import Callable, Iterator
 from pathlib import Path
 
-from ..errors import InputError
+from ..errors import InputError, RunAbandoned
 
-__all__ = ["atomic_output", "check_writable"]
+__all__ = ["atomic_output", "check_writable", "writes_wanted_while", "check_wanted"]
+
+# this thread's condition for writing (a task's "is my run still alive?"), if any
+_WANTED = threading.local()
+
+
+@contextlib.contextmanager
+def writes_wanted_while(wanted: Callable[[], bool]) -> Iterator[None]:
+    """Let files written in this thread reach their place only while ``wanted()`` is true.
+
+    Within the block, :func:`atomic_output` calls ``wanted()`` before it starts and again
+    just before it moves a finished file into place; when it returns False the
+    temporary file is removed and :class:`~geosim.errors.RunAbandoned` is raised.  The
+    condition belongs to the calling thread only (a Dask worker runs tasks of several
+    clients in its threads), and blocks nest.
+
+    Examples
+    --------
+    >>> import pathlib, tempfile
+    >>> import geosim.io.atomic
+    >>> folder = pathlib.Path(tempfile.mkdtemp())
+    >>> with geosim.io.atomic.writes_wanted_while(lambda: False):
+    ...     with geosim.io.atomic.atomic_output(folder / "late.txt") as tmp:
+    ...         _ = tmp.write_text("nobody waits for this")
+    Traceback (most recent call last):
+    ...
+    geosim.errors.RunAbandoned: the run that asked for ... has ended; nothing was written
+    >>> list(folder.iterdir())
+    []
+    """
+    previous = getattr(_WANTED, "check", None)
+    _WANTED.check = wanted
+    try:
+        yield
+    finally:
+        _WANTED.check = previous
+
+
+def check_wanted(what: str | os.PathLike) -> None:
+    """Raise :class:`~geosim.errors.RunAbandoned` if this thread's condition for writing
+    (:func:`writes_wanted_while`) no longer holds; ``what`` names the output for the message.
+    Writers that do not go through :func:`atomic_output` call it before each write."""
+    wanted = getattr(_WANTED, "check", None)
+    if wanted is not None and not wanted():
+        raise RunAbandoned(f"the run that asked for {os.fspath(what)} has ended; nothing was written")
 
 
 def check_writable(path: str | os.PathLike, overwrite: bool = False) -> Path:
@@ -65,7 +115,9 @@ def atomic_output(path: str | os.PathLike, overwrite: bool = False) -> Iterator[
         propagates, except that a full disk becomes a
         :class:`~geosim.errors.ResourceError` and a write the file system refuses an
         :class:`~geosim.errors.InputError`, both naming the folder
-        (:func:`geosim.resources.explain_os_error`).
+        (:func:`geosim.resources.explain_os_error`).  Under :func:`writes_wanted_while`, a
+        condition that fails before the rename raises
+        :class:`~geosim.errors.RunAbandoned` and leaves no file.
 
     Examples
     --------
@@ -79,6 +131,7 @@ def atomic_output(path: str | os.PathLike, overwrite: bool = False) -> Iterator[
     >>> sorted(p.name for p in folder.iterdir())
     ['notes.txt']
     """
+    check_wanted(path)
     path = check_writable(path, overwrite)
     # hidden, unique and with the real suffix last: ".name.tif.3f9a1c2b.partial.tif"
     tmp = path.with_name(f".{path.name}.{secrets.token_hex(4)}.partial{path.suffix}")
@@ -87,6 +140,7 @@ def atomic_output(path: str | os.PathLike, overwrite: bool = False) -> Iterator[
         if not tmp.exists():
             raise FileNotFoundError(f"nothing was written to the temporary file {tmp} for {path}")
         check_writable(path, overwrite)
+        check_wanted(path)
         os.replace(tmp, path)
     except BaseException as exc:
         error = None

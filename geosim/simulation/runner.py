@@ -13,6 +13,18 @@ field goes to the sink in the worker, so only the sink's small results travel ba
 A pool worker watches the main process: when that is killed, even with SIGKILL, its
 workers exit at once instead of finishing and writing their realizations
 (:func:`watch_process`); the fork server then ends with its last worker.
+
+A Dask worker is not ours to end, and may share no memory, pid space or host with
+the client.  A task there asks its own worker whether the scheduler still wants its
+result (:func:`dask_task_wanted`): the scheduler releases every task of a client whose
+connection closes (a killed process's socket is closed by its kernel at once; a host
+that vanishes is noticed through TCP keep-alive, about 30 s by default) or that
+cancels its futures (Ctrl-C), and tells the worker within milliseconds.  A task that is
+no longer wanted computes no further realization and writes no further file: the
+check runs before each realization, before each is handed to the sink, and inside
+every atomic write (:func:`geosim.io.atomic.writes_wanted_while`), up to the rename
+that would make a file appear.  A realization inside the compiled kernel runs to its
+end first (its result is dropped); tasks not yet started are never started.
 """
 from __future__ import annotations
 
@@ -26,6 +38,8 @@ from collections.abc import Callable, Iterable
 import numpy as np
 
 from .. import plugins
+from ..errors import RunAbandoned
+from ..io.atomic import writes_wanted_while
 
 log = logging.getLogger(__name__)
 
@@ -82,12 +96,6 @@ def resolve_engine(engine):
     return engine
 
 
-def run_one(engine, prepared, sink, seed: int, index: int):
-    """Compute realization ``index`` and hand it to ``sink`` (or return the field)."""
-    field = engine.realize(prepared, realization_rng(seed, index))
-    return field if sink is None else sink(index, field)
-
-
 def watch_process(pid: int, interval: float = PARENT_POLL_SECONDS) -> threading.Thread:
     """Exit this process at once when process ``pid`` (the main process) ends.
 
@@ -126,17 +134,71 @@ def watch_process(pid: int, interval: float = PARENT_POLL_SECONDS) -> threading.
     return thread
 
 
-def run_group(engine, prepared, sink, seed: int, indices: list[int], per_path: int) -> list[tuple]:
-    """``[(index, sink result or field)]`` for realizations of one path group (one index when ``per_path`` is 1)."""
+def run_group(engine, prepared, sink, seed: int, indices: list[int], per_path: int,
+              wanted: Callable[[], bool] | None = None) -> list[tuple]:
+    """``[(index, sink result or field)]`` for realizations of one path group (one index when ``per_path`` is 1).
+
+    With ``wanted``, :class:`~geosim.errors.RunAbandoned` is raised as soon as
+    ``wanted()`` is False, checked before each realization is computed and before each
+    is handed to the sink.
+    """
+    def go_on(i: int) -> None:
+        if wanted is not None and not wanted():
+            raise RunAbandoned(f"the run that asked for realization {i} has ended; it was not written")
+
+    out = []
     if per_path == 1:
-        return [(i, run_one(engine, prepared, sink, seed, i)) for i in indices]
+        for i in indices:
+            go_on(i)
+            field = engine.realize(prepared, realization_rng(seed, i))
+            go_on(i)
+            out.append((i, field if sink is None else sink(i, field)))
+        return out
+    go_on(indices[0])
     fields = engine.realize_batch(prepared, path_rng(seed, indices[0] // per_path),
                                   [realization_rng(seed, i) for i in indices])
-    out = []
     for i in indices:
         field = fields.pop(0)  # hand each field over and let it go before the next one
+        go_on(i)
         out.append((i, field if sink is None else sink(i, field)))
     return out
+
+
+# a Dask worker's task states in which its result is still wanted by the scheduler
+# (a task released by its client is "cancelled"; "resumed" is one wanted again)
+_DASK_WANTED_STATES = frozenset({"executing", "long-running", "resumed"})
+
+
+def dask_task_wanted() -> Callable[[], bool] | None:
+    """A check, for the Dask task calling this, that its result is still wanted.
+
+    The check reads what the worker process itself knows (no message is sent): the
+    state of this task in the worker, which the scheduler moves to "cancelled" when the
+    task's client disconnects or cancels it, and the worker's own status (a worker that
+    has lost its scheduler is closing).  None outside a Dask worker.
+    """
+    try:
+        from distributed import get_worker
+        worker = get_worker()
+    except (ImportError, ValueError):
+        return None
+    from distributed.core import Status
+    key = worker.get_current_task()
+    ending = (Status.closing, Status.closed, Status.failed)
+
+    def wanted() -> bool:
+        task = worker.state.tasks.get(key)
+        return task is not None and task.state in _DASK_WANTED_STATES and worker.status not in ending
+    return wanted
+
+
+def run_dask_group(engine, prepared, sink, seed: int, indices: list[int], per_path: int) -> list[tuple]:
+    """:func:`run_group` as a Dask task: it stops, writing nothing further, once its run has ended."""
+    wanted = dask_task_wanted()
+    if wanted is None:
+        return run_group(engine, prepared, sink, seed, indices, per_path)
+    with writes_wanted_while(wanted):
+        return run_group(engine, prepared, sink, seed, indices, per_path, wanted)
 
 
 def _groups(todo: list[int], per_path: int) -> list[list[int]]:
@@ -360,7 +422,7 @@ def _run_dask(client, eng, prepared, sink, seed, groups, per_path, progress) -> 
         # call's scatter of the same data, which the scheduler may still be releasing when
         # this call's tasks ask for it ("lost dependencies").
         shared = client.scatter(prepared, broadcast=True, hash=False)
-        futures = [client.submit(run_group, eng, shared, sink, seed, g, per_path, pure=False) for g in groups]
+        futures = [client.submit(run_dask_group, eng, shared, sink, seed, g, per_path, pure=False) for g in groups]
         return _collect(futures, as_completed, lambda: client.cancel(futures), progress, sum(map(len, groups)))
     finally:
         if own:
