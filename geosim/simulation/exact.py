@@ -13,6 +13,18 @@ ordinary kriging of its residuals at the data: ``y = u_nodes + W (z - u_data)`` 
 global ordinary-kriging weights ``W`` (conditioning by kriging, Journel and Huijbregts
 1978, Mining Geostatistics, section VII.A, from memory).
 
+With a collocated secondary ``s`` (normal scores at every active node, correlation
+``rho`` with the primary) the conditioning set is the data and the secondary at all
+active nodes, under the joint Gaussian model of the Markov model (Almeida and Journel
+1994, Mathematical Geology 26(5)) in which the secondary is the primary scaled plus
+independent noise, ``S = b Y + e``, ``b = rho / sqrt(sill)``, ``Var(e) = 1 - rho^2``:
+
+    C_YS(h) = b C_Y(h),    C_SS(h) = b^2 C_Y(h) + (1 - rho^2) [h = 0],
+
+so the realizations are drawn from the exact conditional distribution given the data
+and the whole secondary grid.  The sequential engine's collocated co-simulation uses
+the secondary at the node itself only; this engine is its reference.
+
 Memory grows with the square of ``n + N``; the engine refuses systems above
 ``max_size`` (default 16,000) and suggests the sequential engine.
 """
@@ -25,7 +37,7 @@ from numba import njit
 
 from ..errors import InputError, NotPositiveDefiniteError
 from ..search import Neighbourhood
-from .validate import check_inputs, coincident_nodes, complement, data_labels
+from .validate import check_inputs, coincident_nodes, collocated_inputs, complement, data_labels
 
 
 @dataclass(frozen=True)
@@ -65,7 +77,10 @@ class ExactEngine:
     """Conditional simulation from one LAPACK Cholesky factor, for small grids.
 
     Options: ``max_size`` (largest ``n + N`` accepted, default 16,000), ``sample_ids``
-    (labels of the data rows for error messages).  The neighbourhood is ignored: every
+    (labels of the data rows for error messages), ``secondary`` and ``correlation``
+    (a collocated secondary in normal scores on ``grid.shape`` and its correlation with
+    the primary: the secondary at every active node joins the conditioning set, see the
+    module docstring; simple kriging only; ``correlation = 0`` is the primary-only run).  The neighbourhood is ignored: every
     datum conditions every node (so ``hole_ids`` is accepted, as by the sequential
     engine, and has no effect).
 
@@ -85,24 +100,33 @@ class ExactEngine:
     name = "exact"
 
     def prepare(self, data_coords, data_scores, model, grid, *, neighbourhood: Neighbourhood | None = None,
-                kriging: str = "simple", max_size: int = MAX_SIZE, sample_ids=None, hole_ids=None) -> ExactPlan:
+                kriging: str = "simple", max_size: int = MAX_SIZE, sample_ids=None, hole_ids=None,
+                secondary=None, correlation: float = 0.0) -> ExactPlan:
         """Factor the joint covariance of data and active nodes once."""
         from scipy.linalg import solve_triangular
         coords3, scores, _, ordinary, model = check_inputs(data_coords, data_scores, model, grid,
                                                            neighbourhood, kriging)
+        sec, b, noise = collocated_inputs(secondary, correlation, grid, model, ordinary)
         labels = data_labels(sample_ids, len(scores))
-        n = scores.shape[0]
         nodes = grid.coords()
         fixed, fixed_data = coincident_nodes(coords3, grid)
         free = complement(nodes.shape[0], fixed)
+        d = grid.ndim
+        cond = scores
+        if b != 0.0:
+            # the secondary at every active node is conditioning data too, after the samples
+            cond = np.concatenate([scores, sec[grid.mask]])
+            labels = labels + tuple(f"secondary at grid node {i + 1}" for i in range(nodes.shape[0]))
+        n = cond.shape[0]
         size = n + free.shape[0]
         check_size(size, max_size)
-        d = grid.ndim
-        points = np.vstack([coords3[:, :d], nodes[free]])
+        points = np.vstack([coords3[:, :d]] + ([nodes] if b != 0.0 else []) + [nodes[free]])
         if ordinary and n == 0:
             raise InputError("ordinary kriging needs at least one datum", field="kriging",
                              fix="use kriging='simple' for an unconditional simulation")
         c = model.cov_matrix(points, chunk=256)  # small chunks: lag temporaries stay ~100 MB
+        if b != 0.0:
+            _markov_secondary(c, scores.shape[0], nodes.shape[0], b, noise)
         c12 = c[:n, n:].copy() if ordinary else None
         factor = _lapack_cholesky(c, labels, n)
         active_flat = np.flatnonzero(grid.mask.ravel())
@@ -117,7 +141,7 @@ class ExactEngine:
             return ExactPlan(grid.shape, active_flat, free, fixed, scores[fixed_data],
                              factor[n:], np.ascontiguousarray(l11), np.zeros(0),
                              np.ascontiguousarray(weights), scores, True)
-        a = solve_triangular(factor[:n, :n], scores, lower=True) if n else np.zeros(0)
+        a = solve_triangular(factor[:n, :n], cond, lower=True) if n else np.zeros(0)
         mean = factor[n:, :n] @ a
         return ExactPlan(grid.shape, active_flat, free, fixed, scores[fixed_data],
                          factor[n:, n:], empty, mean, empty, scores, False)
@@ -135,6 +159,16 @@ class ExactEngine:
         out[plan.active_flat[plan.free]] = values
         out[plan.active_flat[plan.fixed]] = plan.fixed_scores
         return out.reshape(plan.shape)
+
+
+def _markov_secondary(c: np.ndarray, n: int, m: int, b: float, noise: float) -> None:
+    """Turn rows/columns ``n .. n + m`` of the primary covariance ``c`` into the secondary's:
+    ``b`` times the primary's against primary rows, ``b^2`` times plus ``noise`` on the
+    diagonal among themselves (in place)."""
+    s = slice(n, n + m)
+    c[s, :] *= b
+    c[:, s] *= b
+    c[s, s][np.diag_indices(m)] += noise
 
 
 def matvec(a: np.ndarray, x: np.ndarray) -> np.ndarray:

@@ -26,7 +26,7 @@ simulation (from memory); multi-grid paths are common practice, no source.
 from __future__ import annotations
 
 import math
-from dataclasses import dataclass, replace
+from dataclasses import dataclass, field, replace
 
 import numpy as np
 from numba import njit
@@ -37,7 +37,7 @@ from ..search import DataSearch, Neighbourhood, search_ellipsoid
 from ..variogram.compiled import ZERO_LAG2, analytic_correlation, cov_lag, tabulated_correlation
 from ..variogram.structures import NUGGET, TABULATED
 from .paths import covariance_table, grid_axes, node_template, offset_lags, path_levels, random_path
-from .validate import COINCIDENT_REL_TOL, check_inputs, coincident_nodes, complement, data_labels
+from .validate import COINCIDENT_REL_TOL, check_inputs, coincident_nodes, collocated_inputs, complement, data_labels
 
 
 @dataclass(frozen=True)
@@ -70,6 +70,9 @@ class SequentialPlan:
     ordinary: bool
     tol: float
     nugget_node_data: bool       # whether a simulated node can lie on a datum (tiny cells only)
+    secondary: np.ndarray = field(default_factory=lambda: np.zeros(0))  # flat collocated secondary scores, or empty
+    secondary_b: float = 0.0     # Markov-model factor b = rho sqrt(1 / sill)
+    secondary_noise: float = 1.0  # 1 - rho^2: the secondary's variance not explained by the primary
 
 
 class SequentialEngine:
@@ -88,6 +91,14 @@ class SequentialEngine:
         Drillhole of each datum, for ``neighbourhood.max_per_hole``.
     ``pivot_tol`` : float
         A Cholesky pivot ``<= pivot_tol * sill`` counts as failure (default 1e-10).
+    ``secondary``, ``correlation`` : array of ``grid.shape``, float
+        Collocated co-simulation: the normal scores of a secondary variable at every
+        active node and its correlation coefficient with the primary (simple kriging
+        only).  At each node the simple-kriging mean and variance are updated with the
+        collocated secondary value under the Markov model
+        (:func:`geosim.kriging.collocated_update`; Almeida and Journel 1994,
+        Mathematical Geology 26(5)); the secondary at nodes not yet visited is not
+        used.  ``correlation = 0`` gives the primary-only realization bit for bit.
 
     ``neighbourhood.min_samples`` does not apply: simulation draws every node, with or
     without data nearby.  With ``kriging="ordinary"`` a node with no conditioning point
@@ -112,10 +123,12 @@ class SequentialEngine:
 
     def prepare(self, data_coords, data_scores, model, grid, *, neighbourhood: Neighbourhood | None = None,
                 kriging: str = "simple", multigrid: int | None = None, max_template: int = 20_000,
-                sample_ids=None, hole_ids=None, pivot_tol: float = 1e-10) -> SequentialPlan:
+                sample_ids=None, hole_ids=None, pivot_tol: float = 1e-10, secondary=None,
+                correlation: float = 0.0) -> SequentialPlan:
         """Build the search template, covariance table and data neighbour lists."""
         coords3, scores, nb, ordinary, model = check_inputs(data_coords, data_scores, model, grid,
                                                             neighbourhood, kriging)
+        sec, b, noise = collocated_inputs(secondary, correlation, grid, model, ordinary)
         if nb.ranges is None and not any(s.kind != "nugget" for s in model.structures):
             # a pure nugget has no range: one cell is all an uncorrelated field needs
             nb = replace(nb, ranges=(max(grid.cell),) * 3)
@@ -147,7 +160,8 @@ class SequentialEngine:
             data_coords=coords3, data_scores=scores, data_neighbours=neighbours,
             data_labels=data_labels(sample_ids, len(scores)), max_nodes=int(nb.max_nodes),
             ordinary=ordinary, tol=float(pivot_tol) * model.sill,
-            nugget_node_data=(COINCIDENT_REL_TOL * min(grid.cell)) ** 2 <= ZERO_LAG2)
+            nugget_node_data=(COINCIDENT_REL_TOL * min(grid.cell)) ** 2 <= ZERO_LAG2,
+            secondary=sec.ravel() if b != 0.0 else np.zeros(0), secondary_b=b, secondary_noise=noise)
 
     def realize(self, plan: SequentialPlan, rng: np.random.Generator) -> np.ndarray:
         """One realization: normal scores of ``grid.shape``, NaN outside the mask."""
@@ -182,7 +196,8 @@ class SequentialEngine:
                              plan.origin, plan.step, plan.offsets, plan.lags, plan.table, plan.table_lin,
                              plan.table_zero, plan.use_table, plan.data_cov,
                              plan.data_coords, plan.data_scores, plan.data_neighbours, plan.cm,
-                             plan.max_nodes, plan.ordinary, plan.tol, plan.nugget_node_data, single, a, ids, fail)
+                             plan.max_nodes, plan.ordinary, plan.tol, plan.nugget_node_data, single, a, ids, fail,
+                             plan.secondary, plan.secondary_b, plan.secondary_noise)
         if status >= 0:
             raise _pivot_error(plan, path, a, ids, fail)
         # nodes on a datum stay out of the node search (the datum itself is found) and take its score
@@ -235,13 +250,18 @@ def _data_neighbours(coords: np.ndarray, node_coords: np.ndarray, nb: Neighbourh
 @njit(cache=True, nogil=True)
 def _sgs_kernel(field, active_flat, path, normals, shape3, origin, step, offsets, lags, table, table_lin,
                 table_zero, use_table, data_cov, dcoords, dscores, dnbr, cm, max_nodes, ordinary, tol,
-                nugget_node_data, single, a, ids, fail):
+                nugget_node_data, single, a, ids, fail, sec, sec_b, sec_noise):
     """Simulate every node of ``path`` into ``field`` (flat nodes x members, NaN = not yet simulated).
 
     The members (columns of ``field`` and ``normals``) share the path.  ``single`` (one
     member) borders the factored system with the values; otherwise the weights are
     solved for once per node and applied to each member, so that a member's bits do
     not depend on how many others are computed with it.
+
+    With a collocated secondary (``sec`` not empty: its score at every flat node) the
+    simple-kriging moments are updated with it (Markov model, see
+    :func:`geosim.kriging.collocated_update`): gain ``g = b v / (b^2 v + 1 - rho^2)``,
+    mean ``(1 - g b) y + g s``, variance ``(1 - g b) v``.
 
     Returns -1, or the path position where a local covariance matrix failed to factor
     (then ``fail = [position, pivot, n_data, n_total]`` and ``ids`` holds the data ids
@@ -412,14 +432,25 @@ def _sgs_kernel(field, active_flat, path, normals, shape3, origin, step, offsets
                     mean += wts[r] * zv[r]
         if var < 0.0:
             var = 0.0
+        keep = 1.0
+        pull = 0.0
+        if sec.shape[0] > 0:
+            gain = sec_b * var / (sec_b * sec_b * var + sec_noise)
+            keep = 1.0 - gain * sec_b
+            pull = gain * sec[flat]
+            var *= keep
         sd = math.sqrt(var)
         if single:
+            if sec.shape[0] > 0:
+                mean = keep * mean + pull
             field[flat, 0] = mean + sd * normals[p, 0]
         else:
             for b in range(nb):
                 mb = mean
                 for r in range(nd, m):
                     mb += wts[r] * field[lin_node[r], b]
+                if sec.shape[0] > 0:
+                    mb = keep * mb + pull
                 field[flat, b] = mb + sd * normals[p, b]
     return -1
 

@@ -103,3 +103,30 @@ def complement(n: int, taken: np.ndarray) -> np.ndarray:
     keep = np.ones(n, dtype=bool)
     keep[taken] = False
     return np.flatnonzero(keep)
+
+
+def collocated_inputs(secondary, correlation, grid, model, ordinary: bool) -> tuple[np.ndarray, float, float]:
+    """Check a collocated secondary for an engine; return ``(scores of grid.shape, b, 1 - rho^2)``.
+
+    ``b = rho sqrt(1 / sill)`` is the Markov model's factor for a secondary in normal
+    scores (variance 1): ``C_ps(h) = b C_p(h)``.  Without a secondary, or with
+    ``correlation = 0``, ``b`` is 0 and the engines run as without one.
+    """
+    rho = float(correlation)
+    if not -1.0 < rho < 1.0:
+        raise InputError(f"the correlation coefficient between primary and secondary is {correlation!r}",
+                         field="correlation", fix="give a value strictly between -1 and 1")
+    if secondary is None or rho == 0.0:
+        return np.zeros(0), 0.0, 1.0
+    if ordinary:
+        raise InputError("collocated co-simulation needs simple kriging (a known mean)", field="kriging",
+                         fix="use kriging='simple' (simulation.kriging = \"simple\")")
+    sec = np.asarray(secondary, dtype=np.float64)
+    if sec.shape != grid.shape:
+        raise InputError(f"the secondary has shape {sec.shape}, the grid {grid.shape}", field="secondary",
+                         fix="give the secondary's normal score at every node of the grid")
+    missing = grid.mask & ~np.isfinite(sec)
+    if missing.any():
+        raise InputError(f"the secondary has no value at {int(missing.sum())} of {grid.n_active} active nodes",
+                         field="secondary", fix="give a secondary value at every active node")
+    return np.ascontiguousarray(sec), rho / float(np.sqrt(model.sill)), 1.0 - rho * rho
