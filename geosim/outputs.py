@@ -220,9 +220,15 @@ def realization_writer(spec: RunSpec, data: PreparedData, model, grid, out_dir: 
     from .validation import RunChecks
     tags = provenance_tags(spec, data, model)
     derived, ranking = support_sinks(spec, grid, out_dir, tags)
+    back = data.transform.inverse
+    if data.mean is not None:  # realizations are residuals: the mean goes back on before the back-transform
+        import functools
+
+        from .secondary import add_mean_then
+        back = functools.partial(add_mean_then, mean=data.mean.at_nodes(grid)[grid.mask], inverse=back)
     # overwrite=True: the folder was checked to belong to this run before anything is written
     return RealizationWriter(out_dir, grid, tags=tags, units=spec["data.units"],
-                             back_transform=data.transform.inverse, figures=_figures(spec, grid),
+                             back_transform=back, figures=_figures(spec, grid),
                              measure=RunChecks(grid, model, data.coords, data.scores, weights=data.weights,
                                                data_values=data.values), metal_unit=metal_unit(spec), overwrite=True,
                              derived=derived, ranking=ranking)
@@ -395,6 +401,8 @@ def write_summaries(spec: RunSpec, out_dir: Path, data: PreparedData, model, gri
     support = _support_report(simulation.writer, simulation.records)
     if support:
         report["change_of_support"] = support
+    from .secondary import report_sections
+    report.update(report_sections(spec, data, grid, files.get("summary", ())))
     if extra:
         report.update(extra)
     if out["plots"]:

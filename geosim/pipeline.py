@@ -93,12 +93,17 @@ def prepare_samples(spec: RunSpec, samples, progress: Progress | None = None) ->
     from .inputchecks import check_variability, negative_values_note
     check_variability(values, weights, name=name, samples=samples)
     transform = fit_transform(spec, values, weights)
-    scores = transform.data_scores_  # ties distinct, as the transform documents
+    scores = np.asarray(transform.data_scores_, dtype=float)  # ties distinct, as the transform documents
     notes = list(samples.notes) + ([dc.describe()] if dc is not None else [])
     if not spec["transform.log"]:
         notes += [n for n in [negative_values_note(values, name=name, units=spec["data.units"], samples=samples)]
                   if n]
-    return PreparedData(samples, values, weights, dc, transform, np.asarray(scores, dtype=float), notes)
+    from .secondary import local_mean
+    mean = local_mean(spec, samples, transform, scores, weights)  # [mean]: every later step models the residuals
+    if mean is not None:
+        scores = mean.residuals
+        notes += mean.notes
+    return PreparedData(samples, values, weights, dc, transform, scores, notes, mean=mean)
 
 
 def make_grid(spec: RunSpec, data: PreparedData | None = None):
@@ -130,7 +135,7 @@ def given_model(spec: RunSpec, data: PreparedData | None = None):
         where = dict(file=spec.name, field="variogram.structures")
     else:
         return default_template(data if data is not None else prepare_data(spec))
-    if not vg["fit"]:
+    if not vg["fit"] and spec["mean.trend"] is None and spec["mean.file"] is None:  # residuals have less
         from .inputchecks import check_score_sill
         check_score_sill(model, **where)
     return model
@@ -153,7 +158,8 @@ def preflight(spec: RunSpec, data: PreparedData, grid) -> list[str]:
         coords3 = np.zeros((len(data.coords), 3))
         coords3[:, : data.coords.shape[1]] = data.coords
         free = grid.n_active - len(coincident_nodes(coords3, grid)[0])
-        check_size(len(data.values) + free, file=spec.name, field="simulation.engine")
+        secondary = grid.n_active if spec["secondary.file"] and spec["secondary.correlation"] != 0 else 0
+        check_size(len(data.values) + secondary + free, file=spec.name, field="simulation.engine")
     reach = max(model.max_range, min(grid.cell))
     return check_conditioning(data.samples, grid, reach, spec_file=spec.name)
 
@@ -181,10 +187,12 @@ def variogram_model(spec: RunSpec, data: PreparedData | None = None, *, out_dir:
     else:
         data = data if data is not None else prepare_data(spec, progress)
         template = given_model(spec, data)
+        from .secondary import fit_total_sill
         from .variogram.fitting import fit_model
         experimental = experimental_variograms(spec, data, progress)
         try:
-            fit = fit_model(experimental, template, weighting=vg["weighting"], total_sill=vg["total_sill"])
+            fit = fit_model(experimental, template, weighting=vg["weighting"],
+                            total_sill=fit_total_sill(spec, data.weights, data.mean))
         except InputError as exc:
             raise InputError(f"the variogram cannot be fitted: {exc.message}", file=spec.name, field="variogram",
                              fix="choose variogram.lag and lag_count so that more lags hold pairs, or give a "
@@ -223,6 +231,8 @@ def cross_validate(spec: RunSpec, data: PreparedData | None = None, model=None, 
                            leave_out="hole" if spec.is_drillholes else "sample",
                            progress=relabel(progress, "cross-validation"))
     result = replace(result, units="normal score", weights=data.weights, scale="normal scores")
+    if data.mean is not None:  # the mean at each sample back on the residuals
+        result = replace(result, values=data.mean.scores, estimate=result.estimate + data.mean.at_data)
     in_data = result.in_data_units(data.transform, data.values, units=spec["data.units"])
     cv = CrossValidation(result, {"normal_scores": result.summary(), "data_units": in_data.summary()},
                          data_units=in_data)
@@ -240,25 +250,30 @@ def estimate(spec: RunSpec, data: PreparedData | None = None, model=None, grid=N
     With ``out_dir``, writes ``estimate.tif`` (per level for 3-D): conditional mean and
     standard deviation in data units, kriged normal score and its kriging variance.
     """
-    from .kriging import krige
+    from .secondary import krige_nodes, secondary_grid, spread_comparison
     standalone = data is None
     data = data if data is not None else prepare_data(spec, progress)
     grid = grid if grid is not None else make_grid(spec, data)
     if standalone:
         _preflight_notes(spec, data, grid)
     model = _model(spec, data, model, progress)
-    result = krige(data.coords, data.scores, grid.coords(), model, method=spec["simulation.kriging"],
-                   mean=0.0, neighbourhood=neighbourhood(spec), hole_ids=data.samples.hole_ids,
-                   sample_ids=sample_ids(data), progress=progress)
-    mean, var = multigaussian_moments(data.transform, result.estimate, result.variance)
+    secondary = secondary_grid(spec, data.samples, data.scores, grid)
+    scores, variance, result = krige_nodes(
+        data.coords, data.scores, grid, model, mean=data.mean, secondary=secondary,
+        method=spec["simulation.kriging"], neighbourhood=neighbourhood(spec), hole_ids=data.samples.hole_ids,
+        sample_ids=sample_ids(data), progress=progress)
+    mean, var = multigaussian_moments(data.transform, scores, variance)
     maps = []
-    for values in (result.estimate, result.variance, mean, var):
+    for values in (scores, variance, mean, var):
         full = np.full(grid.shape, np.nan)
         full[grid.mask] = values
         maps.append(full)
     est = EstimateResult(*maps, n_short=result.n_short,
                          n_unestimated=int(np.count_nonzero(np.isnan(result.estimate))),
                          grid=grid, units=spec["data.units"])
+    if secondary is not None:
+        est.spread = spread_comparison(data.transform, scores, variance, result,
+                                       None if data.mean is None else data.mean.at_nodes(grid)[grid.mask])
     if out_dir is not None:
         est.files.update(write_estimate(spec, data, model, est, claim_folder(spec, out_dir, overwrite)))
     return est
@@ -307,6 +322,9 @@ def simulate(spec: RunSpec, data: PreparedData | None = None, model=None, grid=N
     options = {"hole_ids": data.samples.hole_ids} if spec["search.max_per_hole"] else {}
     if sim["engine"] in ("sequential", "exact"):  # geosim's own engines name samples in their errors
         options["sample_ids"] = sample_ids(data)
+        from .secondary import secondary_grid
+        secondary = secondary_grid(spec, data.samples, data.scores, grid)
+        options.update(secondary.engine_options() if secondary is not None else {})
     records = dict(kept)
     if missing:
         new = run_engine(data.coords, data.scores, model, grid, n_realizations=n, seed=sim["seed"],
@@ -443,6 +461,8 @@ def _run_steps(spec, data, grid, out_dir, resume, progress, timed, timings) -> R
         extra["estimate"] = {"active_nodes": grid.n_active, "below_min_samples": est.n_short,
                              "unestimated": est.n_unestimated, "min_samples": spec["search.min_samples"],
                              "widened": spec["search.widen"]}
+        if est.spread is not None:
+            extra["estimate"]["secondary_spread"] = est.spread
         notes.append(short_note(est.n_short, grid.n_active, "grid nodes", spec, est.n_unestimated))
     sim = timed("simulation", simulate, spec, data, vg.model, grid, out_dir=out_dir, resume=resume,
                 progress=progress)

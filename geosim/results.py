@@ -30,8 +30,9 @@ class PreparedData:
     weights: np.ndarray | None   # declustering weights summing to 1, or None
     declustering: Any            # the declustering result (with its scan), or None
     transform: Any               # fitted transform, data units -> normal scores
-    scores: np.ndarray           # (n,) normal scores of the samples (ties distinct)
+    scores: np.ndarray           # (n,) normal scores of the samples (ties distinct), minus the mean if any
     notes: list[str] = field(default_factory=list)
+    mean: Any = None             # geosim.secondary.LocalMean ([mean] in the spec): scores are its residuals
 
     @property
     def coords(self) -> np.ndarray:
@@ -93,6 +94,7 @@ class EstimateResult:
     n_unestimated: int = 0  # active nodes left without an estimate (ordinary kriging, search not widened)
     grid: Any = field(default=None, repr=False)
     units: str = ""
+    spread: dict | None = None  # with a collocated secondary: mean spread without and with it
 
     def __repr__(self) -> str:
         inside = np.isfinite(self.mean)

@@ -12,6 +12,13 @@ variance: ``s^2 = RSS / (n - p)`` and ``Cov(beta) = s^2 (X'X)^-1`` (Draper and
 Smith 1998, Applied Regression Analysis, 3rd ed., chapter 5; from memory).
 Spatially correlated residuals make them optimistic; the fit is a locally
 varying mean for kriging, not a test of significance.
+
+With declustering ``weights`` the fit is weighted least squares (rows scaled by
+the square root of the weights, normalized to mean 1), so that clustered samples
+count as the area they represent, and the weighted residuals have mean zero: the
+known mean simple kriging of the residuals assumes.  ``s^2`` is then the weighted
+residual sum of squares over ``n - p`` and ``R^2`` the weighted share (Draper and
+Smith 1998, section 9.2, weighted least squares; from memory).
 """
 from __future__ import annotations
 
@@ -112,7 +119,7 @@ class Trend:
                 for t, c, e in zip(self.terms, self.coefficients, self.standard_errors)]
 
 
-def fit_trend(coords, values, order: int = 1) -> Trend:
+def fit_trend(coords, values, order: int = 1, weights=None) -> Trend:
     """Fit a polynomial trend of order 1 or 2 by least squares.
 
     Parameters
@@ -123,6 +130,8 @@ def fit_trend(coords, values, order: int = 1) -> Trend:
         Sample values (e.g. normal scores, for a mean in normal-score space).
     order : {1, 2}
         Linear or quadratic in the coordinates.
+    weights : (n,) array_like, optional
+        Declustering weights (positive); weighted least squares when given.
 
     Returns
     -------
@@ -158,8 +167,18 @@ def fit_trend(coords, values, order: int = 1) -> Trend:
     if n < p:
         raise InputError(f"a trend of order {order} in {xyz.shape[1]}-D has {p} terms but there are only "
                          f"{n} samples", field="order", fix="use a lower order or more samples")
+    if weights is None:
+        w = np.ones(n)
+    else:
+        w = np.asarray(weights, dtype=np.float64).reshape(-1)
+        if w.shape[0] != n or not np.all(np.isfinite(w)) or np.any(w <= 0):
+            raise InputError("the weights must be one positive number per sample", field="weights",
+                             fix="pass the declustering weights of the same samples")
+        w = w * (n / w.sum())
     origin = xyz.mean(axis=0)
-    x = _design(xyz - origin, order)
+    root = np.sqrt(w)
+    x = _design(xyz - origin, order) * root[:, None]
+    z = z * root
     # scale columns to unit length so the rank test and the solve do not depend on units
     scale = np.linalg.norm(x, axis=0)
     scale[scale == 0] = 1.0
@@ -175,6 +194,7 @@ def fit_trend(coords, values, order: int = 1) -> Trend:
     s2 = rss / dof if dof > 0 else float("nan")
     inv = (vt.T / sv ** 2) @ vt
     cov = s2 * inv / np.outer(scale, scale)
-    tss = float(np.sum((z - z.mean()) ** 2))
+    centre = float(w @ (z / root)) / n
+    tss = float(w @ (z / root - centre) ** 2)
     r2 = 1.0 - rss / tss if tss > 0 else float("nan")
     return Trend(order, origin, terms, beta, np.sqrt(np.diag(cov)), cov, s2, r2, n)

@@ -227,7 +227,7 @@ def _coarse_grid_keys(unit: str, size_key: str) -> dict[str, Key]:
 INPUT_FILE_KEYS = (("data", ("points", "collars", "surveys", "intervals")),
                    ("variogram", ("model_file",)), ("domain", ("polygon", "raster")), ("outputs", ("density_raster",)),
                    ("ranking", ("region",)),
-                   ("query_points", ("file",)))
+                   ("query_points", ("file",)), ("mean", ("file",)), ("secondary", ("file",)))
 
 SCHEMA: dict[str, dict[str, Key]] = {
     "data": {
@@ -412,6 +412,28 @@ SCHEMA: dict[str, dict[str, Key]] = {
         "z": Key(_text, help="z (elevation) column, for 3-D grids"),
         "id": Key(_text, help="point name column"),
         "crs": Key(_text, help="CRS of the points (default: data.crs)"),
+    },
+    # secondary information (geosim/secondary.py): plain tables, so that a unit's own table can override them
+    "mean": {
+        "trend": Key(_int(1, 2), help="locally varying mean: a polynomial trend of this order in x, y(, z), fitted "
+                                      "to the normal scores (the residuals are modelled); leave out for none"),
+        "file": Key(_path, help="locally varying mean in data units: a raster (2-D) or NetCDF cube (3-D), put "
+                                "through the run's transform; instead of trend"),
+        "variable": Key(_text, help="the cube's variable (default: its only one)"),
+        "resampling": Key(_choice("bilinear", "nearest"), default="bilinear",
+                          help="how the file is read at the nodes and samples"),
+    },
+    "secondary": {
+        "file": Key(_path, help="collocated secondary variable: a raster (2-D) or NetCDF cube (3-D) covering the "
+                                "domain (e.g. a resistivity survey); leave out for none"),
+        "variable": Key(_text, help="the cube's variable (default: its only one)"),
+        "resampling": Key(_choice("bilinear", "nearest"), default="bilinear",
+                          help="how the file is read at the nodes and samples"),
+        "correlation": Key(_number(-1.0, 1.0),
+                           help="correlation of primary and secondary normal scores, strictly between -1 and 1 "
+                                "(default: estimated at the samples)"),
+        "min_pairs": Key(_int(3, 100000), default=20,
+                         help="fewest samples with a secondary value to estimate the correlation"),
     },
 }
 TOP_LEVEL = {"title": Key(_text, default="")}
@@ -833,6 +855,29 @@ def _check_combinations(spec: dict, problems: list[str]) -> None:
         problems.append(f"outputs.cutoffs: expected positive numbers with transform.log = true, "
                         f"found {out['cutoffs']}")
     _check_support(spec, ndim, problems)
+    _check_secondary(spec, problems)
+
+
+def _check_secondary(spec: dict, problems: list[str]) -> None:
+    """Rules of [mean] and [secondary]."""
+    mean, sec, sim = spec["mean"], spec["secondary"], spec["simulation"]
+    if mean["trend"] is not None and mean["file"] is not None:
+        problems.append("mean: expected trend (an order) or file (a mean grid), found both")
+    for section, table in (("mean", mean), ("secondary", sec)):
+        if table["file"] is None:
+            extra = [k for k in ("variable", "correlation") if table.get(k) is not None]
+            if extra:
+                problems.append(f"{section}.{extra[0]}: only with {section}.file, found no file")
+    rho = sec["correlation"]
+    if rho is not None and not -1.0 < rho < 1.0:
+        problems.append(f"secondary.correlation: expected a number strictly between -1 and 1, found {rho:g}")
+    used = mean["trend"] is not None or mean["file"] is not None or sec["file"] is not None
+    if used and sim["kriging"] != "simple":
+        problems.append('simulation.kriging: expected "simple" with a [mean] or [secondary] (the mean must be known '
+                        f'at every node), found {sim["kriging"]!r}')
+    if sec["file"] is not None and sim["engine"] not in ("sequential", "exact"):
+        problems.append(f'simulation.engine: expected "sequential" or "exact" with a [secondary] grid, found '
+                        f'{sim["engine"]!r}')
 
 
 def run_figures(spec: Mapping) -> list[str]:
