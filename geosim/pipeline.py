@@ -324,7 +324,7 @@ def simulate(spec: RunSpec, data: PreparedData | None = None, model=None, grid=N
         options["sample_ids"] = sample_ids(data)
         from .secondary import secondary_grid
         secondary = secondary_grid(spec, data.samples, data.scores, grid)
-        options.update(secondary.engine_options() if secondary is not None else {})
+        options.update(secondary.engine_options(sim["engine"]) if secondary is not None else {})
     records = dict(kept)
     if missing:
         new = run_engine(data.coords, data.scores, model, grid, n_realizations=n, seed=sim["seed"],
@@ -464,6 +464,9 @@ def _run_steps(spec, data, grid, out_dir, resume, progress, timed, timings) -> R
         if est.spread is not None:
             extra["estimate"]["secondary_spread"] = est.spread
         notes.append(short_note(est.n_short, grid.n_active, "grid nodes", spec, est.n_unestimated))
+    from .secondary import secondary_grid
+    secondary = secondary_grid(spec, data.samples, data.scores, grid)
+    notes += secondary.notes if secondary is not None else []
     sim = timed("simulation", simulate, spec, data, vg.model, grid, out_dir=out_dir, resume=resume,
                 progress=progress)
     files.update(timed("summaries and report", summarize, spec, out_dir, data=data, model=vg.model, grid=grid,

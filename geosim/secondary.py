@@ -283,14 +283,22 @@ class SecondaryGrid:
     file: str
     min_pairs: int = 0
 
-    def engine_options(self) -> dict:
-        """The options both engines take for a collocated secondary."""
-        return {"secondary": self.at_nodes, "correlation": self.correlation}
+    nodes: int = 0
+
+    def engine_options(self, engine: str) -> dict:
+        """The options an engine takes for the secondary (the sequential engine: also how many
+        nodes not yet simulated lend it their secondary values)."""
+        options = {"secondary": self.at_nodes, "correlation": self.correlation}
+        if engine == "sequential":
+            options["secondary_nodes"] = self.nodes
+        return options
 
     def report(self) -> dict:
         """The report's ``secondary`` section."""
-        out = {"file": self.file, "method": "collocated simple cokriging / co-simulation, Markov model "
-                                            "(Almeida and Journel 1994)",
+        out = {"file": self.file,
+               "method": "estimate: collocated simple cokriging; simulation: the secondary at the node and at up "
+                         f"to {self.nodes} nodes not yet simulated join each node's system (sequential engine), "
+                         "or at every node (exact engine); Markov model (Almeida and Journel 1994)",
                "correlation": self.correlation,
                "correlation_source": "given" if self.pairs is None else "estimated at the samples",
                "transform": self.transform.describe() + "; fitted to the values at the active nodes, "
@@ -301,11 +309,29 @@ class SecondaryGrid:
         return out
 
 
+_LAST: dict = {}  # the last secondary grid made: estimate, simulate and the report of one run share it
+
+
 def secondary_grid(spec: RunSpec, samples, residuals: np.ndarray, grid) -> SecondaryGrid | None:
     """The spec's secondary grid on ``grid`` with its transform and correlation (None without one)."""
     sec = spec["secondary"]
     if sec["file"] is None:
         return None
+    import hashlib
+    digest = hashlib.sha256()
+    for part in (spec.sha256.encode(), repr(grid).encode(), np.ascontiguousarray(grid.mask).tobytes(),
+                 np.ascontiguousarray(residuals, dtype=np.float64).tobytes(),
+                 np.ascontiguousarray(samples.coords).tobytes()):
+        digest.update(part)
+    key = (digest.hexdigest(), os.stat(spec.resolve(sec["file"])).st_mtime_ns)
+    if key not in _LAST:
+        _LAST.clear()
+        _LAST[key] = _secondary_grid(spec, samples, residuals, grid)
+    return _LAST[key]
+
+
+def _secondary_grid(spec: RunSpec, samples, residuals: np.ndarray, grid) -> SecondaryGrid:
+    sec = spec["secondary"]
     from .kriging import collocated_correlation
     from .transforms import NormalScoreTransform
     path = str(spec.resolve(sec["file"]))
@@ -334,7 +360,7 @@ def secondary_grid(spec: RunSpec, samples, residuals: np.ndarray, grid) -> Secon
                      f"samples where both are known (standard error about {(1 - rho ** 2) / math.sqrt(pairs):.2f})")
     else:
         notes.append(f"secondary: correlation {rho:.3f} with the primary normal scores, as given")
-    return SecondaryGrid(at_nodes, at_data, float(rho), pairs, transform, notes, path, sec["min_pairs"])
+    return SecondaryGrid(at_nodes, at_data, float(rho), pairs, transform, notes, path, sec["min_pairs"], sec["nodes"])
 
 
 def fit_total_sill(spec: RunSpec, weights: np.ndarray | None, mean: LocalMean | None) -> float:
@@ -398,15 +424,25 @@ def report_sections(spec: RunSpec, data, grid, summary_files=()) -> dict:
     sec = secondary_grid(spec, data.samples, data.scores, grid)
     if sec is not None:
         out["secondary"] = sec.report()
-        stds = np.concatenate([_band_values(path, 2) for path in summary_files] or [np.zeros(0)])
-        if stds.size:
-            out["secondary"]["ensemble_mean_std_data_units"] = float(stds.mean())
+        out["secondary"]["checks"] = (
+            "the run's reproduction checks (validation) compare the realizations with the primary-only model "
+            "and data; conditioned on the secondary grid too, their mean follows the secondary and their "
+            "variance and variogram are smaller, so those checks may warn on a correct run")
+        if summary_files:
+            out["secondary"]["ensemble_spread"] = ensemble_spread(summary_files, log=spec["transform.log"])
     return out
 
 
-def _band_values(path, band: int) -> np.ndarray:
-    """The valid cells of one band of a raster."""
+def ensemble_spread(summary_files, *, log: bool) -> dict:
+    """Mean spread of the realizations over the active nodes, from the summary rasters: standard
+    deviation in data units and the P10-P90 width (``log10(P90 / P10)`` for a log-transformed variable,
+    whose arithmetic standard deviation follows its level more than its uncertainty)."""
     import rasterio
-    with rasterio.open(path) as src:
-        values = src.read(band, masked=True)
-    return np.ma.compressed(values).astype(np.float64)
+    std, width = [], []
+    for path in summary_files:
+        with rasterio.open(path) as src:
+            bands = src.read([2, 3, 5], masked=True).astype(np.float64)
+        std.append(np.ma.compressed(bands[0]))
+        width.append(np.ma.compressed(np.log10(bands[2] / bands[1]) if log else bands[2] - bands[1]))
+    return {"mean_std_data_units": float(np.concatenate(std).mean()),
+            ("mean_log10_p90_over_p10" if log else "mean_p10_p90_width"): float(np.concatenate(width).mean())}

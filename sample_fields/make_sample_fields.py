@@ -60,6 +60,15 @@ AQUIFER_MODEL = Nugget(0.1) + Exponential(0.9, Anisotropy((1500.0, 300.0), azimu
 # log10(K in m/s) = mean + std * y
 AQUIFER_LOG10_MEAN = -4.0
 AQUIFER_LOG10_STD = 0.8
+# the invented resistivity survey: survey normal score s = rho * y + sqrt(1 - rho^2) * e, with e a Gaussian
+# field independent of y (the part of resistivity that conductivity does not explain: clay content of the
+# fines, pore-water salinity, survey noise), and resistivity = 10 ** (log10_median + log10_std * s) ohm m:
+# coarser, more permeable sediment is more resistive, so the correlation is positive
+SURVEY_CORRELATION = 0.7
+SURVEY_NOISE_MODEL = Nugget(0.3) + Exponential(0.7, Anisotropy((800.0, 800.0)))
+SURVEY_LOG10_MEDIAN = 1.9  # about 80 ohm m
+SURVEY_LOG10_STD = 0.25
+SURVEY_CELL = 100.0  # metres
 # invented planned wells (name, lon, lat) and hole targets (name, x, y, z in EPSG:32750)
 AQUIFER_PLANNED = [("PW-A", -33.2050, -38.7100), ("PW-B", -33.1950, -38.6950), ("PW-C", -33.2150, -38.7250),
                    ("PW-D", -33.1880, -38.6850)]
@@ -359,6 +368,7 @@ def make_alluvial_aquifer(out: Path) -> None:
         raise RuntimeError("a planned well lies outside the valley outline")
     _write_csv(out / "planned_wells.csv", ["name", "lon", "lat"],
                [[name, f"{a:.4f}", f"{b:.4f}"] for name, a, b in AQUIFER_PLANNED])
+    _write_survey(out / "resistivity_survey.tif", valley, xy, y)
     _write_json(out / "true_model.json", _true_model_record(
         AQUIFER_MODEL, {"kind": "lognormal", "variable": "k_ms", "log10_mean": AQUIFER_LOG10_MEAN,
                         "log10_std": AQUIFER_LOG10_STD, "formula": "k_ms = 10 ** (log10_mean + log10_std * y)"},
@@ -424,6 +434,52 @@ def make_aquifer_units(out: Path, xy: np.ndarray, lonlat: tuple, valley: Polygon
             for name, code, model, mean, std in (("gravel", 1, GRAVEL_MODEL, GRAVEL_LOG10_MEAN, GRAVEL_LOG10_STD),
                                                  ("silt", 2, SILT_MODEL, SILT_LOG10_MEAN, SILT_LOG10_STD))},
         "channel_half_width_m": CHANNEL_HALF_WIDTH, "unit_raster_cell_m": UNITS_CELL})
+
+
+def _write_survey(path: Path, valley: Polygon, wells: np.ndarray, y_wells: np.ndarray) -> None:
+    """An invented electrical resistivity survey over the valley, correlated with log10 K.
+
+    The conductivity field's normal score is simulated at the survey's cell centres given its
+    values at the wells (exact conditional Gaussian simulation under the true model), then mixed
+    with an independent field: ``s = rho y + sqrt(1 - rho^2) e``, so that the survey's normal
+    score has variance 1 and correlation ``rho`` with ``y`` at every point (the Markov model's
+    assumption holds by construction).
+    """
+    import rasterio
+    from rasterio.transform import from_origin
+
+    from geosim.cautions import CAUTION
+
+    xmin, ymin, xmax, ymax = valley.bounds
+    x0 = math.floor((xmin - SURVEY_CELL) / SURVEY_CELL) * SURVEY_CELL
+    y1 = math.ceil((ymax + SURVEY_CELL) / SURVEY_CELL) * SURVEY_CELL
+    nx = int(math.ceil((xmax + SURVEY_CELL - x0) / SURVEY_CELL))
+    ny = int(math.ceil((y1 - (ymin - SURVEY_CELL)) / SURVEY_CELL))
+    cx = x0 + SURVEY_CELL * (np.arange(nx) + 0.5)
+    cy = y1 - SURVEY_CELL * (np.arange(ny) + 0.5)
+    cells = np.column_stack([np.tile(cx, ny), np.repeat(cy, nx)])
+    # y at the cells given y at the wells: mean C_cw C_ww^-1 y_w, covariance C_cc - C_cw C_ww^-1 C_wc
+    c_ww = AQUIFER_MODEL.cov_matrix(wells)
+    c_cw = AQUIFER_MODEL.cov_matrix(cells, wells)
+    factor = scipy.linalg.cho_factor(c_ww, lower=True)
+    mean = c_cw @ scipy.linalg.cho_solve(factor, y_wells)
+    cond = AQUIFER_MODEL.cov_matrix(cells) - c_cw @ scipy.linalg.cho_solve(factor, c_cw.T)
+    cond[np.diag_indices_from(cond)] += 1e-9  # round-off at cells on top of a well
+    lower = scipy.linalg.cholesky(cond, lower=True, overwrite_a=True, check_finite=False)
+    y_cells = mean + lower @ _rng(5).standard_normal(len(cells))
+    e = gaussian_at(cells, SURVEY_NOISE_MODEL, _rng(6))
+    s = SURVEY_CORRELATION * y_cells + math.sqrt(1.0 - SURVEY_CORRELATION**2) * e
+    ohm_m = 10.0 ** (SURVEY_LOG10_MEDIAN + SURVEY_LOG10_STD * s)
+    profile = dict(driver="GTiff", width=nx, height=ny, count=1, dtype="float32", crs=f"EPSG:{AQUIFER_EPSG}",
+                   transform=from_origin(x0, y1, SURVEY_CELL, SURVEY_CELL), nodata=-9999.0, compress="deflate",
+                   predictor=3)
+    with atomic_output(path, overwrite=True) as tmp:
+        with rasterio.open(tmp, "w", **profile) as dst:
+            dst.write(np.round(ohm_m, 1).reshape(ny, nx).astype(np.float32), 1)
+            dst.set_band_description(1, "apparent resistivity (ohm m), invented survey")
+            dst.update_tags(caution=CAUTION, note="invented survey for testing; not a real place",
+                            correlation_with_log10_k=str(SURVEY_CORRELATION))
+            dst.update_tags(1, units="ohm m")
 
 
 def make_all(out: Path = HERE) -> None:

@@ -434,6 +434,9 @@ SCHEMA: dict[str, dict[str, Key]] = {
                                 "(default: estimated at the samples)"),
         "min_pairs": Key(_int(3, 100000), default=20,
                          help="fewest samples with a secondary value to estimate the correlation"),
+        "nodes": Key(_int(0, 256), default=16,
+                     help="sequential engine: nodes not yet simulated whose secondary values join each node's "
+                          "system besides its own (0: the collocated value only)"),
     },
 }
 TOP_LEVEL = {"title": Key(_text, default="")}

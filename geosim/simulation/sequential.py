@@ -40,6 +40,10 @@ from .paths import covariance_table, grid_axes, node_template, offset_lags, path
 from .validate import COINCIDENT_REL_TOL, check_inputs, coincident_nodes, collocated_inputs, complement, data_labels
 
 
+#: Nodes not yet simulated whose secondary values join each node's system (default).
+SECONDARY_NODES = 16
+
+
 @dataclass(frozen=True)
 class SequentialPlan:
     """Everything a sequential realization needs; built once by :meth:`SequentialEngine.prepare`."""
@@ -73,6 +77,7 @@ class SequentialPlan:
     secondary: np.ndarray = field(default_factory=lambda: np.zeros(0))  # flat collocated secondary scores, or empty
     secondary_b: float = 0.0     # Markov-model factor b = rho sqrt(1 / sill)
     secondary_noise: float = 1.0  # 1 - rho^2: the secondary's variance not explained by the primary
+    secondary_nodes: int = 0     # most not-yet-simulated nodes whose secondary joins a node's system
 
 
 class SequentialEngine:
@@ -91,14 +96,20 @@ class SequentialEngine:
         Drillhole of each datum, for ``neighbourhood.max_per_hole``.
     ``pivot_tol`` : float
         A Cholesky pivot ``<= pivot_tol * sill`` counts as failure (default 1e-10).
-    ``secondary``, ``correlation`` : array of ``grid.shape``, float
-        Collocated co-simulation: the normal scores of a secondary variable at every
-        active node and its correlation coefficient with the primary (simple kriging
-        only).  At each node the simple-kriging mean and variance are updated with the
-        collocated secondary value under the Markov model
-        (:func:`geosim.kriging.collocated_update`; Almeida and Journel 1994,
-        Mathematical Geology 26(5)); the secondary at nodes not yet visited is not
-        used.  ``correlation = 0`` gives the primary-only realization bit for bit.
+    ``secondary``, ``correlation``, ``secondary_nodes`` : array of ``grid.shape``, float, int
+        Co-simulation with a secondary variable known at every active node (normal
+        scores) and its correlation coefficient with the primary (simple kriging only),
+        under the Markov model of Almeida and Journel (1994, Mathematical Geology 26(5)):
+        the secondary is the primary scaled plus independent noise.  At each node the
+        secondary values of up to ``secondary_nodes`` (default 16) nearby nodes not yet
+        simulated join the kriging system (their information would otherwise be lost:
+        with the collocated value alone, nearby simulated values screen it and the
+        realizations' correlation with the secondary falls well below ``correlation``),
+        and the result is updated with the collocated value
+        (:func:`geosim.kriging.collocated_update`).  ``secondary_nodes = 0`` is plain
+        collocated co-simulation.  The secondary at simulated nodes adds nothing: their
+        values already carry it.  ``correlation = 0`` gives the primary-only
+        realization bit for bit.
 
     ``neighbourhood.min_samples`` does not apply: simulation draws every node, with or
     without data nearby.  With ``kriging="ordinary"`` a node with no conditioning point
@@ -124,7 +135,7 @@ class SequentialEngine:
     def prepare(self, data_coords, data_scores, model, grid, *, neighbourhood: Neighbourhood | None = None,
                 kriging: str = "simple", multigrid: int | None = None, max_template: int = 20_000,
                 sample_ids=None, hole_ids=None, pivot_tol: float = 1e-10, secondary=None,
-                correlation: float = 0.0) -> SequentialPlan:
+                correlation: float = 0.0, secondary_nodes: int = SECONDARY_NODES) -> SequentialPlan:
         """Build the search template, covariance table and data neighbour lists."""
         coords3, scores, nb, ordinary, model = check_inputs(data_coords, data_scores, model, grid,
                                                             neighbourhood, kriging)
@@ -161,7 +172,8 @@ class SequentialEngine:
             data_labels=data_labels(sample_ids, len(scores)), max_nodes=int(nb.max_nodes),
             ordinary=ordinary, tol=float(pivot_tol) * model.sill,
             nugget_node_data=(COINCIDENT_REL_TOL * min(grid.cell)) ** 2 <= ZERO_LAG2,
-            secondary=sec.ravel() if b != 0.0 else np.zeros(0), secondary_b=b, secondary_noise=noise)
+            secondary=sec.ravel() if b != 0.0 else np.zeros(0), secondary_b=b, secondary_noise=noise,
+            secondary_nodes=int(secondary_nodes) if b != 0.0 else 0)
 
     def realize(self, plan: SequentialPlan, rng: np.random.Generator) -> np.ndarray:
         """One realization: normal scores of ``grid.shape``, NaN outside the mask."""
@@ -188,7 +200,7 @@ class SequentialEngine:
     def _run(self, plan: SequentialPlan, path: np.ndarray, normals: np.ndarray, single: bool) -> list[np.ndarray]:
         """Simulate along ``path`` with ``normals (len(path), members)``; one field per member."""
         field = np.full((int(np.prod(plan.shape3)), normals.shape[1]), np.nan)
-        kmax = plan.data_neighbours.shape[1] + plan.max_nodes
+        kmax = plan.data_neighbours.shape[1] + plan.max_nodes + plan.secondary_nodes
         ids = np.zeros(max(kmax, 1), dtype=np.int64)
         fail = np.zeros(4, dtype=np.int64)
         a = np.zeros((kmax + 3, kmax + 3))  # the system bordered by up to three rows
@@ -197,7 +209,7 @@ class SequentialEngine:
                              plan.table_zero, plan.use_table, plan.data_cov,
                              plan.data_coords, plan.data_scores, plan.data_neighbours, plan.cm,
                              plan.max_nodes, plan.ordinary, plan.tol, plan.nugget_node_data, single, a, ids, fail,
-                             plan.secondary, plan.secondary_b, plan.secondary_noise)
+                             plan.secondary, plan.secondary_b, plan.secondary_noise, plan.secondary_nodes)
         if status >= 0:
             raise _pivot_error(plan, path, a, ids, fail)
         # nodes on a datum stay out of the node search (the datum itself is found) and take its score
@@ -250,7 +262,7 @@ def _data_neighbours(coords: np.ndarray, node_coords: np.ndarray, nb: Neighbourh
 @njit(cache=True, nogil=True)
 def _sgs_kernel(field, active_flat, path, normals, shape3, origin, step, offsets, lags, table, table_lin,
                 table_zero, use_table, data_cov, dcoords, dscores, dnbr, cm, max_nodes, ordinary, tol,
-                nugget_node_data, single, a, ids, fail, sec, sec_b, sec_noise):
+                nugget_node_data, single, a, ids, fail, sec, sec_b, sec_noise, sec_max):
     """Simulate every node of ``path`` into ``field`` (flat nodes x members, NaN = not yet simulated).
 
     The members (columns of ``field`` and ``normals``) share the path.  ``single`` (one
@@ -258,10 +270,13 @@ def _sgs_kernel(field, active_flat, path, normals, shape3, origin, step, offsets
     solved for once per node and applied to each member, so that a member's bits do
     not depend on how many others are computed with it.
 
-    With a collocated secondary (``sec`` not empty: its score at every flat node) the
-    simple-kriging moments are updated with it (Markov model, see
-    :func:`geosim.kriging.collocated_update`): gain ``g = b v / (b^2 v + 1 - rho^2)``,
-    mean ``(1 - g b) y + g s``, variance ``(1 - g b) v``.
+    With a secondary (``sec`` not empty: its score at every flat node, NaN outside the
+    domain), the secondary values ``s`` of up to ``sec_max`` nodes not yet simulated, met
+    while scanning the template, join the system as noisy measurements of the primary,
+    ``s / b = y + e / b`` (covariances of the primary, plus ``(1 - rho^2) / b^2`` on their
+    own diagonal), and the simple-kriging moments are then updated with the collocated value
+    (Markov model, see :func:`geosim.kriging.collocated_update`): gain
+    ``g = b v / (b^2 v + 1 - rho^2)``, mean ``(1 - g b) y + g s``, variance ``(1 - g b) v``.
 
     Returns -1, or the path position where a local covariance matrix failed to factor
     (then ``fail = [position, pivot, n_data, n_total]`` and ``ids`` holds the data ids
@@ -286,6 +301,8 @@ def _sgs_kernel(field, active_flat, path, normals, shape3, origin, step, offsets
     nb = field.shape[1]  # realizations sharing this path
     lin_node = np.empty(kmax, dtype=np.int64)  # flat index of each simulated neighbour
     wts = np.empty(kmax)
+    sec_t = np.empty(max(sec_max, 1), dtype=np.int64)
+    sec_node = np.empty(max(sec_max, 1), dtype=np.int64)
     for p in range(path.shape[0]):
         pos = path[p]
         flat = active_flat[pos]
@@ -308,7 +325,8 @@ def _sgs_kernel(field, active_flat, path, normals, shape3, origin, step, offsets
             rel[m, 2] = dcoords[d, 2] - z
             m += 1
         nd = m
-        if max_nodes > 0:
+        ns = 0  # secondary values of nodes not yet simulated, met on the way
+        if max_nodes > 0 or sec_max > 0:
             for t in range(nt):
                 kk = k + offsets[t, 0]
                 ii = i + offsets[t, 1]
@@ -318,16 +336,34 @@ def _sgs_kernel(field, active_flat, path, normals, shape3, origin, step, offsets
                 node = (kk * ny + ii) * nx + jj
                 v = field[node, 0]
                 if v == v:
-                    ids[m] = t
-                    lin_node[m] = node
-                    lin[m] = table_lin[t]
-                    zv[m] = v
-                    rel[m, 0] = lags[t, 0]
-                    rel[m, 1] = lags[t, 1]
-                    rel[m, 2] = lags[t, 2]
-                    m += 1
-                    if m - nd == max_nodes:
+                    if m - nd < max_nodes:
+                        ids[m] = t
+                        lin_node[m] = node
+                        lin[m] = table_lin[t]
+                        zv[m] = v
+                        rel[m, 0] = lags[t, 0]
+                        rel[m, 1] = lags[t, 1]
+                        rel[m, 2] = lags[t, 2]
+                        m += 1
+                        if m - nd == max_nodes:
+                            break
+                elif ns < sec_max and sec[node] == sec[node]:
+                    sec_t[ns] = t
+                    sec_node[ns] = node
+                    ns += 1
+                    if max_nodes == 0 and ns == sec_max:
                         break
+        ms = m  # rows from ms on are secondary values, as noisy measurements of the primary
+        for q in range(ns):
+            t = sec_t[q]
+            ids[m] = -2 - t
+            lin_node[m] = sec_node[q]
+            lin[m] = table_lin[t]
+            zv[m] = sec[sec_node[q]] / sec_b
+            rel[m, 0] = lags[t, 0]
+            rel[m, 1] = lags[t, 1]
+            rel[m, 2] = lags[t, 2]
+            m += 1
         # node-to-data covariances one structure at a time, so that the choice of formula is
         # made once per structure and node rather than per entry (about 1.6 times faster).
         # Simulated nodes never lie on a datum (such nodes take the datum's score and are not
@@ -379,6 +415,8 @@ def _sgs_kernel(field, active_flat, path, normals, shape3, origin, step, offsets
                 rhs[r] = cov_lag(cm, rel[r, 0], rel[r, 1], rel[r, 2])
                 for s in range(nd, r + 1):
                     a[r, s] = cov_lag(cm, rel[r, 0] - rel[s, 0], rel[r, 1] - rel[s, 1], rel[r, 2] - rel[s, 2])
+            if r >= ms:
+                a[r, r] += sec_noise / (sec_b * sec_b)  # the measurement's own noise
         mean = 0.0
         var = c0
         if m > 0:
@@ -430,6 +468,8 @@ def _sgs_kernel(field, active_flat, path, normals, shape3, origin, step, offsets
                 mean = 0.0
                 for r in range(nd):
                     mean += wts[r] * zv[r]
+                for r in range(ms, m):
+                    mean += wts[r] * zv[r]
         if var < 0.0:
             var = 0.0
         keep = 1.0
@@ -447,7 +487,7 @@ def _sgs_kernel(field, active_flat, path, normals, shape3, origin, step, offsets
         else:
             for b in range(nb):
                 mb = mean
-                for r in range(nd, m):
+                for r in range(nd, ms):
                     mb += wts[r] * field[lin_node[r], b]
                 if sec.shape[0] > 0:
                     mb = keep * mb + pull
@@ -466,6 +506,9 @@ def _pivot_error(plan: SequentialPlan, path: np.ndarray, a: np.ndarray, ids: np.
     for r in range(m):
         if r < nd:
             labels.append(f"sample {plan.data_labels[int(ids[r])]}")
+        elif ids[r] < 0:
+            off = plan.offsets[-2 - int(ids[r])]
+            labels.append(f"secondary value at offset {tuple(int(o) for o in off)}")
         else:
             off = plan.offsets[int(ids[r])]
             labels.append(f"simulated node at offset {tuple(int(o) for o in off)}")
