@@ -26,7 +26,7 @@ LAYERS = [
               "geosim.resources", "geosim.plugins", "geosim.io", "geosim.io.atomic"]),
     ("data", ["geosim.grid", "geosim.crs", "geosim.tables", "geosim.vector", "geosim.points", "geosim.drillholes",
               "geosim.domain", "geosim.declustering", "geosim.transforms", "geosim.moments", "geosim.linalg", "geosim.units",
-              "geosim.logged_units"]),
+              "geosim.logged_units", "geosim.gridvalues"]),
     ("models", ["geosim.variogram.*", "geosim.search", "geosim.kriging", "geosim.trend",
                 "geosim.simulation.*"]),
     ("statistics", ["geosim.summaries", "geosim.validation", "geosim.inputchecks", "geosim.support"]),
@@ -34,7 +34,7 @@ LAYERS = [
                "geosim.io.csvw", "geosim.io.decision", "geosim.io.lock", "geosim.io.cube", "geosim.io.support_tables"]),
     ("assembly", ["geosim.ensemble", "geosim.support_outputs", "geosim.config.*", "geosim.io.runspec.*"]),
     ("job", ["geosim.pipeline", "geosim.inputs", "geosim.outputs", "geosim.runstate", "geosim.results",
-             "geosim.units_run"]),
+             "geosim.units_run", "geosim.secondary"]),
     ("command line", ["geosim_cli.*"]),
 ]
 

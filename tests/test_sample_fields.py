@@ -238,8 +238,13 @@ def test_committed_files_equal_what_the_script_makes(script, tmp_path):
             elif new.suffix == ".tif":
                 import rasterio
                 with rasterio.open(new) as a, rasterio.open(old) as b:
-                    assert a.crs == b.crs and a.transform == b.transform
-                    assert np.array_equal(a.read(), b.read())
+                    assert a.crs == b.crs and a.transform == b.transform and a.tags() == b.tags()
+                    if name == "resistivity_survey.tif":
+                        # another BLAS may change the last bits of the factors: resistivities are
+                        # stored to 0.1 ohm m, so allow one unit there
+                        assert np.all(np.abs(a.read(1) - b.read(1)) <= 0.1001)
+                    else:
+                        assert np.array_equal(a.read(), b.read())
             elif new.name == "domain.geojson":
                 a = np.array(json.loads(new.read_text())["features"][0]["geometry"]["coordinates"][0])
                 b = np.array(json.loads(old.read_text())["features"][0]["geometry"]["coordinates"][0])
