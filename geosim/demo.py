@@ -13,8 +13,8 @@ Examples
 ['alluvial_aquifer', 'ore_prospect']
 >>> folder = geosim.demo.copy_sample("alluvial_aquifer", pathlib.Path(tempfile.mkdtemp()) / "aquifer")
 >>> sorted(p.name for p in folder.iterdir())
-['README.md', 'domain.geojson', 'planned_wells.csv', 'run.toml', 'run_units.toml', 'true_model.json', 'units.tif',
- 'units_true_model.json', 'wells.csv', 'wells_units.csv']
+['README.md', 'domain.geojson', 'planned_wells.csv', 'resistivity_survey.tif', 'run.toml', 'run_secondary.toml',
+ 'run_units.toml', 'true_model.json', 'units.tif', 'units_true_model.json', 'wells.csv', 'wells_units.csv']
 """
 from __future__ import annotations
 
