@@ -26,13 +26,15 @@ centres and a grid mapping holding the CRS, as :mod:`geosim.io.cube` writes.
 """
 from __future__ import annotations
 
+import logging
 import os
-import warnings
 from dataclasses import dataclass
 
 import numpy as np
 
-from .errors import GeosimWarning, InputError
+from .errors import InputError
+
+log = logging.getLogger(__name__)
 
 __all__ = ["Layer", "read_layer", "layer_values", "RESAMPLING"]
 
@@ -248,8 +250,8 @@ def layer_values(layer: Layer, points, crs=None, *, method: str = "bilinear") ->
             notes.append(f"{os.path.basename(layer.path)} is in {_crs_name(layer.crs)}: points reprojected from "
                          f"{_crs_name(source)} to read it")
     elif (crs is None) != (layer.crs is None):
-        warnings.warn(f"{layer.path}: {'the layer' if layer.crs is None else 'the grid'} has no CRS; taking both "
-                      "to be in the same coordinates", GeosimWarning, stacklevel=2)
+        log.warning("%s: %s has no CRS; taking both to be in the same coordinates", layer.path,
+                    "the layer" if layer.crs is None else "the grid")
     coords = [y, x] if layer.ndim == 2 else [pts[:, 2], y, x]
     return _interpolate(layer.axes, layer.values, coords, method), notes
 
