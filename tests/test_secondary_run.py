@@ -124,6 +124,10 @@ def test_trend_run_models_the_residuals_everywhere(aquifer):
     assert np.allclose(est.scores_variance[grid.mask], ref.variance, atol=1e-10)
     cv = pipeline.cross_validate(spec, data, vg.model)
     assert np.allclose(cv.result.values, m.scores)  # reported against the samples' own scores
+    # realizations are residuals: the writer adds the trend at each node before the back-transform
+    writer = pipeline._writer(spec, data, vg.model, grid, aquifer.folder / "out")
+    assert np.allclose(writer.back_transform(np.zeros(grid.n_active)),
+                       data.transform.inverse(m.at_nodes(grid)[grid.mask]), rtol=1e-12)
 
 
 def test_mean_grid_run_adds_the_mean_back_before_the_back_transform(aquifer, tmp_path):
