@@ -16,6 +16,7 @@ from geosim.config.runspec import load_spec
 from geosim.errors import InputError, SpecError
 from geosim.gridvalues import layer_values, read_layer
 from geosim.kriging import collocated_cokrige, krige_varying_mean
+from geosim.outputs import realization_writer
 from geosim.sample_fields import __file__ as _samples_init
 
 AQUIFER = Path(_samples_init).parent / "alluvial_aquifer"
@@ -125,7 +126,7 @@ def test_trend_run_models_the_residuals_everywhere(aquifer):
     cv = pipeline.cross_validate(spec, data, vg.model)
     assert np.allclose(cv.result.values, m.scores)  # reported against the samples' own scores
     # realizations are residuals: the writer adds the trend at each node before the back-transform
-    writer = pipeline._writer(spec, data, vg.model, grid, aquifer.folder / "out")
+    writer = realization_writer(spec, data, vg.model, grid, aquifer.folder / "out")
     assert np.allclose(writer.back_transform(np.zeros(grid.n_active)),
                        data.transform.inverse(m.at_nodes(grid)[grid.mask]), rtol=1e-12)
 
