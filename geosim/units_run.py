@@ -482,7 +482,7 @@ def estimate_units(spec: RunSpec, units: UnitsModel, out_dir: Path | None = None
     from .kriging import krige
     from .outputs import CUBE_SUFFIX, cube_format, level_geotiffs
     from .results import EstimateResult
-    from .transforms import multigaussian_moments
+    from .moments import multigaussian_moments
     grid = units.grid
     maps = [np.full(grid.shape, np.nan) for _ in range(4)]
     counts = {}
