@@ -199,7 +199,8 @@ def test_each_unit_reproduces_its_own_histogram_and_variogram(tmp_path, field):
     within the run's own tolerance for the domain mean (its histogram check).  So |z| must stay
     within 3 standard deviations of that sum, sqrt(Cbar(D, D) + tolerance^2).  The same median
     read through the other unit's marginal must fall outside it (a swapped transform fails).
-    Variogram: the run's check (semivariance moments under the model along the grid axes) must
+    The run's histogram check (mean and variance of the normal scores within sampling bounds)
+    must pass too.  Variogram: the run's check (semivariance moments under the model along the grid axes) must
     pass for each unit.
     """
     xy, unit, grade = field
@@ -221,6 +222,9 @@ def test_each_unit_reproduces_its_own_histogram_and_variogram(tmp_path, field):
         assert abs(z) <= bound, (code, z, bound)
         other_mu, other_sigma = MARGINALS[3 - code]
         assert abs((np.log(median) - other_mu) / other_sigma) > bound
+        # the run's own histogram check: mean and variance of each realization's normal scores
+        # within bounds from their sampling spread (geosim.validation, chi-square bounds)
+        assert hist["flag"] == "pass", (code, hist["variance"], hist["variance_bounds"])
         assert sections[code]["validation"]["variogram"]["flag"] == "pass"
     assert "low:" in result.model.text(2) and "high:" in result.model.text(2)
 
