@@ -17,9 +17,9 @@ from geosim.errors import InputError, SpecError
 from geosim.gridvalues import layer_values, read_layer
 from geosim.kriging import collocated_cokrige, krige_varying_mean
 from geosim.outputs import realization_writer
-from geosim.sample_fields import __file__ as _samples_init
 
-AQUIFER = Path(_samples_init).parent / "alluvial_aquifer"
+# the clone's sample fields (CI imports geosim from the clone beside a regular install)
+AQUIFER = Path(__file__).resolve().parents[1] / "sample_fields" / "alluvial_aquifer"
 EPSG = "EPSG:32725"  # the aquifer's working CRS
 
 
