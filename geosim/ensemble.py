@@ -34,12 +34,14 @@ import numpy as np
 
 from .errors import InputError
 from .io import plots as io_plots
+from .io.cube import CUBE_SUFFIX
 from .io.decision import write_decision_csv
 from .io.geotiff import (GDAL_SETTINGS, as_stored, assemble_realizations, grid_windows, level_grid, level_paths, level_tags,
-                         open_checked, read_windows, verify_realization, with_layers, write_raster, write_windows)
+                         open_checked, read_windows, tile_size, verify_realization, with_layers, write_bands,
+                         write_raster, write_windows)
 from .io.report import file_sha256
 from .summaries import (decision_rows, decision_spread, summarize_windows, summary_band_descriptions,
-                        summary_band_names)
+                        summary_band_names, summary_bands)
 
 __all__ = ["RealizationWriter", "summarize_realizations", "record_files"]
 
@@ -160,7 +162,12 @@ class RealizationWriter:
                  figures: Callable[[np.ndarray], dict] | None = None,
                  measure: Callable[[np.ndarray, np.ndarray], dict] | None = None, metal_unit: str = "",
                  overwrite: bool = False, derived: Sequence = (), ranking: Callable | None = None,
-                 layers: Sequence[tuple[np.ndarray, str, str]] = ()):
+                 layers: Sequence[tuple[np.ndarray, str, str]] = (), store=None, cube: str | None = None,
+                 geotiffs: bool = True):
+        if cube not in (None, "netcdf", "zarr"):
+            raise ValueError(f"cube must be None, 'netcdf' or 'zarr', got {cube!r}")
+        if store is not None and cube is None:
+            raise ValueError("a realization store needs the cube format of the finished realizations")
         self.folder = Path(folder)
         self.grid = grid
         self.tags = dict(tags or {})
@@ -173,6 +180,9 @@ class RealizationWriter:
         self.derived = tuple(derived)
         self.ranking = ranking
         self.layers = tuple(layers)
+        self.store = store
+        self.cube = cube
+        self.geotiffs = geotiffs
 
     def realization_paths(self, index: int) -> list[Path]:
         """The per-realization file(s) of realization ``index``."""
@@ -189,18 +199,22 @@ class RealizationWriter:
         # figures and checks see exactly what the raster stores, so a figure recomputed from the
         # file agrees, also at a cut-off on a plateau of equal values
         values = as_stored(values)
-        (self.folder / "realizations").mkdir(parents=True, exist_ok=True)
-        target = self.folder / "realizations" / f"r{index:04d}.tif"  # write_raster adds _z000... in 3-D
-        u = f" ({self.units})" if self.units else ""
-        bands = np.stack([values] + [a for a, _, _ in self.layers]) if self.layers else values
-        written = write_raster(target, bands, self.grid, descriptions=[(f"realization {index}{u}", self.units)] + [
-            (d, unit) for _, d, unit in self.layers], tags={**self.tags, "realization": str(index)},
-                               overwrite=self.overwrite)
-        record = {"index": int(index),
-                  "files": [str(p.relative_to(self.folder)) for p in written],
-                  "sha256": [file_sha256(p) for p in written],
-                  "figures": None if self.figures is None else self.figures(values),
-                  "checks": None if self.measure is None else self.measure(scores, values)}
+        if self.store is not None:
+            record = {"index": int(index), "files": [], "sha256": [],
+                      "store": {"path": os.path.relpath(self.store.path, self.folder),
+                                "sha256": self.store.write(index, values)}}
+        else:
+            (self.folder / "realizations").mkdir(parents=True, exist_ok=True)
+            target = self.folder / "realizations" / f"r{index:04d}.tif"  # write_raster adds _z000... in 3-D
+            u = f" ({self.units})" if self.units else ""
+            bands = np.stack([values] + [a for a, _, _ in self.layers]) if self.layers else values
+            descriptions = [(f"realization {index}{u}", self.units)] + [(d, unit) for _, d, unit in self.layers]
+            written = write_raster(target, bands, self.grid, descriptions=descriptions,
+                                   tags={**self.tags, "realization": str(index)}, overwrite=self.overwrite)
+            record = {"index": int(index), "files": [str(p.relative_to(self.folder)) for p in written],
+                      "sha256": [file_sha256(p) for p in written]}
+        record.update({"figures": None if self.figures is None else self.figures(values),
+                       "checks": None if self.measure is None else self.measure(scores, values)})
         if self.derived:
             record["derived"] = {d.name: d(index, values) for d in self.derived}
         return record
@@ -245,26 +259,10 @@ class RealizationWriter:
         indices = [r["index"] for r in records]
         out: dict[str, list[str]] = {
             "realization_files": [str(self.folder / f) for r in records for f, _ in record_files(r)]}
-        if stack:
-            out["realizations"] = []
-        out["summary"] = []
-        import rasterio
-
-        with rasterio.Env(**GDAL_SETTINGS):  # no folder listing on each of the many opens below
-            for k in range(self.grid.nz if self.grid.ndim == 3 else 1):
-                g2 = level_grid(self.grid, k)
-                files = [self.folder / r["files"][k] for r in records]
-                tags = {**self.tags, **level_tags(self.grid, k)}
-                layers = [(a if self.grid.ndim == 2 else a[k], d, u) for a, d, u in self.layers]
-                if stack:
-                    target = level_paths(self.folder / "realizations.tif", self.grid)[k]
-                    assemble_realizations(files, g2, target, units=self.units, tags=tags, indices=indices,
-                                          overwrite=self.overwrite, progress=progress, layers=layers)
-                    out["realizations"].append(str(target))
-                target = level_paths(self.folder / "summary.tif", self.grid)[k]
-                summarize_realizations(files, g2, cutoffs, target, units=self.units, tags=tags,
-                                       overwrite=self.overwrite, progress=progress, layers=layers)
-                out["summary"].append(str(target))
+        if self.store is not None:
+            out.update(self._finish_store(indices, cutoffs, stack, progress))
+        else:
+            out.update(self._finish_files(records, indices, cutoffs, stack, progress))
         figures = [r["figures"] for r in records]
         if all(f is not None for f in figures):
             rows = decision_rows(figures, indices)
@@ -287,6 +285,74 @@ class RealizationWriter:
             for folder in {f.parent for f in files}:
                 with contextlib.suppress(OSError):
                     folder.rmdir()
+        return out
+
+    def _finish_files(self, records, indices, cutoffs, stack, progress) -> dict[str, list[str]]:
+        """Multiband realizations and summaries (per level) from the realizations' GeoTIFFs."""
+        import rasterio
+        out: dict[str, list[str]] = {"summary": []}
+        if stack:
+            out["realizations"] = []
+        with rasterio.Env(**GDAL_SETTINGS):  # no folder listing on each of the many opens below
+            for k in range(self.grid.nz if self.grid.ndim == 3 else 1):
+                g2 = level_grid(self.grid, k)
+                files = [self.folder / r["files"][k] for r in records]
+                tags = {**self.tags, **level_tags(self.grid, k)}
+                layers = [(a if self.grid.ndim == 2 else a[k], d, u) for a, d, u in self.layers]
+                if stack:
+                    target = level_paths(self.folder / "realizations.tif", self.grid)[k]
+                    assemble_realizations(files, g2, target, units=self.units, tags=tags, indices=indices,
+                                          overwrite=self.overwrite, progress=progress, layers=layers)
+                    out["realizations"].append(str(target))
+                target = level_paths(self.folder / "summary.tif", self.grid)[k]
+                summarize_realizations(files, g2, cutoffs, target, units=self.units, tags=tags,
+                                       overwrite=self.overwrite, progress=progress, layers=layers)
+                out["summary"].append(str(target))
+        return out
+
+    def _finish_store(self, indices, cutoffs, stack, progress) -> dict[str, list[str]]:
+        """Summaries from the realization store, the cubes and, with ``geotiffs``, the rasters per level.
+
+        The summary is computed one store chunk (one level, at most 256 x 256 cells,
+        of every realization) at a time and kept (float32: what the files store) in
+        ``self.summary`` for the plots and tables.
+        """
+        from .io.cube import summary_dataset, write_cube
+        self.store.finish(indices)
+        names = summary_band_names(cutoffs)
+        bands = np.full((len(names),) + tuple(self.grid.shape), np.nan, dtype=np.float32)
+        for done, ((k, rows, cols), values) in enumerate(self.store.windows(indices), start=1):
+            where = ((k,) if self.grid.ndim == 3 else ()) + (rows, cols)
+            bands[(slice(None),) + where] = summary_bands(values, cutoffs)
+            if progress is not None:
+                progress(done, self.store.n_windows, "summary")
+        self.summary = bands
+        suffix = CUBE_SUFFIX[self.cube]
+        out: dict[str, list[str]] = {"summary": [], "summary_cube": [str(write_cube(
+            self.folder / f"summary{suffix}", summary_dataset(self.grid, bands, cutoffs, units=self.units,
+                                                              provenance=self.tags), overwrite=True))]}
+        if self.cube == "netcdf":
+            out["realizations_cube"] = [str(self.store.to_netcdf(self.folder / "realizations.nc", overwrite=True))]
+        else:
+            out["realizations_cube"] = [str(self.store.path)]
+        if not self.geotiffs:
+            return out
+        descriptions = summary_band_descriptions(cutoffs, self.units)
+        out["summary"] = [str(p) for p in write_raster(self.folder / "summary.tif", bands, self.grid,
+                                                        descriptions=descriptions, tags=self.tags,
+                                                        overwrite=self.overwrite)]
+        if stack:
+            u = f" ({self.units})" if self.units else ""
+            out["realizations"] = []
+            for k, target in enumerate(level_paths(self.folder / "realizations.tif", self.grid)):
+                g2 = level_grid(self.grid, k)
+                out["realizations"].append(str(write_bands(
+                    target, g2, len(indices), grid_windows(g2, tile_size(g2)),
+                    lambda w, k=k: self.store.block(indices, k, slice(w.row_off, w.row_off + w.height),
+                                                    slice(w.col_off, w.col_off + w.width)),
+                    descriptions=[(f"realization {i}{u}", self.units) for i in indices],
+                    tags={**self.tags, **level_tags(self.grid, k)}, overwrite=self.overwrite, progress=progress,
+                    what="realizations")))
         return out
 
     def validation(self, records: Sequence[Mapping]) -> dict | None:

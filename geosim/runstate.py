@@ -103,6 +103,8 @@ def _remove_run(out_dir: Path) -> None:
     for rel in _recorded_outputs(out_dir):
         path = (out_dir / rel).resolve()
         if base in path.parents:  # a hand-edited list must not reach outside the folder
+            if path.is_dir():  # a Zarr store
+                shutil.rmtree(path)
             path.unlink(missing_ok=True)
             if path.suffix == ".csv":
                 sidecar_path(path).unlink(missing_ok=True)
@@ -226,11 +228,24 @@ def read_header(out_dir: Path) -> dict | None:
         return None
 
 
-def completed_realizations(out_dir: Path, header: Mapping, n_realizations: int) -> dict[int, dict]:
-    """Records of realizations already written by an earlier run of this spec, verified by checksum."""
+def _same_store(path: Path, store) -> bool:
+    try:
+        return path.resolve() == Path(store.path).resolve()
+    except OSError:
+        return False
+
+
+def completed_realizations(out_dir: Path, header: Mapping, n_realizations: int, store=None) -> dict[int, dict]:
+    """Records of realizations already written by an earlier run of this spec, verified by checksum.
+
+    A realization written into a realization store (:class:`geosim.io.cube.RealizationStore`)
+    is kept when ``store`` is that store, the store marks it complete and its data have the
+    record's SHA-256.
+    """
     from .ensemble import record_files
     from .io.geotiff import verify_realization
     kept = {}
+    complete = store.complete() if store is not None and store.matches() else None
     for path in sorted((out_dir / STATE_DIR).glob("r[0-9]*.json")):
         try:
             rec = json.loads(path.read_text())
@@ -242,7 +257,14 @@ def completed_realizations(out_dir: Path, header: Mapping, n_realizations: int) 
             continue
         record = rec.get("record", {})
         files = record_files(record)
-        if record.get("files") and all(verify_realization(out_dir / f, sha) for f, sha in files):
+        stored = record.get("store")
+        if stored is not None:
+            if complete is None or not _same_store(out_dir / stored.get("path", ""), store) \
+                    or not store.verify(index, stored.get("sha256", ""), complete):
+                continue
+        elif not record.get("files"):
+            continue
+        if all(verify_realization(out_dir / f, sha) for f, sha in files):
             kept[index] = record
     return kept
 

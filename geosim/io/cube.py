@@ -25,7 +25,7 @@ Install with ``pip install "geosim[cube]"`` (NetCDF) or ``"geosim[zarr]"``.
 from __future__ import annotations
 
 import os
-from collections.abc import Callable, Mapping, Sequence
+from collections.abc import Callable, Iterator, Mapping, Sequence
 from pathlib import Path
 from typing import Any
 
@@ -36,9 +36,12 @@ from ..errors import InputError
 from .atomic import atomic_output
 
 __all__ = ["CF_VERSION", "grid_coords", "grid_dataset", "summary_dataset", "realizations_dataset", "write_cube",
-           "write_netcdf", "write_zarr", "open_cube", "block_model_table", "write_block_model"]
+           "write_netcdf", "write_zarr", "open_cube", "RealizationStore", "realization_sha256", "block_model_table",
+           "write_block_model"]
 
 CF_VERSION = "CF-1.8"
+#: File suffix of each cube format.
+CUBE_SUFFIX = {"netcdf": ".nc", "zarr": ".zarr"}
 GRID_MAPPING = "spatial_ref"
 CHUNK_XY = 512
 
@@ -202,11 +205,21 @@ def write_zarr(path: str | os.PathLike, ds, *, overwrite: bool = False, region: 
 
 
 def open_cube(path: str | os.PathLike):
-    """Open a cube geosim wrote (NetCDF or Zarr) with xarray, lazily."""
+    """Open a cube geosim wrote (NetCDF or Zarr) with xarray, lazily.
+
+    A realization store still being filled (or left by an interrupted run) is
+    refused: its ``geosim_complete`` attribute is not ``"yes"``.
+    """
     xr = _need("xarray", "cube")
     path = Path(path)
     if path.is_dir():
-        return xr.open_zarr(path, consolidated=False)
+        ds = xr.open_zarr(path, consolidated=False)
+        if ds.attrs.get(COMPLETE_ATTR, "yes") != "yes":
+            ds.close()
+            raise InputError("the Zarr store is not finished: a run is still writing it, or was interrupted",
+                             file=str(path), fix="wait for the run to end, or re-run it with the same spec "
+                                                 "and folder to complete the store")
+        return ds
     return xr.open_dataset(path, engine="netcdf4")
 
 
@@ -267,6 +280,230 @@ def realizations_dataset(grid, reader: Callable[[int], np.ndarray], indices: Seq
     stack = da.stack(parts).rechunk(chunks)
     return grid_dataset(grid, {name: (stack, long_name, units)}, realizations=indices,
                         title="geosim conditional realizations", provenance=provenance)
+
+
+# -- the realization store: one chunked Zarr store that workers fill in parallel ----------------
+
+#: Side of a store chunk in cells (and of the summaries' windows): one level of one realization
+#: per chunk at most this wide, so no two writers ever share a chunk.
+STORE_CHUNK = 256
+#: Root attribute of a realization store: "no" while realizations are written, "yes" once finished.
+COMPLETE_ATTR = "geosim_complete"
+MARKER = "realization_complete"
+
+
+def realization_sha256(values: np.ndarray) -> str:
+    """SHA-256 of one realization as a store holds it (float32, C order, every NaN the same NaN)."""
+    import hashlib
+    a = np.ascontiguousarray(values, dtype=np.float32)
+    a = np.where(np.isnan(a), np.float32(np.nan), a)
+    return hashlib.sha256(a.tobytes()).hexdigest()
+
+
+class RealizationStore:
+    """The realizations of a run in one chunked Zarr store, written in parallel by the workers.
+
+    The layout is the realization cube's (:func:`grid_dataset`: dimensions
+    ``realization, (z,) y, x``, CF coordinates, the ``spatial_ref`` grid mapping,
+    caution and provenance as global attributes), with chunks of one level of one
+    realization at most :data:`STORE_CHUNK` cells square.  Each realization is
+    written by one worker as whole chunks, so no two writers share a chunk and no
+    lock is needed; after its chunks, the worker sets its element of the
+    ``realization_complete`` variable (one chunk per realization: 0 until then, 1
+    after).  A resumed run keeps the realizations marked complete whose data still
+    have the SHA-256 their record gives.  The root attribute ``geosim_complete`` is
+    ``"no"`` while the store is being filled and ``"yes"`` once :meth:`finish`
+    checked every realization: :func:`open_cube` refuses a store that is not
+    finished.
+
+    The object holds only paths and small metadata, so it travels to workers
+    (process pool or Dask) with the sink; the store must lie on a file system
+    every worker sees.
+
+    Parameters
+    ----------
+    path : path
+        The store (a folder, ``.zarr``).
+    grid : geosim.Grid
+    name, long_name, units : str
+        The data variable's name, ``long_name`` and ``units``.
+    provenance : mapping, optional
+        Provenance strings (global attributes ``geosim_<key>``).
+    run_key : str
+        Identifies the run whose realizations the store holds (the resume key): a
+        store of another run is replaced, never continued.
+    chunk : int
+        Side of a chunk in cells (:data:`STORE_CHUNK`); the summaries read one chunk of
+        every realization at a time.
+
+    Examples
+    --------
+    >>> import pathlib, tempfile, numpy as np, geosim
+    >>> from geosim.io.cube import RealizationStore, open_cube
+    >>> g = geosim.Grid(0.0, 0.0, (10.0, 10.0), (3, 4))
+    >>> store = RealizationStore(pathlib.Path(tempfile.mkdtemp()) / "r.zarr", g, name="k", long_name="k")
+    >>> store.open(2)
+    >>> sha = [store.write(i, np.full(g.shape, float(i))) for i in range(2)]
+    >>> store.finish([0, 1])
+    >>> ds = open_cube(store.path)
+    >>> ds["k"].dims, ds["k"].values[:, 0, 0].tolist(), ds.attrs["geosim_complete"]
+    (('realization', 'y', 'x'), [0.0, 1.0], 'yes')
+    """
+
+    def __init__(self, path: str | os.PathLike, grid, *, name: str, long_name: str, units: str = "",
+                 provenance: Mapping[str, str] | None = None, run_key: str = "", chunk: int = STORE_CHUNK):
+        self.path = Path(path)
+        self.chunk = int(chunk)
+        self.grid = grid
+        self.name = name
+        self.long_name = long_name
+        self.units = units
+        self.provenance = dict(provenance or {})
+        self.run_key = run_key
+
+    def __repr__(self) -> str:
+        return f"RealizationStore({str(self.path)!r}, {self.name!r})"
+
+    @property
+    def n_windows(self) -> int:
+        """How many windows :meth:`windows` yields."""
+        ny, nx = self.grid.shape[-2:]
+        return (self.grid.nz if self.grid.ndim == 3 else 1) * -(-ny // self.chunk) * -(-nx // self.chunk)
+
+    @property
+    def chunks(self) -> tuple[int, ...]:
+        """Chunk shape: one realization, one level, at most ``chunk`` cells square."""
+        return (1,) + (1,) * (self.grid.ndim - 2) + tuple(min(self.chunk, n) for n in self.grid.shape[-2:])
+
+    def _group(self, mode: str = "r+"):
+        zarr = _need("zarr", "zarr")
+        return zarr.open_group(str(self.path), mode=mode)
+
+    def matches(self) -> bool:
+        """Whether the store on disk is this run's, on this grid."""
+        try:
+            group = self._group("r")
+            return (group.attrs.get("geosim_run_key") == self.run_key
+                    and tuple(group[self.name].shape[1:]) == tuple(self.grid.shape))
+        except Exception:  # missing, unreadable, another layout: not this run's
+            return False
+
+    def open(self, n_realizations: int, *, keep: bool = False) -> None:
+        """Make the store ready for ``n_realizations`` (called once, by the main process, before the workers).
+
+        With ``keep`` a store of this run is continued, its realization dimension
+        resized to ``n_realizations`` (a resumed or extended run); otherwise, or when
+        the store is another run's, it is created empty.
+        """
+        import shutil
+        n = int(n_realizations)
+        if keep and self.matches():
+            group = self._group()
+            if group[self.name].shape[0] != n:
+                for var in (self.name, MARKER, "realization"):
+                    group[var].resize((n,) + tuple(group[var].shape[1:]))
+                group["realization"][:] = np.arange(n, dtype=np.int32)
+            group.attrs[COMPLETE_ATTR] = "no"
+            return
+        shutil.rmtree(self.path, ignore_errors=True)
+        self.path.parent.mkdir(parents=True, exist_ok=True)
+        da = _need("dask.array", "zarr")
+        data = da.zeros((n,) + tuple(self.grid.shape), chunks=self.chunks, dtype=np.float32)
+        ds = grid_dataset(self.grid, {self.name: (data, self.long_name, self.units)}, realizations=range(n),
+                          title="geosim conditional realizations", provenance=self.provenance)
+        ds[MARKER] = (("realization",), da.zeros(n, chunks=1, dtype=np.uint8),
+                      {"long_name": "realization written completely (its chunks are all in the store)",
+                       "flag_values": np.array([0, 1], dtype=np.uint8), "flag_meanings": "no yes"})
+        ds.attrs.update({COMPLETE_ATTR: "no", "geosim_run_key": self.run_key})
+        encoding = _encoding(ds.drop_vars(MARKER), False)
+        encoding[self.name]["chunks"] = self.chunks
+        encoding[MARKER] = {"chunks": (1,), "_FillValue": None}
+        with _local_dask():
+            ds.to_zarr(self.path, mode="w", compute=False, encoding=encoding, consolidated=False)
+
+    def write(self, index: int, values: np.ndarray) -> str:
+        """Write realization ``index`` (its whole chunks), then mark it complete; returns its SHA-256."""
+        a = np.asarray(values, dtype=np.float32)
+        if a.shape != tuple(self.grid.shape):
+            raise ValueError(f"realization {index} has shape {a.shape}, the store's grid {self.grid.shape}")
+        group = self._group()
+        group[self.name][int(index)] = a
+        group[MARKER][int(index)] = 1  # after the data: a realization marked complete is all there
+        return realization_sha256(a)
+
+    def read(self, index: int) -> np.ndarray:
+        """Realization ``index`` as stored (float32, ``grid.shape``)."""
+        return np.asarray(self._group("r")[self.name][int(index)])
+
+    def complete(self) -> np.ndarray:
+        """Per realization: whether it was written completely (empty when there is no store)."""
+        try:
+            return np.asarray(self._group("r")[MARKER][:]).astype(bool)
+        except Exception:  # no store (yet), or not one of ours
+            return np.zeros(0, dtype=bool)
+
+    def verify(self, index: int, sha256: str, complete: np.ndarray | None = None) -> bool:
+        """True when realization ``index`` is marked complete and its data have ``sha256``.
+
+        ``complete`` is :meth:`complete` read once for many calls (from a store of this run).
+        """
+        if complete is None:
+            complete = self.complete() if self.matches() else np.zeros(0, dtype=bool)
+        return (0 <= index < complete.size and bool(complete[index])
+                and realization_sha256(self.read(index)) == sha256)
+
+    def windows(self, indices: Sequence[int]) -> Iterator[tuple[tuple[int, slice, slice], np.ndarray]]:
+        """Every realization of ``indices`` at one window (one chunk of one level) at a time.
+
+        Yields ``((level, rows, cols), stack)`` with ``stack`` of shape
+        ``(len(indices), h, w)`` float32; ``level`` is 0 for a 2-D grid.
+        """
+        array = self._group("r")[self.name]
+        ny, nx = self.grid.shape[-2:]
+        for k in range(self.grid.nz if self.grid.ndim == 3 else 1):
+            for r0 in range(0, ny, self.chunk):
+                for c0 in range(0, nx, self.chunk):
+                    rows, cols = slice(r0, min(r0 + self.chunk, ny)), slice(c0, min(c0 + self.chunk, nx))
+                    yield (k, rows, cols), self.block(indices, k, rows, cols, array=array)
+
+    def block(self, indices: Sequence[int], k: int, rows: slice, cols: slice, *, array=None) -> np.ndarray:
+        """``rows, cols`` of level ``k`` (0 in 2-D) of every realization of ``indices``: ``(len(indices), h, w)``."""
+        array = self._group("r")[self.name] if array is None else array
+        indices = [int(i) for i in indices]
+        where = ((k,) if self.grid.ndim == 3 else ()) + (rows, cols)
+        if indices and indices == list(range(indices[0], indices[0] + len(indices))):
+            return np.asarray(array[(slice(indices[0], indices[0] + len(indices)),) + where])
+        return np.stack([np.asarray(array[(i,) + where]) for i in indices])
+
+    def finish(self, indices: Sequence[int]) -> None:
+        """Check every realization of ``indices`` is complete and mark the store finished."""
+        from ..errors import InputError
+        done = self.complete()
+        missing = [i for i in indices if not (0 <= i < done.size and done[i])]
+        if missing:
+            raise InputError(f"{len(missing)} realization(s) are not complete in the store: "
+                             + ", ".join(map(str, missing[:10])) + (" ..." if len(missing) > 10 else ""),
+                             file=str(self.path), fix="re-run the same command to compute them")
+        self._group().attrs[COMPLETE_ATTR] = "yes"
+
+    def dataset(self):
+        """The finished store as a lazy :class:`xarray.Dataset` in the cube layout (no marker, no run key)."""
+        ds = open_cube(self.path).drop_vars(MARKER)
+        for key in (COMPLETE_ATTR, "geosim_run_key"):
+            ds.attrs.pop(key, None)
+        for var in ds.variables.values():
+            var.encoding = {}
+        return ds
+
+    def to_netcdf(self, path: str | os.PathLike, *, overwrite: bool = False) -> Path:
+        """Write the finished store as the NetCDF realization cube (chunk by chunk), atomically."""
+        with self.dataset() as ds:
+            return write_netcdf(path, ds, overwrite=overwrite)
+
+    def remove(self) -> None:
+        """Delete the store."""
+        import shutil
+        shutil.rmtree(self.path, ignore_errors=True)
 
 
 def write_cube(path: str | os.PathLike, ds, *, overwrite: bool = False) -> Path:
