@@ -183,6 +183,7 @@ class RealizationWriter:
         self.store = store
         self.cube = cube
         self.geotiffs = geotiffs
+        self.summary = None  # the summary bands, once finish computed them from the store
 
     def realization_paths(self, index: int) -> list[Path]:
         """The per-realization file(s) of realization ``index``."""
@@ -389,10 +390,14 @@ class RealizationWriter:
         """
         out = []
         names = summary_band_names(cutoffs)
-        for k in range(len(summaries)) if levels is None else levels:
+        for k in range(self.grid.nz if self.grid.ndim == 3 else 1) if levels is None else levels:
             g2 = level_grid(self.grid, k)
-            with open_checked(summaries[k], g2) as src:
-                summary = {name: src.read(b + 1).astype(np.float64) for b, name in enumerate(names)}
+            if self.summary is not None:  # computed from the store, as its files hold it
+                level = self.summary if self.grid.ndim == 2 else self.summary[:, k]
+                summary = {name: level[b].astype(np.float64) for b, name in enumerate(names)}
+            else:
+                with open_checked(summaries[k], g2) as src:
+                    summary = {name: src.read(b + 1).astype(np.float64) for b, name in enumerate(names)}
             prefix = "" if self.grid.ndim == 2 else f"z{k:03d}_"
             out += io_plots.plot_summary_maps(summary, g2, self.folder, units=self.units, prefix=prefix, log=log,
                                               overwrite=self.overwrite)

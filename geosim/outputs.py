@@ -177,15 +177,15 @@ CUBE_SUFFIX = {"netcdf": ".nc", "zarr": ".zarr"}
 def cube_format(spec: RunSpec, grid) -> str | None:
     """``"netcdf"``, ``"zarr"`` or None: the cube the outputs ask for (``outputs.cube``).
 
-    ``"auto"`` is NetCDF for 3-D grids when xarray, netCDF4 and dask are installed
-    (``geosim[cube]``), and nothing (GeoTIFF per level, with a warning) otherwise.
+    ``"auto"`` is NetCDF for 3-D grids when xarray, netCDF4, zarr and dask are installed
+    (``geosim[cube]``), and nothing (GeoTIFF per level, with a note) otherwise.
     """
     fmt = spec["outputs.cube"]
     if fmt == "none" or (fmt == "auto" and grid.ndim == 2):
         return None
     if fmt == "auto":
         import importlib.util
-        if not all(importlib.util.find_spec(m) for m in ("xarray", "netCDF4", "dask")):
+        if not all(importlib.util.find_spec(m) for m in ("xarray", "netCDF4", "zarr", "dask")):
             log.warning('3-D outputs are written as one GeoTIFF per level; pip install "geosim[cube]" for one '
                         "NetCDF cube per output kind")
             return None
@@ -222,12 +222,37 @@ def realization_writer(spec: RunSpec, data: PreparedData, model, grid, out_dir: 
     from .validation import RunChecks
     tags = provenance_tags(spec, data, model)
     derived, ranking = support_sinks(spec, grid, out_dir, tags)
+    store = realization_store(spec, grid, out_dir, tags)
     # overwrite=True: the folder was checked to belong to this run before anything is written
     return RealizationWriter(out_dir, grid, tags=tags, units=spec["data.units"],
                              back_transform=data.transform.inverse, figures=_figures(spec, grid),
                              measure=RunChecks(grid, model, data.coords, data.scores, weights=data.weights,
                                                data_values=data.values), metal_unit=metal_unit(spec), overwrite=True,
-                             derived=derived, ranking=ranking)
+                             derived=derived, ranking=ranking, store=store,
+                             cube=None if store is None else cube_format(spec, grid),
+                             geotiffs=level_geotiffs(spec, grid))
+
+
+def realization_store(spec: RunSpec, grid, out_dir: Path, tags: Mapping[str, str]):
+    """The :class:`geosim.io.cube.RealizationStore` the workers write the realizations into, or None
+    (one GeoTIFF per realization).
+
+    With a Zarr cube (``outputs.cube = "zarr"``, 2-D or 3-D) the store is the output,
+    ``realizations.zarr``; with a NetCDF cube of a 3-D grid (the default) the workers fill
+    ``run-state/realizations.zarr`` and the run writes ``realizations.nc`` from it (a NetCDF
+    file takes one writer at a time).  2-D grids without a Zarr cube keep their GeoTIFFs.
+    """
+    fmt = cube_format(spec, grid)
+    if not (fmt == "zarr" or (fmt == "netcdf" and grid.ndim == 3)):
+        return None
+    from .io.cube import RealizationStore
+    from .runstate import STATE_DIR, resume_key
+    units = spec["data.units"]
+    u = f" ({units})" if units else ""
+    path = out_dir / ("realizations.zarr" if fmt == "zarr" else f"{STATE_DIR}/realizations.zarr")
+    return RealizationStore(path, grid, name=variable_name(spec["data.value"]),
+                            long_name=f"{spec['data.value']}{u}, conditional realization", units=units,
+                            provenance=tags, run_key=resume_key(spec))
 
 
 def _layout(spec: RunSpec, grid, section: str, key: str):
@@ -396,15 +421,19 @@ def write_summaries(spec: RunSpec, out_dir: Path, data: PreparedData, model, gri
             log=spec["transform.log"])]
         files["plots"] += [str(p) for p in _support_plots(spec, simulation.writer, simulation.records, out_dir)]
     files.update(_cubes_and_tables(spec, grid, out_dir, simulation.records, files,
-                                   provenance_tags(spec, data, model)))
-    return close_outputs(spec, grid, out_dir, files, report)
+                                   provenance_tags(spec, data, model), writer=simulation.writer))
+    return close_outputs(spec, grid, out_dir, files, report, simulation.writer)
 
 
-def close_outputs(spec: RunSpec, grid, out_dir: Path, files: dict[str, list[str]], report: Mapping) -> dict:
-    """Remove what the outputs do not keep (realization files, per-level GeoTIFFs beside a cube)
-    and write the JSON run report; returns ``files`` without the removed ones."""
+def close_outputs(spec: RunSpec, grid, out_dir: Path, files: dict[str, list[str]], report: Mapping,
+                  writer=None) -> dict:
+    """Remove what the outputs do not keep (realization files, the run-state store of a NetCDF cube,
+    per-level GeoTIFFs beside a cube) and write the JSON run report; returns ``files`` without the
+    removed ones."""
     from .io.report import write_report
     if not spec["outputs.keep_realizations"]:
+        if writer is not None and writer.store is not None and writer.cube == "netcdf":  # the cube holds them
+            writer.store.remove()
         removed = [Path(f) for f in files.pop("realization_files")]  # block and upscaled ones too
         for f in removed:
             f.unlink()
@@ -464,9 +493,11 @@ def _support_plots(spec: RunSpec, writer, records: Sequence[Mapping], out_dir: P
 
 
 def _cubes_and_tables(spec: RunSpec, grid, out_dir: Path, records: Sequence[Mapping], files: Mapping,
-                      tags: Mapping[str, str], layers: Mapping[str, tuple] | None = None) -> dict[str, list[str]]:
-    """The summary and realization cubes and the block-model tables, from the run's GeoTIFFs;
-    ``layers`` (``name -> (array of grid.shape, long name, units)``, e.g. unit codes) are added to each."""
+                      tags: Mapping[str, str], layers: Mapping[str, tuple] | None = None,
+                      writer=None) -> dict[str, list[str]]:
+    """The summary and realization cubes (unless ``writer``'s realization store made them) and the
+    block-model tables, from the run's GeoTIFFs or the store; ``layers`` (``name -> (array of
+    grid.shape, long name, units)``, e.g. unit codes) are added to each."""
     from .io.geotiff import read_realization
     from .summaries import summary_band_names
     fmt, tables = cube_format(spec, grid), block_model_formats(spec, grid)
@@ -475,18 +506,28 @@ def _cubes_and_tables(spec: RunSpec, grid, out_dir: Path, records: Sequence[Mapp
     out = spec["outputs"]
     units = spec["data.units"]
     cutoffs = list(out["cutoffs"])
-    bands = np.stack([read_realization(files["summary"], grid, band=b + 1)
-                      for b in range(len(summary_band_names(cutoffs)))])
+    store = None if writer is None else writer.store
+    if store is not None:
+        bands = writer.summary.astype(np.float64)  # float32 as stored, as read back from rasters
+    else:
+        bands = np.stack([read_realization(files["summary"], grid, band=b + 1)
+                          for b in range(len(summary_band_names(cutoffs)))])
     paths = [[out_dir / f for f in r["files"]] for r in records]
     indices = [int(r["index"]) for r in records]
+
+    def realization(j: int) -> np.ndarray:
+        if store is not None:
+            return store.read(indices[j]).astype(np.float64)
+        return read_realization(paths[j], grid)
+
     written: dict[str, list[str]] = {}
-    if fmt is not None:
+    if fmt is not None and store is None:
         from .io.cube import add_layers, realizations_dataset, summary_dataset, write_cube
         name = variable_name(spec["data.value"])
         u = f" ({units})" if units else ""
 
         def reader(j: int) -> np.ndarray:
-            return read_realization(paths[j], grid).astype(np.float32)
+            return realization(j).astype(np.float32)
 
         suffix = CUBE_SUFFIX[fmt]
         written["summary_cube"] = [str(write_cube(out_dir / f"summary{suffix}", add_layers(summary_dataset(
@@ -504,8 +545,8 @@ def _cubes_and_tables(spec: RunSpec, grid, out_dir: Path, records: Sequence[Mapp
         for c, band in zip(cutoffs, bands[5:]):
             table[f"prob_above_{c:g}"] = (band, f"probability above {c:g} (fraction 0-1 of realizations)", "")
         if out["block_model_realizations"]:
-            for i, p in zip(indices, paths):
-                table[f"r{i:04d}"] = (read_realization(p, grid), f"realization {i}", units)
+            for j, i in enumerate(indices):
+                table[f"r{i:04d}"] = (realization(j), f"realization {i}", units)
         written["block_model"] = [str(write_block_model(out_dir / f"block_model{s}", grid, table, provenance=tags,
                                                         overwrite=True)) for s in tables]
     return written

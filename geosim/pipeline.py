@@ -299,8 +299,10 @@ def simulate(spec: RunSpec, data: PreparedData | None = None, model=None, grid=N
     out_dir = make_folder(out_dir)
     header = open_output(spec, out_dir, overwrite=overwrite, resume=resume)
     n = spec["simulation.realizations"]
-    kept = completed_realizations(out_dir, header, n) if resume else {}
+    kept = completed_realizations(out_dir, header, n, store=writer.store) if resume else {}
     missing = [i for i in range(n) if i not in kept]
+    if writer.store is not None:  # made here, once, before any worker writes into it
+        writer.store.open(n, keep=bool(kept))
     sink = RecordingSink(writer, out_dir / STATE_DIR, header["resume_key"], header["seed"])
     sim = spec["simulation"]
     # hole ids only when the search limits samples per hole: a plugin engine need not take them
@@ -342,14 +344,14 @@ def summarize(spec: RunSpec, out_dir: str | os.PathLike, *, data: PreparedData |
         if header is None or header.get("resume_key") != resume_key(spec):
             raise InputError("the folder holds no realizations of this run spec", file=str(out_dir),
                              fix="run `geosim simulate` (or `geosim run`) with this spec and folder first")
-        kept = completed_realizations(out_dir, header, n)
+        writer = realization_writer(spec, data, model, grid, out_dir)
+        kept = completed_realizations(out_dir, header, n, store=writer.store)
         missing = [i for i in range(n) if i not in kept]
         if missing:
             shown = ", ".join(map(str, missing[:10])) + (" ..." if len(missing) > 10 else "")
             raise InputError(f"{len(missing)} of {n} realizations are missing or changed: {shown}",
                              file=str(out_dir), fix="rerun `geosim simulate` with the same spec to complete them")
-        simulation = SimulationResult([kept[i] for i in range(n)], sorted(kept), [],
-                                      realization_writer(spec, data, model, grid, out_dir))
+        simulation = SimulationResult([kept[i] for i in range(n)], sorted(kept), [], writer)
     return write_summaries(spec, out_dir, data, model, grid, simulation, extra, progress)
 
 

@@ -208,10 +208,16 @@ class Ranker:
         by_index = {r["index"]: r for r in records}
         folder = writer.folder / "ranked"
         folder.mkdir(exist_ok=True)
-        for old in folder.glob("*.tif"):  # picks of an earlier finish (fewer realizations, another figure)
-            old.unlink()
+        for old in [*folder.glob("*.tif"), *folder.glob("*.nc"), *folder.glob("*.zarr")]:
+            shutil.rmtree(old) if old.is_dir() else old.unlink()  # picks of an earlier finish
         written = []
-        outputs = [("", writer.grid, lambda r: r["files"])]
+        if writer.store is not None:  # realizations in a store: each pick becomes a cube of its own
+            from .io.cube import CUBE_SUFFIX, write_cube
+            with writer.store.dataset() as ds:
+                for label, i in picked.items():
+                    target = folder / f"{self.label}_{label}_r{i:04d}{CUBE_SUFFIX[writer.cube]}"
+                    written.append(write_cube(target, ds.sel(realization=[i]), overwrite=True))
+        outputs = [] if writer.store is not None else [("", writer.grid, lambda r: r["files"])]
         outputs += [(f"_{d.name}", d.grid, lambda r, n=d.name: r["derived"][n]["files"])
                     for d in writer.derived if isinstance(d, SupportWriter)]
         for label, i in picked.items():

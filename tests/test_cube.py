@@ -28,6 +28,11 @@ SMALL = {"grid.cell": [40.0, 40.0, 20.0], "simulation.realizations": 3, "simulat
          "outputs.block_model_realizations": True}
 
 
+def _point_support_tifs(out: Path) -> list[Path]:
+    """GeoTIFFs of a run at point support (the ore sample's block-support outputs are their own)."""
+    return [p for p in out.rglob("*.tif") if "blocks" not in p.relative_to(out).as_posix()]
+
+
 @pytest.fixture(scope="module")
 def ore_run(tmp_path_factory):
     out = tmp_path_factory.mktemp("ore") / "run"
@@ -128,15 +133,25 @@ def test_default_3d_run_writes_cubes_not_level_files(tmp_path):
     result = geosim.pipeline.run(spec, tmp_path / "run")
     out = tmp_path / "run"
     top = sorted(p.name for p in out.iterdir())
-    # no GeoTIFF anywhere and no file per realization: the workers wrote one store, the run one cube
-    assert not list(out.rglob("*.tif")) and not (out / "realizations").exists()
+    # no GeoTIFF and no file per realization at point support (the ore sample's block-support outputs
+    # are their own): the workers wrote one store, the run one cube
+    assert not _point_support_tifs(out)
+    assert not (out / "realizations").exists()
+    picks = sorted(p for p in (out / "ranked").iterdir() if "blocks" not in p.name)  # one cube per pick
+    assert [p.name.split("_r")[0] for p in picks] == ["metal_0.5_P10", "metal_0.5_P50", "metal_0.5_P90"]
+    var = geosim.outputs.variable_name(spec["data.value"])
+    with result.to_xarray("realizations") as cube:
+        for p in picks:
+            with open_cube(p) as one:
+                i = int(p.stem.rsplit("_r", 1)[1])
+                assert one.realization.values.tolist() == [i] and one.attrs["comment"] == geosim.CAUTION
+                np.testing.assert_array_equal(one[var].values[0], cube[var].values[i])
     assert {"summary.nc", "realizations.nc", "block_model.csv", "block_model.csv-metadata.json"} <= set(top)
     assert all(r["files"] == [] and r["store"]["path"] == "run-state/realizations.zarr" for r in
                (json.loads(f.read_text())["record"] for f in (out / "run-state").glob("r0*.json")))
     ds = result.to_xarray("realizations")
     assert ds.realization.values.tolist() == [0, 1]
     with open_cube(out / "run-state" / "realizations.zarr") as store:  # kept for a rerun (keep_realizations)
-        var = geosim.outputs.variable_name(spec["data.value"])
         np.testing.assert_array_equal(store[var].values, ds[var].values)
     ds.close()
 
@@ -197,7 +212,7 @@ def test_zarr_cube_from_a_dask_cluster_equals_the_serial_netcdf(ore_run, tmp_pat
         zarr_run = geosim.pipeline.run(remote, tmp_path / "dask")
     assert Path(zarr_run.files["realizations_cube"][0]).name == "realizations.zarr"
     # the workers wrote their realizations into the one store: no per-realization file anywhere
-    assert not (tmp_path / "dask" / "realizations").exists() and not list((tmp_path / "dask").rglob("*.tif"))
+    assert not (tmp_path / "dask" / "realizations").exists() and not _point_support_tifs(tmp_path / "dask")
     assert all(r["store"]["path"] == "realizations.zarr" for r in
                (json.loads(f.read_text())["record"] for f in (tmp_path / "dask" / "run-state").glob("r0*.json")))
     var = geosim.outputs.variable_name(spec["data.value"])
