@@ -426,6 +426,9 @@ class RealizationStore:
         a = np.asarray(values, dtype=np.float32)
         if a.shape != tuple(self.grid.shape):
             raise ValueError(f"realization {index} has shape {a.shape}, the store's grid {self.grid.shape}")
+        # one NaN for every empty node: a NaN's sign and payload can vary between machines and code
+        # paths, and the cubes made from the store must not
+        a = np.where(np.isnan(a), np.float32(np.nan), a)
         group = self._group()
         group[self.name][int(index)] = a
         group[MARKER][int(index)] = 1  # after the data: a realization marked complete is all there
@@ -487,13 +490,18 @@ class RealizationStore:
         self._group().attrs[COMPLETE_ATTR] = "yes"
 
     def dataset(self):
-        """The finished store as a lazy :class:`xarray.Dataset` in the cube layout (no marker, no run key)."""
-        ds = open_cube(self.path).drop_vars(MARKER)
-        for key in (COMPLETE_ATTR, "geosim_run_key"):
-            ds.attrs.pop(key, None)
-        for var in ds.variables.values():
-            var.encoding = {}
-        return ds
+        """The store's realizations as a lazy :class:`xarray.Dataset` in the cube layout (no marker, no run key).
+
+        The dask array over the store has a fixed name, so a cube written from it is
+        written in the same order, and is the same file byte for byte, whichever
+        folder or machine the store is in.
+        """
+        da = _need("dask.array", "zarr")
+        array = self._group("r")[self.name]
+        data = da.from_array(array, chunks=self.chunks, name=f"geosim-store-{self.name}", lock=False)
+        return grid_dataset(self.grid, {self.name: (data, self.long_name, self.units)},
+                            realizations=range(array.shape[0]), title="geosim conditional realizations",
+                            provenance=self.provenance)
 
     def to_netcdf(self, path: str | os.PathLike, *, overwrite: bool = False) -> Path:
         """Write the finished store as the NetCDF realization cube (chunk by chunk), atomically."""
