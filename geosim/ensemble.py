@@ -20,10 +20,12 @@ Realization writer layout (see :class:`RealizationWriter`)::
 
 For 3-D grids the rasters get ``_z000``... per level (``realizations_z000.tif``,
 ``summary_z000.tif``, ``realizations/r0007_z000.tif``).  A writer given a
-``cube`` format writes 3-D realizations one NetCDF cube each instead
-(``realizations/r0007.nc``), and assembles ``summary.nc`` and ``realizations.nc``
-(or ``.zarr``) from them, with the per-level GeoTIFFs only on request
-(``level_geotiffs``); in 2-D it writes the cubes beside the GeoTIFFs.  Hidden temporaries
+``cube`` format writes no file per realization: every worker writes its
+realizations into one chunked Zarr store (:class:`geosim.io.cube.RealizationStore`;
+``realizations.zarr`` itself for Zarr cubes, ``realizations/store.zarr`` for NetCDF
+ones), and ``finish`` makes ``summary.nc`` and ``realizations.nc`` (or ``.zarr``)
+from it, with the per-level GeoTIFFs only on request (``level_geotiffs``; always
+in 2-D).  Hidden temporaries
 (``.<name>.<hex>.partial<suffix>``, ``.<name>.<hex>.stage.tif``) exist only while
 a file is being written; a killed run may leave them, and they can be deleted.
 """
@@ -39,15 +41,15 @@ import numpy as np
 from .errors import InputError
 from .io import plots as io_plots
 from .io.decision import write_decision_csv
-from .io.cube import CUBE_SUFFIX
+from .io.cube import CUBE_SUFFIX, RealizationStore
 from .io.geotiff import (GDAL_SETTINGS, as_stored, assemble_realizations, grid_windows, level_grid, level_paths, level_tags,
-                         open_checked, read_realization, read_windows, tile_size, verify_realization, with_layers,
-                         write_raster, write_windows)
+                         open_checked, read_realization, read_windows, verify_realization, with_layers, write_raster,
+                         write_windows)
 from .io.report import file_sha256
 from .summaries import (decision_rows, decision_spread, summarize_windows, summary_band_descriptions,
                         summary_band_names)
 
-__all__ = ["RealizationWriter", "summarize_realizations", "record_files", "read_realization_file"]
+__all__ = ["RealizationWriter", "summarize_realizations", "record_files", "remove_outputs"]
 
 
 def summarize_realizations(paths: Sequence[str | os.PathLike], grid, cutoffs: Sequence[float],
@@ -101,20 +103,30 @@ def summarize_realizations(paths: Sequence[str | os.PathLike], grid, cutoffs: Se
                          overwrite=overwrite, progress=progress, what="summary")
 
 
-def read_realization_file(paths: Sequence[str | os.PathLike], grid) -> np.ndarray:
-    """One realization a :class:`RealizationWriter` wrote (GeoTIFF per level, or one cube) as ``grid.shape``."""
-    if len(paths) == 1 and Path(paths[0]).suffix == ".nc":
-        from .io.cube import read_cube_values
-        return read_cube_values(paths[0])
-    return read_realization(paths, grid)
-
-
 def record_files(record: Mapping) -> list[tuple[str, str]]:
     """``(file relative to the writer's folder, SHA-256)`` of one realization record, derived outputs included."""
     pairs = list(zip(record.get("files", []), record.get("sha256", [])))
     for sub in (record.get("derived") or {}).values():
         pairs += list(zip(sub.get("files", []), sub.get("sha256", [])))
     return pairs
+
+
+def record_stores(record: Mapping) -> list[tuple[str, str]]:
+    """``(realization store relative to the writer's folder, SHA-256 of the realization in it)`` of one
+    realization record, derived outputs included (see :class:`geosim.io.cube.RealizationStore`)."""
+    subs = [record] + list((record.get("derived") or {}).values())
+    return [(s["store"]["path"], s["store"]["sha256"]) for s in subs if s.get("store")]
+
+
+def remove_outputs(paths: Sequence[str | os.PathLike]) -> None:
+    """Delete files and realization stores (folders), then their folders once empty."""
+    import shutil
+    paths = [Path(p) for p in paths]
+    for p in paths:
+        shutil.rmtree(p, ignore_errors=True) if p.is_dir() else p.unlink(missing_ok=True)
+    for folder in {p.parent for p in paths}:
+        with contextlib.suppress(OSError):
+            folder.rmdir()
 
 
 class RealizationWriter:
@@ -161,12 +173,19 @@ class RealizationWriter:
         written as last bands of each realization's file, and appended by ``finish`` to
         ``realizations.tif`` and ``summary.tif`` (GeoTIFF realizations only).
     cube : {"netcdf", "zarr"}, optional
-        Also assemble ``summary`` and ``realizations`` cubes
-        (:mod:`geosim.io.cube`).  On a 3-D grid each realization is then one
-        NetCDF file instead of one GeoTIFF per level.
+        Write the realizations into one realization store instead of one file each
+        (:class:`geosim.io.cube.RealizationStore`), and assemble ``summary`` and
+        ``realizations`` cubes (:mod:`geosim.io.cube`) from it.
     level_geotiffs : bool
         With ``cube`` on a 3-D grid, also write the per-level GeoTIFF stacks and
         summaries (always written without a cube, and in 2-D).
+    store : path, optional
+        Where the realization store of a writer with ``cube`` lies; by default
+        ``realizations.zarr`` (the Zarr cube itself) or ``realizations/store.zarr``
+        (NetCDF: the cube is written from it at the end).
+    run_key : str
+        Names the run in the store (:class:`geosim.io.cube.RealizationStore`), so a
+        resumed run continues only its own store.
     variable : str
         Name of the realization variable in the cubes.
     long_name : str, optional
@@ -181,9 +200,10 @@ class RealizationWriter:
     Notes
     -----
     ``writer(index, field)`` returns a record ``{"index", "files", "sha256",
-    "figures", "checks"}`` (``files`` relative to ``folder``), and ``"derived"``
-    (name -> record) with ``derived`` sinks.  ``finish`` takes the records of all
-    realizations.
+    "figures", "checks"}`` (``files`` relative to ``folder``; with ``cube`` no files
+    and ``"store": {"path", "sha256"}``), and ``"derived"`` (name -> record) with
+    ``derived`` sinks.  Before the workers start, :meth:`open_stores` makes the
+    stores ready.  ``finish`` takes the records of all realizations.
     """
 
     def __init__(self, folder: str | os.PathLike, grid, *, tags: Mapping[str, str] | None = None,
@@ -193,7 +213,8 @@ class RealizationWriter:
                  overwrite: bool = False, derived: Sequence = (), ranking: Callable | None = None,
                  layers: Sequence[tuple[np.ndarray, str, str]] = (), cube: str | None = None,
                  level_geotiffs: bool = True, variable: str = "value", long_name: str | None = None,
-                 tables: Sequence[str] = (), table_realizations: bool = False):
+                 tables: Sequence[str] = (), table_realizations: bool = False,
+                 store: str | os.PathLike | None = None, run_key: str = ""):
         self.folder = Path(folder)
         self.grid = grid
         self.tags = dict(tags or {})
@@ -217,17 +238,25 @@ class RealizationWriter:
         self.long_name = long_name or f"{variable}{u}, conditional realization"
         self.tables = tuple(tables)
         self.table_realizations = table_realizations
+        self.store = None
+        if cube is not None:
+            where = store or self.folder / ("realizations.zarr" if cube == "zarr" else "realizations/store.zarr")
+            self.store = RealizationStore(where, grid, name=variable, long_name=self.long_name, units=units,
+                                          provenance=self.tags, run_key=run_key)
+        self.summary = None  # the summary bands (float32 values) once finish computed them from the store
 
-    @property
-    def cube_files(self) -> bool:
-        """Whether each realization is one cube file (3-D grids with a cube) rather than GeoTIFFs."""
-        return self.cube is not None and self.grid.ndim == 3
+    def stores(self, *, staging: bool = False) -> list[RealizationStore]:
+        """The realization stores of this writer and of its derived writers (change of support);
+        with ``staging`` only those a NetCDF cube is written from (not outputs themselves)."""
+        own = [] if self.store is None or (staging and self.cube != "netcdf") else [self.store]
+        return own + [s for d in self.derived if hasattr(d, "writer") for s in d.writer.stores(staging=staging)]
 
-    def realization_paths(self, index: int) -> list[Path]:
-        """The per-realization file(s) of realization ``index``."""
-        if self.cube_files:
-            return [self.folder / "realizations" / f"r{index:04d}.nc"]
-        return level_paths(self.folder / "realizations" / f"r{index:04d}.tif", self.grid)
+    def open_stores(self, n_realizations: int, kept: Sequence[int] = ()) -> None:
+        """Make every realization store ready for ``n_realizations`` before the workers write,
+        keeping the realizations ``kept`` (verified by a resumed run); see
+        :meth:`geosim.io.cube.RealizationStore.open`."""
+        for store in self.stores():
+            store.open(n_realizations, keep=kept)
 
     def __call__(self, index: int, field: np.ndarray) -> dict:
         scores = np.asarray(field, dtype=np.float64)
@@ -240,24 +269,22 @@ class RealizationWriter:
         # figures and checks see exactly what the raster stores, so a figure recomputed from the
         # file agrees, also at a cut-off on a plateau of equal values
         values = as_stored(values)
-        (self.folder / "realizations").mkdir(parents=True, exist_ok=True)
-        tags = {**self.tags, "realization": str(index)}
-        if self.cube_files:  # one file, not one per level: a tenth of the time
-            from .io.cube import write_realization_cube
-            written = [write_realization_cube(self.realization_paths(index)[0], values, self.grid, index=index,
-                                              name=self.variable, long_name=self.long_name, units=self.units,
-                                              provenance=tags, overwrite=self.overwrite)]
+        if self.store is not None:  # whole chunks of the one store: no file per realization
+            record = {"index": int(index), "files": [], "sha256": [],
+                      "store": {"path": os.path.relpath(self.store.path, self.folder),
+                                "sha256": self.store.write(index, values)}}
         else:
+            (self.folder / "realizations").mkdir(parents=True, exist_ok=True)
             target = self.folder / "realizations" / f"r{index:04d}.tif"  # write_raster adds _z000... in 3-D
             u = f" ({self.units})" if self.units else ""
             bands = np.stack([values] + [a for a, _, _ in self.layers]) if self.layers else values
             written = write_raster(target, bands, self.grid, descriptions=[(f"realization {index}{u}", self.units)]
-                                   + [(d, unit) for _, d, unit in self.layers], tags=tags, overwrite=self.overwrite)
-        record = {"index": int(index),
-                  "files": [str(p.relative_to(self.folder)) for p in written],
-                  "sha256": [file_sha256(p) for p in written],
-                  "figures": None if self.figures is None else self.figures(values),
-                  "checks": None if self.measure is None else self.measure(scores, values)}
+                                   + [(d, unit) for _, d, unit in self.layers],
+                                   tags={**self.tags, "realization": str(index)}, overwrite=self.overwrite)
+            record = {"index": int(index), "files": [str(p.relative_to(self.folder)) for p in written],
+                      "sha256": [file_sha256(p) for p in written]}
+        record.update({"figures": None if self.figures is None else self.figures(values),
+                       "checks": None if self.measure is None else self.measure(scores, values)})
         if self.derived:
             record["derived"] = {d.name: d(index, values) for d in self.derived}
         return record
@@ -276,9 +303,10 @@ class RealizationWriter:
         stack : bool
             Write ``realizations.tif`` (per level for 3-D) with one band per realization.
         keep_realization_files : bool
-            Keep ``realizations/r*.tif`` after assembly (they let a resumed run
-            skip finished realizations and are single-band COGs themselves);
-            False removes them once everything else is written.
+            Keep ``realizations/r*.tif`` (or the NetCDF cube's store) after assembly
+            (they let a resumed run skip finished realizations); False removes them
+            once everything else is written.  A Zarr cube's store is the
+            realization cube and stays.
         plots : bool
             Also draw PNGs (:mod:`geosim.io.plots`): summary maps (per level,
             prefixed ``z000_``... for 3-D), ``decision_spread.png`` and, when
@@ -301,15 +329,15 @@ class RealizationWriter:
                                      file=str(self.folder / f), fix="re-run that realization")
         indices = [r["index"] for r in records]
         out: dict[str, list[str]] = {
-            "realization_files": [str(self.folder / f) for r in records for f, _ in record_files(r)]}
+            "realization_files": [str(self.folder / f) for r in records for f, _ in record_files(r)]
+            + [str(s.path) for s in self.stores(staging=True)]}
         import rasterio
 
         with rasterio.Env(**GDAL_SETTINGS):  # no folder listing on each of the many opens below
-            if self.cube_files:
-                out.update(self._assemble_cubes(records, cutoffs, stack, progress))
+            if self.store is not None:
+                out.update(self._assemble_store(indices, cutoffs, stack, progress))
             else:
                 out.update(self._assemble_geotiffs(records, cutoffs, stack, progress))
-        figures = [r["figures"] for r in records]
         figures = [r["figures"] for r in records]
         if all(f is not None for f in figures):
             rows = decision_rows(figures, indices)
@@ -326,16 +354,11 @@ class RealizationWriter:
         if self.ranking is not None:
             out.update(self.ranking(self, records))
         if not keep_realization_files:
-            files = [Path(f) for f in out.pop("realization_files")]
-            for f in files:
-                f.unlink()
-            for folder in {f.parent for f in files}:
-                with contextlib.suppress(OSError):
-                    folder.rmdir()
+            remove_outputs(out.pop("realization_files"))
         return out
 
     def _assemble_geotiffs(self, records, cutoffs, stack, progress) -> dict[str, list[str]]:
-        """Per-level multiband realizations and summaries from GeoTIFF realizations; the cubes from them."""
+        """Per-level multiband realizations and summaries from GeoTIFF realizations; the tables from them."""
         out: dict[str, list[str]] = {"summary": []}
         if stack:
             out["realizations"] = []
@@ -354,67 +377,67 @@ class RealizationWriter:
             summarize_realizations(files, g2, cutoffs, target, units=self.units, tags=tags,
                                    overwrite=self.overwrite, progress=progress, layers=layers)
             out["summary"].append(str(target))
-        if self.cube is not None or self.tables:
+        if self.tables:
             bands = np.stack([read_realization(out["summary"], self.grid, band=b + 1)
                               for b in range(len(summary_band_names(cutoffs)))])
-            out.update(self._cubes_and_tables(records, cutoffs, bands))
+            paths = [[self.folder / f for f in r["files"]] for r in records]
+            out.update(self._tables(indices, cutoffs, bands, lambda j: read_realization(paths[j], self.grid)))
         return out
 
-    def _assemble_cubes(self, records, cutoffs, stack, progress) -> dict[str, list[str]]:
-        """Summary and realization cubes from one cube per realization, streamed box by box (whole levels
-        of a small grid, windows of one level of a large one); the per-level GeoTIFFs only with
-        ``level_geotiffs``."""
+    def _assemble_store(self, indices, cutoffs, stack, progress) -> dict[str, list[str]]:
+        """Summary and realization cubes from the realization store, streamed box by box (whole levels
+        of a small grid, windows of one level of a large one); the GeoTIFFs only with ``level_geotiffs``.
+
+        The summary bands are kept, as their files store them (float32), in
+        ``self.summary`` for the plots.
+        """
         import functools
 
-        from .io.cube import cube_boxes, read_cube_boxes
-        files = [self.folder / r["files"][0] for r in records]
+        from .io.cube import cube_boxes, summary_dataset, write_cube
+        self.store.finish(indices)
         bands = np.full((len(summary_band_names(cutoffs)),) + self.grid.shape, np.nan)
         boxes = cube_boxes(self.grid)
-        for done, (box, b) in enumerate(summarize_windows(read_cube_boxes(files, boxes), cutoffs), start=1):
+        for done, (box, b) in enumerate(summarize_windows(self.store.boxes(indices, boxes), cutoffs), start=1):
             bands[(slice(None),) + box] = b
             if progress is not None:
                 progress(done, len(boxes), "summary")
+        self.summary = bands = as_stored(bands)
         out: dict[str, list[str]] = {}
         if self.level_geotiffs and stack:
-            for k in range(self.grid.nz):
+            for k in range(self.grid.nz if self.grid.ndim == 3 else 1):
                 target = level_paths(self.folder / "realizations.tif", self.grid)[k]
-                g2 = level_grid(self.grid, k)
-                read = functools.partial(_level_windows, level=k)
-                assemble_realizations(files, g2, target, units=self.units, indices=[r["index"] for r in records],
+                assemble_realizations(indices, level_grid(self.grid, k), target, units=self.units, indices=indices,
                                       tags={**self.tags, **level_tags(self.grid, k)}, overwrite=self.overwrite,
-                                      read=read)
+                                      read=functools.partial(_store_windows, store=self.store, level=k))
                 out.setdefault("realizations", []).append(str(target))
         if self.level_geotiffs:
             out["summary"] = [str(p) for p in write_raster(
                 self.folder / "summary.tif", bands, self.grid, tags=self.tags, overwrite=self.overwrite,
                 descriptions=summary_band_descriptions(cutoffs, self.units))]
-        out.update(self._cubes_and_tables(records, cutoffs, bands))
+        suffix = CUBE_SUFFIX[self.cube]
+        out["summary_cube"] = [str(write_cube(self.folder / f"summary{suffix}", summary_dataset(
+            self.grid, bands, cutoffs, units=self.units, provenance=self.tags), overwrite=self.overwrite))]
+        if self.cube == "netcdf":
+            out["realizations_cube"] = [str(self.store.to_netcdf(self.folder / "realizations.nc",
+                                                                 overwrite=self.overwrite))]
+        else:
+            out["realizations_cube"] = [str(self.store.path)]
+        out.update(self._tables(indices, cutoffs, bands, lambda j: self.store.read(indices[j])))
         return out
 
-    def _cubes_and_tables(self, records, cutoffs, bands) -> dict[str, list[str]]:
-        """The cubes (with ``cube``) and block-model tables (with ``tables``) of the summary ``bands``."""
-        from .io.cube import summary_table_columns, write_block_model, write_ensemble_cubes
-        paths = [[self.folder / f for f in r["files"]] for r in records]
-        indices = [r["index"] for r in records]
-
-        def reader(j: int) -> np.ndarray:
-            return read_realization_file(paths[j], self.grid).astype(np.float32)
-
-        out: dict[str, list[str]] = {}
-        if self.cube is not None:
-            out.update(write_ensemble_cubes(self.folder, self.grid, CUBE_SUFFIX[self.cube], bands=bands,
-                                            cutoffs=cutoffs, reader=reader, indices=indices, name=self.variable,
-                                            long_name=self.long_name, units=self.units, provenance=self.tags,
-                                            overwrite=self.overwrite))
-        if self.tables:
-            table = summary_table_columns(bands, cutoffs, self.units)
-            if self.table_realizations:
-                for j, i in enumerate(indices):
-                    table[f"r{i:04d}"] = (reader(j), f"realization {i}", self.units)
-            out["block_model"] = [str(write_block_model(self.folder / f"block_model{s}", self.grid, table,
-                                                        provenance=self.tags, overwrite=self.overwrite))
-                                  for s in self.tables]
-        return out
+    def _tables(self, indices, cutoffs, bands, reader: Callable[[int], np.ndarray]) -> dict[str, list[str]]:
+        """The block-model tables (with ``tables``) of the summary ``bands``; ``reader(j)`` gives the j-th
+        realization for the realization columns."""
+        if not self.tables:
+            return {}
+        from .io.cube import summary_table_columns, write_block_model
+        table = summary_table_columns(bands, cutoffs, self.units)
+        if self.table_realizations:
+            for j, i in enumerate(indices):
+                table[f"r{i:04d}"] = (np.asarray(reader(j), dtype=np.float64), f"realization {i}", self.units)
+        return {"block_model": [str(write_block_model(self.folder / f"block_model{s}", self.grid, table,
+                                                      provenance=self.tags, overwrite=self.overwrite))
+                                for s in self.tables]}
 
     def validation(self, records: Sequence[Mapping]) -> dict | None:
         """The run report's ``validation`` section from the records' measurements (None without ``measure``)."""
@@ -433,7 +456,8 @@ class RealizationWriter:
         records : sequence of dict
             The realization records, in index order.
         summaries : sequence of path
-            The summary raster of each level, as ``finish`` returns them.
+            The summary raster of each level, as ``finish`` returns them (not read when
+            ``finish`` computed the summary from the realization store).
         cutoffs : sequence of float
             The summaries' exceedance cut-offs.
         levels : sequence of int, optional
@@ -450,10 +474,15 @@ class RealizationWriter:
         """
         out = []
         names = summary_band_names(cutoffs)
-        for k in range(len(summaries)) if levels is None else levels:
+        every = range(self.grid.nz if self.grid.ndim == 3 else 1) if self.summary is not None else range(len(summaries))
+        for k in every if levels is None else levels:
             g2 = level_grid(self.grid, k)
-            with open_checked(summaries[k], g2) as src:
-                summary = {name: src.read(b + 1).astype(np.float64) for b, name in enumerate(names)}
+            if self.summary is not None:
+                level = self.summary if self.grid.ndim == 2 else self.summary[:, k]
+                summary = {name: level[b].astype(np.float64) for b, name in enumerate(names)}
+            else:
+                with open_checked(summaries[k], g2) as src:
+                    summary = {name: src.read(b + 1).astype(np.float64) for b, name in enumerate(names)}
             prefix = "" if self.grid.ndim == 2 else f"z{k:03d}_"
             out += io_plots.plot_summary_maps(summary, g2, self.folder, units=self.units, prefix=prefix, log=log,
                                               overwrite=self.overwrite)
@@ -475,7 +504,10 @@ class RealizationWriter:
         return out
 
 
-def _level_windows(paths, grid, windows, *, level: int):
-    """:func:`geosim.io.cube.read_cube_windows` of one level, in the call form of ``read_windows``."""
-    from .io.cube import read_cube_windows
-    return read_cube_windows(paths, level, windows)
+def _store_windows(indices, grid, windows, *, store: RealizationStore, level: int):
+    """The realizations ``indices`` of one level of ``store`` window by window, in the call form of
+    :func:`geosim.io.geotiff.read_windows` (``(window, stack (len(indices), h, w))``)."""
+    lead = (slice(level, level + 1),) if store.grid.ndim == 3 else ()
+    for w in windows():
+        box = lead + (slice(w.row_off, w.row_off + w.height), slice(w.col_off, w.col_off + w.width))
+        yield w, store.box(indices, box).reshape(len(indices), w.height, w.width)

@@ -27,7 +27,6 @@ where.
 """
 from __future__ import annotations
 
-import contextlib
 import logging
 from collections.abc import Mapping, Sequence
 from pathlib import Path
@@ -175,15 +174,16 @@ def metal_unit(spec: RunSpec) -> str:
 def cube_format(spec: RunSpec, grid) -> str | None:
     """``"netcdf"``, ``"zarr"`` or None: the cube the outputs ask for (``outputs.cube``).
 
-    ``"auto"`` is NetCDF for 3-D grids when xarray, netCDF4 and dask are installed
-    (``geosim[cube]``), and nothing (GeoTIFF per level, with a warning) otherwise.
+    ``"auto"`` is NetCDF for 3-D grids when xarray, netCDF4, zarr (the realization store)
+    and dask are installed (``geosim[cube]``), and nothing (GeoTIFF per level, with a
+    note) otherwise.
     """
     fmt = spec["outputs.cube"]
     if fmt == "none" or (fmt == "auto" and grid.ndim == 2):
         return None
     if fmt == "auto":
         import importlib.util
-        if not all(importlib.util.find_spec(m) for m in ("xarray", "netCDF4", "dask")):
+        if not all(importlib.util.find_spec(m) for m in ("xarray", "netCDF4", "zarr", "dask")):
             log.warning('3-D outputs are written as one GeoTIFF per level; pip install "geosim[cube]" for one '
                         "NetCDF cube per output kind")
             return None
@@ -231,7 +231,21 @@ def realization_writer(spec: RunSpec, data: PreparedData, model, grid, out_dir: 
                              back_transform=back, figures=_figures(spec, grid),
                              measure=RunChecks(grid, model, data.coords, data.scores, weights=data.weights,
                                                data_values=data.values), metal_unit=metal_unit(spec), overwrite=True,
-                             derived=derived, ranking=ranking)
+                             derived=derived, ranking=ranking,
+                             **_cube_options(spec, grid, grid, "conditional realization"))
+
+
+def _cube_options(spec: RunSpec, sim_grid, grid, what: str) -> dict[str, Any]:
+    """The writer's cube, GeoTIFF and table settings for realizations of ``what`` on ``grid`` (the
+    formats follow the simulation grid ``sim_grid``): with a cube the realizations go into a
+    realization store, ``realizations.zarr`` itself (Zarr) or one the NetCDF cube is written from."""
+    from .runstate import resume_key
+    units = spec["data.units"]
+    u = f" ({units})" if units else ""
+    return {"cube": cube_format(spec, sim_grid), "level_geotiffs": level_geotiffs(spec, sim_grid),
+            "variable": variable_name(spec["data.value"]), "long_name": f"{spec['data.value']}{u}, {what}",
+            "tables": block_model_formats(spec, sim_grid),
+            "table_realizations": spec["outputs.block_model_realizations"], "run_key": resume_key(spec)}
 
 
 def _layout(spec: RunSpec, grid, section: str, key: str):
@@ -260,16 +274,11 @@ def _support_writer(spec: RunSpec, name: str, layout, out_dir: Path, tags: Mappi
         f"min_fraction {layout.min_fraction:g}")}
     if exponent is not None:
         own["support_exponent"] = f"{exponent:g}"
-    units = spec["data.units"]
-    u = f" ({units})" if units else ""
     # the cube and raster forms of the point-support outputs (layout.grid is the simulation grid)
-    writer = RealizationWriter(out_dir / name, grid, tags=own, units=units, figures=figures,
-                               metal_unit=metal_unit(spec), overwrite=True, cube=cube_format(spec, layout.grid),
-                               level_geotiffs=level_geotiffs(spec, layout.grid),
-                               variable=variable_name(spec["data.value"]),
-                               tables=block_model_formats(spec, layout.grid),
-                               table_realizations=spec["outputs.block_model_realizations"],
-                               long_name=f"{spec['data.value']}{u}, {what.split(':')[0]} of a conditional realization")
+    writer = RealizationWriter(out_dir / name, grid, tags=own, units=spec["data.units"], figures=figures,
+                               metal_unit=metal_unit(spec), overwrite=True,
+                               **_cube_options(spec, layout.grid, grid,
+                                               f"{what.split(':')[0]} of a conditional realization"))
     return SupportWriter(name, layout, writer, exponent=exponent, weights=weights, key=key)
 
 
@@ -411,22 +420,17 @@ def write_summaries(spec: RunSpec, out_dir: Path, data: PreparedData, model, gri
             simulation.records, files["summary"], out["cutoffs"], levels=[_plot_level(data, grid)],
             log=spec["transform.log"])]
         files["plots"] += [str(p) for p in _support_plots(spec, simulation.writer, simulation.records, out_dir)]
-    files.update(_cubes_and_tables(spec, grid, out_dir, simulation.records, files,
-                                   provenance_tags(spec, data, model)))
     return close_outputs(spec, grid, out_dir, files, report)
 
 
 def close_outputs(spec: RunSpec, grid, out_dir: Path, files: dict[str, list[str]], report: Mapping) -> dict:
-    """Remove what the outputs do not keep (realization files, per-level GeoTIFFs beside a cube)
-    and write the JSON run report; returns ``files`` without the removed ones."""
+    """Remove what the outputs do not keep (realization files and the realization stores NetCDF
+    cubes were written from, per-level GeoTIFFs beside a cube) and write the JSON run report; returns
+    ``files`` without the removed ones."""
+    from .ensemble import remove_outputs
     from .io.report import write_report
     if not spec["outputs.keep_realizations"]:
-        removed = [Path(f) for f in files.pop("realization_files")]  # block and upscaled ones too
-        for f in removed:
-            f.unlink()
-        for folder in {f.parent for f in removed}:
-            with contextlib.suppress(OSError):
-                folder.rmdir()
+        remove_outputs(files.pop("realization_files"))  # block and upscaled ones too, and NetCDF cubes' stores
     if not level_geotiffs(spec, grid):
         for kind in ("summary", "realizations"):
             for f in files.pop(kind, []):
@@ -481,8 +485,9 @@ def _support_plots(spec: RunSpec, writer, records: Sequence[Mapping], out_dir: P
 
 def _cubes_and_tables(spec: RunSpec, grid, out_dir: Path, records: Sequence[Mapping], files: Mapping,
                       tags: Mapping[str, str], layers: Mapping[str, tuple] | None = None) -> dict[str, list[str]]:
-    """The summary and realization cubes and the block-model tables, from the run's GeoTIFFs;
-    ``layers`` (``name -> (array of grid.shape, long name, units)``, e.g. unit codes) are added to each."""
+    """The summary and realization cubes and the block-model tables, from the run's GeoTIFFs, for a
+    writer that writes GeoTIFF realizations with ``layers`` (``name -> (array of grid.shape, long name,
+    units)``, e.g. unit codes), which are added to each."""
     from .io.geotiff import read_realization
     from .summaries import summary_band_names
     fmt, tables = cube_format(spec, grid), block_model_formats(spec, grid)

@@ -316,6 +316,7 @@ def simulate(spec: RunSpec, data: PreparedData | None = None, model=None, grid=N
     n = spec["simulation.realizations"]
     kept = completed_realizations(out_dir, header, n) if resume else {}
     missing = [i for i in range(n) if i not in kept]
+    writer.open_stores(n, kept)  # made here, once, before any worker writes into them
     sink = RecordingSink(writer, out_dir / STATE_DIR, header["resume_key"], header["seed"])
     sim = spec["simulation"]
     # hole ids only when the search limits samples per hole: a plugin engine need not take them

@@ -103,6 +103,8 @@ def _remove_run(out_dir: Path) -> None:
     for rel in _recorded_outputs(out_dir):
         path = (out_dir / rel).resolve()
         if base in path.parents:  # a hand-edited list must not reach outside the folder
+            if path.is_dir():  # a Zarr store
+                shutil.rmtree(path)
             path.unlink(missing_ok=True)
             if path.suffix == ".csv":
                 sidecar_path(path).unlink(missing_ok=True)
@@ -227,8 +229,13 @@ def read_header(out_dir: Path) -> dict | None:
 
 
 def completed_realizations(out_dir: Path, header: Mapping, n_realizations: int) -> dict[int, dict]:
-    """Records of realizations already written by an earlier run of this spec, verified by checksum."""
-    from .ensemble import record_files
+    """Records of realizations already written by an earlier run of this spec, verified by checksum.
+
+    A realization in a realization store (:class:`geosim.io.cube.RealizationStore`) is kept
+    when the store is this run's, marks it complete and holds data with the record's SHA-256.
+    """
+    from .ensemble import record_files, record_stores
+    from .io.cube import stored_realization_ok
     from .io.geotiff import verify_realization
     kept = {}
     for path in sorted((out_dir / STATE_DIR).glob("r[0-9]*.json")):
@@ -241,8 +248,9 @@ def completed_realizations(out_dir: Path, header: Mapping, n_realizations: int) 
                 or rec.get("seed") != header["seed"]):
             continue
         record = rec.get("record", {})
-        files = record_files(record)
-        if record.get("files") and all(verify_realization(out_dir / f, sha) for f, sha in files):
+        files, stores = record_files(record), record_stores(record)
+        if (record.get("files") or stores) and all(verify_realization(out_dir / f, sha) for f, sha in files) \
+                and all(stored_realization_ok(out_dir / p, index, sha, header["resume_key"]) for p, sha in stores):
             kept[index] = record
     return kept
 

@@ -8,7 +8,8 @@ realization, in data units and exactly as stored, to its ``derived`` sinks:
   grid by a realization writer of its own in ``<folder>/<name>/`` with the same
   layout as the point-support outputs: ``realizations/r0007.tif``,
   ``realizations.tif``, ``summary.tif``, ``decision_figures.csv``,
-  ``decision_spread.csv`` and maps;
+  ``decision_spread.csv`` and maps (with a cube: a realization store of its
+  own, ``summary.nc``, ``realizations.nc`` and the block-model table);
 * :class:`PointSampler`: the values at the nodes holding given points; its
   ``finish`` writes ``query_points.csv``;
 * :class:`FigureProbe`: one figure per realization to rank by (the mean of a
@@ -91,6 +92,8 @@ class SupportWriter:
     def __call__(self, index: int, values: np.ndarray) -> dict:
         record = self.writer(index, self.average(index, values))
         record["files"] = [f"{self.name}/{f}" for f in record["files"]]
+        if record.get("store"):  # paths relative to the run's folder, as the point-support record's
+            record["store"] = {**record["store"], "path": f"{self.name}/{record['store']['path']}"}
         return record
 
     def finish(self, records: Sequence[Mapping], *, indices: Sequence[int], cutoffs: Sequence[float] = (),
@@ -208,23 +211,24 @@ class Ranker:
         by_index = {r["index"]: r for r in records}
         folder = writer.folder / "ranked"
         folder.mkdir(exist_ok=True)
-        for old in [*folder.glob("*.tif"), *folder.glob("*.nc")]:  # picks of an earlier finish
-            old.unlink()
+        for old in [*folder.glob("*.tif"), *folder.glob("*.nc"), *folder.glob("*.zarr")]:
+            shutil.rmtree(old) if old.is_dir() else old.unlink()  # picks of an earlier finish
         written = []
-        outputs = [("", writer.grid, lambda r: r["files"])]
-        outputs += [(f"_{d.name}", d.grid, lambda r, n=d.name: r["derived"][n]["files"])
+        outputs = [("", writer, lambda r: r["files"])]
+        outputs += [(f"_{d.name}", d.writer, lambda r, n=d.name: r["derived"][n]["files"])
                     for d in writer.derived if isinstance(d, SupportWriter)]
         for label, i in picked.items():
-            for suffix, grid, files in outputs:
-                # the realization's own files (one per level in 3-D, or one cube), copied whole with their
-                # provenance and caution; ranking.csv and its sidecar say what the pick means
-                sources = files(by_index[i])
-                stem = f"{self.label}_{label}_r{i:04d}{suffix}"
-                kind = Path(sources[0]).suffix
-                targets = level_paths(folder / f"{stem}.tif", grid) if kind == ".tif" else [folder / f"{stem}{kind}"]
-                for source, target in zip(sources, targets):
-                    with atomic_output(target, overwrite=True) as tmp:
-                        shutil.copyfile(writer.folder / source, tmp)
+            for suffix, source, files in outputs:
+                # the realization as its own file(s), with provenance and caution; ranking.csv and its
+                # sidecar say what the pick means
+                stem = folder / f"{self.label}_{label}_r{i:04d}{suffix}"
+                if source.store is not None:
+                    written += _store_pick(source, i, stem)
+                    continue
+                for path, target in zip(files(by_index[i]), level_paths(stem.with_name(stem.name + ".tif"),
+                                                                        source.grid)):
+                    with atomic_output(target, overwrite=True) as tmp:  # one GeoTIFF per level, copied whole
+                        shutil.copyfile(writer.folder / path, tmp)
                     written.append(target)
         return {"ranking": [str(table)], "ranked": [str(p) for p in written]}
 
@@ -236,6 +240,22 @@ class Ranker:
         return {"figure": what, "support": self.source, "unit": self.unit,
                 "percentiles": {f"P{p:g}": float(t) for p, t in zip(self.percentiles, ranking.targets)},
                 "picked": ranking.picked(), "note": ranking_note(what)}
+
+
+def _store_pick(writer, index: int, stem: Path) -> list[Path]:
+    """Realization ``index`` of ``writer``'s realization store as a cube of its own (``stem`` + the cube
+    suffix) and, where the writer writes GeoTIFFs (2-D, or ``level_geotiffs``), as GeoTIFF(s) too."""
+    from .io.cube import CUBE_SUFFIX, write_cube
+    from .io.geotiff import write_raster
+    with writer.store.dataset() as ds:
+        out = [write_cube(stem.with_name(stem.name + CUBE_SUFFIX[writer.cube]), ds.sel(realization=[index]),
+                          overwrite=True)]
+    if writer.level_geotiffs:
+        u = f" ({writer.units})" if writer.units else ""
+        out += write_raster(stem.with_name(stem.name + ".tif"), writer.store.read(index).astype(np.float64),
+                            writer.grid, descriptions=[(f"realization {index}{u}", writer.units)],
+                            tags={**writer.tags, "realization": str(index)}, overwrite=True)
+    return out
 
 
 def read_query_points(path: str | os.PathLike, grid, *, x: str, y: str, z: str | None = None,

@@ -457,6 +457,7 @@ def simulate_units(spec: RunSpec, units: UnitsModel, out_dir: str | os.PathLike,
     n = spec["simulation.realizations"]
     kept = completed_realizations(out_dir, header, n) if resume else {}
     missing = [i for i in range(n) if i not in kept]
+    writer.open_stores(n, kept)  # the change-of-support sinks' realization stores
     sink = RecordingSink(writer, out_dir / STATE_DIR, header["resume_key"], header["seed"])
     sim = spec["simulation"]
     records = dict(kept)

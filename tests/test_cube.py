@@ -3,6 +3,7 @@
 GDAL (through rasterio's netCDF driver) is the independent reader: it must find the CRS
 and the georeferencing of the GeoTIFFs in the CF grid mapping, and the same values.
 """
+import json
 from pathlib import Path
 
 import numpy as np
@@ -12,17 +13,24 @@ import geosim
 import geosim.outputs
 import geosim.pipeline
 from geosim.io.csvw import read_csv_metadata
+from geosim.io.cube import open_cube
 from geosim.config.runspec import load_spec
 
 xr = pytest.importorskip("xarray")
 pytest.importorskip("netCDF4")
 pd = pytest.importorskip("pandas")
 rasterio = pytest.importorskip("rasterio")
+zarr = pytest.importorskip("zarr")
 
 ORE = Path(__file__).resolve().parent.parent / "sample_fields" / "ore_prospect" / "run.toml"
 SMALL = {"grid.cell": [40.0, 40.0, 20.0], "simulation.realizations": 3, "simulation.workers": 1,
          "outputs.plots": False, "outputs.level_geotiffs": True, "outputs.block_model": ["csv", "parquet"],
          "outputs.block_model_realizations": True}
+
+
+def _point_support_tifs(out: Path) -> list[Path]:
+    """GeoTIFFs of a run at point support (the ore sample's block-support outputs are their own)."""
+    return [p for p in out.rglob("*.tif") if "blocks" not in p.relative_to(out).as_posix()]
 
 
 @pytest.fixture(scope="module")
@@ -123,12 +131,55 @@ def test_default_3d_run_writes_cubes_not_level_files(tmp_path):
                                      "outputs.block_model_realizations": False, "simulation.realizations": 2,
                                      "outputs.estimate": False, "outputs.cross_validation": False})
     result = geosim.pipeline.run(spec, tmp_path / "run")
-    top = sorted(p.name for p in (tmp_path / "run").iterdir())
-    assert not [n for n in top if n.endswith(".tif")]
+    out = tmp_path / "run"
+    top = sorted(p.name for p in out.iterdir())
+    # no GeoTIFF and no file per realization at point support (the ore sample's block-support outputs
+    # are their own): the workers wrote one store, the run one cube
+    assert not _point_support_tifs(out)
+    assert sorted(p.name for p in (out / "realizations").iterdir()) == ["store.zarr"]
+    picks = sorted(p for p in (out / "ranked").iterdir() if "blocks" not in p.name)  # one cube per pick
+    assert [p.name.split("_r")[0] for p in picks] == ["metal_0.5_P10", "metal_0.5_P50", "metal_0.5_P90"]
+    var = geosim.outputs.variable_name(spec["data.value"])
+    with result.to_xarray("realizations") as cube:
+        for p in picks:
+            with open_cube(p) as one:
+                i = int(p.stem.rsplit("_r", 1)[1])
+                assert one.realization.values.tolist() == [i] and one.attrs["comment"] == geosim.CAUTION
+                np.testing.assert_array_equal(one[var].values[0], cube[var].values[i])
     assert {"summary.nc", "realizations.nc", "block_model.csv", "block_model.csv-metadata.json"} <= set(top)
+    assert all(r["files"] == [] and r["store"]["path"] == "realizations/store.zarr" for r in
+               (json.loads(f.read_text())["record"] for f in (out / "run-state").glob("r0*.json")))
     ds = result.to_xarray("realizations")
     assert ds.realization.values.tolist() == [0, 1]
+    with open_cube(out / "realizations" / "store.zarr") as store:  # kept for a rerun (keep_realizations)
+        np.testing.assert_array_equal(store[var].values, ds[var].values)
     ds.close()
+
+
+def test_3d_run_resumes_and_extends_from_its_store(tmp_path):
+    quick = {**SMALL, "outputs.level_geotiffs": False, "outputs.block_model": [], "outputs.estimate": False,
+             "outputs.cross_validation": False, "simulation.realizations": 2}
+    out = tmp_path / "run"
+    geosim.pipeline.run(load_spec(ORE, overrides=quick), out)
+    three = load_spec(ORE, overrides={**quick, "simulation.realizations": 3})
+    extended = geosim.pipeline.run(three, out)
+    assert extended.kept == [0, 1] and extended.computed == [2]
+    # an interrupted realization: its data half there, its marker not set; only it is computed again
+    store = zarr.open_group(str(out / "realizations" / "store.zarr"), mode="r+")
+    store["realization_complete"][1] = 0
+    resumed = geosim.pipeline.run(three, out)
+    assert resumed.kept == [0, 2] and resumed.computed == [1]
+    fresh = geosim.pipeline.run(three, tmp_path / "fresh")
+    var = geosim.outputs.variable_name(three["data.value"])
+    for kind, name in (("realizations", var), ("summary", "mean"), ("summary", "prob_above")):
+        with resumed.to_xarray(kind) as got, fresh.to_xarray(kind) as want:
+            np.testing.assert_array_equal(got[name].values, want[name].values)
+    # without keep_realizations the store goes once the cube holds the realizations
+    lean = geosim.pipeline.run(load_spec(ORE, overrides={**quick, "outputs.keep_realizations": False}),
+                               tmp_path / "lean")
+    assert not (tmp_path / "lean" / "realizations").exists()
+    with lean.to_xarray("realizations") as ds:
+        assert ds.realization.values.tolist() == [0, 1]
 
 
 def test_two_dimensional_results_convert_from_geotiffs(tmp_path):
@@ -160,6 +211,10 @@ def test_zarr_cube_from_a_dask_cluster_equals_the_serial_netcdf(ore_run, tmp_pat
                                            "outputs.level_geotiffs": False, "outputs.block_model": []})
         zarr_run = geosim.pipeline.run(remote, tmp_path / "dask")
     assert Path(zarr_run.files["realizations_cube"][0]).name == "realizations.zarr"
+    # the workers wrote their realizations into the one store: no per-realization file anywhere
+    assert not (tmp_path / "dask" / "realizations").exists() and not _point_support_tifs(tmp_path / "dask")
+    assert all(r["store"]["path"] == "realizations.zarr" for r in
+               (json.loads(f.read_text())["record"] for f in (tmp_path / "dask" / "run-state").glob("r0*.json")))
     var = geosim.outputs.variable_name(spec["data.value"])
     for kind, name in (("realizations", var), ("summary", "mean"), ("summary", "prob_above")):
         got, want = zarr_run.to_xarray(kind), result.to_xarray(kind)

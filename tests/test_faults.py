@@ -364,7 +364,8 @@ def test_overwrite_with_fewer_levels_leaves_no_level_files(tmp_path):
     out = tmp_path / "run"
     ore = SAMPLES / "ore_prospect" / "run.toml"
     small = {"grid.cell": [60.0, 60.0, 40.0], "simulation.realizations": 2, "simulation.workers": 1,
-             "outputs.plots": False, "outputs.cross_validation": False, "outputs.estimate": False}
+             "outputs.plots": False, "outputs.cross_validation": False, "outputs.estimate": False,
+             "outputs.level_geotiffs": True}  # level files beside the cubes, to see which are left
     geosim.pipeline.run(geosim.config.runspec.load_spec(ore, {**small, "grid.z_range": [100.0, 340.0]}), out)
     six = _files(out)
     geosim.pipeline.run(geosim.config.runspec.load_spec(ore, {**small, "grid.z_range": [180.0, 340.0]}), out,

@@ -74,19 +74,25 @@ def _writer(tmp_path, grid, *, level_geotiffs=False, ranking=None):
     return RealizationWriter(tmp_path, grid, units="g/t", derived=sinks, ranking=ranking), layout
 
 
+def _written(writer, fields):
+    """The records of ``fields`` written through ``writer``, its stores opened first as a run does."""
+    writer.open_stores(len(fields))
+    return [writer(i, f) for i, f in enumerate(fields)]
+
+
 def test_block_cubes_hold_the_block_values_and_their_summary(tmp_path):
     grid = _grid()
     fields = _fields(grid, 5)
     writer, layout = _writer(tmp_path, grid)
-    records = [writer(i, f) for i, f in enumerate(fields)]
+    records = _written(writer, fields)
     files = writer.finish(records, cutoffs=CUTOFFS)
     stored = [np.asarray(f, dtype=np.float32).astype(float) for f in fields]  # as the point files hold them
     for name, reduce in (("blocks", np.mean), ("upscaled", scipy.stats.gmean),
                          ("upscaled_vertical", scipy.stats.hmean)):
         folder = tmp_path / name
-        # one cube per realization, none of the per-level GeoTIFFs
-        assert sorted(p.name for p in (folder / "realizations").iterdir()) == [f"r{i:04d}.nc" for i in range(5)]
-        assert not list(folder.rglob("*.tif"))
+        # one store for all realizations (no file per realization), none of the per-level GeoTIFFs
+        assert sorted(p.name for p in (folder / "realizations").iterdir()) == ["store.zarr"]
+        assert not list(folder.rglob("*.tif")) and not list(folder.rglob("r0*"))
         expected = np.stack([_blocks_by_reshape(f, reduce) for f in stored])
         with xr.open_dataset(folder / "realizations.nc") as ds:
             np.testing.assert_allclose(ds["au"].values, expected, rtol=2e-6)
@@ -111,7 +117,7 @@ def test_block_cubes_hold_the_block_values_and_their_summary(tmp_path):
 def test_block_cube_lies_where_gdal_places_the_block_grid(tmp_path):
     grid = _grid()
     writer, layout = _writer(tmp_path, grid)
-    records = [writer(i, f) for i, f in enumerate(_fields(grid, 2))]
+    records = _written(writer, _fields(grid, 2))
     writer.finish(records, cutoffs=CUTOFFS)
     with rasterio.open(f"netcdf:{tmp_path / 'blocks' / 'summary.nc'}:mean") as src:
         assert src.crs.to_epsg() == 32750
@@ -122,7 +128,7 @@ def test_block_cube_lies_where_gdal_places_the_block_grid(tmp_path):
 def test_level_geotiffs_on_request_equal_the_cube(tmp_path):
     grid = _grid()
     writer, layout = _writer(tmp_path, grid, level_geotiffs=True)
-    records = [writer(i, f) for i, f in enumerate(_fields(grid, 3))]
+    records = _written(writer, _fields(grid, 3))
     files = writer.finish(records, cutoffs=CUTOFFS)
     assert [Path(p).name for p in files["blocks_summary"]] == ["summary_z000.tif", "summary_z001.tif"]
     for k in range(2):
@@ -136,19 +142,22 @@ def test_level_geotiffs_on_request_equal_the_cube(tmp_path):
             np.testing.assert_array_equal(src.read(), ds["au"].values[:, k])
 
 
-def test_ranked_block_realizations_are_copies_of_their_cubes(tmp_path):
+def test_ranked_block_realizations_are_cubes_of_their_own(tmp_path):
     grid = _grid()
     ranking = Ranker("fraction_above", 1.0, "blocks", (10, 50, 90))
     writer, _ = _writer(tmp_path, grid, ranking=ranking)
-    records = [writer(i, f) for i, f in enumerate(_fields(grid, 5))]
+    records = _written(writer, _fields(grid, 5))
     files = writer.finish(records, cutoffs=CUTOFFS)
     picked = ranking.summary(records)["picked"]
     blocks = [p for p in files["ranked"] if p.endswith("_blocks.nc")]
     assert sorted(Path(p).name for p in blocks) == sorted(
         f"fraction_above_1_{label}_r{i:04d}_blocks.nc" for label, i in picked.items())
-    for label, i in picked.items():
-        copy = tmp_path / "ranked" / f"fraction_above_1_{label}_r{i:04d}_blocks.nc"
-        assert copy.read_bytes() == (tmp_path / "blocks" / "realizations" / f"r{i:04d}.nc").read_bytes()
+    with xr.open_dataset(tmp_path / "blocks" / "realizations.nc") as every:
+        for label, i in picked.items():
+            with xr.open_dataset(tmp_path / "ranked" / f"fraction_above_1_{label}_r{i:04d}_blocks.nc") as pick:
+                assert pick["realization"].values.tolist() == [i]
+                np.testing.assert_array_equal(pick["au"].values[0], every["au"].values[i])
+                assert pick.attrs["comment"] == CAUTION and pick["au"].attrs["units"] == "g/t"
 
 
 def test_ore_run_writes_block_cubes_and_no_level_geotiffs(tmp_path):
@@ -168,18 +177,18 @@ def test_ore_run_writes_block_cubes_and_no_level_geotiffs(tmp_path):
         assert summary.attrs["geosim_support_grid"].startswith("origin ")
         assert "block average" in summary.attrs["geosim_support"]
         assert summary.attrs["geosim_seed"] == "7340"
-    # each block value is the mean of the point realization's nodes inside it (read from its level GeoTIFFs,
-    # nodes placed in blocks by the cube's own coordinates)
-    with xr.open_dataset(blocks / "realizations.nc") as real:
+    # each block value is the mean of the point realization's nodes inside it (read from the point cube,
+    # nodes placed in blocks by the cubes' own coordinates); no file per realization at either support
+    assert not [p for p in tmp_path.rglob("r0*") if p.parent.name != "run-state"]
+    with xr.open_dataset(blocks / "realizations.nc") as real, xr.open_dataset(tmp_path / "realizations.nc") as pt:
         cube, bx, by = real["cu_pct"].values, 80.0, 80.0
         x0, y1 = float(real.x.values[0]) - bx / 2, float(real.y.values[0]) + by / 2
+        points, px, py = pt["cu_pct"].values.astype(float), pt.x.values, pt.y.values
     for i in range(3):
         for k in range(cube.shape[1]):
-            with rasterio.open(tmp_path / "realizations" / f"r{i:04d}_z{k:03d}.tif") as src:
-                nodes, t = src.read(1).astype(float), src.transform
-            rows, cols = np.indices(nodes.shape)
-            col = np.floor((t.c + (cols + 0.5) * t.a - x0) / bx).astype(int)
-            row = np.floor((y1 - (t.f + (rows + 0.5) * t.e)) / by).astype(int)
+            nodes = points[i, k]  # blocks of one level (blocks.cells = [2, 2, 1])
+            col = np.broadcast_to(np.floor((px - x0) / bx).astype(int)[None, :], points.shape[-2:])
+            row = np.broadcast_to(np.floor((y1 - py) / by).astype(int)[:, None], points.shape[-2:])
             for r, c in zip(*np.nonzero(np.isfinite(cube[i, k]))):
                 inside = nodes[(row == r) & (col == c)]
                 assert cube[i, k, r, c] == pytest.approx(np.nanmean(inside), rel=2e-6)
@@ -201,7 +210,7 @@ def test_2d_upscaled_cubes_beside_the_geotiffs_when_a_cube_is_asked(tmp_path):
     writer = RealizationWriter(tmp_path, grid, derived=[SupportWriter("upscaled", layout, up, exponent=0.0)])
     rng = np.random.default_rng(5)
     fields = [10.0 ** rng.normal(-4.0, 0.5, grid.shape) for _ in range(4)]
-    files = writer.finish([writer(i, f) for i, f in enumerate(fields)], cutoffs=[1e-4])
+    files = writer.finish(_written(writer, fields), cutoffs=[1e-4])
     stored = [np.asarray(f, dtype=np.float32).astype(float) for f in fields]
     expected = np.stack([scipy.stats.gmean(f.reshape(2, 2, 3, 2), axis=(1, 3)) for f in stored])
     with rasterio.open(tmp_path / "upscaled" / "realizations.tif") as src, \

@@ -363,7 +363,9 @@ SCHEMA: dict[str, dict[str, Key]] = {
         "metal_factor": Key(_number(0.0, lo_open=True),
                             help="metal per tonne per grade unit (default: 0.01 when data.units has %, else 1)"),
         "thickness": Key(_number(0.0, lo_open=True), help="metres, for volumes of a 2-D grid"),
-        "keep_realizations": Key(_bool, default=True, help="keep one GeoTIFF per realization"),
+        "keep_realizations": Key(_bool, default=True, help="keep the realizations a rerun can reuse: one GeoTIFF "
+                                                           "per realization, or the store a NetCDF cube was "
+                                                           "written from (realizations/store.zarr)"),
         "plots": Key(_bool, default=True),
         "cross_validation": Key(_bool, default=True),
         "estimate": Key(_bool, default=True, help="kriging estimate and variance maps"),
@@ -371,7 +373,8 @@ SCHEMA: dict[str, dict[str, Key]] = {
                     help='one NetCDF (or Zarr) cube per output kind; "auto": NetCDF for 3-D grids when '
                          'geosim[cube] is installed'),
         "level_geotiffs": Key(_bool, default=False,
-                              help="3-D grids with a cube: also one GeoTIFF per level"),
+                              help="3-D grids with a cube: also the summary, estimate and multiband realizations "
+                                   "as one GeoTIFF per level (never one file per realization)"),
         "block_model": Key(_formats, default=["auto"],
                            help='block-model table formats: "csv", "parquet"; "auto": CSV for 3-D grids'),
         "block_model_realizations": Key(_bool, default=False,

@@ -25,7 +25,7 @@ Install with ``pip install "geosim[cube]"`` (NetCDF) or ``"geosim[zarr]"``.
 from __future__ import annotations
 
 import os
-from collections.abc import Callable, Mapping, Sequence
+from collections.abc import Callable, Collection, Iterator, Mapping, Sequence
 from pathlib import Path
 from typing import Any
 
@@ -36,10 +36,9 @@ from ..errors import InputError
 from .atomic import atomic_output
 
 __all__ = ["CF_VERSION", "CUBE_SUFFIX", "grid_coords", "grid_dataset", "summary_dataset", "realizations_dataset",
-           "write_cube", "write_realization_cube", "cube_boxes", "read_cube_boxes", "read_cube_windows",
-           "read_cube_values", "write_ensemble_cubes",
-           "write_netcdf", "write_zarr", "open_cube", "block_model_table", "write_block_model",
-           "summary_table_columns"]
+           "write_cube", "cube_boxes", "write_ensemble_cubes", "write_netcdf", "write_zarr", "open_cube",
+           "RealizationStore", "realization_sha256", "stored_realization_ok", "block_model_table",
+           "write_block_model", "summary_table_columns"]
 
 CF_VERSION = "CF-1.8"
 GRID_MAPPING = "spatial_ref"
@@ -209,11 +208,21 @@ def write_zarr(path: str | os.PathLike, ds, *, overwrite: bool = False, region: 
 
 
 def open_cube(path: str | os.PathLike):
-    """Open a cube geosim wrote (NetCDF or Zarr) with xarray, lazily."""
+    """Open a cube geosim wrote (NetCDF or Zarr) with xarray, lazily.
+
+    A realization store still being filled (or left by an interrupted run) is
+    refused: its ``geosim_complete`` attribute is not ``"yes"``.
+    """
     xr = _need("xarray", "cube")
     path = Path(path)
     if path.is_dir():
-        return xr.open_zarr(path, consolidated=False)
+        ds = xr.open_zarr(path, consolidated=False)
+        if ds.attrs.get(COMPLETE_ATTR, "yes") != "yes":
+            ds.close()
+            raise InputError("the Zarr store is not finished: a run is still writing it, or was interrupted",
+                             file=str(path), fix="wait for the run to end, or re-run it with the same spec "
+                                                 "and folder to complete the store")
+        return ds
     return xr.open_dataset(path, engine="netcdf4")
 
 
@@ -276,42 +285,248 @@ def realizations_dataset(grid, reader: Callable[[int], np.ndarray], indices: Seq
                         title="geosim conditional realizations", provenance=provenance)
 
 
+# -- the realization store: one chunked Zarr store that workers fill in parallel ----------------
+
+#: Side of a store chunk in cells: one level of one realization per chunk at most this wide, so no
+#: two writers ever share a chunk.
+STORE_CHUNK = 256
+#: Root attribute of a realization store: "no" while realizations are written, "yes" once finished.
+COMPLETE_ATTR = "geosim_complete"
+#: Root attribute naming the run (its resume key) whose realizations a store holds.
+RUN_KEY_ATTR = "geosim_run_key"
+#: Root attribute naming the store's data variable.
+VARIABLE_ATTR = "geosim_variable"
+#: Per-realization completion flag, set after the realization's chunks.
+MARKER = "realization_complete"
+
+
+def realization_sha256(values: np.ndarray) -> str:
+    """SHA-256 of one realization as a store holds it (float32, C order, every NaN the same NaN)."""
+    import hashlib
+    a = np.ascontiguousarray(values, dtype=np.float32)
+    a = np.where(np.isnan(a), np.float32(np.nan), a)
+    return hashlib.sha256(a.tobytes()).hexdigest()
+
+
+def _open_group(path: str | os.PathLike, mode: str = "r"):
+    zarr = _need("zarr", "zarr")
+    return zarr.open_group(str(path), mode=mode)
+
+
+def stored_realization_ok(path: str | os.PathLike, index: int, sha256: str, run_key: str) -> bool:
+    """Whether the store at ``path`` belongs to the run ``run_key``, marks realization ``index``
+    complete and holds data with ``sha256`` for it (what a resumed run checks before keeping it)."""
+    try:
+        group = _open_group(path)
+        if group.attrs.get(RUN_KEY_ATTR) != run_key:
+            return False
+        marker = group[MARKER]
+        if not 0 <= index < marker.shape[0] or not marker[int(index)]:
+            return False
+        return realization_sha256(np.asarray(group[group.attrs[VARIABLE_ATTR]][int(index)])) == sha256
+    except Exception:  # missing, unreadable, another layout: nothing to keep
+        return False
+
+
+class RealizationStore:
+    """The realizations of a run in one chunked Zarr store, written in parallel by the workers.
+
+    The layout is the realization cube's (:func:`grid_dataset`: dimensions
+    ``realization, (z,) y, x``, CF coordinates, the ``spatial_ref`` grid mapping,
+    caution and provenance as global attributes), with chunks of one level of one
+    realization at most :data:`STORE_CHUNK` cells square.  Each realization is
+    written by one worker as whole chunks, so no two writers share a chunk and no
+    lock is needed; after its chunks, the worker sets its element of the
+    ``realization_complete`` variable (one chunk per realization: 0 until then, 1
+    after).  A resumed run keeps the realizations marked complete whose data still
+    have the SHA-256 their record gives (:func:`stored_realization_ok`).  The root
+    attribute ``geosim_complete`` is ``"no"`` while the store is being filled and
+    ``"yes"`` once :meth:`finish` found every realization complete: :func:`open_cube`
+    refuses a store that is not finished.
+
+    The object holds only paths and small metadata, so it travels to workers
+    (process pool or Dask) with the sink; the store must lie on a file system
+    every worker sees.
+
+    Parameters
+    ----------
+    path : path
+        The store (a folder, ``.zarr``).
+    grid : geosim.Grid
+    name, long_name, units : str
+        The data variable's name, ``long_name`` and ``units``.
+    provenance : mapping, optional
+        Provenance strings (global attributes ``geosim_<key>``).
+    run_key : str
+        Identifies the run whose realizations the store holds (the resume key): a
+        store of another run is replaced, never continued.
+    chunk : int
+        Side of a chunk in cells (:data:`STORE_CHUNK`).
+
+    Examples
+    --------
+    >>> import pathlib, tempfile, numpy as np, geosim
+    >>> from geosim.io.cube import RealizationStore, open_cube
+    >>> g = geosim.Grid(0.0, 0.0, (10.0, 10.0), (3, 4))
+    >>> store = RealizationStore(pathlib.Path(tempfile.mkdtemp()) / "r.zarr", g, name="k", long_name="k")
+    >>> store.open(2)
+    >>> sha = [store.write(i, np.full(g.shape, float(i))) for i in range(2)]
+    >>> store.finish([0, 1])
+    >>> ds = open_cube(store.path)
+    >>> ds["k"].dims, ds["k"].values[:, 0, 0].tolist(), ds.attrs["geosim_complete"]
+    (('realization', 'y', 'x'), [0.0, 1.0], 'yes')
+    """
+
+    def __init__(self, path: str | os.PathLike, grid, *, name: str, long_name: str, units: str = "",
+                 provenance: Mapping[str, str] | None = None, run_key: str = "", chunk: int = STORE_CHUNK):
+        self.path = Path(path)
+        self.chunk = int(chunk)
+        self.grid = grid
+        self.name = name
+        self.long_name = long_name
+        self.units = units
+        self.provenance = dict(provenance or {})
+        self.run_key = run_key
+
+    def __repr__(self) -> str:
+        return f"RealizationStore({str(self.path)!r}, {self.name!r})"
+
+    @property
+    def chunks(self) -> tuple[int, ...]:
+        """Chunk shape: one realization, one level, at most ``chunk`` cells square."""
+        return (1,) + (1,) * (self.grid.ndim - 2) + tuple(min(self.chunk, n) for n in self.grid.shape[-2:])
+
+    def matches(self) -> bool:
+        """Whether the store on disk is this run's, on this grid."""
+        try:
+            group = _open_group(self.path)
+            return (group.attrs.get(RUN_KEY_ATTR) == self.run_key
+                    and tuple(group[self.name].shape[1:]) == tuple(self.grid.shape))
+        except Exception:  # missing, unreadable, another layout: not this run's
+            return False
+
+    def open(self, n_realizations: int, *, keep: Collection[int] = ()) -> None:
+        """Make the store ready for ``n_realizations`` (called once, by the main process, before the workers).
+
+        The realizations in ``keep`` (verified by a resumed run) stay as they are in a
+        store of this run, whose realization dimension is resized to ``n_realizations``
+        (an extended run); every other realization is marked not complete, so one
+        rewritten by this run counts only once its chunks are all in again.  Without
+        ``keep``, or when the store is another run's, it is created empty.
+        """
+        import shutil
+        n = int(n_realizations)
+        keep = {int(i) for i in keep}
+        if keep and self.matches():
+            group = _open_group(self.path, "r+")
+            if group[self.name].shape[0] != n:
+                for var in (self.name, MARKER, "realization"):
+                    group[var].resize((n,) + tuple(group[var].shape[1:]))
+                group["realization"][:] = np.arange(n, dtype=np.int32)
+            flags = np.asarray(group[MARKER][:])
+            redo = np.array([i not in keep for i in range(n)])
+            if (flags[redo] != 0).any():
+                group[MARKER][:] = np.where(redo, 0, flags).astype(np.uint8)
+            group.attrs[COMPLETE_ATTR] = "no"
+            return
+        shutil.rmtree(self.path, ignore_errors=True)
+        self.path.parent.mkdir(parents=True, exist_ok=True)
+        da = _need("dask.array", "zarr")
+        data = da.zeros((n,) + tuple(self.grid.shape), chunks=self.chunks, dtype=np.float32)
+        ds = grid_dataset(self.grid, {self.name: (data, self.long_name, self.units)}, realizations=range(n),
+                          title="geosim conditional realizations", provenance=self.provenance)
+        ds[MARKER] = (("realization",), da.zeros(n, chunks=1, dtype=np.uint8),
+                      {"long_name": "realization written completely (its chunks are all in the store)",
+                       "flag_values": np.array([0, 1], dtype=np.uint8), "flag_meanings": "no yes"})
+        ds.attrs.update({COMPLETE_ATTR: "no", RUN_KEY_ATTR: self.run_key, VARIABLE_ATTR: self.name})
+        encoding = _encoding(ds.drop_vars(MARKER), False)
+        encoding[self.name]["chunks"] = self.chunks
+        encoding[MARKER] = {"chunks": (1,), "_FillValue": None}
+        with _local_dask():
+            ds.to_zarr(self.path, mode="w", compute=False, encoding=encoding, consolidated=False)
+
+    def write(self, index: int, values: np.ndarray) -> str:
+        """Write realization ``index`` (its whole chunks), then mark it complete; returns its SHA-256."""
+        a = np.asarray(values, dtype=np.float32)
+        if a.shape != tuple(self.grid.shape):
+            raise ValueError(f"realization {index} has shape {a.shape}, the store's grid {self.grid.shape}")
+        # one NaN for every empty node: a NaN's sign and payload can vary between machines and code
+        # paths, and the cubes made from the store must not
+        a = np.where(np.isnan(a), np.float32(np.nan), a)
+        if not self.path.is_dir():  # a worker never creates the store: it would race the others
+            raise ValueError(f"the realization store {self.path} is not open: call open(n_realizations) (or the "
+                             "writer's open_stores) before the realizations are written")
+        group = _open_group(self.path, "r+")
+        group[self.name][int(index)] = a
+        group[MARKER][int(index)] = 1  # after the data: a realization marked complete is all there
+        return realization_sha256(a)
+
+    def read(self, index: int) -> np.ndarray:
+        """Realization ``index`` as stored (float32, ``grid.shape``)."""
+        return np.asarray(_open_group(self.path)[self.name][int(index)])
+
+    def complete(self) -> np.ndarray:
+        """Per realization: whether it was written completely (empty when there is no store)."""
+        try:
+            return np.asarray(_open_group(self.path)[MARKER][:]).astype(bool)
+        except Exception:  # no store (yet), or not one of ours
+            return np.zeros(0, dtype=bool)
+
+    def box(self, indices: Sequence[int], box: tuple[slice, ...], *, array=None) -> np.ndarray:
+        """The values of every realization of ``indices`` in ``box`` (``(levels,) rows, cols`` slices, as
+        :func:`cube_boxes` gives them): ``(len(indices), *box shape)`` float32."""
+        array = _open_group(self.path)[self.name] if array is None else array
+        indices = [int(i) for i in indices]
+        if indices and indices == list(range(indices[0], indices[0] + len(indices))):
+            return np.asarray(array[(slice(indices[0], indices[0] + len(indices)),) + tuple(box)])
+        return np.stack([np.asarray(array[(i,) + tuple(box)]) for i in indices])
+
+    def boxes(self, indices: Sequence[int], boxes: Sequence[tuple[slice, ...]]) -> Iterator:
+        """:meth:`box` of each of ``boxes`` in turn: ``(box, stack)``; memory is one box of every realization."""
+        array = _open_group(self.path)[self.name]
+        for b in boxes:
+            yield b, self.box(indices, b, array=array)
+
+    def finish(self, indices: Sequence[int]) -> None:
+        """Check every realization of ``indices`` is complete and mark the store finished."""
+        done = self.complete()
+        missing = [i for i in indices if not (0 <= i < done.size and done[i])]
+        if missing:
+            raise InputError(f"{len(missing)} realization(s) are not complete in the store: "
+                             + ", ".join(map(str, missing[:10])) + (" ..." if len(missing) > 10 else ""),
+                             file=str(self.path), fix="re-run the same command to compute them")
+        _open_group(self.path, "r+").attrs[COMPLETE_ATTR] = "yes"
+
+    def dataset(self):
+        """The store's realizations as a lazy :class:`xarray.Dataset` in the cube layout (no marker, no run key).
+
+        The dask array over the store has a fixed name, so a cube written from it is
+        written in the same order, and is the same file byte for byte, whichever
+        folder or machine the store is in.
+        """
+        da = _need("dask.array", "zarr")
+        array = _open_group(self.path)[self.name]
+        data = da.from_array(array, chunks=self.chunks, name=f"geosim-store-{self.name}", lock=False)
+        return grid_dataset(self.grid, {self.name: (data, self.long_name, self.units)},
+                            realizations=range(array.shape[0]), title="geosim conditional realizations",
+                            provenance=self.provenance)
+
+    def to_netcdf(self, path: str | os.PathLike, *, overwrite: bool = False) -> Path:
+        """Write the finished store as the NetCDF realization cube (chunk by chunk), atomically."""
+        with self.dataset() as ds:
+            return write_netcdf(path, ds, overwrite=overwrite)
+
+    def remove(self) -> None:
+        """Delete the store."""
+        import shutil
+        shutil.rmtree(self.path, ignore_errors=True)
+
+
 def write_cube(path: str | os.PathLike, ds, *, overwrite: bool = False) -> Path:
     """Write ``ds`` as NetCDF (``.nc``) or Zarr (``.zarr``), by the path's suffix."""
     if Path(path).suffix == ".zarr":
         return write_zarr(path, ds, overwrite=overwrite)
     return write_netcdf(path, ds, overwrite=overwrite)
-
-
-# -- one realization per file -------------------------------------------------------------------
-
-def write_realization_cube(path: str | os.PathLike, values: np.ndarray, grid, *, index: int, name: str,
-                           long_name: str, units: str = "", provenance: Mapping[str, str] | None = None,
-                           overwrite: bool = False) -> Path:
-    """One realization of a 3-D grid as one NetCDF cube (the layout of :func:`grid_dataset`).
-
-    What a worker writes per realization instead of one GeoTIFF per level: one
-    file, one realization on the ``realization`` dimension, read back level by
-    level (:func:`read_cube_windows`) to assemble the run's cubes.
-    """
-    data = np.asarray(values, dtype=np.float32)[None]
-    ds = grid_dataset(grid, {name: (data, long_name, units)}, realizations=[int(index)],
-                      title="geosim conditional realization", provenance=provenance)
-    return write_netcdf(path, ds, overwrite=overwrite)
-
-
-def _first_variable(ds):
-    """The data variable of a per-realization cube (the one that is not the grid mapping)."""
-    return next(v for n, v in ds.variables.items() if v.dimensions[:1] == ("realization",))
-
-
-def read_cube_values(path: str | os.PathLike) -> np.ndarray:
-    """The values of a cube of :func:`write_realization_cube` as float64 of the grid's shape (NaN outside)."""
-    netCDF4 = _need("netCDF4", "cube")
-    with netCDF4.Dataset(path) as ds:
-        var = _first_variable(ds)
-        var.set_auto_mask(False)
-        return np.asarray(var[0], dtype=np.float64)
 
 
 def cube_boxes(grid, nodes: int = 256 * 256) -> list[tuple[slice, ...]]:
@@ -333,35 +548,6 @@ def cube_boxes(grid, nodes: int = 256 * 256) -> list[tuple[slice, ...]]:
     if grid.ndim == 2:
         return planes
     return [(slice(k, min(k + depth, grid.nz)),) + plane for k in range(0, grid.nz, depth) for plane in planes]
-
-
-def read_cube_boxes(paths: Sequence[str | os.PathLike], boxes: Sequence[tuple[slice, ...]]) -> Any:
-    """Every cube's values in one box at a time: ``(box, stack (len(paths), *box shape) float32)``.
-
-    The counterpart of :func:`geosim.io.geotiff.read_windows` for files of
-    :func:`write_realization_cube`; ``boxes`` as from :func:`cube_boxes`.
-    Memory is one box of every file.
-    """
-    netCDF4 = _need("netCDF4", "cube")
-    for box in boxes:
-        stack = np.empty((len(paths),) + tuple(b.stop - b.start for b in box), dtype=np.float32)
-        for i, p in enumerate(paths):
-            with netCDF4.Dataset(p) as ds:
-                var = _first_variable(ds)
-                var.set_auto_mask(False)
-                stack[i] = var[(0,) + box]
-        yield box, stack
-
-
-def read_cube_windows(paths: Sequence[str | os.PathLike], level: int | None,
-                      windows: Callable[[], Any]) -> Any:
-    """:func:`read_cube_boxes` of the rasterio windows ``windows()`` of one level (None in 2-D), as
-    ``(window, stack (len(paths), h, w))``: the call form of :func:`geosim.io.geotiff.read_windows`."""
-    wins = list(windows())
-    boxes = [((slice(level, level + 1),) if level is not None else ())
-             + (slice(w.row_off, w.row_off + w.height), slice(w.col_off, w.col_off + w.width)) for w in wins]
-    for w, (_, stack) in zip(wins, read_cube_boxes(paths, boxes)):
-        yield w, stack.reshape(len(paths), w.height, w.width)
 
 
 def write_ensemble_cubes(folder: str | os.PathLike, grid, suffix: str, *, bands: np.ndarray,
