@@ -411,7 +411,8 @@ def write_summaries(spec: RunSpec, out_dir: Path, data: PreparedData, model, gri
     if support:
         report["change_of_support"] = support
     from .secondary import report_sections
-    report.update(report_sections(spec, data, grid, files.get("summary", ())))
+    summary = simulation.writer.summary  # the bands, when the realizations are in a store
+    report.update(report_sections(spec, data, grid, files.get("summary", ()) if summary is None else summary))
     if extra:
         report.update(extra)
     if out["plots"]:

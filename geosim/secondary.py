@@ -417,7 +417,8 @@ def spread_comparison(transform, estimate: np.ndarray, variance: np.ndarray, kri
 
 
 def report_sections(spec: RunSpec, data, grid, summary_files=()) -> dict:
-    """The report's ``mean`` and ``secondary`` sections (empty without secondary information)."""
+    """The report's ``mean`` and ``secondary`` sections (empty without secondary information);
+    ``summary_files`` as :func:`ensemble_spread` takes them."""
     out: dict[str, Any] = {}
     if data.mean is not None:
         out["mean"] = data.mean.report(data.weights, grid)
@@ -428,20 +429,24 @@ def report_sections(spec: RunSpec, data, grid, summary_files=()) -> dict:
             "the run's reproduction checks (validation) compare the realizations with the primary-only model "
             "and data; conditioned on the secondary grid too, their mean follows the secondary and their "
             "variance and variogram are smaller, so those checks may warn on a correct run")
-        if summary_files:
+        if len(summary_files):
             out["secondary"]["ensemble_spread"] = ensemble_spread(summary_files, log=spec["transform.log"])
     return out
 
 
 def ensemble_spread(summary_files, *, log: bool) -> dict:
-    """Mean spread of the realizations over the active nodes, from the summary rasters: standard
+    """Mean spread of the realizations over the active nodes, from the summary rasters (or the summary
+    bands of a run whose realizations are in a store, an array ``(bands, *grid.shape)``): standard
     deviation in data units and the P10-P90 width (``log10(P90 / P10)`` for a log-transformed variable,
     whose arithmetic standard deviation follows its level more than its uncertainty)."""
     import rasterio
     std, width = [], []
-    for path in summary_files:
-        with rasterio.open(path) as src:
-            bands = src.read([2, 3, 5], masked=True).astype(np.float64)
+    for path in [summary_files] if isinstance(summary_files, np.ndarray) else summary_files:
+        if isinstance(path, np.ndarray):
+            bands = np.ma.masked_invalid(path[[1, 2, 4]].astype(np.float64))
+        else:
+            with rasterio.open(path) as src:
+                bands = src.read([2, 3, 5], masked=True).astype(np.float64)
         std.append(np.ma.compressed(bands[0]))
         width.append(np.ma.compressed(np.log10(bands[2] / bands[1]) if log else bands[2] - bands[1]))
     return {"mean_std_data_units": float(np.concatenate(std).mean()),

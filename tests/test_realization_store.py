@@ -256,3 +256,19 @@ def test_a_run_on_a_local_cluster_writing_zarr_equals_a_serial_run(tmp_path, mon
         assert (a / "block_model.csv").read_bytes() == (b / "block_model.csv").read_bytes()
     with remote.to_xarray("realizations") as ds:
         assert ds[var].dims == ("realization", "z", "y", "x")
+
+
+@pytest.mark.parametrize("log", [False, True])
+def test_the_ensemble_spread_of_a_store_run_equals_the_one_read_from_the_summary_rasters(tmp_path, log):
+    # a run with a store keeps its summary bands in memory and may write no summary raster: the
+    # report's spread computed from the bands must be the one computed from the rasters
+    from geosim.io.geotiff import as_stored, write_raster
+    from geosim.secondary import ensemble_spread
+    from geosim.summaries import summary_band_descriptions, summary_bands
+    stack = np.exp(np.asarray(_fields(4), dtype=np.float64))
+    bands = as_stored(summary_bands(stack, [1.0]))
+    paths = write_raster(tmp_path / "summary.tif", bands, GRID, descriptions=summary_band_descriptions([1.0], "%"))
+    got, want = ensemble_spread(bands, log=log), ensemble_spread(paths, log=log)
+    assert got.keys() == want.keys()
+    for key in want:
+        assert got[key] == pytest.approx(want[key], rel=1e-12)
