@@ -212,12 +212,12 @@ def open_output(spec: RunSpec, out_dir: Path, *, overwrite: bool, resume: bool) 
 
 
 def _sweep_temporaries(out_dir: Path) -> None:
-    """Remove the hidden temporary files a killed run may have left (atomic writes that
-    never reached their rename); finished files are never touched."""
+    """Remove the hidden temporary files (and Zarr folders) a killed run may have left (atomic
+    writes that never reached their rename); finished files are never touched."""
     for folder in (out_dir, out_dir / "realizations", out_dir / STATE_DIR):
         for pattern in (".*.partial*", ".*.stage.tif"):
             for path in folder.glob(pattern):
-                path.unlink(missing_ok=True)
+                shutil.rmtree(path, ignore_errors=True) if path.is_dir() else path.unlink(missing_ok=True)
 
 
 def read_header(out_dir: Path) -> dict | None:

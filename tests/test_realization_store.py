@@ -219,7 +219,11 @@ def test_a_resumed_run_redoes_a_changed_and_an_interrupted_realization_and_equal
     # realization 2: a worker killed after its data, before its marker and its record
     store["realization_complete"][2] = 0
     (out / "run-state" / "r00002.json").unlink()
+    # and a Zarr cube whose atomic write never reached its rename (a folder, swept like a file)
+    (out / ".summary.zarr.partial").mkdir()
+    (out / ".summary.zarr.partial" / "zarr.json").write_text("{}")
     resumed = geosim.pipeline.run(spec, out)
+    assert not (out / ".summary.zarr.partial").exists()
     assert resumed.kept == [0] and resumed.computed == [1, 2]
     fresh = geosim.pipeline.run(spec, tmp_path / "fresh")
     for name in ("realizations.nc", "summary.nc", "block_model.csv"):
