@@ -157,6 +157,51 @@ def test_a_changed_chunk_fails_its_checksum(tmp_path):
     assert _sha(store.read(1)) != sha[1] and _sha(store.read(0)) == sha[0]
 
 
+def _failing_data_writes(monkeypatch, index: int, ndim: int) -> None:
+    """Make every write of realization ``index``'s data (an array of ``ndim`` dimensions) raise, as a
+    disk that fails (or a worker killed) between a realization's chunks and its marker would; the
+    store itself is real, only this one failure is injected."""
+    real = zarr.Array.__setitem__
+
+    def failing(self, key, value):
+        first = key[0] if isinstance(key, tuple) else key
+        if self.ndim == ndim and first == index:
+            raise OSError(f"injected failure writing realization {index}")
+        return real(self, key, value)
+
+    monkeypatch.setattr(zarr.Array, "__setitem__", failing)
+
+
+def test_a_realization_whose_data_write_fails_is_not_marked_complete(tmp_path, monkeypatch):
+    fields = _fields(2)
+    store = _store(tmp_path / "r.zarr")
+    store.open(2)
+    store.write(0, fields[0])
+    with monkeypatch.context() as m:
+        _failing_data_writes(m, 1, GRID.ndim + 1)
+        with pytest.raises(OSError, match="injected"):
+            store.write(1, fields[1])
+    assert store.complete().tolist() == [True, False]
+    assert not stored_realization_ok(store.path, 1, _sha(fields[1]), "run-a")
+    with pytest.raises(InputError, match="1 realization\\(s\\) are not complete in the store: 1"):
+        store.finish([0, 1])
+
+
+def test_a_run_whose_store_write_failed_resumes_from_the_realizations_marked_complete(tmp_path, monkeypatch):
+    spec = load_spec(ORE, overrides=QUICK)
+    out = tmp_path / "run"
+    with monkeypatch.context() as m:
+        _failing_data_writes(m, 1, 4)
+        with pytest.raises(Exception, match="injected"):
+            geosim.pipeline.run(spec, out)
+    store = RealizationStore(out / "realizations" / "store.zarr", GRID, name="x", long_name="x")
+    assert store.complete().tolist() == [True, False, False]
+    with pytest.raises(InputError, match="not finished"):
+        open_cube(store.path)
+    resumed = geosim.pipeline.run(spec, out)
+    assert resumed.kept == [0] and resumed.computed == [1, 2]
+
+
 def test_dask_workers_fill_one_store_that_equals_the_serial_one(tmp_path):
     distributed = pytest.importorskip("distributed")
     n = 4
