@@ -170,8 +170,10 @@ class RealizationWriter:
         everything else is assembled and before realization files are removed.
     layers : sequence, optional
         ``(array of grid.shape, description, unit)``: fixed layers (e.g. unit codes)
-        written as last bands of each realization's file, and appended by ``finish`` to
-        ``realizations.tif`` and ``summary.tif`` (GeoTIFF realizations only).
+        written as last bands of each realization's file (GeoTIFF realizations), and
+        added by ``finish`` to ``realizations.tif`` and ``summary.tif`` (last bands), to
+        the cubes (variables named after the description: ``unit_code``) and to the
+        block-model tables (columns of the same names).
     cube : {"netcdf", "zarr"}, optional
         Write the realizations into one realization store instead of one file each
         (:class:`geosim.io.cube.RealizationStore`), and assemble ``summary`` and
@@ -229,8 +231,6 @@ class RealizationWriter:
         self.layers = tuple(layers)
         if cube is not None and cube not in CUBE_SUFFIX:
             raise ValueError(f"cube must be one of {sorted(CUBE_SUFFIX)} or None, got {cube!r}")
-        if layers and (cube is not None or tables):
-            raise ValueError("layers go into GeoTIFF realizations only; leave out cube and tables with layers")
         self.cube = cube
         self.level_geotiffs = level_geotiffs or grid.ndim == 2 or cube is None
         self.variable = variable
@@ -244,6 +244,16 @@ class RealizationWriter:
             self.store = RealizationStore(where, grid, name=variable, long_name=self.long_name, units=units,
                                           provenance=self.tags, run_key=run_key)
         self.summary = None  # the summary bands (float32 values) once finish computed them from the store
+
+    @property
+    def layer_variables(self) -> dict[str, tuple[np.ndarray, str, str]]:
+        """The ``layers`` as cube variables and table columns: ``name -> (array, description, unit)``."""
+        import re
+        return {re.sub(r"\W+", "_", d).strip("_") or "layer": (a, d, u) for a, d, u in self.layers}
+
+    def _level_layers(self, k: int) -> list[tuple[np.ndarray, str, str]]:
+        """The ``layers`` of level ``k`` (the whole layer in 2-D)."""
+        return [(a if self.grid.ndim == 2 else a[k], d, u) for a, d, u in self.layers]
 
     def stores(self, *, staging: bool = False) -> list[RealizationStore]:
         """The realization stores of this writer and of its derived writers (change of support);
@@ -367,7 +377,7 @@ class RealizationWriter:
             g2 = level_grid(self.grid, k)
             files = [self.folder / r["files"][k] for r in records]
             tags = {**self.tags, **level_tags(self.grid, k)}
-            layers = [(a if self.grid.ndim == 2 else a[k], d, u) for a, d, u in self.layers]
+            layers = self._level_layers(k)
             if stack:
                 target = level_paths(self.folder / "realizations.tif", self.grid)[k]
                 assemble_realizations(files, g2, target, units=self.units, tags=tags, indices=indices,
@@ -393,7 +403,7 @@ class RealizationWriter:
         """
         import functools
 
-        from .io.cube import cube_boxes, summary_dataset, write_cube
+        from .io.cube import add_layers, cube_boxes, summary_dataset, write_cube
         self.store.finish(indices)
         bands = np.full((len(summary_band_names(cutoffs)),) + self.grid.shape, np.nan)
         boxes = cube_boxes(self.grid)
@@ -408,19 +418,23 @@ class RealizationWriter:
                 target = level_paths(self.folder / "realizations.tif", self.grid)[k]
                 assemble_realizations(indices, level_grid(self.grid, k), target, units=self.units, indices=indices,
                                       tags={**self.tags, **level_tags(self.grid, k)}, overwrite=self.overwrite,
+                                      layers=self._level_layers(k),
                                       read=functools.partial(_store_windows, store=self.store, level=k))
                 out.setdefault("realizations", []).append(str(target))
         if self.level_geotiffs:
             out["summary"] = [str(p) for p in write_raster(
-                self.folder / "summary.tif", bands, self.grid, tags=self.tags, overwrite=self.overwrite,
-                descriptions=summary_band_descriptions(cutoffs, self.units))]
+                self.folder / "summary.tif", np.concatenate([bands] + [a[None] for a, _, _ in self.layers]),
+                self.grid, tags=self.tags, overwrite=self.overwrite,
+                descriptions=summary_band_descriptions(cutoffs, self.units) + [(d, u) for _, d, u in self.layers])]
         suffix = CUBE_SUFFIX[self.cube]
-        out["summary_cube"] = [str(write_cube(self.folder / f"summary{suffix}", summary_dataset(
-            self.grid, bands, cutoffs, units=self.units, provenance=self.tags), overwrite=self.overwrite))]
+        layers = self.layer_variables
+        out["summary_cube"] = [str(write_cube(self.folder / f"summary{suffix}", add_layers(summary_dataset(
+            self.grid, bands, cutoffs, units=self.units, provenance=self.tags), layers), overwrite=self.overwrite))]
         if self.cube == "netcdf":
-            out["realizations_cube"] = [str(self.store.to_netcdf(self.folder / "realizations.nc",
+            out["realizations_cube"] = [str(self.store.to_netcdf(self.folder / "realizations.nc", layers=layers,
                                                                  overwrite=self.overwrite))]
         else:
+            self.store.add_layers(layers)
             out["realizations_cube"] = [str(self.store.path)]
         out.update(self._tables(indices, cutoffs, bands, lambda j: self.store.read(indices[j])))
         return out
@@ -431,7 +445,7 @@ class RealizationWriter:
         if not self.tables:
             return {}
         from .io.cube import summary_table_columns, write_block_model
-        table = summary_table_columns(bands, cutoffs, self.units)
+        table = summary_table_columns(bands, cutoffs, self.units, self.layer_variables)
         if self.table_realizations:
             for j, i in enumerate(indices):
                 table[f"r{i:04d}"] = (np.asarray(reader(j), dtype=np.float64), f"realization {i}", self.units)

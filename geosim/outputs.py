@@ -484,46 +484,6 @@ def _support_plots(spec: RunSpec, writer, records: Sequence[Mapping], out_dir: P
     return written
 
 
-def _cubes_and_tables(spec: RunSpec, grid, out_dir: Path, records: Sequence[Mapping], files: Mapping,
-                      tags: Mapping[str, str], layers: Mapping[str, tuple] | None = None) -> dict[str, list[str]]:
-    """The summary and realization cubes and the block-model tables, from the run's GeoTIFFs, for a
-    writer that writes GeoTIFF realizations with ``layers`` (``name -> (array of grid.shape, long name,
-    units)``, e.g. unit codes), which are added to each."""
-    from .io.geotiff import read_realization
-    from .summaries import summary_band_names
-    fmt, tables = cube_format(spec, grid), block_model_formats(spec, grid)
-    if fmt is None and not tables:
-        return {}
-    out = spec["outputs"]
-    units = spec["data.units"]
-    cutoffs = list(out["cutoffs"])
-    bands = np.stack([read_realization(files["summary"], grid, band=b + 1)
-                      for b in range(len(summary_band_names(cutoffs)))])
-    paths = [[out_dir / f for f in r["files"]] for r in records]
-    indices = [int(r["index"]) for r in records]
-    written: dict[str, list[str]] = {}
-    if fmt is not None:
-        from .io.cube import write_ensemble_cubes
-        u = f" ({units})" if units else ""
-
-        def reader(j: int) -> np.ndarray:
-            return read_realization(paths[j], grid).astype(np.float32)
-
-        written.update(write_ensemble_cubes(out_dir, grid, CUBE_SUFFIX[fmt], bands=bands, cutoffs=cutoffs,
-                                            reader=reader, indices=indices, name=variable_name(spec["data.value"]),
-                                            long_name=f"{spec['data.value']}{u}, conditional realization",
-                                            units=units, provenance=tags, overwrite=True, layers=layers))
-    if tables:
-        from .io.cube import summary_table_columns, write_block_model
-        table = summary_table_columns(bands, cutoffs, units, layers)
-        if out["block_model_realizations"]:
-            for i, p in zip(indices, paths):
-                table[f"r{i:04d}"] = (read_realization(p, grid), f"realization {i}", units)
-        written["block_model"] = [str(write_block_model(out_dir / f"block_model{s}", grid, table, provenance=tags,
-                                                        overwrite=True)) for s in tables]
-    return written
-
-
 def _plot_level(data: PreparedData, grid) -> int:
     """The level of a 3-D grid mapped in the PNGs: the one nearest the samples' mean elevation."""
     if grid.ndim == 2:

@@ -429,7 +429,7 @@ def _tags(spec: RunSpec, units: UnitsModel) -> dict[str, str]:
 
 def _writer(spec: RunSpec, units: UnitsModel, out_dir: Path):
     from .ensemble import RealizationWriter
-    from .outputs import _figures, support_sinks
+    from .outputs import _cube_options, _figures, support_sinks
     from .validation import RunChecks
     grid = units.modelled_grid
     tags = _tags(spec, units)
@@ -440,11 +440,11 @@ def _writer(spec: RunSpec, units: UnitsModel, out_dir: Path):
                            data_values=p.data.values) for c, p in units.pieces.items()}
     figures = {c: _figures(p.spec, p.grid) for c, p in units.pieces.items()}
     measure = UnitsMeasure({c: p.grid.mask for c, p in units.pieces.items()}, checks, figures)
-    layer = np.where(units.grid.mask, units.node_codes, np.nan).astype(float)
     return RealizationWriter(out_dir, grid, tags=tags, units=spec["data.units"], back_transform=back,
                              figures=_figures(spec, grid), measure=measure, metal_unit=metal_unit(spec),
                              overwrite=True, derived=derived, ranking=ranking,
-                             layers=[(layer, "unit code", "")])
+                             layers=[(_code_layer(units), "unit code", "")],
+                             **_cube_options(spec, grid, grid, "conditional realization"))
 
 
 def simulate_units(spec: RunSpec, units: UnitsModel, out_dir: str | os.PathLike, *, overwrite: bool = False,
@@ -598,7 +598,7 @@ def summarize_units(spec: RunSpec, units: UnitsModel, simulation: SimulationResu
     """Joined rasters (with the unit-code layer), total and per-unit decision figures, per-unit
     reproduction checks and plots, and the report with one section per unit."""
     from .io import plots
-    from .outputs import _cubes_and_tables, _support_plots, _support_report, close_outputs
+    from .outputs import _support_plots, _support_report, close_outputs
     from .summaries import decision_spread
     out = spec["outputs"]
     records = simulation.records
@@ -631,8 +631,6 @@ def summarize_units(spec: RunSpec, units: UnitsModel, simulation: SimulationResu
                     units=spec["data.units"], overwrite=True)))
         files.setdefault("plots", [])
         files["plots"] += [str(x) for x in _support_plots(spec, writer, records, out_dir)]
-    layer = {"unit_code": (_code_layer(units), "unit code", "")}
-    files.update(_cubes_and_tables(spec, grid, out_dir, records, files, tags, layers=layer))
     sections = []
     for unit in units.table.units:
         entry: dict[str, Any] = {"name": unit.name, "code": unit.code, "modelled": unit.modelled,

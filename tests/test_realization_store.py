@@ -321,3 +321,45 @@ def test_the_ensemble_spread_of_a_store_run_equals_the_one_read_from_the_summary
     assert got.keys() == want.keys()
     for key in want:
         assert got[key] == pytest.approx(want[key], rel=1e-12)
+
+
+@pytest.mark.parametrize("cube", ["netcdf", "zarr"])
+def test_a_3d_run_of_two_units_writes_its_realizations_into_the_store_with_the_unit_codes(tmp_path, cube):
+    # the units run's writer takes the same cube options as a one-unit run: no file per realization,
+    # the unit codes a variable of every cube and a column of the block-model table
+    import geosim.units_run as units_run
+    from test_units_run import _field, _write
+    xy, unit, grade = _field()
+    rng = np.random.default_rng(2)
+    path = _write(tmp_path / "a", xy, unit, grade, realizations=2)
+    rows = (tmp_path / "a" / "pts.csv").read_text().splitlines()
+    (tmp_path / "a" / "pts.csv").write_text("\n".join([rows[0] + ",z"] + [
+        f"{r},{rng.uniform(0.0, 30.0):.2f}" for r in rows[1:]]) + "\n")
+    path.write_text(path.read_text().replace('y = "y"', 'y = "y"\nz = "z"').replace(
+        "cell = [10.0, 10.0]", "cell = [20.0, 20.0, 10.0]\nz_range = [0.0, 30.0]").replace(
+        "ranges = [120.0]", "ranges = [120.0, 120.0, 30.0]").replace("ranges = [220.0]", "ranges = [220.0, 220.0, 40.0]"
+        ).replace("plots = false", f'plots = false\ncube = "{cube}"'))
+    spec = load_spec(path)
+    out = tmp_path / "out"
+    units_run.run(spec, out)
+    units = units_run.prepare_units(spec)
+    codes = np.where(units.grid.mask, units.node_codes, np.nan)
+    assert not [p for p in out.rglob("r0*") if p.parent.name != "run-state"] and not list(out.rglob("*.tif"))
+    suffix = ".nc" if cube == "netcdf" else ".zarr"
+    with open_cube(out / f"realizations{suffix}") as real, open_cube(out / f"summary{suffix}") as summary:
+        assert real["grade"].dims == ("realization", "z", "y", "x") and real.realization.values.tolist() == [0, 1]
+        np.testing.assert_array_equal(real["unit_code"].values, codes)
+        np.testing.assert_array_equal(summary["unit_code"].values, codes)
+        assert real["unit_code"].attrs["long_name"] == "unit code" and real.attrs["comment"] == geosim.CAUTION
+        # each unit's nodes hold that unit's values: the high-grade unit's median above the low one's
+        values = real["grade"].values
+        assert np.nanmedian(values[:, codes == 2]) > np.nanmedian(values[:, codes == 1])
+        np.testing.assert_allclose(summary["mean"].values, values.astype(np.float64).mean(axis=0), rtol=1e-6)
+        table = np.genfromtxt(out / "block_model.csv", delimiter=",", names=True)
+        z, y, x = (real[c].values for c in ("z", "y", "x"))
+        k, r, c = (np.searchsorted(np.sort(a), table[n]) for a, n in ((z, "z"), (y[::-1], "y"), (x, "x")))
+        np.testing.assert_array_equal(table["unit_code"], codes[k, len(y) - 1 - r, c])
+        # the table writes 10 significant digits: 5e-10 relative at most
+        np.testing.assert_allclose(table["mean"], summary["mean"].values[k, len(y) - 1 - r, c], rtol=1e-9)
+    if cube == "zarr":
+        assert zarr.open_group(str(out / "realizations.zarr"), mode="r").attrs["geosim_complete"] == "yes"

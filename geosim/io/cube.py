@@ -35,8 +35,8 @@ from ..cautions import CAUTION
 from ..errors import InputError
 from .atomic import atomic_output
 
-__all__ = ["CF_VERSION", "CUBE_SUFFIX", "grid_coords", "grid_dataset", "summary_dataset", "realizations_dataset",
-           "write_cube", "cube_boxes", "write_ensemble_cubes", "write_netcdf", "write_zarr", "open_cube",
+__all__ = ["CF_VERSION", "CUBE_SUFFIX", "grid_coords", "grid_dataset", "summary_dataset", "add_layers",
+           "write_cube", "cube_boxes", "write_netcdf", "write_zarr", "open_cube",
            "RealizationStore", "realization_sha256", "stored_realization_ok", "block_model_table",
            "write_block_model", "summary_table_columns"]
 
@@ -45,8 +45,6 @@ GRID_MAPPING = "spatial_ref"
 CHUNK_XY = 512
 #: the file suffix of each cube format
 CUBE_SUFFIX = {"netcdf": ".nc", "zarr": ".zarr"}
-#: realization cubes up to this size (float32) are stacked in memory rather than streamed through Dask
-SMALL_CUBE_BYTES = 32 * 2**20
 
 
 def _need(module: str, extra: str):
@@ -270,19 +268,6 @@ def add_layers(ds, layers: Mapping[str, tuple] | None):
             attrs["units"] = units
         ds[name] = (spatial, np.asarray(data), attrs)
     return ds
-
-
-def realizations_dataset(grid, reader: Callable[[int], np.ndarray], indices: Sequence[int], *, name: str,
-                         long_name: str, units: str = "", provenance: Mapping[str, str] | None = None):
-    """The realization cube, read lazily one realization at a time (``reader(j)`` gives the j-th)."""
-    da = _need("dask.array", "zarr")
-    import dask
-    parts = [da.from_delayed(dask.delayed(reader)(j), shape=grid.shape, dtype=np.float32)
-             for j in range(len(indices))]
-    chunks = (1,) + (1,) * (grid.ndim - 2) + tuple(min(CHUNK_XY, n) for n in grid.shape[-2:])
-    stack = da.stack(parts).rechunk(chunks)
-    return grid_dataset(grid, {name: (stack, long_name, units)}, realizations=indices,
-                        title="geosim conditional realizations", provenance=provenance)
 
 
 # -- the realization store: one chunked Zarr store that workers fill in parallel ----------------
@@ -511,10 +496,23 @@ class RealizationStore:
                             realizations=range(array.shape[0]), title="geosim conditional realizations",
                             provenance=self.provenance)
 
-    def to_netcdf(self, path: str | os.PathLike, *, overwrite: bool = False) -> Path:
-        """Write the finished store as the NetCDF realization cube (chunk by chunk), atomically."""
+    def to_netcdf(self, path: str | os.PathLike, *, layers: Mapping[str, tuple] | None = None,
+                  overwrite: bool = False) -> Path:
+        """Write the finished store as the NetCDF realization cube (chunk by chunk), atomically, with
+        ``layers`` added (:func:`add_layers`)."""
         with self.dataset() as ds:
-            return write_netcdf(path, ds, overwrite=overwrite)
+            return write_netcdf(path, add_layers(ds, layers), overwrite=overwrite)
+
+    def add_layers(self, layers: Mapping[str, tuple] | None) -> None:
+        """Add fixed grid variables (:func:`add_layers`: ``name -> (array, long_name, units)``) to the store."""
+        if not layers:
+            return
+        group = _open_group(self.path, "r+")
+        ds = add_layers(grid_dataset(self.grid, {}, title="", provenance={}), layers)
+        ds = ds.drop_vars([v for v in ds.variables if v not in layers])
+        ds.attrs = dict(group.attrs)  # appending to a Zarr store replaces its root attributes
+        with _local_dask():
+            ds.to_zarr(self.path, mode="a", consolidated=False, encoding=_encoding(ds, False))
 
     def remove(self) -> None:
         """Delete the store."""
@@ -548,30 +546,6 @@ def cube_boxes(grid, nodes: int = 256 * 256) -> list[tuple[slice, ...]]:
     if grid.ndim == 2:
         return planes
     return [(slice(k, min(k + depth, grid.nz)),) + plane for k in range(0, grid.nz, depth) for plane in planes]
-
-
-def write_ensemble_cubes(folder: str | os.PathLike, grid, suffix: str, *, bands: np.ndarray,
-                         cutoffs: Sequence[float], reader: Callable[[int], np.ndarray], indices: Sequence[int],
-                         name: str, long_name: str, units: str = "", provenance: Mapping[str, str] | None = None,
-                         overwrite: bool = False, layers: Mapping[str, tuple] | None = None) -> dict[str, list[str]]:
-    """A run's ``summary`` and ``realizations`` cubes (``suffix`` ``.nc`` or ``.zarr``) in ``folder``.
-
-    ``bands`` are the summary bands (:func:`geosim.summaries.summary_bands`) of
-    the grid; ``reader(j)`` gives the j-th realization, read when that chunk is
-    written (all at once when they take at most :data:`SMALL_CUBE_BYTES`); ``layers`` are added to both
-    (:func:`add_layers`).  Returns ``{"summary_cube": [path], "realizations_cube": [path]}``.
-    """
-    folder = Path(folder)
-    summary = write_cube(folder / f"summary{suffix}", add_layers(summary_dataset(
-        grid, bands, cutoffs, units=units, provenance=provenance), layers), overwrite=overwrite)
-    if len(indices) * grid.size * 4 <= SMALL_CUBE_BYTES:  # blocks, model cells: no task graph
-        stack = grid_dataset(grid, {name: (np.stack([reader(j) for j in range(len(indices))]), long_name, units)},
-                             realizations=indices, title="geosim conditional realizations", provenance=provenance)
-    else:
-        stack = realizations_dataset(grid, reader, indices, name=name, long_name=long_name, units=units,
-                                     provenance=provenance)
-    realizations = write_cube(folder / f"realizations{suffix}", add_layers(stack, layers), overwrite=overwrite)
-    return {"summary_cube": [str(summary)], "realizations_cube": [str(realizations)]}
 
 
 # -- block model table --------------------------------------------------------------------------
