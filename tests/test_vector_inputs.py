@@ -78,8 +78,8 @@ def test_geopackage_run_equals_the_csv_run(csv_run, tmp_path):
     assert (tmp_path / "run" / "decision_spread.csv").read_text() == (out_csv / "decision_spread.csv").read_text()
 
 
-def test_shapefile_gives_the_same_data_and_grid(csv_run, tmp_path):
-    spec_csv, result_csv, _ = csv_run
+def test_shapefile_run_equals_the_csv_run(csv_run, tmp_path):
+    spec_csv, result_csv, out_csv = csv_run
     pyogrio.write_dataframe(wells_layer(), tmp_path / "wells.shp")
     pyogrio.write_dataframe(domain_layer(), tmp_path / "domain.shp")
     spec = vector_spec(tmp_path, "wells.shp", "domain.shp")
@@ -90,6 +90,15 @@ def test_shapefile_gives_the_same_data_and_grid(csv_run, tmp_path):
     grid, grid_csv = geosim.pipeline.make_grid(spec, data), geosim.pipeline.make_grid(spec_csv, data_csv)
     assert grid.shape == grid_csv.shape and grid.xmin == grid_csv.xmin
     np.testing.assert_array_equal(grid.mask, grid_csv.mask)
+    result = geosim.pipeline.run(spec, tmp_path / "run")
+    assert str(result.model) == str(result_csv.model)
+    import rasterio
+    for name in ("summary.tif", "realizations.tif", "estimate.tif"):
+        with rasterio.open(out_csv / name) as a, rasterio.open(tmp_path / "run" / name) as b:
+            assert a.crs == b.crs and a.transform == b.transform
+            np.testing.assert_array_equal(a.read(), b.read())
+    for name in ("decision_figures.csv", "decision_spread.csv", "cross_validation.csv"):
+        assert (tmp_path / "run" / name).read_text() == (out_csv / name).read_text(), name
 
 
 @pytest.mark.parametrize("suffix", [".geojson", ".fgb", ".parquet"])
