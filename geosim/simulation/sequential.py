@@ -286,7 +286,6 @@ def _sgs_kernel(field, active_flat, path, normals, shape3, origin, step, offsets
     nt = offsets.shape[0]
     kd = dnbr.shape[1]
     kmax = a.shape[0]
-    c0 = cov_lag(cm, 0.0, 0.0, 0.0)
     rhs = np.empty(kmax)
     zv = np.empty(kmax)
     rel = np.empty((kmax, 3))  # conditioning points relative to the node being simulated
@@ -294,7 +293,9 @@ def _sgs_kernel(field, active_flat, path, normals, shape3, origin, step, offsets
     use_data_cov = data_cov.shape[0] > 0
     codes, sills, mats, params, tables, steps = cm
     nugget = 0.0
+    c0 = 0.0  # cov_lag at lag zero, summed in its order (a tabulated structure's first entry)
     for jj in range(codes.shape[0]):
+        c0 += sills[jj] * tables[jj, 0] if codes[jj] == TABULATED else sills[jj]
         if codes[jj] == NUGGET:
             nugget += sills[jj]
     tr = np.empty((kd, 3))  # the data's positions in one structure's reduced coordinates
@@ -396,24 +397,22 @@ def _sgs_kernel(field, active_flat, path, normals, shape3, origin, step, offsets
                         a[r, s] += sj * tabulated_correlation(tables, steps, jj, h)
                     else:
                         a[r, s] += sj * analytic_correlation(code, h)
+        # data-data entries from the data's matrix, node-node entries from the offsets' table;
+        # the formula where these are missing.  One call site for each use of cov_lag: every
+        # site is inlined, and each one added about a second of compiling on a first run.
         for r in range(m):
-            if r < nd:
-                dr = ids[r]
-                rhs[r] = cov_lag(cm, rel[r, 0], rel[r, 1], rel[r, 2])
-                for s in range(r + 1):
-                    if use_data_cov:
-                        a[r, s] = data_cov[dr, ids[s]]
-                    else:
-                        a[r, s] = cov_lag(cm, rel[r, 0] - rel[s, 0], rel[r, 1] - rel[s, 1], rel[r, 2] - rel[s, 2])
-                continue
-            if use_table:
+            node_row = r >= nd
+            if node_row and use_table:
                 base = table_zero + lin[r]
                 rhs[r] = table[base]
-                for s in range(nd, r + 1):
-                    a[r, s] = table[base - lin[s]]
             else:
                 rhs[r] = cov_lag(cm, rel[r, 0], rel[r, 1], rel[r, 2])
-                for s in range(nd, r + 1):
+            for s in range(nd if node_row else 0, r + 1):
+                if node_row and use_table:
+                    a[r, s] = table[table_zero + lin[r] - lin[s]]
+                elif not node_row and use_data_cov:
+                    a[r, s] = data_cov[ids[r], ids[s]]
+                else:
                     a[r, s] = cov_lag(cm, rel[r, 0] - rel[s, 0], rel[r, 1] - rel[s, 1], rel[r, 2] - rel[s, 2])
             if r >= ms:
                 a[r, r] += sec_noise / (sec_b * sec_b)  # the measurement's own noise
