@@ -109,6 +109,13 @@ def _int(lo=None, hi=None):
     return check
 
 
+def _per_path(value):
+    if value == "auto":
+        return value, None
+    value, problem = _int(1, 1000)(value)
+    return value, None if problem is None else f'"auto" or {problem}'
+
+
 def _number(lo=None, hi=None, lo_open=False):
     def check(value):
         ok = isinstance(value, (int, float)) and not isinstance(value, bool) and math.isfinite(value)
@@ -348,9 +355,10 @@ SCHEMA: dict[str, dict[str, Key]] = {
         "realizations": Key(_int(1, 100000), required=True),
         "seed": Key(_int(0, 2 ** 63 - 1), required=True),
         "kriging": Key(_choice("simple", "ordinary"), default="simple"),
-        "realizations_per_path": Key(_int(1, 1000), default=1,
+        "realizations_per_path": Key(_per_path, default="auto",
                                      help="realizations sharing one random path (sequential engine; "
-                                          "10 simulates several times faster)"),
+                                          "10 simulates several times faster); \"auto\": 10 on grids of "
+                                          "250,000 active nodes or more, 1 below"),
         "workers": Key(_int(1, 1024)),
         "cluster": Key(_text, help="Dask scheduler address, e.g. tcp://10.0.0.5:8786"),
     },
@@ -842,7 +850,7 @@ def _check_combinations(spec: dict, problems: list[str]) -> None:
         problems.append(f"simulation.engine: expected one of {', '.join(engines)}, found {sim['engine']!r}")
     if sim["workers"] is not None and sim["cluster"] is not None:
         problems.append("simulation: expected workers or cluster, found both")
-    if sim["engine"] == "exact" and sim["realizations_per_path"] != 1:
+    if sim["engine"] == "exact" and sim["realizations_per_path"] not in (1, "auto"):
         problems.append("simulation.realizations_per_path: expected 1 with the exact engine (it has no path), "
                         f"found {sim['realizations_per_path']}")
 
