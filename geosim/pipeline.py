@@ -397,10 +397,12 @@ def run(spec: RunSpec | str | os.PathLike, out_dir: str | os.PathLike, *, overwr
     -------
     RunResult
     """
+    from .simulation.runner import compile_ahead
     if not isinstance(spec, RunSpec):
         spec = load_spec(spec)
     out_dir = Path(out_dir)
     timings: dict[str, float] = {}
+    compile_ahead(spec["simulation.engine"])  # a first run's engine compiles beside the steps before it
     timed = step_timer(timings)
     data = timed("read and transform data", prepare_data, spec, progress)
     for note in data.notes:

@@ -125,6 +125,46 @@ def resolve_engine(engine):
     return engine
 
 
+def in_numba_cache(dispatcher) -> bool:
+    """Whether numba's on-disk cache holds code of ``dispatcher`` (its index file exists)."""
+    try:
+        return os.path.isfile(dispatcher._cache._cache_file._index_path)
+    except AttributeError:  # no cache, or another numba's layout: nothing to gain from compiling ahead
+        return True
+
+
+def compile_ahead(engine):
+    """Start compiling an engine's kernels into numba's cache in another process, if they are not there.
+
+    On the first run after an install the sequential engine's kernel takes several seconds to
+    compile.  Started at the beginning of a run, the compiling runs beside the data
+    preparation, cross-validation and kriging (which compile their own kernels in this
+    process), and the workers later load the code from the cache.  An engine takes part with
+    ``warm_up()`` (a tiny run through its kernels) and ``main_kernel()`` (the dispatcher
+    whose cache is checked).  The process exits when this one does (:func:`watch_process`)
+    and writes nothing but numba's cache.
+
+    Returns the started ``subprocess.Popen``, or None when there is nothing to compile.
+    """
+    import subprocess
+    import sys
+    eng = resolve_engine(engine)
+    if not (hasattr(eng, "warm_up") and hasattr(eng, "main_kernel")) or in_numba_cache(eng.main_kernel()):
+        return None
+    kind = type(eng)
+    code = (f"from geosim.simulation.runner import warm_up_engine; "
+            f"warm_up_engine({os.getpid()}, {kind.__module__!r}, {kind.__qualname__!r})")
+    return subprocess.Popen([sys.executable, "-c", code], stdin=subprocess.DEVNULL, stdout=subprocess.DEVNULL,
+                            stderr=subprocess.DEVNULL)
+
+
+def warm_up_engine(main_pid: int, module: str, name: str) -> None:
+    """The body of :func:`compile_ahead`'s process: compile the engine class ``module.name``."""
+    import importlib
+    watch_process(main_pid)
+    getattr(importlib.import_module(module), name)().warm_up()
+
+
 def watch_process(pid: int, interval: float = PARENT_POLL_SECONDS) -> threading.Thread:
     """Exit this process at once when process ``pid`` (the main process) ends.
 

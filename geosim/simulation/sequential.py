@@ -175,6 +175,26 @@ class SequentialEngine:
             secondary=sec.ravel() if b != 0.0 else np.zeros(0), secondary_b=b, secondary_noise=noise,
             secondary_nodes=int(secondary_nodes) if b != 0.0 else 0)
 
+    def main_kernel(self):
+        """The numba dispatcher that costs the most to compile (:func:`geosim.simulation.runner.compile_ahead`)."""
+        return _sgs_kernel
+
+    def warm_up(self) -> None:
+        """Compile the engine's kernels (numba's cache keeps them) through a tiny 3-D run.
+
+        Every kernel sees the argument types a real run gives it, so the cached code is
+        the code a run loads, whatever its grid, model or neighbourhood.
+        """
+        from ..grid import Grid
+        from ..variogram.anisotropy import Anisotropy
+        from ..variogram.structures import Nugget, Spherical
+        grid = Grid(0.0, 0.0, (1.0, 1.0, 1.0), (2, 3, 3))
+        model = Nugget(0.1) + Spherical(0.9, Anisotropy((4.0, 4.0, 4.0)))
+        plan = self.prepare(np.array([[0.3, 0.4, 0.5]]), np.array([0.5]), model, grid,
+                            neighbourhood=Neighbourhood(max_samples=4, max_nodes=4))
+        self.realize(plan, np.random.default_rng(0))
+        self.realize_batch(plan, np.random.default_rng(1), [np.random.default_rng(2), np.random.default_rng(3)])
+
     def realize(self, plan: SequentialPlan, rng: np.random.Generator) -> np.ndarray:
         """One realization: normal scores of ``grid.shape``, NaN outside the mask."""
         path = plan.free[random_path(plan.levels, rng)]
