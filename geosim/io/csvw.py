@@ -110,6 +110,10 @@ class Column:
         return out
 
 
+#: Rows formatted together when a table is given by columns.
+_ROWS_AT_ONCE = 65536
+
+
 def sidecar_path(path: str | os.PathLike) -> Path:
     """The metadata sidecar of a CSV file: ``<name>.csv-metadata.json`` beside it.
 
@@ -208,10 +212,15 @@ def write_csv_table(path: str | os.PathLike, columns: Sequence[Column],
     w = csv.writer(buf, lineterminator="\n")
     w.writerow(names)
     if isinstance(rows, Mapping):
-        texts = [c.cells(rows[c.name]) for c in columns]
-        if len({len(t) for t in texts}) > 1:
-            raise ValueError(f"columns of unequal length: {dict(zip(names, map(len, texts)))}")
-        w.writerows(zip(*texts))
+        data = [rows[c.name] for c in columns]
+        lengths = {len(d) for d in data}
+        if len(lengths) > 1:
+            raise ValueError(f"columns of unequal length: {dict(zip(names, map(len, data)))}")
+        # a slice of rows at a time: the text of whole columns of a million-block model would
+        # hold a Python string per value (about 60 bytes each, a gigabyte for 14 columns)
+        n = lengths.pop() if lengths else 0
+        for start in range(0, n, _ROWS_AT_ONCE):
+            w.writerows(zip(*(c.cells(d[start:start + _ROWS_AT_ONCE]) for c, d in zip(columns, data))))
     else:
         for r, row in enumerate(rows):
             row = list(row)
