@@ -1,7 +1,7 @@
 """Benchmark of the whole 3-D job at block-model scale; prints figures, the last line one JSON object.
 
 Run:  python tests/benchmarks/bench_blockmodel.py [--realizations 100] [--per-path auto] [--workers 2]
-                                                 [--quick]
+                                                 [--quick] [--shape NZ NY NX]
 
 An invented case is built in code (the Tarnwick Deep block model: a fictitious copper body,
 no real place): 3,000 composites in 60 vertical drillholes on a 200 x 100 x 50 grid of
@@ -176,10 +176,10 @@ class PeakRss:
         self.cpu_s = (end.user + end.system - self._start.user - self._start.system) + sum(self._cpu.values())
 
 
-def run_case(folder: Path, realizations: int, per_path: int | str, workers: int) -> dict:
+def run_case(folder: Path, realizations: int, per_path: int | str, workers: int, shape=SHAPE) -> dict:
     import geosim.pipeline
-    from geosim.io.runspec import load_spec
-    spec_path = make_case(folder, realizations, per_path, workers)
+    from geosim.config.runspec import load_spec
+    spec_path = make_case(folder, realizations, per_path, workers, shape)
     spec = load_spec(spec_path)
     with PeakRss() as rss:
         t0 = time.perf_counter()
@@ -260,6 +260,8 @@ def main():
     parser.add_argument("--per-path", default="auto", help='realizations per path: a number or "auto" (the default)')
     parser.add_argument("--workers", type=int, default=2)
     parser.add_argument("--quick", action="store_true", help="20 realizations, no smaller run, no dask")
+    parser.add_argument("--shape", type=int, nargs=3, default=SHAPE, metavar=("NZ", "NY", "NX"),
+                        help="grid levels, rows, columns (default 50 100 200; 20 100 100 is a 200k-node case)")
     parser.add_argument("--dask-only", action="store_true", help="only the dask-against-serial comparison")
     args = parser.parse_args()
     if args.dask_only:
@@ -279,13 +281,13 @@ def main():
         if not args.quick:
             (tmp / "fewer").mkdir()
             few = max(10 if args.per_path == "auto" else int(args.per_path), n // 5)  # whole path groups
-            fewer = run_case(tmp / "fewer", few, args.per_path, args.workers)
+            fewer = run_case(tmp / "fewer", few, args.per_path, args.workers, tuple(args.shape))
             print(f"  {few} realizations: {fewer['total_s']:.1f} s, peak RSS "
                   f"{fewer['peak_rss_mib']:.0f} MiB ({load()})", flush=True)
             shutil.rmtree(tmp / "fewer")
         (tmp / "main").mkdir()
         print(f"block model, {n} realizations ... ({load()})", flush=True)
-        main_run = run_case(tmp / "main", n, args.per_path, args.workers)
+        main_run = run_case(tmp / "main", n, args.per_path, args.workers, tuple(args.shape))
         t = main_run["timings"]
         print(f"  {main_run['total_s']:.1f} s; steps: " + ", ".join(f"{k} {v:.1f} s" for k, v in t.items())
               + f" ({load()})", flush=True)
