@@ -13,7 +13,12 @@ unit, applied to each unit's piece and then joined:
    ``i`` of the unit with code ``u`` draws from
    ``numpy.random.SeedSequence(seed, spawn_key=(i, u))``, the child ``u`` spawned
    from realization ``i``'s own sequence, so adding, removing or reordering units,
-   or running them on other workers, never changes the others;
+   or running them on other workers, never changes the others.  With
+   ``simulation.realizations_per_path = p > 1`` realizations of a group
+   ``g = i // p`` share paths as in a run of one unit: unit ``u`` draws its path
+   from ``SeedSequence(seed, spawn_key=(PATH_STREAM, g, u))``
+   (:data:`geosim.simulation.runner.PATH_STREAM`), so each unit has its own path and
+   still depends on nothing but the seed, ``i``, ``p`` and ``u``;
 4. the unit fields are joined into one realization, back-transformed unit by unit
    (:class:`UnitsBackTransform`) and written by the usual realization writer, every
    raster gaining a last band of unit codes; summaries and decision figures are
@@ -43,7 +48,7 @@ from typing import Any
 
 import numpy as np
 
-from .config.runspec import RunSpec, has_units, load_spec, unit_spec, unit_table
+from .config.runspec import RunSpec, has_units, unit_spec, unit_table
 from .errors import InputError
 from .inputs import load_samples, neighbourhood, read_holes, sample_ids
 from .outputs import metal_unit
@@ -51,10 +56,10 @@ from .pipeline import cross_validate, make_grid, prepare_samples, preflight, var
 from .progress import relabel
 from .results import PreparedData, RunResult, SimulationResult
 from .runstate import STATE_DIR, RecordingSink, completed_realizations, make_folder, open_output, with_folder_lock
-from .units import NODATA, UnitTable, node_units, sample_units
+from .units import NODATA, UnitTable, composite_by_unit, node_units, read_unit_intervals, sample_units
 
 __all__ = ["UnitPiece", "UnitsModel", "UnitsEngine", "UnitsPlan", "UnitsBackTransform", "UnitsMeasure",
-           "unit_rng", "load_unit_samples", "prepare_units", "simulate_units", "run"]
+           "unit_rng", "load_unit_samples", "prepare_units", "fit_units", "pooled_crossval", "simulate_units", "run"]
 
 
 # -- the units' pieces --------------------------------------------------------------------------
@@ -136,20 +141,13 @@ def load_unit_samples(spec: RunSpec):
     units (``units.samples = { intervals = ... }``) are composited so that no
     composite straddles a contact (:func:`geosim.units.composite_by_unit`).
     """
-    import geosim.units as units_module
     table = unit_table(spec)
     source = spec["units.samples"]
     name = spec["data.value"]
     if "intervals" in source:
-        composite_by_unit = getattr(units_module, "composite_by_unit", None)
-        read_intervals = getattr(units_module, "read_unit_intervals", None)
-        if composite_by_unit is None or read_intervals is None:
-            raise InputError("logged-unit interval tables are not available in this version of geosim",
-                             file=spec.name, field="units.samples.intervals",
-                             fix="give the unit of each composite as a column of a point table")
         columns = {"hole": "hole", "from": "start", "to": "end", "code": "code"}  # spec key -> keyword
-        logged = read_intervals(spec.resolve(source["intervals"]), table,
-                                **{columns[k]: source[k] for k in columns if k in source})
+        logged = read_unit_intervals(spec.resolve(source["intervals"]), table,
+                                     **{columns[k]: source[k] for k in columns if k in source})
         comp = spec["data.composites"]
         samples = composite_by_unit(read_holes(spec), logged, comp["length"], min_fraction=comp["min_fraction"],
                                     residual=comp["residual"], min_sampled_fraction=comp["min_sampled_fraction"])
@@ -288,6 +286,37 @@ def fit_units(units: UnitsModel, progress=None) -> None:
             p.crossval = cross_validate(p.spec, p.data, p.model, progress=progress)
 
 
+def pooled_crossval(units: UnitsModel) -> dict | None:
+    """The cross-validation of every modelled unit taken together (None without any).
+
+    Each unit's left-out samples keep the estimates of their own unit's model, search and
+    transform; the figures are those of all of them pooled, in normal scores (each unit's
+    own, all standard normal) and in data units.  Declustering weights are relative within
+    a unit, so the pooled figures are plain (the declustered ones are per unit).
+    ``{"normal_scores": {...}, "data_units": {...}, "by_unit": {name: the unit's summary}}``.
+    """
+    from dataclasses import replace
+    done = [p for p in units.pieces.values() if p.crossval is not None]
+    if not done:
+        return None
+
+    def pool(parts, scale: str):
+        return replace(parts[0], coords=np.vstack([r.coords for r in parts]),
+                       values=np.concatenate([r.values for r in parts]),
+                       estimate=np.concatenate([r.estimate for r in parts]),
+                       variance=np.concatenate([r.variance for r in parts]),
+                       n_used=np.concatenate([r.n_used for r in parts]),
+                       sample_ids=[i for r in parts for i in r.sample_ids], weights=None,
+                       model_text="each unit's own model", n_short=sum(r.n_short for r in parts), scale=scale)
+
+    out = {"normal_scores": pool([p.crossval.result for p in done], "normal scores").summary(),
+           "data_units": pool([p.crossval.data_units for p in done], "data units").summary(),
+           "by_unit": {p.name: p.crossval.summary for p in done}}
+    out["basis"] = ("leave-one-out kriging of each unit's samples by its own model and search, pooled over the "
+                    f"units {', '.join(p.name for p in done)}; declustered figures are per unit")
+    return out
+
+
 # -- simulation ---------------------------------------------------------------------------------
 
 def unit_rng(rng: np.random.Generator, code: int) -> np.random.Generator:
@@ -325,7 +354,8 @@ class UnitsEngine:
 
     ``prepare(..., parts=[UnitPart, ...])`` prepares each unit with the inner
     engine; ``realize(plan, rng)`` realizes each with :func:`unit_rng` and puts
-    each unit's nodes into one field (NaN elsewhere).
+    each unit's nodes into one field (NaN elsewhere); ``realize_batch`` does the
+    same for a group of realizations sharing paths, one path per unit.
     """
 
     name = "units"
@@ -347,6 +377,29 @@ class UnitsEngine:
             field = plan.engine.realize(prepared, unit_rng(rng, code))
             inside = plan.node_codes == code
             out[inside] = field[inside]
+        return out
+
+    @property
+    def realize_batch(self):
+        """Realizations sharing random paths (``realizations_per_path > 1``), when the inner engine
+        can: each unit draws its own path from :func:`unit_rng` of the group's path generator
+        (spawn key ``(PATH_STREAM, group, code)``) and each member's values from :func:`unit_rng`
+        of its own generator, so a unit's member depends only on the seed, its index, the group
+        size and the unit.  Absent (``hasattr`` is False) for an inner engine without batches.
+        """
+        from .simulation.runner import resolve_engine
+        if not hasattr(resolve_engine(self.engine), "realize_batch"):
+            raise AttributeError(f"engine {self.engine!r} cannot share a path between realizations")
+        return self._realize_batch
+
+    def _realize_batch(self, plan: UnitsPlan, path_rng: np.random.Generator,
+                       rngs: Sequence[np.random.Generator]) -> list[np.ndarray]:
+        out = [np.full(plan.node_codes.shape, np.nan) for _ in rngs]
+        for code, prepared in zip(plan.codes, plan.prepared):
+            fields = plan.engine.realize_batch(prepared, unit_rng(path_rng, code), [unit_rng(r, code) for r in rngs])
+            inside = plan.node_codes == code
+            for joined, field in zip(out, fields):
+                joined[inside] = field[inside]
         return out
 
 
@@ -465,8 +518,8 @@ def simulate_units(spec: RunSpec, units: UnitsModel, out_dir: str | os.PathLike,
         new = run_engine(everything.coords, np.zeros(len(everything)), None, units.modelled_grid,
                          n_realizations=n, seed=sim["seed"], engine=UnitsEngine(sim["engine"]),
                          kriging=sim["kriging"], workers=sim["workers"], client=sim["cluster"], sink=sink,
-                         indices=missing, progress=progress, parts=_parts(spec, units),
-                         node_codes=units.node_codes)
+                         indices=missing, progress=progress, realizations_per_path=sim["realizations_per_path"],
+                         parts=_parts(spec, units), node_codes=units.node_codes)
         records.update(zip(missing, new))
     elif progress is not None:
         progress(n, n, "realizations")
@@ -689,20 +742,16 @@ def run(spec: RunSpec | str | os.PathLike, out_dir: str | os.PathLike, *, overwr
     RunResult
         ``model`` is the :class:`UnitsModel` (its ``text()`` lists each unit's model).
     """
-    import logging
-    from .outputs import support_sinks
-    from .pipeline import run_in_folder, step_timer
-    if not isinstance(spec, RunSpec):
-        spec = load_spec(spec)
-    out_dir = Path(out_dir)
-    timings: dict[str, float] = {}
-    timed = step_timer(timings)
-    units = timed("read data and units", prepare_units, spec, progress)
-    for note in units.notes:
-        logging.getLogger("geosim").info("%s", note)
-    support_sinks(spec, units.modelled_grid, out_dir, {})  # bad query points fail before the folder is claimed
-    return run_in_folder(spec, out_dir, overwrite, resume,
-                         lambda: _run_steps(spec, units, out_dir, resume, progress, timed, timings))
+    from .pipeline import run_job
+
+    def prepare(spec: RunSpec, timed):
+        units = timed("read data and units", prepare_units, spec, progress)
+        return units, units.modelled_grid, units.notes
+
+    def steps(spec: RunSpec, units: UnitsModel, grid, out_dir: Path, timed, timings) -> RunResult:
+        return _run_steps(spec, units, out_dir, resume, progress, timed, timings)
+
+    return run_job(spec, out_dir, prepare, steps, overwrite=overwrite, resume=resume)
 
 
 def _run_steps(spec, units, out_dir, resume, progress, timed, timings) -> RunResult:
@@ -715,6 +764,9 @@ def _run_steps(spec, units, out_dir, resume, progress, timed, timings) -> RunRes
         if p.crossval is not None:
             s = p.crossval.summary["normal_scores"]
             notes.append(f"{p.name}: " + short_note(s["below_min_samples"], s["samples"], "left-out samples", p.spec))
+    crossval = pooled_crossval(units)
+    if crossval is not None:
+        extra["cross_validation"] = {k: v for k, v in crossval.items() if k != "by_unit"}
     if spec["outputs.estimate"]:
         est = timed("kriging estimate", estimate_units, spec, units, out_dir)
         files.update(est["files"])
@@ -726,7 +778,7 @@ def _run_steps(spec, units, out_dir, resume, progress, timed, timings) -> RunRes
         checks = [r["checks"]["units"][str(p.code)]["checks"] for r in sim.records]
         if all("extremes" in c for c in checks):
             notes.append(f"{p.name}: " + extremes_note(extremes_summary(p.data.values, checks), spec["data.units"]))
-    return RunResult(out_dir, spec.sha256, files, units, sim.kept, sim.computed, None, sim.decision_spread(),
+    return RunResult(out_dir, spec.sha256, files, units, sim.kept, sim.computed, crossval, sim.decision_spread(),
                      timings, notes, units.grid.ndim)
 
 

@@ -1199,9 +1199,6 @@ def _check_units(values: Mapping, out: dict, problems: list[str]) -> None:
                 found.append(hit[0].code)
         if len(found) == 2 and found[0] == found[1]:
             problems.append(f"units.soft[{i}].units: expected two different units, found {names}")
-    if out.get("simulation", {}).get("realizations_per_path", 1) not in (1, "auto"):
-        problems.append("simulation.realizations_per_path: expected 1 in a run of several units (each unit "
-                        f"draws its own path), found {out['simulation']['realizations_per_path']}")
     for name in tables:
         merged = merged_values(out, name)
         found: list[str] = []
