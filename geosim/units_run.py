@@ -48,7 +48,7 @@ from typing import Any
 
 import numpy as np
 
-from .config.runspec import RunSpec, has_units, unit_spec, unit_table
+from .config.runspec import OVERRIDABLE, RunSpec, has_units, unit_spec, unit_table
 from .errors import InputError
 from .inputs import load_samples, neighbourhood, read_holes, sample_ids
 from .outputs import metal_unit
@@ -81,6 +81,7 @@ class UnitPiece:
     extra_labels: list = field(default_factory=list)
     extra_holes: np.ndarray | None = None
     soft: list = field(default_factory=list)  # report: neighbour, distance, samples taken
+    secondary: Any = None         # its collocated secondary grid (geosim.secondary.SecondaryGrid), or None
 
     def conditioning(self) -> tuple[np.ndarray, np.ndarray]:
         """Coordinates and normal scores of every sample that conditions the unit (own + soft)."""
@@ -224,9 +225,26 @@ def prepare_units(spec: RunSpec, progress=None) -> UnitsModel:
         data = prepare_samples(uspec, own, relabel(progress, f"{unit.name}: declustering sizes"))
         pieces[c] = UnitPiece(c, unit.name, uspec, data, grid.with_mask(nodes == c))
     _soft_samples(spec, table, samples, codes, pieces)
+    from .secondary import secondary_grid
     for p in pieces.values():
+        if p.data.mean is not None:
+            notes.extend(f"{p.name}: {n}" for n in p.data.mean.notes)
+        # the secondary's transform on the unit's nodes, its correlation with the unit's own residuals
+        p.secondary = _named(p, secondary_grid, p.spec, p.data.samples, p.data.scores, p.grid)
+        if p.secondary is not None:
+            notes.extend(f"{p.name}: {n}" for n in p.secondary.notes)
         notes.extend(f"{p.name}: {n}" for n in preflight(p.spec, p.data, p.grid))
     return UnitsModel(table, samples, codes, grid, nodes, pieces, notes)
+
+
+def _named(piece: UnitPiece, step, *args, **kwargs):
+    """``step(*args, **kwargs)``, its input errors naming the unit (its own settings or the top-level
+    ones it takes)."""
+    try:
+        return step(*args, **kwargs)
+    except InputError as exc:
+        raise InputError(f"unit {piece.name}: {exc.message}", file=exc.file, row=exc.row,
+                         field=f"unit.{piece.name}.{exc.field}" if exc.field else None, fix=exc.fix) from None
 
 
 def _source_text(source: Mapping) -> str:
@@ -255,6 +273,8 @@ def _soft_samples(spec: RunSpec, table: UnitTable, samples, codes: np.ndarray, p
                 take = take[near > 1e-3]
             values = samples.column(spec["data.value"])[take]
             scores = piece.data.transform.transform(values) if take.size else np.empty(0)
+            if take.size and piece.data.mean is not None:  # residuals from this unit's own mean
+                scores = scores - _named(piece, piece.data.mean.at_points, samples.coords[take], samples.crs)
             labels = []
             for i in take:
                 file, row, text = sample_label(samples, int(i))
@@ -276,11 +296,7 @@ def _soft_samples(spec: RunSpec, table: UnitTable, samples, codes: np.ndarray, p
 def fit_units(units: UnitsModel, progress=None) -> None:
     """Each unit's variogram model and, when the outputs ask, its cross-validation (own samples)."""
     for p in units.pieces.values():
-        try:
-            p.variogram = variogram_model(p.spec, p.data, progress=progress)
-        except InputError as exc:  # name the unit: its own settings or the top-level ones it takes
-            raise InputError(f"unit {p.name}: {exc.message}", file=exc.file, row=exc.row,
-                             field=f"unit.{p.name}.{exc.field}" if exc.field else None, fix=exc.fix) from None
+        p.variogram = _named(p, variogram_model, p.spec, p.data, progress=progress)
         p.model = p.variogram.model
         if p.spec["outputs.cross_validation"]:
             p.crossval = cross_validate(p.spec, p.data, p.model, progress=progress)
@@ -407,17 +423,22 @@ class UnitsBackTransform:
     """Normal scores to data units, each node through its own unit's transform (picklable).
 
     Called with the active values of a joined field in C order (as the realization
-    writer does); ``codes`` are the unit codes of those nodes in the same order.
+    writer does); ``codes`` are the unit codes of those nodes in the same order, and
+    ``mean`` (optional, same order) each node's unit's locally varying mean, added to
+    the simulated residual before the back-transform (0 in a unit without one).
     """
 
-    def __init__(self, codes: np.ndarray, transforms: Mapping[int, Any]):
+    def __init__(self, codes: np.ndarray, transforms: Mapping[int, Any], mean: np.ndarray | None = None):
         self.codes = np.asarray(codes, dtype=np.int32)
         self.transforms = dict(transforms)
+        self.mean = None if mean is None else np.asarray(mean, dtype=float)
 
     def __call__(self, scores: np.ndarray) -> np.ndarray:
         scores = np.asarray(scores, dtype=float)
         if scores.shape != self.codes.shape:
             raise ValueError(f"{scores.size} values to back-transform for {self.codes.size} nodes of modelled units")
+        if self.mean is not None:
+            scores = scores + self.mean
         out = np.empty_like(scores)
         for code, transform in self.transforms.items():
             sel = self.codes == code
@@ -462,6 +483,8 @@ def _parts(spec: RunSpec, units: UnitsModel) -> list[UnitPart]:
             options["hole_ids"] = p.hole_ids()
         if spec["simulation.engine"] in ("sequential", "exact"):
             options["sample_ids"] = p.labels()
+            if p.secondary is not None:
+                options.update(p.secondary.engine_options(spec["simulation.engine"]))
         parts.append(UnitPart(p.code, coords, scores, p.model, p.grid, neighbourhood(p.spec), options))
     return parts
 
@@ -488,7 +511,7 @@ def _writer(spec: RunSpec, units: UnitsModel, out_dir: Path):
     tags = _tags(spec, units)
     derived, ranking = support_sinks(spec, grid, out_dir, tags)
     transforms = {c: p.data.transform for c, p in units.pieces.items()}
-    back = UnitsBackTransform(units.node_codes[grid.mask], transforms)
+    back = UnitsBackTransform(units.node_codes[grid.mask], transforms, _unit_means(units))
     checks = {c: RunChecks(p.grid, p.model, p.data.coords, p.data.scores, weights=p.data.weights,
                            data_values=p.data.values) for c, p in units.pieces.items()}
     figures = {c: _figures(p.spec, p.grid) for c, p in units.pieces.items()}
@@ -498,6 +521,18 @@ def _writer(spec: RunSpec, units: UnitsModel, out_dir: Path):
                              figures=_figures(spec, grid), measure=measure, metal_unit=metal_unit(spec),
                              overwrite=True, derived=derived, ranking=ranking,
                              layers=[(layer, "unit code", "")])
+
+
+def _unit_means(units: UnitsModel) -> np.ndarray | None:
+    """Each modelled node's unit mean in normal scores, in the C order of the modelled grid's active
+    nodes (0 in units without one); None when no unit has a mean."""
+    if all(p.data.mean is None for p in units.pieces.values()):
+        return None
+    mean = np.zeros(units.grid.shape)
+    for p in units.pieces.values():
+        if p.data.mean is not None:
+            mean[p.grid.mask] = p.data.mean.at_nodes(p.grid)[p.grid.mask]
+    return mean[units.modelled_grid.mask]
 
 
 def simulate_units(spec: RunSpec, units: UnitsModel, out_dir: str | os.PathLike, *, overwrite: bool = False,
@@ -532,8 +567,8 @@ def estimate_units(spec: RunSpec, units: UnitsModel, out_dir: Path | None = None
     """Kriging of each unit's normal scores on its own nodes (its conditioning samples, its model and
     search), joined; with ``out_dir``, ``estimate.tif`` (per level for 3-D) or the estimate cube,
     each with the unit-code layer.  Returns the files and the per-unit counts of short searches."""
-    from .kriging import krige
     from .outputs import CUBE_SUFFIX, cube_format, level_geotiffs
+    from .secondary import krige_nodes, spread_comparison
     from .results import EstimateResult
     from .moments import multigaussian_moments
     grid = units.grid
@@ -541,13 +576,19 @@ def estimate_units(spec: RunSpec, units: UnitsModel, out_dir: Path | None = None
     counts = {}
     for p in units.pieces.values():
         coords, scores = p.conditioning()
-        result = krige(coords, scores, p.grid.coords(), p.model, method=p.spec["simulation.kriging"], mean=0.0,
-                       neighbourhood=neighbourhood(p.spec), hole_ids=p.hole_ids(), sample_ids=p.labels())
-        mean, var = multigaussian_moments(p.data.transform, result.estimate, result.variance)
-        for target, values in zip(maps, (result.estimate, result.variance, mean, var)):
+        estimate, variance, result = krige_nodes(
+            coords, scores, p.grid, p.model, mean=p.data.mean, secondary=p.secondary,
+            method=p.spec["simulation.kriging"], neighbourhood=neighbourhood(p.spec), hole_ids=p.hole_ids(),
+            sample_ids=p.labels())
+        mean, var = multigaussian_moments(p.data.transform, estimate, variance)
+        for target, values in zip(maps, (estimate, variance, mean, var)):
             target[p.grid.mask] = values
         counts[p.name] = {"below_min_samples": int(result.n_short),
                           "unestimated": int(np.count_nonzero(np.isnan(result.estimate)))}
+        if p.secondary is not None:
+            counts[p.name]["secondary_spread"] = spread_comparison(
+                p.data.transform, estimate, variance, result,
+                None if p.data.mean is None else p.data.mean.at_nodes(p.grid)[p.grid.mask])
     est = EstimateResult(*maps, n_short=sum(c["below_min_samples"] for c in counts.values()),
                          n_unestimated=sum(c["unestimated"] for c in counts.values()), grid=grid,
                          units=spec["data.units"])
@@ -651,6 +692,7 @@ def summarize_units(spec: RunSpec, units: UnitsModel, simulation: SimulationResu
     reproduction checks and plots, and the report with one section per unit."""
     from .io import plots
     from .outputs import _cubes_and_tables, _support_plots, _support_report, close_outputs
+    from .secondary import report_sections
     from .summaries import decision_spread
     out = spec["outputs"]
     records = simulation.records
@@ -700,10 +742,10 @@ def summarize_units(spec: RunSpec, units: UnitsModel, simulation: SimulationResu
                 "transform": p.data.transform.describe(),
                 "variogram": {"model": vg.model_text() if vg.ndim else p.model.text(grid.ndim), "source": vg.source,
                               **({"fit": vg.fit.to_dict()} if vg.fit is not None else {})},
-                "settings": {k: v for k, v in spec["unit"][unit.name].items()
-                             if k in ("declustering", "transform", "variogram", "search", "outputs")},
+                "settings": {k: v for k, v in spec["unit"][unit.name].items() if k in OVERRIDABLE},
                 "soft_boundaries": p.soft,
-                "validation": validation[p.code]})
+                "validation": validation[p.code],
+                **report_sections(p.spec, p.data, p.grid)})
             if p.crossval is not None:
                 entry["cross_validation"] = p.crossval.summary
             if unit.name in spreads:
@@ -796,6 +838,11 @@ def describe_units(units: UnitsModel) -> list[tuple[str, str]]:
             text = (f"{samples} samples, {nodes} nodes; variogram "
                     f"{'fitted' if p.spec['variogram.fit'] else 'fixed'}; {p.data.transform.describe()}"
                     + (f"; {soft} samples of neighbours across soft contacts" if soft else ""))
+            if p.data.mean is not None:
+                text += (f"; mean: trend of order {p.data.mean.trend.order}" if p.data.mean.kind == "trend"
+                         else "; mean: grid")
+            if p.secondary is not None:
+                text += f"; secondary correlation {p.secondary.correlation:.3f}"
         rows.append((f"unit {units.table.label(unit.code)}", text))
     rows.append(("grid", " x ".join(map(str, units.grid.shape)) + f" nodes, {units.grid.n_active} inside the "
                  f"domain, {units.modelled_grid.n_active} of modelled units"))

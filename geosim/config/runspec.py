@@ -1043,12 +1043,12 @@ def _check_files(spec: dict, base: Path, problems: list[str], frames: Mapping | 
 # -- several geological units: [units] and [unit.<name>] ------------------------------------------
 # ``[units]`` says where the codes come from and how units meet; one ``[unit.<name>]`` table per
 # unit gives its code and overrides any key of the top-level [declustering], [transform],
-# [variogram], [search] and the cut-offs of [outputs]; whatever a unit leaves out it takes from the
+# [variogram], [search], [mean], [secondary] and the cut-offs of [outputs]; whatever a unit leaves out it takes from the
 # top level.  :func:`unit_spec` gives one unit's view of the spec, so every step that builds a
 # one-unit run builds each unit's piece.  A spec without these sections is normalized and hashed
 # exactly as before they existed (they appear in the normalized spec only when given).
 UNIT_SECTIONS = ("units", "unit")
-OVERRIDABLE = ("declustering", "transform", "variogram", "search", "outputs")
+OVERRIDABLE = ("declustering", "transform", "variogram", "search", "mean", "secondary", "outputs")
 # of [outputs], a unit overrides only what is computed per unit
 OUTPUT_OVERRIDES = ("cutoffs",)
 # source keys that name files (resolved against the spec's folder, hashed into the provenance)
@@ -1231,7 +1231,8 @@ def unit_table(spec):
 
 
 def unit_input_files(values: Mapping) -> dict[str, Any]:
-    """``{"units.nodes.raster": path text, ...}``: the files the unit sources name."""
+    """``{"units.nodes.raster": path text, "unit.<name>.mean.file": ..., ...}``: the files the unit
+    sources and the units' own tables name."""
     out = {}
     units = values.get("units")
     if not units:
@@ -1245,6 +1246,13 @@ def unit_input_files(values: Mapping) -> dict[str, Any]:
             for i, path in enumerate(source["surfaces"]):
                 if isinstance(path, str):
                     out[f"units.{key}.surfaces[{i}]"] = path
+    # files a unit's own table names (a model file, a mean or secondary grid)
+    for name, table in (values.get("unit") or {}).items():
+        for section, keys in INPUT_FILE_KEYS:
+            override = table.get(section) if isinstance(table, Mapping) else None
+            for k in keys:
+                if isinstance(override, Mapping) and isinstance(override.get(k), str):
+                    out[f"unit.{name}.{section}.{k}"] = override[k]
     return out
 
 
