@@ -693,6 +693,7 @@ def summarize_units(spec: RunSpec, units: UnitsModel, simulation: SimulationResu
     from .io import plots
     from .outputs import _cubes_and_tables, _support_plots, _support_report, close_outputs
     from .secondary import report_sections
+    from .simulation.runner import per_path_for
     from .summaries import decision_spread
     out = spec["outputs"]
     records = simulation.records
@@ -757,7 +758,9 @@ def summarize_units(spec: RunSpec, units: UnitsModel, simulation: SimulationResu
                    "grid": {"shape": list(grid.shape), "cell": list(grid.cell), "active_nodes": units.grid.n_active,
                             "modelled_nodes": grid.n_active,
                             "crs": grid.crs.to_string() if grid.crs is not None else None},
-                   "realizations": {"count": len(records), "kept_from_earlier_run": simulation.kept},
+                   "realizations": {"count": len(records), "kept_from_earlier_run": simulation.kept,
+                                    "per_path": per_path_for(spec["simulation.realizations_per_path"], grid,
+                                                             UnitsEngine(spec["simulation.engine"]))},
                    "seeding": "realization i of the unit with code u draws from SeedSequence(seed, spawn_key=(i, u))",
                    "units": sections})
     figures = [r.get("figures") for r in records]

@@ -143,6 +143,8 @@ def test_units_run_on_a_dask_cluster_equals_the_serial_run(tmp_path, field, dask
                                             "simulation.cluster": dask_cluster.scheduler_address}),
                            tmp_path / "dask")
     assert remote.computed == serial.computed == [0, 1, 2, 3]
+    report = json.loads((tmp_path / "dask" / "report.json").read_text())
+    assert report["realizations"]["per_path"] == per_path
     rasters = sorted(p.relative_to(tmp_path / "serial") for p in (tmp_path / "serial").rglob("*.tif"))
     tables = sorted(p.relative_to(tmp_path / "serial") for p in (tmp_path / "serial").rglob("*.csv"))
     assert len(rasters) >= 6 and len(tables) >= 4
@@ -184,3 +186,16 @@ def test_command_line_summary_gives_cross_validation_per_unit_and_in_total(tmp_p
     assert total["normal_scores"]["rmse"] == pytest.approx(math.sqrt(np.mean(e ** 2)), rel=1e-5)
     assert total["normal_scores"]["mean_error"] == pytest.approx(e.mean(), abs=1e-6)
     assert "declustered_rmse" not in total["normal_scores"]   # weights are relative within a unit
+
+
+def test_auto_shares_paths_in_units_runs_only_with_an_engine_that_can():
+    # "auto": 10 per path on a grid of 250,000 active nodes or more, when the inner engine has batches
+    from geosim.grid import Grid
+    from geosim.simulation.runner import per_path_for
+    large = Grid(0.0, 0.0, (1.0, 1.0), (500, 500))
+    assert per_path_for("auto", large, units_run.UnitsEngine("sequential")) == 10
+    assert per_path_for("auto", large, units_run.UnitsEngine("exact")) == 1
+    assert not hasattr(units_run.UnitsEngine("exact"), "realize_batch")
+    with pytest.raises(Exception, match="cannot share a path"):
+        simulate(np.zeros((1, 2)), np.zeros(1), None, Grid(0.0, 0.0, (1.0, 1.0), (4, 4)), n_realizations=2,
+                 seed=1, engine=units_run.UnitsEngine("exact"), realizations_per_path=2, workers=1)
