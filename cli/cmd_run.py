@@ -65,7 +65,9 @@ def run(ctx, spec, out_dir, overrides, workers, cluster, overwrite, no_resume, c
     rows = [("output folder", str(result.out_dir)),
             ("variogram model" + (" per unit" if units else ""), result.model.text(result.ndim).strip())]
     if result.crossval:
-        rows.append(("cross-validation", crossval_text(result.crossval)))
+        for name, summary in result.crossval.get("by_unit", {}).items():
+            rows.append((f"cross-validation, unit {name}", crossval_text(summary)))
+        rows.append(("cross-validation" + (", all units" if units else ""), crossval_text(result.crossval)))
     rows.append(("realizations", realizations))
     if result.decision:
         rows.append(("decision figures", decision_text(result.decision, units=run_spec["data.units"],

@@ -394,6 +394,7 @@ def write_summaries(spec: RunSpec, out_dir: Path, data: PreparedData, model, gri
 
     Returns output kind -> list of paths.
     """
+    from .simulation.runner import per_path_for
     n = spec["simulation.realizations"]
     out = spec["outputs"]
     files = simulation.writer.finish(simulation.records, cutoffs=out["cutoffs"], stack=True,
@@ -403,7 +404,9 @@ def write_summaries(spec: RunSpec, out_dir: Path, data: PreparedData, model, gri
                    "parameters": spec.to_dict(), "samples": int(len(data.values)), "notes": list(data.notes),
                    "grid": {"shape": list(grid.shape), "cell": list(grid.cell), "active_nodes": grid.n_active,
                             "crs": grid.crs.to_string() if grid.crs is not None else None},
-                   "realizations": {"count": n, "kept_from_earlier_run": simulation.kept}})
+                   "realizations": {"count": n, "kept_from_earlier_run": simulation.kept,
+                                    "per_path": per_path_for(spec["simulation.realizations_per_path"], grid,
+                                                             spec["simulation.engine"])}})
     validation = simulation.writer.validation(simulation.records)
     if validation is not None:
         report["validation"] = validation

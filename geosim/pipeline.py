@@ -398,20 +398,43 @@ def run(spec: RunSpec | str | os.PathLike, out_dir: str | os.PathLike, *, overwr
     -------
     RunResult
     """
+    def prepare(spec: RunSpec, timed: Callable):
+        data = timed("read and transform data", prepare_data, spec, progress)
+        grid = timed("grid and domain", make_grid, spec, data)
+        data.notes.extend(timed("checks", preflight, spec, data, grid))
+        return data, grid, data.notes
+
+    def steps(spec: RunSpec, data: PreparedData, grid, out_dir: Path, timed: Callable,
+              timings: dict[str, float]) -> RunResult:
+        return _run_steps(spec, data, grid, out_dir, resume, progress, timed, timings)
+
+    return run_job(spec, out_dir, prepare, steps, overwrite=overwrite, resume=resume)
+
+
+def run_job(spec: RunSpec | str | os.PathLike, out_dir: str | os.PathLike, prepare: Callable, steps: Callable, *,
+            overwrite: bool, resume: bool) -> RunResult:
+    """The frame every whole run shares (:func:`run`, :func:`geosim.units_run.run`).
+
+    Loads the spec, starts the step timer, runs ``prepare(spec, timed) -> (prepared, grid,
+    notes)`` (reading and checking everything before the folder is touched), logs the
+    notes, reads the change-of-support sinks' inputs (bad query points fail here too), then
+    claims ``out_dir`` (:func:`run_in_folder`) and returns ``steps(spec, prepared, grid,
+    out_dir, timed, timings)``.  ``timed(name, func, *args)`` is :func:`step_timer`'s.
+    """
+    from .simulation.runner import compile_ahead
     if not isinstance(spec, RunSpec):
         spec = load_spec(spec)
     out_dir = Path(out_dir)
     timings: dict[str, float] = {}
+    compile_ahead(spec["simulation.engine"])  # a first run's engine compiles beside the steps before it
     timed = step_timer(timings)
-    data = timed("read and transform data", prepare_data, spec, progress)
-    for note in data.notes:
+    prepared, grid, notes = prepare(spec, timed)
+    for note in notes:
         log.info("%s", note)
-    grid = timed("grid and domain", make_grid, spec, data)
-    data.notes.extend(timed("checks", preflight, spec, data, grid))
     support_sinks(spec, grid, out_dir, {})  # bad query points or ranking region fail before the folder is claimed
     log.info("%r", grid)
     return run_in_folder(spec, out_dir, overwrite, resume,
-                         lambda: _run_steps(spec, data, grid, out_dir, resume, progress, timed, timings))
+                         lambda: steps(spec, prepared, grid, out_dir, timed, timings))
 
 
 def step_timer(timings: dict[str, float]) -> Callable:

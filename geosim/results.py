@@ -158,7 +158,8 @@ class RunResult:
 
     def __repr__(self) -> str:
         n = len(self.kept) + len(self.computed)
-        rmse = f", cross-validation RMSE {self.crossval['rmse']:.4g}" if self.crossval else ""
+        rmse = (f", cross-validation RMSE {self.crossval['normal_scores']['rmse']:.4g} (normal scores)"
+                if self.crossval else "")
         return (f"RunResult({str(self.out_dir)!r}, {n} realizations ({len(self.computed)} computed), "
                 f"model {' '.join(str(self.model).split())!r}{rmse})")
 

@@ -161,6 +161,19 @@ class LocalMean:
             self._nodes = {key: values}
         return self._nodes[key]
 
+    def at_points(self, coords: np.ndarray, crs) -> np.ndarray:
+        """The mean at other points than the samples (e.g. a neighbouring unit's samples across a
+        soft contact), in normal scores; a mean grid must cover them."""
+        if self.kind == "trend":
+            return self.trend(coords)
+        raw, _, _ = _read(self.spec, "mean", coords, crs)
+        if not np.isfinite(raw).all():
+            raise InputError(f"the mean grid has no value at {int(np.count_nonzero(~np.isfinite(raw)))} of "
+                             f"{raw.size} points ({_where(coords[~np.isfinite(raw)])})",
+                             file=str(self.spec.resolve(self.spec["mean.file"])), field="mean.file",
+                             fix="give a mean grid that covers every sample")
+        return _to_scores(self.transform, raw, self.spec, coords)
+
     def report(self, weights: np.ndarray | None = None, grid=None) -> dict:
         """The report's ``mean`` section: the trend fit or the mean grid's summary, and the
         residuals' statistics (declustered when ``weights`` are given)."""
@@ -401,7 +414,7 @@ def krige_nodes(data_coords, residuals, grid, model, *, mean: LocalMean | None, 
 def spread_comparison(transform, estimate: np.ndarray, variance: np.ndarray, kriging, mean_at_nodes) -> dict:
     """Mean spread at the nodes without and with the secondary: kriging standard deviation of the
     normal scores and the conditional standard deviation in data units (multi-Gaussian moments)."""
-    from .transforms import multigaussian_moments
+    from .moments import multigaussian_moments
     primary = kriging.estimate + (0.0 if mean_at_nodes is None else mean_at_nodes)
     out = {}
     for name, est, var in (("primary_only", primary, kriging.variance), ("with_secondary", estimate, variance)):

@@ -13,7 +13,12 @@ unit, applied to each unit's piece and then joined:
    ``i`` of the unit with code ``u`` draws from
    ``numpy.random.SeedSequence(seed, spawn_key=(i, u))``, the child ``u`` spawned
    from realization ``i``'s own sequence, so adding, removing or reordering units,
-   or running them on other workers, never changes the others;
+   or running them on other workers, never changes the others.  With
+   ``simulation.realizations_per_path = p > 1`` realizations of a group
+   ``g = i // p`` share paths as in a run of one unit: unit ``u`` draws its path
+   from ``SeedSequence(seed, spawn_key=(PATH_STREAM, g, u))``
+   (:data:`geosim.simulation.runner.PATH_STREAM`), so each unit has its own path and
+   still depends on nothing but the seed, ``i``, ``p`` and ``u``;
 4. the unit fields are joined into one realization, back-transformed unit by unit
    (:class:`UnitsBackTransform`) and written by the usual realization writer, every
    raster gaining a last band of unit codes; summaries and decision figures are
@@ -43,7 +48,7 @@ from typing import Any
 
 import numpy as np
 
-from .config.runspec import RunSpec, has_units, load_spec, unit_spec, unit_table
+from .config.runspec import OVERRIDABLE, RunSpec, has_units, unit_spec, unit_table
 from .errors import InputError
 from .inputs import load_samples, neighbourhood, read_holes, sample_ids
 from .outputs import metal_unit
@@ -51,10 +56,10 @@ from .pipeline import cross_validate, make_grid, prepare_samples, preflight, var
 from .progress import relabel
 from .results import PreparedData, RunResult, SimulationResult
 from .runstate import STATE_DIR, RecordingSink, completed_realizations, make_folder, open_output, with_folder_lock
-from .units import NODATA, UnitTable, node_units, sample_units
+from .units import NODATA, UnitTable, composite_by_unit, node_units, read_unit_intervals, sample_units
 
 __all__ = ["UnitPiece", "UnitsModel", "UnitsEngine", "UnitsPlan", "UnitsBackTransform", "UnitsMeasure",
-           "unit_rng", "load_unit_samples", "prepare_units", "simulate_units", "run"]
+           "unit_rng", "load_unit_samples", "prepare_units", "fit_units", "pooled_crossval", "simulate_units", "run"]
 
 
 # -- the units' pieces --------------------------------------------------------------------------
@@ -76,6 +81,7 @@ class UnitPiece:
     extra_labels: list = field(default_factory=list)
     extra_holes: np.ndarray | None = None
     soft: list = field(default_factory=list)  # report: neighbour, distance, samples taken
+    secondary: Any = None         # its collocated secondary grid (geosim.secondary.SecondaryGrid), or None
 
     def conditioning(self) -> tuple[np.ndarray, np.ndarray]:
         """Coordinates and normal scores of every sample that conditions the unit (own + soft)."""
@@ -136,20 +142,13 @@ def load_unit_samples(spec: RunSpec):
     units (``units.samples = { intervals = ... }``) are composited so that no
     composite straddles a contact (:func:`geosim.units.composite_by_unit`).
     """
-    import geosim.units as units_module
     table = unit_table(spec)
     source = spec["units.samples"]
     name = spec["data.value"]
     if "intervals" in source:
-        composite_by_unit = getattr(units_module, "composite_by_unit", None)
-        read_intervals = getattr(units_module, "read_unit_intervals", None)
-        if composite_by_unit is None or read_intervals is None:
-            raise InputError("logged-unit interval tables are not available in this version of geosim",
-                             file=spec.name, field="units.samples.intervals",
-                             fix="give the unit of each composite as a column of a point table")
         columns = {"hole": "hole", "from": "start", "to": "end", "code": "code"}  # spec key -> keyword
-        logged = read_intervals(spec.resolve(source["intervals"]), table,
-                                **{columns[k]: source[k] for k in columns if k in source})
+        logged = read_unit_intervals(spec.resolve(source["intervals"]), table,
+                                     **{columns[k]: source[k] for k in columns if k in source})
         comp = spec["data.composites"]
         samples = composite_by_unit(read_holes(spec), logged, comp["length"], min_fraction=comp["min_fraction"],
                                     residual=comp["residual"], min_sampled_fraction=comp["min_sampled_fraction"])
@@ -226,9 +225,26 @@ def prepare_units(spec: RunSpec, progress=None) -> UnitsModel:
         data = prepare_samples(uspec, own, relabel(progress, f"{unit.name}: declustering sizes"))
         pieces[c] = UnitPiece(c, unit.name, uspec, data, grid.with_mask(nodes == c))
     _soft_samples(spec, table, samples, codes, pieces)
+    from .secondary import secondary_grid
     for p in pieces.values():
+        if p.data.mean is not None:
+            notes.extend(f"{p.name}: {n}" for n in p.data.mean.notes)
+        # the secondary's transform on the unit's nodes, its correlation with the unit's own residuals
+        p.secondary = _named(p, secondary_grid, p.spec, p.data.samples, p.data.scores, p.grid)
+        if p.secondary is not None:
+            notes.extend(f"{p.name}: {n}" for n in p.secondary.notes)
         notes.extend(f"{p.name}: {n}" for n in preflight(p.spec, p.data, p.grid))
     return UnitsModel(table, samples, codes, grid, nodes, pieces, notes)
+
+
+def _named(piece: UnitPiece, step, *args, **kwargs):
+    """``step(*args, **kwargs)``, its input errors naming the unit (its own settings or the top-level
+    ones it takes)."""
+    try:
+        return step(*args, **kwargs)
+    except InputError as exc:
+        raise InputError(f"unit {piece.name}: {exc.message}", file=exc.file, row=exc.row,
+                         field=f"unit.{piece.name}.{exc.field}" if exc.field else None, fix=exc.fix) from None
 
 
 def _source_text(source: Mapping) -> str:
@@ -257,6 +273,8 @@ def _soft_samples(spec: RunSpec, table: UnitTable, samples, codes: np.ndarray, p
                 take = take[near > 1e-3]
             values = samples.column(spec["data.value"])[take]
             scores = piece.data.transform.transform(values) if take.size else np.empty(0)
+            if take.size and piece.data.mean is not None:  # residuals from this unit's own mean
+                scores = scores - _named(piece, piece.data.mean.at_points, samples.coords[take], samples.crs)
             labels = []
             for i in take:
                 file, row, text = sample_label(samples, int(i))
@@ -278,14 +296,41 @@ def _soft_samples(spec: RunSpec, table: UnitTable, samples, codes: np.ndarray, p
 def fit_units(units: UnitsModel, progress=None) -> None:
     """Each unit's variogram model and, when the outputs ask, its cross-validation (own samples)."""
     for p in units.pieces.values():
-        try:
-            p.variogram = variogram_model(p.spec, p.data, progress=progress)
-        except InputError as exc:  # name the unit: its own settings or the top-level ones it takes
-            raise InputError(f"unit {p.name}: {exc.message}", file=exc.file, row=exc.row,
-                             field=f"unit.{p.name}.{exc.field}" if exc.field else None, fix=exc.fix) from None
+        p.variogram = _named(p, variogram_model, p.spec, p.data, progress=progress)
         p.model = p.variogram.model
         if p.spec["outputs.cross_validation"]:
             p.crossval = cross_validate(p.spec, p.data, p.model, progress=progress)
+
+
+def pooled_crossval(units: UnitsModel) -> dict | None:
+    """The cross-validation of every modelled unit taken together (None without any).
+
+    Each unit's left-out samples keep the estimates of their own unit's model, search and
+    transform; the figures are those of all of them pooled, in normal scores (each unit's
+    own, all standard normal) and in data units.  Declustering weights are relative within
+    a unit, so the pooled figures are plain (the declustered ones are per unit).
+    ``{"normal_scores": {...}, "data_units": {...}, "by_unit": {name: the unit's summary}}``.
+    """
+    from dataclasses import replace
+    done = [p for p in units.pieces.values() if p.crossval is not None]
+    if not done:
+        return None
+
+    def pool(parts, scale: str):
+        return replace(parts[0], coords=np.vstack([r.coords for r in parts]),
+                       values=np.concatenate([r.values for r in parts]),
+                       estimate=np.concatenate([r.estimate for r in parts]),
+                       variance=np.concatenate([r.variance for r in parts]),
+                       n_used=np.concatenate([r.n_used for r in parts]),
+                       sample_ids=[i for r in parts for i in r.sample_ids], weights=None,
+                       model_text="each unit's own model", n_short=sum(r.n_short for r in parts), scale=scale)
+
+    out = {"normal_scores": pool([p.crossval.result for p in done], "normal scores").summary(),
+           "data_units": pool([p.crossval.data_units for p in done], "data units").summary(),
+           "by_unit": {p.name: p.crossval.summary for p in done}}
+    out["basis"] = ("leave-one-out kriging of each unit's samples by its own model and search, pooled over the "
+                    f"units {', '.join(p.name for p in done)}; declustered figures are per unit")
+    return out
 
 
 # -- simulation ---------------------------------------------------------------------------------
@@ -325,7 +370,8 @@ class UnitsEngine:
 
     ``prepare(..., parts=[UnitPart, ...])`` prepares each unit with the inner
     engine; ``realize(plan, rng)`` realizes each with :func:`unit_rng` and puts
-    each unit's nodes into one field (NaN elsewhere).
+    each unit's nodes into one field (NaN elsewhere); ``realize_batch`` does the
+    same for a group of realizations sharing paths, one path per unit.
     """
 
     name = "units"
@@ -349,22 +395,50 @@ class UnitsEngine:
             out[inside] = field[inside]
         return out
 
+    @property
+    def realize_batch(self):
+        """Realizations sharing random paths (``realizations_per_path > 1``), when the inner engine
+        can: each unit draws its own path from :func:`unit_rng` of the group's path generator
+        (spawn key ``(PATH_STREAM, group, code)``) and each member's values from :func:`unit_rng`
+        of its own generator, so a unit's member depends only on the seed, its index, the group
+        size and the unit.  Absent (``hasattr`` is False) for an inner engine without batches.
+        """
+        from .simulation.runner import resolve_engine
+        if not hasattr(resolve_engine(self.engine), "realize_batch"):
+            raise AttributeError(f"engine {self.engine!r} cannot share a path between realizations")
+        return self._realize_batch
+
+    def _realize_batch(self, plan: UnitsPlan, path_rng: np.random.Generator,
+                       rngs: Sequence[np.random.Generator]) -> list[np.ndarray]:
+        out = [np.full(plan.node_codes.shape, np.nan) for _ in rngs]
+        for code, prepared in zip(plan.codes, plan.prepared):
+            fields = plan.engine.realize_batch(prepared, unit_rng(path_rng, code), [unit_rng(r, code) for r in rngs])
+            inside = plan.node_codes == code
+            for joined, field in zip(out, fields):
+                joined[inside] = field[inside]
+        return out
+
 
 class UnitsBackTransform:
     """Normal scores to data units, each node through its own unit's transform (picklable).
 
     Called with the active values of a joined field in C order (as the realization
-    writer does); ``codes`` are the unit codes of those nodes in the same order.
+    writer does); ``codes`` are the unit codes of those nodes in the same order, and
+    ``mean`` (optional, same order) each node's unit's locally varying mean, added to
+    the simulated residual before the back-transform (0 in a unit without one).
     """
 
-    def __init__(self, codes: np.ndarray, transforms: Mapping[int, Any]):
+    def __init__(self, codes: np.ndarray, transforms: Mapping[int, Any], mean: np.ndarray | None = None):
         self.codes = np.asarray(codes, dtype=np.int32)
         self.transforms = dict(transforms)
+        self.mean = None if mean is None else np.asarray(mean, dtype=float)
 
     def __call__(self, scores: np.ndarray) -> np.ndarray:
         scores = np.asarray(scores, dtype=float)
         if scores.shape != self.codes.shape:
             raise ValueError(f"{scores.size} values to back-transform for {self.codes.size} nodes of modelled units")
+        if self.mean is not None:
+            scores = scores + self.mean
         out = np.empty_like(scores)
         for code, transform in self.transforms.items():
             sel = self.codes == code
@@ -409,6 +483,8 @@ def _parts(spec: RunSpec, units: UnitsModel) -> list[UnitPart]:
             options["hole_ids"] = p.hole_ids()
         if spec["simulation.engine"] in ("sequential", "exact"):
             options["sample_ids"] = p.labels()
+            if p.secondary is not None:
+                options.update(p.secondary.engine_options(spec["simulation.engine"]))
         parts.append(UnitPart(p.code, coords, scores, p.model, p.grid, neighbourhood(p.spec), options))
     return parts
 
@@ -435,7 +511,7 @@ def _writer(spec: RunSpec, units: UnitsModel, out_dir: Path):
     tags = _tags(spec, units)
     derived, ranking = support_sinks(spec, grid, out_dir, tags)
     transforms = {c: p.data.transform for c, p in units.pieces.items()}
-    back = UnitsBackTransform(units.node_codes[grid.mask], transforms)
+    back = UnitsBackTransform(units.node_codes[grid.mask], transforms, _unit_means(units))
     checks = {c: RunChecks(p.grid, p.model, p.data.coords, p.data.scores, weights=p.data.weights,
                            data_values=p.data.values) for c, p in units.pieces.items()}
     figures = {c: _figures(p.spec, p.grid) for c, p in units.pieces.items()}
@@ -445,6 +521,18 @@ def _writer(spec: RunSpec, units: UnitsModel, out_dir: Path):
                              overwrite=True, derived=derived, ranking=ranking,
                              layers=[(_code_layer(units), "unit code", "")],
                              **_cube_options(spec, grid, grid, "conditional realization"))
+
+
+def _unit_means(units: UnitsModel) -> np.ndarray | None:
+    """Each modelled node's unit mean in normal scores, in the C order of the modelled grid's active
+    nodes (0 in units without one); None when no unit has a mean."""
+    if all(p.data.mean is None for p in units.pieces.values()):
+        return None
+    mean = np.zeros(units.grid.shape)
+    for p in units.pieces.values():
+        if p.data.mean is not None:
+            mean[p.grid.mask] = p.data.mean.at_nodes(p.grid)[p.grid.mask]
+    return mean[units.modelled_grid.mask]
 
 
 def simulate_units(spec: RunSpec, units: UnitsModel, out_dir: str | os.PathLike, *, overwrite: bool = False,
@@ -457,7 +545,7 @@ def simulate_units(spec: RunSpec, units: UnitsModel, out_dir: str | os.PathLike,
     n = spec["simulation.realizations"]
     kept = completed_realizations(out_dir, header, n) if resume else {}
     missing = [i for i in range(n) if i not in kept]
-    writer.open_stores(n, kept)  # the change-of-support sinks' realization stores
+    writer.open_stores(n, kept)  # made here, once, before any worker writes into them
     sink = RecordingSink(writer, out_dir / STATE_DIR, header["resume_key"], header["seed"])
     sim = spec["simulation"]
     records = dict(kept)
@@ -466,8 +554,8 @@ def simulate_units(spec: RunSpec, units: UnitsModel, out_dir: str | os.PathLike,
         new = run_engine(everything.coords, np.zeros(len(everything)), None, units.modelled_grid,
                          n_realizations=n, seed=sim["seed"], engine=UnitsEngine(sim["engine"]),
                          kriging=sim["kriging"], workers=sim["workers"], client=sim["cluster"], sink=sink,
-                         indices=missing, progress=progress, parts=_parts(spec, units),
-                         node_codes=units.node_codes)
+                         indices=missing, progress=progress, realizations_per_path=sim["realizations_per_path"],
+                         parts=_parts(spec, units), node_codes=units.node_codes)
         records.update(zip(missing, new))
     elif progress is not None:
         progress(n, n, "realizations")
@@ -480,8 +568,8 @@ def estimate_units(spec: RunSpec, units: UnitsModel, out_dir: Path | None = None
     """Kriging of each unit's normal scores on its own nodes (its conditioning samples, its model and
     search), joined; with ``out_dir``, ``estimate.tif`` (per level for 3-D) or the estimate cube,
     each with the unit-code layer.  Returns the files and the per-unit counts of short searches."""
-    from .kriging import krige
     from .outputs import CUBE_SUFFIX, cube_format, level_geotiffs
+    from .secondary import krige_nodes, spread_comparison
     from .results import EstimateResult
     from .moments import multigaussian_moments
     grid = units.grid
@@ -489,13 +577,19 @@ def estimate_units(spec: RunSpec, units: UnitsModel, out_dir: Path | None = None
     counts = {}
     for p in units.pieces.values():
         coords, scores = p.conditioning()
-        result = krige(coords, scores, p.grid.coords(), p.model, method=p.spec["simulation.kriging"], mean=0.0,
-                       neighbourhood=neighbourhood(p.spec), hole_ids=p.hole_ids(), sample_ids=p.labels())
-        mean, var = multigaussian_moments(p.data.transform, result.estimate, result.variance)
-        for target, values in zip(maps, (result.estimate, result.variance, mean, var)):
+        estimate, variance, result = krige_nodes(
+            coords, scores, p.grid, p.model, mean=p.data.mean, secondary=p.secondary,
+            method=p.spec["simulation.kriging"], neighbourhood=neighbourhood(p.spec), hole_ids=p.hole_ids(),
+            sample_ids=p.labels())
+        mean, var = multigaussian_moments(p.data.transform, estimate, variance)
+        for target, values in zip(maps, (estimate, variance, mean, var)):
             target[p.grid.mask] = values
         counts[p.name] = {"below_min_samples": int(result.n_short),
                           "unestimated": int(np.count_nonzero(np.isnan(result.estimate)))}
+        if p.secondary is not None:
+            counts[p.name]["secondary_spread"] = spread_comparison(
+                p.data.transform, estimate, variance, result,
+                None if p.data.mean is None else p.data.mean.at_nodes(p.grid)[p.grid.mask])
     est = EstimateResult(*maps, n_short=sum(c["below_min_samples"] for c in counts.values()),
                          n_unestimated=sum(c["unestimated"] for c in counts.values()), grid=grid,
                          units=spec["data.units"])
@@ -599,6 +693,8 @@ def summarize_units(spec: RunSpec, units: UnitsModel, simulation: SimulationResu
     reproduction checks and plots, and the report with one section per unit."""
     from .io import plots
     from .outputs import _support_plots, _support_report, close_outputs
+    from .secondary import report_sections
+    from .simulation.runner import per_path_for
     from .summaries import decision_spread
     out = spec["outputs"]
     records = simulation.records
@@ -646,10 +742,10 @@ def summarize_units(spec: RunSpec, units: UnitsModel, simulation: SimulationResu
                 "transform": p.data.transform.describe(),
                 "variogram": {"model": vg.model_text() if vg.ndim else p.model.text(grid.ndim), "source": vg.source,
                               **({"fit": vg.fit.to_dict()} if vg.fit is not None else {})},
-                "settings": {k: v for k, v in spec["unit"][unit.name].items()
-                             if k in ("declustering", "transform", "variogram", "search", "outputs")},
+                "settings": {k: v for k, v in spec["unit"][unit.name].items() if k in OVERRIDABLE},
                 "soft_boundaries": p.soft,
-                "validation": validation[p.code]})
+                "validation": validation[p.code],
+                **report_sections(p.spec, p.data, p.grid)})
             if p.crossval is not None:
                 entry["cross_validation"] = p.crossval.summary
             if unit.name in spreads:
@@ -661,7 +757,9 @@ def summarize_units(spec: RunSpec, units: UnitsModel, simulation: SimulationResu
                    "grid": {"shape": list(grid.shape), "cell": list(grid.cell), "active_nodes": units.grid.n_active,
                             "modelled_nodes": grid.n_active,
                             "crs": grid.crs.to_string() if grid.crs is not None else None},
-                   "realizations": {"count": len(records), "kept_from_earlier_run": simulation.kept},
+                   "realizations": {"count": len(records), "kept_from_earlier_run": simulation.kept,
+                                    "per_path": per_path_for(spec["simulation.realizations_per_path"], grid,
+                                                             UnitsEngine(spec["simulation.engine"]))},
                    "seeding": "realization i of the unit with code u draws from SeedSequence(seed, spawn_key=(i, u))",
                    "units": sections})
     figures = [r.get("figures") for r in records]
@@ -688,20 +786,16 @@ def run(spec: RunSpec | str | os.PathLike, out_dir: str | os.PathLike, *, overwr
     RunResult
         ``model`` is the :class:`UnitsModel` (its ``text()`` lists each unit's model).
     """
-    import logging
-    from .outputs import support_sinks
-    from .pipeline import run_in_folder, step_timer
-    if not isinstance(spec, RunSpec):
-        spec = load_spec(spec)
-    out_dir = Path(out_dir)
-    timings: dict[str, float] = {}
-    timed = step_timer(timings)
-    units = timed("read data and units", prepare_units, spec, progress)
-    for note in units.notes:
-        logging.getLogger("geosim").info("%s", note)
-    support_sinks(spec, units.modelled_grid, out_dir, {})  # bad query points fail before the folder is claimed
-    return run_in_folder(spec, out_dir, overwrite, resume,
-                         lambda: _run_steps(spec, units, out_dir, resume, progress, timed, timings))
+    from .pipeline import run_job
+
+    def prepare(spec: RunSpec, timed):
+        units = timed("read data and units", prepare_units, spec, progress)
+        return units, units.modelled_grid, units.notes
+
+    def steps(spec: RunSpec, units: UnitsModel, grid, out_dir: Path, timed, timings) -> RunResult:
+        return _run_steps(spec, units, out_dir, resume, progress, timed, timings)
+
+    return run_job(spec, out_dir, prepare, steps, overwrite=overwrite, resume=resume)
 
 
 def _run_steps(spec, units, out_dir, resume, progress, timed, timings) -> RunResult:
@@ -714,6 +808,9 @@ def _run_steps(spec, units, out_dir, resume, progress, timed, timings) -> RunRes
         if p.crossval is not None:
             s = p.crossval.summary["normal_scores"]
             notes.append(f"{p.name}: " + short_note(s["below_min_samples"], s["samples"], "left-out samples", p.spec))
+    crossval = pooled_crossval(units)
+    if crossval is not None:
+        extra["cross_validation"] = {k: v for k, v in crossval.items() if k != "by_unit"}
     if spec["outputs.estimate"]:
         est = timed("kriging estimate", estimate_units, spec, units, out_dir)
         files.update(est["files"])
@@ -725,7 +822,7 @@ def _run_steps(spec, units, out_dir, resume, progress, timed, timings) -> RunRes
         checks = [r["checks"]["units"][str(p.code)]["checks"] for r in sim.records]
         if all("extremes" in c for c in checks):
             notes.append(f"{p.name}: " + extremes_note(extremes_summary(p.data.values, checks), spec["data.units"]))
-    return RunResult(out_dir, spec.sha256, files, units, sim.kept, sim.computed, None, sim.decision_spread(),
+    return RunResult(out_dir, spec.sha256, files, units, sim.kept, sim.computed, crossval, sim.decision_spread(),
                      timings, notes, units.grid.ndim)
 
 
@@ -743,6 +840,11 @@ def describe_units(units: UnitsModel) -> list[tuple[str, str]]:
             text = (f"{samples} samples, {nodes} nodes; variogram "
                     f"{'fitted' if p.spec['variogram.fit'] else 'fixed'}; {p.data.transform.describe()}"
                     + (f"; {soft} samples of neighbours across soft contacts" if soft else ""))
+            if p.data.mean is not None:
+                text += (f"; mean: trend of order {p.data.mean.trend.order}" if p.data.mean.kind == "trend"
+                         else "; mean: grid")
+            if p.secondary is not None:
+                text += f"; secondary correlation {p.secondary.correlation:.3f}"
         rows.append((f"unit {units.table.label(unit.code)}", text))
     rows.append(("grid", " x ".join(map(str, units.grid.shape)) + f" nodes, {units.grid.n_active} inside the "
                  f"domain, {units.modelled_grid.n_active} of modelled units"))

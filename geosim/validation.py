@@ -130,19 +130,22 @@ class _Conditioning:
     def __init__(self, model, data: np.ndarray):
         self.model, self.data, self.factor = model, data, None
         if 0 < data.shape[0] <= CONDITIONING_LIMIT:
-            from scipy.linalg import cho_factor
+            from scipy.linalg import cholesky
             cdd = model.cov_matrix(data)
             try:
-                self.factor = cho_factor(cdd + 1e-10 * float(model.sill) * np.eye(len(data)), lower=True)
+                self.factor = cholesky(cdd + 1e-10 * float(model.sill) * np.eye(len(data)), lower=True,
+                                       check_finite=False)
             except np.linalg.LinAlgError:
                 self.factor = None
 
     def covariance(self, points: np.ndarray, c: np.ndarray) -> np.ndarray | None:
         if self.factor is None:
             return None
-        from scipy.linalg import cho_solve
-        cpd = self.model.cov_matrix(points, self.data)
-        return c - cpd @ cho_solve(self.factor, cpd.T)
+        from scipy.linalg import solve_triangular
+        # C(P, d) C_dd^-1 C(d, Q) = W'W with W = L^-1 C(d, P): one triangular solve, half a cho_solve
+        w = solve_triangular(self.factor, self.model.cov_matrix(points, self.data).T, lower=True,
+                             check_finite=False)
+        return c - w.T @ w
 
 
 def _split_variance(total: float, conditional: float, n_real: int) -> float:

@@ -81,3 +81,22 @@ def test_column_datatypes_are_checked():
     assert Column("n", "count", "integer").cell(3.0) == "3"
     assert Column("v", "value").cell(np.float32(0.1)) == "0.1000000015"
     assert Column("v", "value").cell(float("inf")) == ""
+
+
+def test_a_table_given_by_columns_reads_as_the_same_table_given_by_rows(tmp_path, monkeypatch):
+    # columns are formatted a slice of rows at a time; slices of 7 rows split 23 rows unevenly
+    import geosim.io.csvw
+    monkeypatch.setattr(geosim.io.csvw, "_ROWS_AT_ONCE", 7)
+    cols = [Column("x", "value", unit="m"), Column("n", "count", "integer"), Column("s", "name", "string")]
+    x = np.random.default_rng(0).standard_normal(23) * 1e3
+    x[3], x[11] = np.nan, np.inf
+    names = [f"w,{i}" if i % 5 == 0 else f"w{i}" for i in range(23)]  # some need quoting
+    by_columns = {"x": x, "n": np.arange(23.0), "s": names}
+    write_csv_table(tmp_path / "columns.csv", cols, by_columns, title="t")
+    write_csv_table(tmp_path / "rows.csv", cols, list(zip(x, np.arange(23.0), names)), title="t")
+    text = (tmp_path / "columns.csv").read_text()
+    assert text == (tmp_path / "rows.csv").read_text()
+    lines = text.splitlines()
+    assert len(lines) == 24 and lines[4].startswith(",") and lines[12].startswith(",")  # NaN, inf: empty
+    with pytest.raises(ValueError, match="unequal length"):
+        write_csv_table(tmp_path / "bad.csv", cols, {**by_columns, "n": np.arange(3.0)}, title="t")

@@ -198,10 +198,33 @@ def test_run_spec_key_and_its_check(tmp_path):
             '[grid]\ncell = [10.0, 10.0]\n[simulation]\nrealizations = 5\nseed = 42\n')
     (tmp_path / "run.toml").write_text(text)
     spec = load_spec(tmp_path / "run.toml")
-    assert spec["simulation.realizations_per_path"] == 1
+    assert spec["simulation.realizations_per_path"] == "auto"
     shared = load_spec(tmp_path / "run.toml", {"simulation.realizations_per_path": 10})
     assert shared["simulation.realizations_per_path"] == 10 and shared.sha256 != spec.sha256
     with pytest.raises(geosim.SpecError, match="realizations_per_path: expected 1 with the exact engine"):
         load_spec(tmp_path / "run.toml", {"simulation.realizations_per_path": 2, "simulation.engine": "exact"})
     with pytest.raises(geosim.SpecError, match="realizations_per_path"):
         load_spec(tmp_path / "run.toml", {"simulation.realizations_per_path": 0})
+
+
+def test_auto_shares_paths_on_large_grids_only():
+    # "auto" is 10 from AUTO_SHARED_NODES active nodes with an engine that shares paths, else 1
+    from geosim.simulation.runner import AUTO_PER_PATH, AUTO_SHARED_NODES, per_path_for
+    side = int(np.ceil(np.sqrt(AUTO_SHARED_NODES)))
+    large = geosim.Grid(0.0, 0.0, (1.0, 1.0), (side, side))
+    small = geosim.Grid(0.0, 0.0, (4.0, 4.0), (16, 16))
+    assert per_path_for("auto", large, "sequential") == AUTO_PER_PATH == 10
+    assert per_path_for("auto", large, "exact") == 1
+    assert per_path_for("auto", small, "sequential") == 1
+    assert per_path_for(4, small, "sequential") == 4
+
+
+def test_auto_on_a_small_grid_gives_independent_paths():
+    small = geosim.Grid(0.0, 0.0, (4.0, 4.0), (16, 16))
+    nb = Neighbourhood(max_samples=6, max_nodes=12)
+    # what simulate() uses for "auto": a small grid's run equals its run with independent paths
+    auto = geosim.simulate(XY, SCORES, _model(), small, n_realizations=3, seed=5, workers=1, neighbourhood=nb,
+                           realizations_per_path="auto")
+    one = geosim.simulate(XY, SCORES, _model(), small, n_realizations=3, seed=5, workers=1, neighbourhood=nb)
+    for a, b in zip(auto, one):
+        np.testing.assert_array_equal(a, b)

@@ -109,6 +109,13 @@ def _int(lo=None, hi=None):
     return check
 
 
+def _per_path(value):
+    if value == "auto":
+        return value, None
+    value, problem = _int(1, 1000)(value)
+    return value, None if problem is None else f'"auto" or {problem}'
+
+
 def _number(lo=None, hi=None, lo_open=False):
     def check(value):
         ok = isinstance(value, (int, float)) and not isinstance(value, bool) and math.isfinite(value)
@@ -348,9 +355,10 @@ SCHEMA: dict[str, dict[str, Key]] = {
         "realizations": Key(_int(1, 100000), required=True),
         "seed": Key(_int(0, 2 ** 63 - 1), required=True),
         "kriging": Key(_choice("simple", "ordinary"), default="simple"),
-        "realizations_per_path": Key(_int(1, 1000), default=1,
+        "realizations_per_path": Key(_per_path, default="auto",
                                      help="realizations sharing one random path (sequential engine; "
-                                          "10 simulates several times faster)"),
+                                          "10 simulates several times faster); \"auto\": 10 on grids of "
+                                          "250,000 active nodes or more, 1 below"),
         "workers": Key(_int(1, 1024)),
         "cluster": Key(_text, help="Dask scheduler address, e.g. tcp://10.0.0.5:8786"),
     },
@@ -845,7 +853,7 @@ def _check_combinations(spec: dict, problems: list[str]) -> None:
         problems.append(f"simulation.engine: expected one of {', '.join(engines)}, found {sim['engine']!r}")
     if sim["workers"] is not None and sim["cluster"] is not None:
         problems.append("simulation: expected workers or cluster, found both")
-    if sim["engine"] == "exact" and sim["realizations_per_path"] != 1:
+    if sim["engine"] == "exact" and sim["realizations_per_path"] not in (1, "auto"):
         problems.append("simulation.realizations_per_path: expected 1 with the exact engine (it has no path), "
                         f"found {sim['realizations_per_path']}")
 
@@ -1038,12 +1046,12 @@ def _check_files(spec: dict, base: Path, problems: list[str], frames: Mapping | 
 # -- several geological units: [units] and [unit.<name>] ------------------------------------------
 # ``[units]`` says where the codes come from and how units meet; one ``[unit.<name>]`` table per
 # unit gives its code and overrides any key of the top-level [declustering], [transform],
-# [variogram], [search] and the cut-offs of [outputs]; whatever a unit leaves out it takes from the
+# [variogram], [search], [mean], [secondary] and the cut-offs of [outputs]; whatever a unit leaves out it takes from the
 # top level.  :func:`unit_spec` gives one unit's view of the spec, so every step that builds a
 # one-unit run builds each unit's piece.  A spec without these sections is normalized and hashed
 # exactly as before they existed (they appear in the normalized spec only when given).
 UNIT_SECTIONS = ("units", "unit")
-OVERRIDABLE = ("declustering", "transform", "variogram", "search", "outputs")
+OVERRIDABLE = ("declustering", "transform", "variogram", "search", "mean", "secondary", "outputs")
 # of [outputs], a unit overrides only what is computed per unit
 OUTPUT_OVERRIDES = ("cutoffs",)
 # source keys that name files (resolved against the spec's folder, hashed into the provenance)
@@ -1194,9 +1202,6 @@ def _check_units(values: Mapping, out: dict, problems: list[str]) -> None:
                 found.append(hit[0].code)
         if len(found) == 2 and found[0] == found[1]:
             problems.append(f"units.soft[{i}].units: expected two different units, found {names}")
-    if out.get("simulation", {}).get("realizations_per_path", 1) != 1:
-        problems.append("simulation.realizations_per_path: expected 1 in a run of several units (each unit "
-                        f"draws its own path), found {out['simulation']['realizations_per_path']}")
     for name in tables:
         merged = merged_values(out, name)
         found: list[str] = []
@@ -1229,7 +1234,8 @@ def unit_table(spec):
 
 
 def unit_input_files(values: Mapping) -> dict[str, Any]:
-    """``{"units.nodes.raster": path text, ...}``: the files the unit sources name."""
+    """``{"units.nodes.raster": path text, "unit.<name>.mean.file": ..., ...}``: the files the unit
+    sources and the units' own tables name."""
     out = {}
     units = values.get("units")
     if not units:
@@ -1243,6 +1249,13 @@ def unit_input_files(values: Mapping) -> dict[str, Any]:
             for i, path in enumerate(source["surfaces"]):
                 if isinstance(path, str):
                     out[f"units.{key}.surfaces[{i}]"] = path
+    # files a unit's own table names (a model file, a mean or secondary grid)
+    for name, table in (values.get("unit") or {}).items():
+        for section, keys in INPUT_FILE_KEYS:
+            override = table.get(section) if isinstance(table, Mapping) else None
+            for k in keys:
+                if isinstance(override, Mapping) and isinstance(override.get(k), str):
+                    out[f"unit.{name}.{section}.{k}"] = override[k]
     return out
 
 

@@ -91,12 +91,27 @@ class Column:
             return str(int(value))
         return f"{float(value):.10g}"
 
+    def cells(self, values: Sequence[Any]) -> list[str]:
+        """The CSV texts of a whole column, equal to :meth:`cell` of each value (numbers a column at a time)."""
+        a = np.asarray(values) if self.datatype != "string" else None
+        if a is None or a.ndim != 1 or a.dtype.kind != "f":
+            return [self.cell(v) for v in values]
+        text = [str(int(v)) for v in np.where(np.isfinite(a), a, 0).tolist()] if self.datatype == "integer" \
+            else [f"{v:.10g}" for v in a.tolist()]
+        for i in np.flatnonzero(~np.isfinite(a)).tolist():
+            text[i] = ""
+        return text
+
     def metadata(self) -> dict:
         out = {"name": self.name, "titles": self.name, "datatype": self.datatype,
                "dc:description": self.description}
         if self.unit:
             out["schema:unitText"] = self.unit
         return out
+
+
+#: Rows formatted together when a table is given by columns.
+_ROWS_AT_ONCE = 65536
 
 
 def sidecar_path(path: str | os.PathLike) -> Path:
@@ -140,7 +155,8 @@ def _metadata(path: Path, columns: Sequence[Column], title: str, provenance: Map
     return meta
 
 
-def write_csv_table(path: str | os.PathLike, columns: Sequence[Column], rows: Iterable[Sequence[Any]], *,
+def write_csv_table(path: str | os.PathLike, columns: Sequence[Column],
+                    rows: Iterable[Sequence[Any]] | Mapping[str, Sequence[Any]], *,
                     title: str, provenance: Mapping[str, str] | None = None, notes: Iterable[str] = (),
                     primary_key: Sequence[str] = (), overwrite: bool = False) -> Path:
     """Write a plain CSV table and its CSVW metadata sidecar, atomically.
@@ -151,8 +167,10 @@ def write_csv_table(path: str | os.PathLike, columns: Sequence[Column], rows: It
         The CSV file; the sidecar is :func:`sidecar_path` of it.
     columns : sequence of Column
         The columns, in order.
-    rows : iterable of sequences
-        One sequence of values per row, in column order (NaN and None become empty cells).
+    rows : iterable of sequences, or mapping
+        One sequence of values per row, in column order (NaN and None become empty cells);
+        or a mapping of column name to the column's values, formatted a column at a time
+        (large tables: several times faster).
     title : str
         What the table is, for ``dc:title``.
     provenance : mapping, optional
@@ -193,11 +211,22 @@ def write_csv_table(path: str | os.PathLike, columns: Sequence[Column], rows: It
     buf = io.StringIO()
     w = csv.writer(buf, lineterminator="\n")
     w.writerow(names)
-    for r, row in enumerate(rows):
-        row = list(row)
-        if len(row) != len(columns):
-            raise ValueError(f"row {r} has {len(row)} values for {len(columns)} columns")
-        w.writerow([c.cell(v) for c, v in zip(columns, row)])
+    if isinstance(rows, Mapping):
+        data = [rows[c.name] for c in columns]
+        lengths = {len(d) for d in data}
+        if len(lengths) > 1:
+            raise ValueError(f"columns of unequal length: {dict(zip(names, map(len, data)))}")
+        # a slice of rows at a time: the text of whole columns of a million-block model would
+        # hold a Python string per value (about 60 bytes each, a gigabyte for 14 columns)
+        n = lengths.pop() if lengths else 0
+        for start in range(0, n, _ROWS_AT_ONCE):
+            w.writerows(zip(*(c.cells(d[start:start + _ROWS_AT_ONCE]) for c, d in zip(columns, data))))
+    else:
+        for r, row in enumerate(rows):
+            row = list(row)
+            if len(row) != len(columns):
+                raise ValueError(f"row {r} has {len(row)} values for {len(columns)} columns")
+            w.writerow([c.cell(v) for c, v in zip(columns, row)])
     meta = _metadata(path, columns, title, dict(provenance or {}), notes, primary_key)
     text = json.dumps(meta, indent=2, ensure_ascii=False) + "\n"
     # both temporaries are complete before either is moved into place

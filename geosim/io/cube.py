@@ -612,8 +612,7 @@ def write_block_model(path: str | os.PathLike, grid, variables: Mapping[str, tup
              "x, y, z are block centroids; empty cells: the statistic is undefined"]
     if Path(path).suffix == ".parquet":
         return _write_parquet(path, columns, data, provenance or {}, notes, overwrite)
-    rows = zip(*(data[c.name] for c in columns))
-    return write_csv_table(path, columns, rows, title="geosim block model", provenance=provenance,
+    return write_csv_table(path, columns, data, title="geosim block model", provenance=provenance,
                            notes=notes, primary_key=[c.name for c in columns[:grid.ndim]], overwrite=overwrite)
 
 

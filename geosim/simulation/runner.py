@@ -81,6 +81,35 @@ def path_rng(seed: int, group: int) -> np.random.Generator:
     return np.random.default_rng(np.random.SeedSequence(int(seed), spawn_key=(PATH_STREAM, int(group))))
 
 
+#: Active nodes from which ``realizations_per_path="auto"`` lets realizations share paths.
+AUTO_SHARED_NODES = 250_000
+#: Realizations per path that ``"auto"`` gives such grids (the group size the statistical tests check).
+AUTO_PER_PATH = 10
+
+
+def per_path_for(value: int | str, grid, engine) -> int:
+    """The realizations per random path that ``value`` (an integer or ``"auto"``) means here.
+
+    ``"auto"`` is :data:`AUTO_PER_PATH` on grids of at least :data:`AUTO_SHARED_NODES`
+    active nodes with an engine that has ``realize_batch`` (there solving each node's
+    system once per group cuts the simulation time several-fold), and 1 otherwise (a small
+    grid simulates quickly with independent paths).
+
+    Examples
+    --------
+    >>> import geosim
+    >>> from geosim.simulation.runner import per_path_for
+    >>> per_path_for("auto", geosim.Grid(0.0, 0.0, (1.0, 1.0), (1000, 1000)), "sequential")
+    10
+    >>> per_path_for("auto", geosim.Grid(0.0, 0.0, (1.0, 1.0), (100, 100)), "sequential")
+    1
+    """
+    if value != "auto":
+        return int(value)
+    large = grid.n_active >= AUTO_SHARED_NODES
+    return AUTO_PER_PATH if large and hasattr(resolve_engine(engine), "realize_batch") else 1
+
+
 def resolve_engine(engine):
     """An engine instance from a registered name, an engine class or an engine object."""
     if isinstance(engine, str):
@@ -94,6 +123,46 @@ def resolve_engine(engine):
     if not (hasattr(engine, "prepare") and hasattr(engine, "realize")):
         raise TypeError(f"an engine needs prepare() and realize(); got {type(engine).__name__}")
     return engine
+
+
+def in_numba_cache(dispatcher) -> bool:
+    """Whether numba's on-disk cache holds code of ``dispatcher`` (its index file exists)."""
+    try:
+        return os.path.isfile(dispatcher._cache._cache_file._index_path)
+    except AttributeError:  # no cache, or another numba's layout: nothing to gain from compiling ahead
+        return True
+
+
+def compile_ahead(engine):
+    """Start compiling an engine's kernels into numba's cache in another process, if they are not there.
+
+    On the first run after an install the sequential engine's kernel takes several seconds to
+    compile.  Started at the beginning of a run, the compiling runs beside the data
+    preparation, cross-validation and kriging (which compile their own kernels in this
+    process), and the workers later load the code from the cache.  An engine takes part with
+    ``warm_up()`` (a tiny run through its kernels) and ``main_kernel()`` (the dispatcher
+    whose cache is checked).  The process exits when this one does (:func:`watch_process`)
+    and writes nothing but numba's cache.
+
+    Returns the started ``subprocess.Popen``, or None when there is nothing to compile.
+    """
+    import subprocess
+    import sys
+    eng = resolve_engine(engine)
+    if not (hasattr(eng, "warm_up") and hasattr(eng, "main_kernel")) or in_numba_cache(eng.main_kernel()):
+        return None
+    kind = type(eng)
+    code = (f"from geosim.simulation.runner import warm_up_engine; "
+            f"warm_up_engine({os.getpid()}, {kind.__module__!r}, {kind.__qualname__!r})")
+    return subprocess.Popen([sys.executable, "-c", code], stdin=subprocess.DEVNULL, stdout=subprocess.DEVNULL,
+                            stderr=subprocess.DEVNULL)
+
+
+def warm_up_engine(main_pid: int, module: str, name: str) -> None:
+    """The body of :func:`compile_ahead`'s process: compile the engine class ``module.name``."""
+    import importlib
+    watch_process(main_pid)
+    getattr(importlib.import_module(module), name)().warm_up()
 
 
 def watch_process(pid: int, interval: float = PARENT_POLL_SECONDS) -> threading.Thread:
@@ -222,7 +291,7 @@ def _pool_task(seed: int, indices: list[int], per_path: int):
 def simulate(data_coords, data_scores, model, grid, *, n_realizations: int, seed: int,
              engine="sequential", neighbourhood=None, kriging: str = "simple", workers: int | None = None,
              client=None, sink: Callable | None = None, indices: Iterable[int] | None = None,
-             progress: Callable | None = None, realizations_per_path: int = 1, **engine_options) -> list:
+             progress: Callable | None = None, realizations_per_path: int | str = 1, **engine_options) -> list:
     """Conditional realizations of a Gaussian field on a grid (normal scores).
 
     Parameters
@@ -259,12 +328,13 @@ def simulate(data_coords, data_scores, model, grid, *, n_realizations: int, seed
         Compute only these realizations (e.g. the ones missing from a resumed run).
     progress : callable, optional
         ``progress(done, total, "realizations")`` after each realization (or group).
-    realizations_per_path : int
+    realizations_per_path : int or "auto"
         Realizations ``i`` with equal ``i // realizations_per_path`` share one random
         path, so the engine's ``realize_batch`` computes each node's kriging weights once
         for all of them (several times faster per realization).  Each is still a valid
         realization that depends only on ``(seed, i)``; 1 (the default) gives every
-        realization its own path.  Part of what is computed: changing it changes the fields.
+        realization its own path; ``"auto"`` is 10 on large grids (:func:`per_path_for`).
+        Part of what is computed: changing it changes the fields.
     **engine_options
         Passed to the engine's ``prepare`` (e.g. ``multigrid``, ``max_size``).
 
@@ -292,7 +362,7 @@ def simulate(data_coords, data_scores, model, grid, *, n_realizations: int, seed
     if outside:
         raise ValueError(f"realization indices {outside[:5]} are outside 0..{n_realizations - 1}")
     eng = resolve_engine(engine)
-    per_path = int(realizations_per_path)
+    per_path = per_path_for(realizations_per_path, grid, eng)
     if per_path < 1:
         raise ValueError(f"realizations_per_path must be >= 1, got {per_path}")
     if per_path > 1 and not hasattr(eng, "realize_batch"):

@@ -175,6 +175,26 @@ class SequentialEngine:
             secondary=sec.ravel() if b != 0.0 else np.zeros(0), secondary_b=b, secondary_noise=noise,
             secondary_nodes=int(secondary_nodes) if b != 0.0 else 0)
 
+    def main_kernel(self):
+        """The numba dispatcher that costs the most to compile (:func:`geosim.simulation.runner.compile_ahead`)."""
+        return _sgs_kernel
+
+    def warm_up(self) -> None:
+        """Compile the engine's kernels (numba's cache keeps them) through a tiny 3-D run.
+
+        Every kernel sees the argument types a real run gives it, so the cached code is
+        the code a run loads, whatever its grid, model or neighbourhood.
+        """
+        from ..grid import Grid
+        from ..variogram.anisotropy import Anisotropy
+        from ..variogram.structures import Nugget, Spherical
+        grid = Grid(0.0, 0.0, (1.0, 1.0, 1.0), (2, 3, 3))
+        model = Nugget(0.1) + Spherical(0.9, Anisotropy((4.0, 4.0, 4.0)))
+        plan = self.prepare(np.array([[0.3, 0.4, 0.5]]), np.array([0.5]), model, grid,
+                            neighbourhood=Neighbourhood(max_samples=4, max_nodes=4))
+        self.realize(plan, np.random.default_rng(0))
+        self.realize_batch(plan, np.random.default_rng(1), [np.random.default_rng(2), np.random.default_rng(3)])
+
     def realize(self, plan: SequentialPlan, rng: np.random.Generator) -> np.ndarray:
         """One realization: normal scores of ``grid.shape``, NaN outside the mask."""
         path = plan.free[random_path(plan.levels, rng)]
@@ -286,7 +306,6 @@ def _sgs_kernel(field, active_flat, path, normals, shape3, origin, step, offsets
     nt = offsets.shape[0]
     kd = dnbr.shape[1]
     kmax = a.shape[0]
-    c0 = cov_lag(cm, 0.0, 0.0, 0.0)
     rhs = np.empty(kmax)
     zv = np.empty(kmax)
     rel = np.empty((kmax, 3))  # conditioning points relative to the node being simulated
@@ -294,7 +313,9 @@ def _sgs_kernel(field, active_flat, path, normals, shape3, origin, step, offsets
     use_data_cov = data_cov.shape[0] > 0
     codes, sills, mats, params, tables, steps = cm
     nugget = 0.0
+    c0 = 0.0  # cov_lag at lag zero, summed in its order (a tabulated structure's first entry)
     for jj in range(codes.shape[0]):
+        c0 += sills[jj] * tables[jj, 0] if codes[jj] == TABULATED else sills[jj]
         if codes[jj] == NUGGET:
             nugget += sills[jj]
     tr = np.empty((kd, 3))  # the data's positions in one structure's reduced coordinates
@@ -396,24 +417,22 @@ def _sgs_kernel(field, active_flat, path, normals, shape3, origin, step, offsets
                         a[r, s] += sj * tabulated_correlation(tables, steps, jj, h)
                     else:
                         a[r, s] += sj * analytic_correlation(code, h)
+        # data-data entries from the data's matrix, node-node entries from the offsets' table;
+        # the formula where these are missing.  One call site for each use of cov_lag: every
+        # site is inlined, and each one added about a second of compiling on a first run.
         for r in range(m):
-            if r < nd:
-                dr = ids[r]
-                rhs[r] = cov_lag(cm, rel[r, 0], rel[r, 1], rel[r, 2])
-                for s in range(r + 1):
-                    if use_data_cov:
-                        a[r, s] = data_cov[dr, ids[s]]
-                    else:
-                        a[r, s] = cov_lag(cm, rel[r, 0] - rel[s, 0], rel[r, 1] - rel[s, 1], rel[r, 2] - rel[s, 2])
-                continue
-            if use_table:
+            node_row = r >= nd
+            if node_row and use_table:
                 base = table_zero + lin[r]
                 rhs[r] = table[base]
-                for s in range(nd, r + 1):
-                    a[r, s] = table[base - lin[s]]
             else:
                 rhs[r] = cov_lag(cm, rel[r, 0], rel[r, 1], rel[r, 2])
-                for s in range(nd, r + 1):
+            for s in range(nd if node_row else 0, r + 1):
+                if node_row and use_table:
+                    a[r, s] = table[table_zero + lin[r] - lin[s]]
+                elif not node_row and use_data_cov:
+                    a[r, s] = data_cov[ids[r], ids[s]]
+                else:
                     a[r, s] = cov_lag(cm, rel[r, 0] - rel[s, 0], rel[r, 1] - rel[s, 1], rel[r, 2] - rel[s, 2])
             if r >= ms:
                 a[r, r] += sec_noise / (sec_b * sec_b)  # the measurement's own noise

@@ -1,7 +1,7 @@
 """Benchmark of the whole 3-D job at block-model scale; prints figures, the last line one JSON object.
 
-Run:  python tests/benchmarks/bench_blockmodel.py [--realizations 100] [--per-path 10] [--workers 2]
-                                                 [--quick]
+Run:  python tests/benchmarks/bench_blockmodel.py [--realizations 100] [--per-path auto] [--workers 2]
+                                                 [--quick] [--shape NZ NY NX]
 
 An invented case is built in code (the Tarnwick Deep block model: a fictitious copper body,
 no real place): 3,000 composites in 60 vertical drillholes on a 200 x 100 x 50 grid of
@@ -10,7 +10,8 @@ spherical structures), 16 data and 16 previously simulated nodes, no octant sear
 written as a points CSV and a run spec and run through ``geosim.pipeline.run``, the call
 behind ``geosim run`` (spec -> data -> simulation -> summaries -> written outputs;
 cross-validation and the kriging estimate are switched off, plots are on), with 100
-realizations on 2 local workers.
+realizations on 2 local workers and the default ``realizations_per_path = "auto"`` (10 on this
+grid).
 
 Figures (wall seconds, so they include the load other jobs put on a shared machine;
 ``uptime`` load averages are printed beside them):
@@ -59,7 +60,7 @@ def load() -> str:
     return "load " + " ".join(open("/proc/loadavg").read().split()[:3])
 
 
-def make_case(folder: Path, realizations: int, per_path: int, workers: int | None, shape=SHAPE) -> Path:
+def make_case(folder: Path, realizations: int, per_path: int | str, workers: int | None, shape=SHAPE) -> Path:
     """Write the invented drillhole composites and the run spec into ``folder``; return the spec path."""
     rng = np.random.default_rng(20261202)
     nz, ny, nx = shape
@@ -111,7 +112,7 @@ max_samples = 16
 max_nodes = 16
 [simulation]
 realizations = {realizations}
-realizations_per_path = {per_path}
+realizations_per_path = {per_path if str(per_path).isdigit() else f'"{per_path}"'}
 seed = 16016
 {execution}
 [outputs]
@@ -175,10 +176,10 @@ class PeakRss:
         self.cpu_s = (end.user + end.system - self._start.user - self._start.system) + sum(self._cpu.values())
 
 
-def run_case(folder: Path, realizations: int, per_path: int, workers: int) -> dict:
+def run_case(folder: Path, realizations: int, per_path: int | str, workers: int, shape=SHAPE) -> dict:
     import geosim.pipeline
-    from geosim.io.runspec import load_spec
-    spec_path = make_case(folder, realizations, per_path, workers)
+    from geosim.config.runspec import load_spec
+    spec_path = make_case(folder, realizations, per_path, workers, shape)
     spec = load_spec(spec_path)
     with PeakRss() as rss:
         t0 = time.perf_counter()
@@ -208,7 +209,7 @@ def cold_and_warm(folder: Path) -> tuple[float, float]:
     return cold, warm
 
 
-def dask_equals_serial(folder: Path, per_path: int) -> bool:
+def dask_equals_serial(folder: Path, per_path: int | str) -> bool:
     """The block model (4 realizations) on a dask scheduler + 2 dask workers on loopback vs one local process."""
     from geosim.io.report import file_sha256
     env = {**os.environ, "SOURCE_DATE_EPOCH": "1767225600", "OMP_NUM_THREADS": "1"}
@@ -256,9 +257,11 @@ def dask_equals_serial(folder: Path, per_path: int) -> bool:
 def main():
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     parser.add_argument("--realizations", type=int, default=100)
-    parser.add_argument("--per-path", type=int, default=10)
+    parser.add_argument("--per-path", default="auto", help='realizations per path: a number or "auto" (the default)')
     parser.add_argument("--workers", type=int, default=2)
     parser.add_argument("--quick", action="store_true", help="20 realizations, no smaller run, no dask")
+    parser.add_argument("--shape", type=int, nargs=3, default=SHAPE, metavar=("NZ", "NY", "NX"),
+                        help="grid levels, rows, columns (default 50 100 200; 20 100 100 is a 200k-node case)")
     parser.add_argument("--dask-only", action="store_true", help="only the dask-against-serial comparison")
     args = parser.parse_args()
     if args.dask_only:
@@ -277,13 +280,14 @@ def main():
         fewer = None
         if not args.quick:
             (tmp / "fewer").mkdir()
-            fewer = run_case(tmp / "fewer", max(args.per_path, n // 5), args.per_path, args.workers)
-            print(f"  {max(args.per_path, n // 5)} realizations: {fewer['total_s']:.1f} s, peak RSS "
+            few = max(10 if args.per_path == "auto" else int(args.per_path), n // 5)  # whole path groups
+            fewer = run_case(tmp / "fewer", few, args.per_path, args.workers, tuple(args.shape))
+            print(f"  {few} realizations: {fewer['total_s']:.1f} s, peak RSS "
                   f"{fewer['peak_rss_mib']:.0f} MiB ({load()})", flush=True)
             shutil.rmtree(tmp / "fewer")
         (tmp / "main").mkdir()
         print(f"block model, {n} realizations ... ({load()})", flush=True)
-        main_run = run_case(tmp / "main", n, args.per_path, args.workers)
+        main_run = run_case(tmp / "main", n, args.per_path, args.workers, tuple(args.shape))
         t = main_run["timings"]
         print(f"  {main_run['total_s']:.1f} s; steps: " + ", ".join(f"{k} {v:.1f} s" for k, v in t.items())
               + f" ({load()})", flush=True)

@@ -1,0 +1,96 @@
+"""Compiling the engine ahead, in another process (``geosim.simulation.runner.compile_ahead``).
+
+Each check runs in a fresh interpreter with its own empty numba cache folder, because the
+test session's cache already holds the kernels once any earlier test has simulated.
+"""
+import os
+import signal
+import subprocess
+import sys
+import textwrap
+import time
+
+import pytest
+
+SIMULATE = textwrap.dedent("""
+    import numpy as np, geosim
+    from geosim.simulation.sequential import _sgs_kernel
+    grid = geosim.Grid(100.0, 200.0, (5.0, 5.0, 2.0), (3, 10, 12))
+    model = geosim.Nugget(0.05) + geosim.Exponential(0.95, geosim.Anisotropy((40.0, 20.0, 6.0), azimuth=30.0))
+    xyz, scores = np.array([[112.0, 222.0, 1.0], [140.0, 230.0, 3.0]]), np.array([0.5, -1.0])
+    nb = geosim.search.Neighbourhood(max_samples=8, max_nodes=8)
+    for kriging in ("simple", "ordinary"):
+        geosim.simulate(xyz, scores, model, grid, n_realizations=3, seed=4, workers=1, neighbourhood=nb,
+                        kriging=kriging, realizations_per_path=3)
+        geosim.simulate(xyz, scores, model, grid, n_realizations=1, seed=4, workers=1, neighbourhood=nb,
+                        kriging=kriging)
+    print(sum(_sgs_kernel.stats.cache_hits.values()), sum(_sgs_kernel.stats.cache_misses.values()))
+""")
+
+
+def _python(code: str, cache: str, timeout: float = 600) -> str:
+    env = {**os.environ, "NUMBA_CACHE_DIR": cache}
+    out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, env=env, timeout=timeout)
+    assert out.returncode == 0, out.stderr[-3000:]
+    return out.stdout
+
+
+@pytest.fixture(scope="module")
+def compiled_ahead(tmp_path_factory):
+    """A numba cache folder filled by compile_ahead (started and waited for in a fresh process)."""
+    cache = str(tmp_path_factory.mktemp("numba-ahead"))
+    out = _python(textwrap.dedent("""
+        from geosim.simulation.runner import compile_ahead
+        proc = compile_ahead("sequential")
+        print(proc is not None, proc.wait(timeout=540))
+    """), cache)
+    return cache, out.split()
+
+
+def test_compile_ahead_fills_the_cache_once(compiled_ahead):
+    cache, (started, code) = compiled_ahead
+    assert started == "True" and code == "0"
+    # the kernel is cached now: a second call starts nothing
+    out = _python(textwrap.dedent("""
+        from geosim.simulation.runner import compile_ahead, in_numba_cache
+        from geosim.simulation.sequential import _sgs_kernel
+        print(in_numba_cache(_sgs_kernel), compile_ahead("sequential"))
+    """), cache)
+    assert out.split() == ["True", "None"]
+
+
+def test_runs_load_the_kernel_compiled_ahead(compiled_ahead):
+    # a 3-D run, shared and single paths, simple and ordinary kriging, on another grid and model
+    # than the warm-up's: every call of the kernel is a cache hit, none compiles
+    cache, _ = compiled_ahead
+    hits, misses = map(int, _python(SIMULATE, cache).split())
+    assert hits >= 1 and misses == 0
+
+
+def test_compiling_process_ends_with_the_main_process(tmp_path):
+    # the main process is SIGKILLed while its compile_ahead process is still compiling
+    script = textwrap.dedent("""
+        import sys, time
+        from geosim.simulation.runner import compile_ahead
+        print(compile_ahead("sequential").pid, flush=True)
+        time.sleep(600)
+    """)
+    env = {**os.environ, "NUMBA_CACHE_DIR": str(tmp_path / "cache")}
+    main = subprocess.Popen([sys.executable, "-c", script], stdout=subprocess.PIPE, text=True, env=env)
+    try:
+        pid = int(main.stdout.readline())
+    finally:
+        main.send_signal(signal.SIGKILL)
+        main.wait(timeout=30)
+    deadline = time.monotonic() + 5.0
+    while time.monotonic() < deadline and _running(pid):
+        time.sleep(0.1)
+    assert not _running(pid), "the compiling process outlived the main process by more than 5 s"
+
+
+def _running(pid: int) -> bool:
+    try:
+        with open(f"/proc/{pid}/stat") as f:
+            return f.read().rsplit(")", 1)[1].split()[0] != "Z"  # a zombie has ended
+    except FileNotFoundError:
+        return False
