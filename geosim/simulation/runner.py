@@ -336,7 +336,7 @@ def simulate(data_coords, data_scores, model, grid, *, n_realizations: int, seed
         path, so the engine's ``realize_batch`` computes each node's kriging weights once
         for all of them (several times faster per realization).  Each is still a valid
         realization that depends only on ``(seed, i)``; 1 (the default) gives every
-        realization its own path; ``"auto"`` is 10 on large grids (:func:`per_path_for`).
+        realization its own path; ``"auto"`` is 25 on large grids (:func:`per_path_for`).
         Part of what is computed: changing it changes the fields.
     **engine_options
         Passed to the engine's ``prepare`` (e.g. ``multigrid``, ``max_size``).
