@@ -226,12 +226,12 @@ def realization_writer(spec: RunSpec, data: PreparedData, model, grid, out_dir: 
 
         from .secondary import add_mean_then
         back = functools.partial(add_mean_then, mean=data.mean.at_nodes(grid)[grid.mask], inverse=back)
+    checks = RunChecks(grid, model, data.coords, data.scores, weights=data.weights, data_values=data.values)
+    checks.compute_ahead()  # the tolerances' model figures, beside the simulation
     # overwrite=True: the folder was checked to belong to this run before anything is written
     return RealizationWriter(out_dir, grid, tags=tags, units=spec["data.units"],
-                             back_transform=back, figures=_figures(spec, grid),
-                             measure=RunChecks(grid, model, data.coords, data.scores, weights=data.weights,
-                                               data_values=data.values), metal_unit=metal_unit(spec), overwrite=True,
-                             derived=derived, ranking=ranking,
+                             back_transform=back, figures=_figures(spec, grid), measure=checks,
+                             metal_unit=metal_unit(spec), overwrite=True, derived=derived, ranking=ranking,
                              **_cube_options(spec, grid, grid, "conditional realization"))
 
 

@@ -22,7 +22,7 @@ from geosim.search import Neighbourhood
 from geosim.simulation import realization_rng
 from geosim.simulation.exact import ExactEngine
 from geosim.simulation.paths import random_path
-from geosim.simulation.runner import path_rng
+from geosim.simulation.runner import AUTO_PER_PATH, path_rng
 from geosim.simulation.sequential import SequentialEngine
 
 Z = 4.5
@@ -128,21 +128,24 @@ def test_engines_without_batches_are_refused():
         geosim.simulate(XY, SCORES, _model(), grid, n_realizations=4, seed=1, realizations_per_path=0, workers=1)
 
 
-def test_shared_path_ensemble_agrees_with_exact_engine():
-    # node by node: ensemble mean and variance of 1200 realizations in groups of 10 against
-    # the exact engine's simple-kriging moments (tolerances in the module docstring)
+@pytest.mark.parametrize("per", [10, AUTO_PER_PATH])
+def test_shared_path_ensemble_agrees_with_exact_engine(per):
+    # node by node: ensemble mean and variance of 1200 realizations in groups of 10 and of
+    # the "auto" size against the exact engine's simple-kriging moments (tolerances in the
+    # module docstring)
     grid = geosim.Grid(0.0, 0.0, (8.0, 8.0), (8, 8))
     model = _model()
     exact = ExactEngine().prepare(XY, SCORES, model, grid)
     r = 1200
     fields = geosim.simulate(XY, SCORES, model, grid, n_realizations=r, seed=3, workers=1,
-                             neighbourhood=Neighbourhood(max_samples=6, max_nodes=16), realizations_per_path=10)
+                             neighbourhood=Neighbourhood(max_samples=6, max_nodes=16), realizations_per_path=per)
     vals = np.array(fields).reshape(r, -1)
     assert np.all(np.abs(vals.mean(axis=0) - exact.mean) <= Z * np.sqrt(exact.variance / r))
     assert np.all(np.abs(vals.var(axis=0, ddof=1) / exact.variance - 1.0) <= Z * np.sqrt(2.0 / (r - 1)))
 
 
-def test_shared_path_ordinary_kriging_ensemble_agrees_with_independent_paths():
+@pytest.mark.parametrize("per", [10, AUTO_PER_PATH])
+def test_shared_path_ordinary_kriging_ensemble_agrees_with_independent_paths(per):
     # Ordinary kriging in a moving neighbourhood re-estimates the mean locally, so its
     # ensemble is not the exact engine's global one; the reference is the same engine with
     # a path per realization.  Two ensembles of 1200: standard errors of both add.
@@ -150,7 +153,7 @@ def test_shared_path_ordinary_kriging_ensemble_agrees_with_independent_paths():
     r = 1200
     common = dict(n_realizations=r, workers=1, kriging="ordinary", neighbourhood=Neighbourhood(max_samples=6,
                                                                                                max_nodes=16))
-    vals = np.array(geosim.simulate(XY, SCORES, _model(), grid, seed=3, realizations_per_path=10,
+    vals = np.array(geosim.simulate(XY, SCORES, _model(), grid, seed=3, realizations_per_path=per,
                                     **common)).reshape(r, -1)
     ref = np.array(geosim.simulate(XY, SCORES, _model(), grid, seed=4, **common)).reshape(r, -1)
     var = ref.var(axis=0, ddof=1)
@@ -164,9 +167,10 @@ def _decision_figures(fields):
     return np.column_stack([vals.mean(axis=1), (vals > 0.5).mean(axis=1)])
 
 
-def test_sharing_a_path_does_not_shrink_the_spread_of_decision_figures():
+@pytest.mark.parametrize("per", [10, AUTO_PER_PATH])
+def test_sharing_a_path_does_not_shrink_the_spread_of_decision_figures(per):
     # Between-realization variance of two decision figures (domain mean, fraction above a
-    # cut-off) with paths shared by 10 realizations against independent paths (same
+    # cut-off) with paths shared by 10 (and by the "auto" size) realizations against independent paths (same
     # neighbourhood): the ratio may not fall below 1 by more than Z standard deviations of
     # the log of a ratio of variances.  The members of a group must also be uncorrelated:
     # the correlation of their figures' deviations from the ensemble mean over all pairs
@@ -175,7 +179,7 @@ def test_sharing_a_path_does_not_shrink_the_spread_of_decision_figures():
     grid = geosim.Grid(0.0, 0.0, (4.0, 4.0), (16, 16))
     model = _model()
     nb = Neighbourhood(max_samples=6, max_nodes=12)
-    r, per = 1000, 10
+    r = 1000
     common = dict(n_realizations=r, workers=1, neighbourhood=nb)
     shared = _decision_figures(geosim.simulate(XY, SCORES, model, grid, seed=31, realizations_per_path=per,
                                                **common))
@@ -208,12 +212,12 @@ def test_run_spec_key_and_its_check(tmp_path):
 
 
 def test_auto_shares_paths_on_large_grids_only():
-    # "auto" is 10 from AUTO_SHARED_NODES active nodes with an engine that shares paths, else 1
+    # "auto" is 25 from AUTO_SHARED_NODES active nodes with an engine that shares paths, else 1
     from geosim.simulation.runner import AUTO_PER_PATH, AUTO_SHARED_NODES, per_path_for
     side = int(np.ceil(np.sqrt(AUTO_SHARED_NODES)))
     large = geosim.Grid(0.0, 0.0, (1.0, 1.0), (side, side))
     small = geosim.Grid(0.0, 0.0, (4.0, 4.0), (16, 16))
-    assert per_path_for("auto", large, "sequential") == AUTO_PER_PATH == 10
+    assert per_path_for("auto", large, "sequential") == AUTO_PER_PATH == 25
     assert per_path_for("auto", large, "exact") == 1
     assert per_path_for("auto", small, "sequential") == 1
     assert per_path_for(4, small, "sequential") == 4

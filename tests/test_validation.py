@@ -91,3 +91,20 @@ def test_data_off_node_centres_use_the_model_bound():
     rep = checks.summarize([checks(np.zeros(grid.shape))])
     offset = np.array([[3.0, 3.0]])  # node centre (15, 15) minus datum (12, 12)
     assert rep["data"]["expected_bound"] == pytest.approx(2.0 * float(model.semivariance(offset)[0]))
+
+
+def test_tolerances_computed_ahead_on_a_thread_equal_those_computed_at_the_end(exact_run):
+    # compute_ahead fills the model figures on a thread while realizations are measured (in a run:
+    # while the workers simulate); the summary must be the same, bit for bit, as one computed at
+    # the end, and the measuring object shipped to workers must leave the figures behind.
+    import pickle
+    grid, model, coords, scores, fields = exact_run
+    ahead = RunChecks(grid, model, coords, scores)
+    ahead.compute_ahead()
+    measures = [pickle.loads(pickle.dumps(ahead))(f) for f in fields]
+    shipped = pickle.loads(pickle.dumps(ahead))
+    assert not hasattr(shipped, "_moments") and not hasattr(shipped, "_conditioning")
+    later = RunChecks(grid, model, coords, scores)
+    assert ahead.summarize(measures) == later.summarize([later(f) for f in fields])
+    ahead._ahead.join(timeout=60)
+    assert len(ahead._lag_moments) == sum(map(len, ahead.steps.values()))

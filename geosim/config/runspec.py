@@ -357,7 +357,7 @@ SCHEMA: dict[str, dict[str, Key]] = {
         "kriging": Key(_choice("simple", "ordinary"), default="simple"),
         "realizations_per_path": Key(_per_path, default="auto",
                                      help="realizations sharing one random path (sequential engine; "
-                                          "10 simulates several times faster); \"auto\": 10 on grids of "
+                                          "25 simulates many times faster); \"auto\": 25 on grids of "
                                           "250,000 active nodes or more, 1 below"),
         "workers": Key(_int(1, 1024)),
         "cluster": Key(_text, help="Dask scheduler address, e.g. tcp://10.0.0.5:8786"),
