@@ -24,6 +24,12 @@ unit, applied to each unit's piece and then joined:
    raster gaining a last band of unit codes; summaries and decision figures are
    given in total and per unit, and the report has one section per unit.
 
+A ``[mean]`` and a ``[secondary]`` (top level, or a unit's own table) work per unit:
+the trend is fitted to the unit's own normal scores (a mean grid goes through its own
+transform), the secondary's transform is fitted on the unit's nodes and its correlation
+estimated from the unit's samples (:func:`geosim.secondary.secondary_grid` on the unit's
+piece); the unit's mean is added back at its nodes before its back-transform.
+
 Boundaries
 ----------
 *Hard* (the default): a node is conditioned by samples of its own unit only, and
@@ -35,7 +41,8 @@ whose distance to the nearest node of ``a`` is at most ``d`` metres also conditi
 ``a`` (and the other way round).  They enter ``a``'s normal-score space through
 ``a``'s own transform (their values are transformed by the transform fitted to
 ``a``'s samples) and take part in ``a``'s search like ``a``'s samples; they are
-not used for ``a``'s declustering, transform or variogram.  Samples of ``b``
+not used for ``a``'s declustering, transform or variogram; with a mean in ``a``
+they enter as residuals from it.  Samples of ``b``
 farther than ``d`` from every node of ``a`` have no influence on ``a`` at all.
 """
 from __future__ import annotations

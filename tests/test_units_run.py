@@ -255,6 +255,15 @@ def test_joined_outputs_carry_unit_codes_and_per_unit_figures(tmp_path, field):
         assert by_unit[key] == pytest.approx(area)
     report = json.loads((out / "report.json").read_text())
     assert [u["name"] for u in report["units"]] == ["low", "high"]
+    # all units' cross-validation pooled: counts add, and mean errors and mean squared errors are
+    # the per-unit ones weighted by the samples each unit estimated
+    for scale in ("normal_scores", "data_units"):
+        parts = [u["cross_validation"][scale] for u in report["units"]]
+        total = report["cross_validation"][scale]
+        n = np.array([p["estimated"] for p in parts])
+        assert total["estimated"] == n.sum() and total["samples"] == len(unit)
+        assert total["mean_error"] == pytest.approx(n @ [p["mean_error"] for p in parts] / n.sum())
+        assert total["rmse"] ** 2 == pytest.approx(n @ np.square([p["rmse"] for p in parts]) / n.sum())
     for section in report["units"]:
         assert {"data", "declustering", "transform", "variogram", "cross_validation", "validation",
                 "decision_spread"} <= set(section)

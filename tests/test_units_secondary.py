@@ -69,6 +69,8 @@ def test_one_unit_run_with_mean_and_secondary_equals_the_one_domain_run(tmp_path
     assert low["secondary"]["correlation"] == one_report["secondary"]["correlation"]
     assert low["secondary"]["pairs"] == len(unit)
     assert units_report["estimate"]["by_unit"]["low"]["secondary_spread"] == one_report["estimate"]["secondary_spread"]
+    for scale in ("normal_scores", "data_units"):  # all units pooled: here the one unit
+        assert units_report["cross_validation"][scale] == one_report["cross_validation"][scale]
     # realization 0 rebuilt from the one-domain pieces with the unit's stream, SeedSequence(seed, (0, 1))
     spec = load_spec(plain)
     data = pipeline.prepare_data(spec)
@@ -129,6 +131,18 @@ def test_each_unit_fits_its_own_trend_and_correlation_and_keeps_a_hard_boundary(
         a, b = _band(tmp_path / "out" / name, band), _band(tmp_path / "out_b" / name, band)
         assert np.array_equal(a[east], b[east])
         assert not np.allclose(a[west], b[west])
+    # the high unit's realization 0 rebuilt from its piece: the sequential engine on its own data,
+    # model, grid and secondary scores for its stream (seed, 0, 2), its trend added back before
+    # its own back-transform
+    high = units_run.fit_units(units) or units.pieces[2]
+    engine = SequentialEngine()
+    plan = engine.prepare(high.data.coords, high.data.scores, high.model, high.grid,
+                          neighbourhood=neighbourhood(high.spec), secondary=high.secondary.at_nodes,
+                          correlation=high.secondary.correlation, secondary_nodes=high.spec["secondary.nodes"])
+    scores = engine.realize(plan, units_run.unit_rng(realization_rng(spec["simulation.seed"], 0), 2))
+    values = high.data.transform.inverse(scores[east] + high.data.mean.trend(high.grid.coords()))
+    np.testing.assert_array_equal(_band(tmp_path / "out" / "realizations" / "r0000.tif")[east],
+                                  values.astype(np.float32))
     report = json.loads((tmp_path / "out" / "report.json").read_text())
     sections = {u["name"]: u for u in report["units"]}
     assert sections["high"]["mean"]["trend"]["order"] == 2 and sections["low"]["mean"]["trend"]["order"] == 1
@@ -152,3 +166,31 @@ def test_soft_samples_enter_as_residuals_from_the_unit_mean(tmp_path, field):
     where = np.array([[float(f"{c:.3f}") for c in p] for p in xy[near]])
     expected = low.data.transform.transform(values) - low.data.mean.trend(where)
     np.testing.assert_allclose(low.extra_scores[order], expected[mine], atol=1e-12)
+
+
+def test_soft_contact_estimate_with_a_trend_is_kriging_of_residuals_worked_out_here(tmp_path, field):
+    """The low unit's kriged normal score (estimate.tif band 3) with a trend and a soft contact: simple
+    kriging (geosim.kriging.krige, mean 0) of residuals computed here by hand, its own samples' and
+    the high unit's within 40 m, each minus the low unit's trend at its place, plus the trend at the
+    node; float32 in the file, so 1e-5."""
+    from geosim.kriging import krige
+    xy, unit, grade = field
+    soft = 'soft = [{ units = ["low", "high"], distance = 40.0 }]'
+    path = _write(tmp_path / "a", xy, unit, grade, soft=soft, extra="[mean]\ntrend = 1\n", full=True,
+                  realizations=1)
+    units_run.run(path, tmp_path / "out")
+    units = units_run.prepare_units(load_spec(path))
+    units_run.fit_units(units)
+    low = units.pieces[1]
+    trend = low.data.mean.trend
+    nodes = low.grid.coords()
+    near = [i for i in range(len(grade)) if unit[i] == 2 and np.hypot(*(nodes - xy[i]).T).min() <= 40.0]
+    where = np.array([[float(f"{c:.3f}") for c in xy[i]] for i in near])
+    values = np.array([float(f"{grade[i]:.6f}") for i in near])
+    coords = np.vstack([low.data.coords, where])
+    residuals = np.concatenate([low.data.mean.scores - trend(low.data.coords),
+                                low.data.transform.transform(values) - trend(where)])
+    result = krige(coords, residuals, nodes, low.model, method="simple", mean=0.0,
+                   neighbourhood=neighbourhood(low.spec))
+    written = _band(tmp_path / "out" / "estimate.tif", 3)[units.node_codes == 1]
+    np.testing.assert_allclose(written, result.estimate + trend(nodes), rtol=1e-5, atol=1e-5)
