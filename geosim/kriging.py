@@ -298,6 +298,31 @@ def _krige_local(search: DataSearch, z, txyz, model, ordinary, mean, regularizat
                          wts if return_weights else None, nbr if return_weights else None, int(short.sum()))
 
 
+def warm_up() -> None:
+    """Compile the local kriging kernels and the multi-Gaussian moments (numba's cache keeps
+    them) through tiny runs: simple and ordinary kriging, cross-validation, and the data-unit
+    moments of a normal score transform, alone and after a log.
+
+    The argument types are those of every real run, so the cached code is the code a run
+    loads (:func:`geosim.simulation.runner.compile_ahead` calls this in another process
+    when a run starts on an empty cache).
+    """
+    from .transforms import LogTransform, NormalScoreTransform, TransformChain
+    from .variogram.anisotropy import Anisotropy
+    from .variogram.structures import Nugget, Spherical
+    rng = np.random.default_rng(0)
+    xy = rng.uniform(0.0, 100.0, (12, 2))
+    z = rng.lognormal(0.0, 1.0, 12)
+    model = Nugget(0.1) + Spherical(0.9, Anisotropy((60.0, 60.0, 60.0)))
+    nb = Neighbourhood(max_samples=6, min_samples=1)
+    for method in ("simple", "ordinary"):
+        krige(xy, z, xy[:3] + 1.0, model, method=method, neighbourhood=nb)
+        cross_validate(xy, z, model, method=method, neighbourhood=nb)
+    for transform in (NormalScoreTransform(), TransformChain([LogTransform(), NormalScoreTransform()])):
+        transform.fit(z)
+        multigaussian_moments(transform, np.zeros(3), np.full(3, 0.5))
+
+
 def _raise_singular(target, txyz, xyz, sel, pivot, value, labels, model, reg, context=None):
     sel = [int(s) for s in sel if s >= 0]
     bad = sel[pivot]

@@ -224,8 +224,10 @@ def cross_validate(spec: RunSpec, data: PreparedData | None = None, model=None, 
     from dataclasses import replace
 
     from .kriging import cross_validate as leave_one_out
+    from .simulation.runner import await_compiled
     data = data if data is not None else prepare_data(spec, progress)
     model = _model(spec, data, model, progress)
+    await_compiled("kriging")  # a first run's kriging kernels, being compiled ahead
     result = leave_one_out(data.coords, data.scores, model, method=spec["simulation.kriging"], mean=0.0,
                            neighbourhood=neighbourhood(spec), hole_ids=data.samples.hole_ids,
                            leave_out="hole" if spec.is_drillholes else "sample",
@@ -257,6 +259,8 @@ def estimate(spec: RunSpec, data: PreparedData | None = None, model=None, grid=N
     if standalone:
         _preflight_notes(spec, data, grid)
     model = _model(spec, data, model, progress)
+    from .simulation.runner import await_compiled
+    await_compiled("kriging")
     secondary = secondary_grid(spec, data.samples, data.scores, grid)
     scores, variance, result = krige_nodes(
         data.coords, data.scores, grid, model, mean=data.mean, secondary=secondary,
@@ -421,12 +425,15 @@ def run_job(spec: RunSpec | str | os.PathLike, out_dir: str | os.PathLike, prepa
     claims ``out_dir`` (:func:`run_in_folder`) and returns ``steps(spec, prepared, grid,
     out_dir, timed, timings)``.  ``timed(name, func, *args)`` is :func:`step_timer`'s.
     """
-    from .simulation.runner import compile_ahead
+    from .kriging import _krige_rows
+    from .simulation.runner import compile_ahead, compile_modules_ahead
     if not isinstance(spec, RunSpec):
         spec = load_spec(spec)
     out_dir = Path(out_dir)
     timings: dict[str, float] = {}
     compile_ahead(spec["simulation.engine"])  # a first run's engine compiles beside the steps before it
+    # and so do its kriging and summary kernels, beside data preparation and variogram fitting
+    compile_modules_ahead("kriging", ("geosim.kriging", "geosim.summaries"), _krige_rows)
     timed = step_timer(timings)
     prepared, grid, notes = prepare(spec, timed)
     for note in notes:

@@ -204,6 +204,12 @@ def _shell_sort(a, gaps):  # pragma: no cover - compiled
             a[j] = x
 
 
+def warm_up() -> None:
+    """Compile the summary kernel (numba's cache keeps it): the float64 pass every stack takes
+    (:func:`geosim.simulation.runner.compile_modules_ahead`)."""
+    summary_bands(np.arange(6.0).reshape(3, 2), [0.5])
+
+
 def summarize_ensemble(fields: np.ndarray | Sequence[np.ndarray],
                        cutoffs: Sequence[float] = ()) -> dict[str, np.ndarray]:
     """Ensemble statistics of realizations held in memory.

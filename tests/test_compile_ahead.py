@@ -94,3 +94,40 @@ def _running(pid: int) -> bool:
             return f.read().rsplit(")", 1)[1].split()[0] != "Z"  # a zombie has ended
     except FileNotFoundError:
         return False
+
+
+def test_kriging_and_summary_kernels_compiled_ahead_are_loaded_by_a_run(tmp_path):
+    # compile_modules_ahead's process fills the cache with the kriging, moment and summary kernels
+    # (tiny warm-up runs); kriging, cross-validation, data-unit moments and summaries on other data
+    # then load them: cache hits, no misses (a warm-up with other argument types would miss)
+    cache = str(tmp_path / "cache")
+    started = _python(textwrap.dedent("""
+        from geosim.kriging import _krige_rows
+        from geosim.simulation.runner import _AHEAD, await_compiled, compile_modules_ahead
+        proc = compile_modules_ahead("kriging", ("geosim.kriging", "geosim.summaries"), _krige_rows)
+        await_compiled("kriging", timeout=540)
+        print(proc is not None, proc.returncode, "kriging" in _AHEAD,
+              compile_modules_ahead("kriging", ("geosim.kriging",), _krige_rows))
+    """), cache)
+    assert started.split() == ["True", "0", "False", "None"]
+    out = _python(textwrap.dedent("""
+        import numpy as np, geosim
+        from geosim.kriging import _krige_rows
+        from geosim.moments import _kernel
+        from geosim.summaries import _node_bands
+        from geosim.transforms import NormalScoreTransform
+        rng = np.random.default_rng(3)
+        xyz, z = rng.uniform(0, 500, (40, 3)), rng.standard_normal(40)
+        model = geosim.Nugget(0.2) + geosim.Exponential(0.8, geosim.Anisotropy((300.0, 150.0, 40.0), azimuth=20.0))
+        nb = geosim.search.Neighbourhood(max_samples=10)
+        for method in ("simple", "ordinary"):
+            geosim.kriging.krige(xyz, z, xyz[:5] + 3.0, model, method=method, neighbourhood=nb)
+            cv = geosim.kriging.cross_validate(xyz, z, model, method=method, neighbourhood=nb)
+        t = NormalScoreTransform().fit(np.exp(z))
+        cv.in_data_units(t, np.exp(z))
+        geosim.summaries.summary_bands(rng.standard_normal((7, 3, 4)), [0.1, 0.2])
+        d = [_krige_rows, _kernel, _node_bands]
+        print(sum(sum(f.stats.cache_hits.values()) for f in d), sum(sum(f.stats.cache_misses.values()) for f in d))
+    """), cache)
+    hits, misses = map(int, out.split())
+    assert hits >= 3 and misses == 0

@@ -33,7 +33,7 @@ import os
 import select
 import threading
 import time
-from collections.abc import Callable, Iterable
+from collections.abc import Callable, Iterable, Sequence
 
 import numpy as np
 
@@ -161,11 +161,54 @@ def compile_ahead(engine):
                             stderr=subprocess.DEVNULL)
 
 
-def warm_up_engine(main_pid: int, module: str, name: str) -> None:
-    """The body of :func:`compile_ahead`'s process: compile the engine class ``module.name``."""
+#: The compiling processes this process started, by what they compile (:func:`compile_modules_ahead`).
+_AHEAD: dict[str, object] = {}
+
+
+def compile_modules_ahead(key: str, modules: Sequence[str], kernel) -> object | None:
+    """Start compiling kernels into numba's cache in another process, if ``kernel`` is not there.
+
+    The process imports each of ``modules`` and calls its ``warm_up()`` (tiny runs through
+    its kernels with a real run's argument types), in order.  A first run starts one for
+    the kriging kernels (cross-validation and the estimate, about 7 s of CPU) and the
+    summaries' kernel when it begins, so they compile beside data preparation and
+    variogram fitting; :func:`await_compiled` then lets a step wait for it rather than
+    compile the same code again.  Like :func:`compile_ahead` the process ends with this
+    one and writes nothing but numba's cache.  Returns the ``subprocess.Popen``, or None.
+    """
+    import subprocess
+    import sys
+    if in_numba_cache(kernel):
+        return None
+    calls = "; ".join(f"warm_up_engine({os.getpid()}, {m!r}, None)" for m in modules)
+    proc = subprocess.Popen([sys.executable, "-c", f"from geosim.simulation.runner import warm_up_engine; {calls}"],
+                            stdin=subprocess.DEVNULL, stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL)
+    _AHEAD[key] = proc
+    return proc
+
+
+def await_compiled(key: str, timeout: float = 300.0) -> None:
+    """Wait (at most ``timeout`` s) for the compiling process started under ``key``, if any.
+
+    A step that needs kernels being compiled ahead waits instead of compiling them itself;
+    a process that failed or is too slow only means the step compiles what is missing.
+    """
+    import subprocess
+    proc = _AHEAD.pop(key, None)
+    if proc is not None:
+        try:
+            proc.wait(timeout=timeout)
+        except subprocess.TimeoutExpired:
+            pass
+
+
+def warm_up_engine(main_pid: int, module: str, name: str | None) -> None:
+    """The body of :func:`compile_ahead`'s process: compile the engine class ``module.name`` (with
+    ``name`` None, the module's own ``warm_up()``)."""
     import importlib
     watch_process(main_pid)
-    getattr(importlib.import_module(module), name)().warm_up()
+    target = importlib.import_module(module)
+    (target.warm_up if name is None else getattr(target, name)().warm_up)()
 
 
 def watch_process(pid: int, interval: float = PARENT_POLL_SECONDS) -> threading.Thread:
