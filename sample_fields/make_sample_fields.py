@@ -76,8 +76,17 @@ ORE_PLANNED = [("PH-1 at 250 m", 454900.0, 5460000.0, 250.0), ("PH-2 at 280 m", 
                ("PH-3 at 230 m", 455000.0, 5459950.0, 230.0)]
 
 
+# one random stream per step, never shared, so that a change to one file leaves the others as they are
+# (tests/test_sample_fields.py checks that no stream is drawn twice)
+STREAMS = {1: "ore prospect: collars and holes", 2: "ore prospect: grades", 3: "aquifer: well positions",
+           4: "aquifer: conductivity", 5: "aquifer units: gravel", 6: "aquifer units: silt",
+           7: "resistivity survey: conductivity at the survey cells", 8: "resistivity survey: its own part"}
+
+
 def _rng(stream: int) -> np.random.Generator:
-    """Independent random stream ``stream`` of the fixed seed."""
+    """Independent random stream ``stream`` of the fixed seed (one of ``STREAMS``)."""
+    if stream not in STREAMS:
+        raise ValueError(f"stream {stream} is not one of STREAMS; add it there")
     return np.random.default_rng(np.random.SeedSequence(SEED, spawn_key=(stream,)))
 
 
@@ -466,8 +475,8 @@ def _write_survey(path: Path, valley: Polygon, wells: np.ndarray, y_wells: np.nd
     cond = AQUIFER_MODEL.cov_matrix(cells) - c_cw @ scipy.linalg.cho_solve(factor, c_cw.T)
     cond[np.diag_indices_from(cond)] += 1e-9  # round-off at cells on top of a well
     lower = scipy.linalg.cholesky(cond, lower=True, overwrite_a=True, check_finite=False)
-    y_cells = mean + lower @ _rng(5).standard_normal(len(cells))
-    e = gaussian_at(cells, SURVEY_NOISE_MODEL, _rng(6))
+    y_cells = mean + lower @ _rng(7).standard_normal(len(cells))
+    e = gaussian_at(cells, SURVEY_NOISE_MODEL, _rng(8))
     s = SURVEY_CORRELATION * y_cells + math.sqrt(1.0 - SURVEY_CORRELATION**2) * e
     ohm_m = 10.0 ** (SURVEY_LOG10_MEDIAN + SURVEY_LOG10_STD * s)
     profile = dict(driver="GTiff", width=nx, height=ny, count=1, dtype="float32", crs=f"EPSG:{AQUIFER_EPSG}",
