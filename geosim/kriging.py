@@ -1,9 +1,10 @@
 """Simple and ordinary kriging, leave-one-out cross-validation and estimation maps.
 
-Secondary information enters in two ways: simple kriging with a locally varying
-mean (:func:`krige_varying_mean`, residuals from a mean given per location) and
+Secondary information enters in three ways: simple kriging with a locally varying
+mean (:func:`krige_varying_mean`, residuals from a mean given per location),
 collocated simple cokriging under the Markov model (:func:`collocated_cokrige`,
-:func:`collocated_update`).
+:func:`collocated_update`), and kriging with an external drift
+(:func:`krige_external_drift`: the mean ``a + b s(u)`` of unknown ``a``, ``b``).
 
 Every local system is the covariance matrix ``K`` of the selected samples,
 factored ``K = L L^T`` by the compiled :func:`geosim.linalg.chol_inplace`.  One
@@ -14,7 +15,10 @@ factor serves the weights and the variance:
 * ordinary kriging (unknown constant mean): with ``y1 = L^-1 1`` the Lagrange
   constraint gives ``mu = (y1.y - 1) / (y1.y1)``, weights ``L^-T (y - mu y1)``
   (they sum to one) and variance ``C(0) - y.y + (y1.y - 1)^2 / (y1.y1)``, i.e. the
-  simple-kriging variance plus the price of not knowing the mean.
+  simple-kriging variance plus the price of not knowing the mean;
+* external drift (unknown mean ``a + b s``): the same with the two drift
+  functions ``F = [1, s]``: ``G = L^-1 F``, ``r = G'y - (1, s0)``, multipliers
+  ``mu = (G'G)^-1 r``, weights ``L^-T (y - G mu)``, variance ``C(0) - y.y + r.mu``.
 
 Selection (:func:`geosim.search.select_neighbours`), build, factor and solve run
 per node in one compiled loop.  With ``neighbourhood="global"`` every sample
@@ -49,14 +53,22 @@ log = logging.getLogger(__name__)
 # a conditional variance (Cholesky pivot) below this fraction of the sill is
 # treated as singular: rounding noise, not information (common practice, no source)
 PIVOT_RTOL = 1e-10
+# an external drift that spans less than this fraction of its spread over all samples is constant
+# over a neighbourhood: its coefficient cannot be told from the mean (common practice, no source)
+DRIFT_RTOL = 1e-9
+# fewest samples kriging with an external drift uses: its two constraints and one degree of freedom;
+# two samples fix the weights by the constraints alone, an extrapolation of the line through them
+# (common practice, no source)
+DRIFT_MIN_SAMPLES = 3
 # below this many targets per thread, threads cost more than they save
 _MIN_ROWS_PER_THREAD = 256
 
 Progress = Callable[[int, int, str], None]
 
 __all__ = ["KrigingResult", "CokrigingResult", "CrossValidationResult", "krige", "krige_grid",
-           "krige_varying_mean", "collocated_cokrige", "collocated_update", "collocated_correlation",
-           "MIN_COLLOCATED_PAIRS", "cross_validate", "PIVOT_RTOL"]
+           "krige_varying_mean", "krige_external_drift", "collocated_cokrige", "collocated_update",
+           "collocated_correlation", "MIN_COLLOCATED_PAIRS", "cross_validate", "PIVOT_RTOL", "DRIFT_RTOL",
+           "DRIFT_MIN_SAMPLES", "METHODS"]
 
 
 @dataclass(frozen=True)
@@ -67,15 +79,16 @@ class KrigingResult:
     ----------
     estimate, variance : (m,) ndarray
         Kriged value and kriging variance.  Simple kriging estimates every
-        target (with no sample: the mean and the sill); ordinary kriging gives
-        NaN where fewer than ``min_samples`` samples were found and the search
-        was not widened.
+        target (with no sample: the mean and the sill); ordinary kriging and
+        kriging with an external drift give NaN where fewer than
+        ``min_samples`` samples (for a drift, at least ``DRIFT_MIN_SAMPLES``)
+        were found and the search was not widened.
     n_used : (m,) int64 ndarray
         Samples in each local system.
     method : str
-        ``"simple"`` or ``"ordinary"``.
+        ``"simple"``, ``"ordinary"`` or ``"external_drift"``.
     mean : float
-        The known mean (simple kriging); NaN for ordinary kriging.
+        The known mean (simple kriging); NaN otherwise.
     n_regularized : int
         Targets whose system was singular and got ``regularization`` on its
         diagonal (0 when no regularization was needed).
@@ -121,10 +134,34 @@ def _check_threads(threads) -> int:
     return int(threads)
 
 
-def _check_method(method: str) -> bool:
-    if method not in ("simple", "ordinary"):
-        raise ValueError(f"method must be 'simple' or 'ordinary', got {method!r}")
-    return method == "ordinary"
+METHODS = ("simple", "ordinary", "external_drift")
+
+
+def _check_method(method: str) -> int:
+    """The kernels' mode of a method name: 0 simple, 1 ordinary, 2 external drift."""
+    if method not in METHODS:
+        raise ValueError(f"method must be one of {METHODS}, got {method!r}")
+    return METHODS.index(method)
+
+
+def _check_drift(mode: int, drift, target_drift, n: int, m: int) -> tuple[np.ndarray, np.ndarray, float]:
+    """The external drift at the samples and targets (empty arrays for the other methods) and the
+    smallest spread of it a neighbourhood must show (a relative ``DRIFT_RTOL`` of its spread at the
+    samples)."""
+    if mode != 2:
+        if drift is not None or target_drift is not None:
+            raise ValueError("drift and target_drift are for method='external_drift'")
+        return np.empty(0), np.empty(0), 0.0
+    if drift is None or target_drift is None:
+        raise ValueError("method='external_drift' needs drift (at the samples) and target_drift (at the targets)")
+    d = _mean_at(drift, n, "external drift at the samples")
+    t = _mean_at(target_drift, m, "external drift at the targets")
+    spread = float(np.ptp(d)) if n else 0.0
+    if not spread > 0.0:
+        raise InputError(f"the external drift has the same value ({d[0]:g}) at every sample" if n else
+                         "no samples to krige from", field="drift",
+                         fix="give a drift that varies between the samples, or krige without it")
+    return d, t, DRIFT_RTOL * spread
 
 
 def _check_data(coords, values, what: str = "data") -> tuple[np.ndarray, np.ndarray]:
@@ -155,10 +192,10 @@ def _sample_labels(n: int, sample_ids, hole_ids) -> Callable[[int], str]:
 
 
 def krige(data_coords, data_values, targets, model, *, method: str = "simple", mean: float = 0.0,
-          neighbourhood: Neighbourhood | str = Neighbourhood(), hole_ids=None, sample_ids=None,
-          regularization: float | None = None, return_weights: bool = False, threads: int = 1,
+          drift=None, target_drift=None, neighbourhood: Neighbourhood | str = Neighbourhood(), hole_ids=None,
+          sample_ids=None, regularization: float | None = None, return_weights: bool = False, threads: int = 1,
           progress: Progress | None = None) -> KrigingResult:
-    """Simple or ordinary kriging at arbitrary points.
+    """Simple, ordinary or external-drift kriging at arbitrary points.
 
     Parameters
     ----------
@@ -170,11 +207,16 @@ def krige(data_coords, data_values, targets, model, *, method: str = "simple", m
         Points to estimate.
     model : geosim.variogram.Model
         Covariance model.
-    method : {"simple", "ordinary"}
+    method : {"simple", "ordinary", "external_drift"}
         Simple kriging uses the known ``mean``; ordinary kriging filters an
-        unknown constant mean (weights sum to one).
+        unknown constant mean (weights sum to one); kriging with an external
+        drift filters an unknown mean ``a + b s(u)`` linear in a known
+        variable ``s`` (see :func:`krige_external_drift`).
     mean : float
         Known mean for simple kriging.
+    drift, target_drift : (n,) and (m,) array_like, optional
+        The external drift ``s`` at the samples and at the targets
+        (``method="external_drift"`` only).
     neighbourhood : Neighbourhood or "global"
         Local search; ``"global"`` puts every sample in one system factored once.
     hole_ids : (n,) array_like, optional
@@ -202,6 +244,9 @@ def krige(data_coords, data_values, targets, model, *, method: str = "simple", m
     NotPositiveDefiniteError
         A local covariance matrix is singular and no (or too small a)
         regularization was given; the message names the samples.
+    InputError
+        External drift: the drift takes one value over a neighbourhood (the
+        message names the target and its samples).
 
     Examples
     --------
@@ -214,7 +259,7 @@ def krige(data_coords, data_values, targets, model, *, method: str = "simple", m
     >>> np.round(r.estimate, 6).tolist(), round(float(r.variance[0]), 6)
     ([2.0, 2.0], 0.0)
     """
-    ordinary = _check_method(method)
+    mode = _check_method(method)
     model = _as_model(model)
     threads = _check_threads(threads)
     d = np.shape(data_coords)[-1]
@@ -222,24 +267,25 @@ def krige(data_coords, data_values, targets, model, *, method: str = "simple", m
     if np.shape(targets)[-1] != d:
         raise ValueError(f"data are {d}-D but targets have {np.shape(targets)[-1]} coordinates")
     txyz = as_xyz(targets, "targets")
+    drifts = _check_drift(mode, drift, target_drift, xyz.shape[0], txyz.shape[0])
     labels = _sample_labels(xyz.shape[0], sample_ids, hole_ids)
     if isinstance(neighbourhood, str):
         if neighbourhood != "global":
             raise ValueError(f"neighbourhood must be a Neighbourhood or 'global', got {neighbourhood!r}")
-        res = _krige_global(xyz, z, txyz, model, ordinary, float(mean), regularization, labels,
-                            return_weights, progress)
+        res = _krige_global(xyz, z, txyz, model, mode, float(mean), regularization, labels,
+                            return_weights, progress, drifts)
     else:
         search = DataSearch(xyz[:, :d], neighbourhood, model, hole_ids)
-        res = _krige_local(search, z, txyz, model, ordinary, float(mean), regularization, labels,
-                           return_weights, progress, None, None, threads)
+        res = _krige_local(search, z, txyz, model, mode, float(mean), regularization, labels,
+                           return_weights, progress, None, None, threads, drifts)
     if res.n_regularized:
         log.warning("kriging: %d local system(s) were singular and were regularized with %g x sill on the "
                     "diagonal", res.n_regularized, regularization)
     return res
 
 
-def _krige_local(search: DataSearch, z, txyz, model, ordinary, mean, regularization, labels,
-                 return_weights, progress, excl_index, excl_hole, threads=1) -> KrigingResult:
+def _krige_local(search: DataSearch, z, txyz, model, mode, mean, regularization, labels,
+                 return_weights, progress, excl_index, excl_hole, threads=1, drifts=None) -> KrigingResult:
     nb = search.neighbourhood
     m = txyz.shape[0]
     tframe = search.to_frame(txyz)
@@ -258,6 +304,8 @@ def _krige_local(search: DataSearch, z, txyz, model, ordinary, mean, regularizat
         raise ValueError(f"regularization must be >= 0, got {regularization}")
     tol = PIVOT_RTOL * c0
     short = np.zeros(m, dtype=np.bool_)
+    drift, tdrift, drift_tol = drifts if drifts is not None else (np.empty(0), np.empty(0), 0.0)
+    fewest = max(nb.min_samples, DRIFT_MIN_SAMPLES) if mode == 2 else nb.min_samples
 
     def part(rows, cand, first, limit):
         # each thread writes its own targets' outputs and has its own failure record
@@ -265,9 +313,10 @@ def _krige_local(search: DataSearch, z, txyz, model, ordinary, mean, regularizat
         fail_info = np.zeros(2)
         fail_nbr = np.full(k, -1, dtype=np.int64)
         failed = _krige_rows(rows, cand, search.xyz, search.frame, z, search.holes, txyz, tframe, excl_i,
-                             excl_h, cm, ordinary, mean, c0, limit, nb.min_samples, nb.widen, first, short,
-                             nb.sectors, nb.sector_limit, nb.hole_limit, tol, reg, est, var, n_used, n_reg,
-                             more, wts, nbr, fail_info, fail_nbr)
+                             excl_h, cm, mode, mean, drift, tdrift, drift_tol, c0, limit, fewest, nb.widen, first, short, nb.sectors, nb.sector_limit, nb.hole_limit, tol, reg, est,
+                             var, n_used, n_reg, more, wts, nbr, fail_info, fail_nbr)
+        if failed >= 0 and fail_info[0] < 0:
+            _raise_constant_drift(int(rows[failed]), txyz, fail_nbr, fail_info[1], labels, excl_index is not None)
         if failed >= 0:
             _raise_singular(int(rows[failed]), txyz, search.xyz, fail_nbr, int(fail_info[0]),
                             fail_info[1], labels, model, reg)
@@ -288,13 +337,12 @@ def _krige_local(search: DataSearch, z, txyz, model, ordinary, mean, regularizat
         everything = np.arange(m, dtype=np.int64)
         search.run(tframe, sweep(everything, True, k), exclusions=exclusions, progress=progress,
                    what="kriging nodes", workers=threads)
-        if nb.widen and nb.min_samples > 0 and short.any():
+        if nb.widen and fewest > 0 and short.any():
             # the nearest min_samples wherever they lie: the ellipsoid grown until it holds them
             thin = np.flatnonzero(short)
-            search.run(tframe[thin], sweep(thin, False, nb.min_samples), exclusions=exclusions,
+            search.run(tframe[thin], sweep(thin, False, fewest), exclusions=exclusions,
                        workers=threads, inside=False)
-    return KrigingResult(est, var, n_used, "ordinary" if ordinary else "simple",
-                         math.nan if ordinary else mean, int(n_reg.sum()),
+    return KrigingResult(est, var, n_used, METHODS[mode], mean if mode == 0 else math.nan, int(n_reg.sum()),
                          wts if return_weights else None, nbr if return_weights else None, int(short.sum()))
 
 
@@ -323,6 +371,18 @@ def warm_up() -> None:
         multigaussian_moments(transform, np.zeros(3), np.full(3, 0.5))
 
 
+def _raise_constant_drift(target, txyz, sel, value, labels, left_out: bool):
+    sel = [int(s) for s in sel if s >= 0]
+    where = ", ".join(f"{v:.3f}" for v in txyz[target])
+    what = f"left-out sample {labels(target)}" if left_out else f"target {target} ({where})"
+    shown = ", ".join(labels(s) for s in sel[:5]) + (" ..." if len(sel) > 5 else "")
+    raise InputError(f"kriging with an external drift at {what}: the drift has the same value ({value:g}) at all "
+                     f"{len(sel)} samples of its neighbourhood ({shown}), so its coefficient cannot be told from "
+                     "the mean (the system is singular)", field="drift",
+                     fix="search more samples (a larger max_samples or search ranges), or use the secondary as a "
+                         "collocated variable instead of a drift")
+
+
 def _raise_singular(target, txyz, xyz, sel, pivot, value, labels, model, reg, context=None):
     sel = [int(s) for s in sel if s >= 0]
     bad = sel[pivot]
@@ -345,18 +405,22 @@ def _raise_singular(target, txyz, xyz, sel, pivot, value, labels, model, reg, co
 
 
 @njit(cache=True, nogil=True)
-def _krige_rows(rows, cand, xyz, frame, z, holes, txyz, tframe, excl_index, excl_hole, cm, ordinary,
-                mean, c0, max_samples, min_samples, widen, first, short, sectors, sector_limit, hole_limit, tol,
-                reg, est, var, n_used, n_reg, more, wts, nbr, fail_info, fail_nbr):
+def _krige_rows(rows, cand, xyz, frame, z, holes, txyz, tframe, excl_index, excl_hole, cm, mode,
+                mean, drift, tdrift, drift_tol, c0, max_samples, min_samples, widen, first, short, sectors,
+                sector_limit, hole_limit, tol, reg, est, var, n_used, n_reg, more, wts, nbr, fail_info, fail_nbr):
     """Select, build, factor and solve for each target in ``rows``; -1 or the failing row position.
 
-    ``first``: the pass inside the search ellipsoid, which marks targets with fewer than
-    ``min_samples`` in ``short`` (and leaves them for the widened pass when ``widen``).
+    ``mode``: 0 simple, 1 ordinary, 2 external drift (``drift`` at the samples, ``tdrift`` at the
+    targets; a neighbourhood whose drift spans no more than ``drift_tol`` fails with
+    ``fail_info[0] = -1``).  ``first``: the pass inside the search ellipsoid, which marks targets
+    with fewer than ``min_samples`` in ``short`` (and leaves them for the widened pass when ``widen``).
     """
+    ordinary = mode >= 1
     k = max_samples
     a = np.empty((k, k))
     c = np.empty(k)
     y1 = np.empty(k)
+    ys = np.empty(k)
     sel = np.empty(k, dtype=np.int64)
     sector_count = np.zeros(8, dtype=np.int64)
     hole_buf = np.zeros(k, dtype=np.int64)
@@ -409,7 +473,50 @@ def _krige_rows(rows, cand, xyz, frame, z, holes, txyz, tframe, excl_index, excl
         ycyc = 0.0
         for p in range(count):
             ycyc += c[p] * c[p]
-        if ordinary:
+        if mode == 2:
+            # drift centred on the neighbourhood's mean: the same system (the constant is a drift
+            # function too), without the cancellation of a large offset
+            sm = 0.0
+            for p in range(count):
+                sm += drift[sel[p]]
+            sm /= count
+            lo = np.inf
+            hi = -np.inf
+            for p in range(count):
+                ys[p] = drift[sel[p]] - sm
+                lo = min(lo, ys[p])
+                hi = max(hi, ys[p])
+                y1[p] = 1.0
+            s11 = sss = 1.0
+            s1s = det = r1 = rs = 0.0
+            if hi - lo > drift_tol:
+                forward_inplace(a, count, y1)
+                forward_inplace(a, count, ys)
+                s11 = s1s = sss = 0.0
+                r1 = -1.0
+                rs = sm - tdrift[r]
+                for p in range(count):
+                    s11 += y1[p] * y1[p]
+                    s1s += y1[p] * ys[p]
+                    sss += ys[p] * ys[p]
+                    r1 += y1[p] * c[p]
+                    rs += ys[p] * c[p]
+                det = s11 * sss - s1s * s1s
+            if hi - lo <= drift_tol or det <= PIVOT_RTOL * s11 * sss:
+                fail_info[0] = -1.0
+                fail_info[1] = sm
+                for p in range(count):
+                    fail_nbr[p] = sel[p]
+                for p in range(count, k):
+                    fail_nbr[p] = -1
+                return i
+            # Lagrange multipliers (F' K^-1 F)^-1 (F' K^-1 c - f0), F = [1, s]
+            mu1 = (sss * r1 - s1s * rs) / det
+            mus = (s11 * rs - s1s * r1) / det
+            v = c0 - ycyc + r1 * mu1 + rs * mus
+            for p in range(count):
+                c[p] -= mu1 * y1[p] + mus * ys[p]
+        elif ordinary:
             for p in range(count):
                 y1[p] = 1.0
             forward_inplace(a, count, y1)
@@ -464,11 +571,12 @@ def _factor_global(xyz, model, regularization, labels):
     raise AssertionError("unreachable")
 
 
-def _krige_global(xyz, z, txyz, model, ordinary, mean, regularization, labels, return_weights,
-                  progress) -> KrigingResult:
+def _krige_global(xyz, z, txyz, model, mode, mean, regularization, labels, return_weights,
+                  progress, drifts) -> KrigingResult:
     from scipy.linalg import solve_triangular
 
     n, m = xyz.shape[0], txyz.shape[0]
+    ordinary = mode >= 1
     c0 = float(model.sill)
     if n == 0:
         raise InputError("no samples to krige from", field="values", fix="give at least one sample")
@@ -476,6 +584,12 @@ def _krige_global(xyz, z, txyz, model, ordinary, mean, regularization, labels, r
     yz = solve_triangular(factor, z if ordinary else z - mean, lower=True)
     y1 = solve_triangular(factor, np.ones(n), lower=True)
     s11 = float(y1 @ y1)
+    if mode == 2:  # drift functions F = [1, s - mean s]: G = L^-1 F, multipliers (G'G)^-1 (G' y - f0)
+        drift, tdrift, _ = drifts
+        centre = float(drift.mean())
+        g = solve_triangular(factor, np.column_stack([np.ones(n), drift - centre]), lower=True)
+        gg_inv = np.linalg.inv(g.T @ g)
+        gz = g.T @ yz
     est, var = np.empty(m), np.empty(m)
     wts = np.empty((m, n)) if return_weights else None
     block = max(1, (1 << 21) // n)
@@ -483,7 +597,13 @@ def _krige_global(xyz, z, txyz, model, ordinary, mean, regularization, labels, r
         stop = min(m, start + block)
         yc = solve_triangular(factor, model.cov_matrix(xyz, txyz[start:stop]), lower=True)
         v = c0 - np.einsum("ij,ij->j", yc, yc)
-        if ordinary:
+        if mode == 2:
+            r = g.T @ yc - np.vstack([np.ones(stop - start), tdrift[start:stop] - centre])
+            mu = gg_inv @ r
+            est[start:stop] = yc.T @ yz - mu.T @ gz
+            v += np.einsum("ij,ij->j", r, mu)
+            yc -= g @ mu
+        elif ordinary:
             s1c = y1 @ yc
             mu = (s1c - 1.0) / s11
             est[start:stop] = yc.T @ yz - mu * float(y1 @ yz)
@@ -497,8 +617,8 @@ def _krige_global(xyz, z, txyz, model, ordinary, mean, regularization, labels, r
         if progress is not None:
             progress(stop, m, "kriging nodes")
     nbr = np.broadcast_to(np.arange(n, dtype=np.int64), (m, n)).copy() if return_weights else None
-    return KrigingResult(est, var, np.full(m, n, dtype=np.int64), "ordinary" if ordinary else "simple",
-                         math.nan if ordinary else mean, m if regularized else 0, wts, nbr)
+    return KrigingResult(est, var, np.full(m, n, dtype=np.int64), METHODS[mode], math.nan if ordinary else mean,
+                         m if regularized else 0, wts, nbr)
 
 
 def krige_grid(data_coords, data_values, grid, model, *, domain=None, method: str = "simple",
@@ -611,6 +731,63 @@ return_weights, threads, progress
                 hole_ids=hole_ids, sample_ids=sample_ids, regularization=regularization,
                 return_weights=return_weights, threads=threads, progress=progress)
     return replace(res, estimate=res.estimate + tm, mean=math.nan)
+
+
+def krige_external_drift(data_coords, data_values, targets, model, data_drift, target_drift, *,
+                         neighbourhood: Neighbourhood | str = Neighbourhood(), hole_ids=None, sample_ids=None,
+                         regularization: float | None = None, return_weights: bool = False, threads: int = 1,
+                         progress: Progress | None = None) -> KrigingResult:
+    """Kriging with an external drift.
+
+    The mean of the variable is ``a + b s(u)``, linear in a variable ``s`` known
+    at every sample and target (a secondary survey), with ``a`` and ``b``
+    unknown and free to change from one neighbourhood to the next.  The weights
+    filter both: they sum to one and reproduce the drift at the target,
+    ``sum_a w_a s(u_a) = s(u)``, two Lagrange constraints on the ordinary
+    kriging system of ``model``, the covariance of the residual from the drift
+    (Wackernagel 2003, Multivariate Geostatistics, 3rd ed., chapter 38 on
+    external drift, from memory; Goovaerts 1997, Geostatistics for Natural
+    Resources Evaluation, section 6.1.3, from memory).  The variance is the
+    ordinary-kriging variance plus the price of not knowing ``b``.
+
+    Parameters
+    ----------
+    data_coords, data_values, targets, model, neighbourhood, hole_ids, sample_ids, regularization, \
+return_weights, threads, progress
+        As for :func:`krige`.
+    data_drift : (n,) array_like
+        The drift variable at each sample.
+    target_drift : (m,) array_like
+        The drift variable at each target.
+
+    Returns
+    -------
+    KrigingResult
+        ``method`` is ``"external_drift"``.  The neighbourhood's
+        ``min_samples`` is raised to ``DRIFT_MIN_SAMPLES`` (3); targets with
+        fewer samples (after widening, if asked) get NaN.
+
+    Raises
+    ------
+    InputError
+        The drift is the same at every sample, or over a target's
+        neighbourhood: its coefficient cannot be told from the mean.
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> import geosim
+    >>> from geosim.kriging import krige_external_drift
+    >>> model = geosim.Exponential(1.0, geosim.Anisotropy((60.0, 60.0)))
+    >>> # values exactly 1 + s: the estimate is 1 + s at the target, whatever the covariance
+    >>> r = krige_external_drift([[0.0, 0.0], [10.0, 0.0], [0.0, 10.0]], [1.0, 3.0, 5.0], [[5.0, 5.0]], model,
+    ...                          [0.0, 2.0, 4.0], [3.0])
+    >>> np.round(r.estimate, 6).tolist()
+    [4.0]
+    """
+    return krige(data_coords, data_values, targets, model, method="external_drift", drift=data_drift,
+                 target_drift=target_drift, neighbourhood=neighbourhood, hole_ids=hole_ids, sample_ids=sample_ids,
+                 regularization=regularization, return_weights=return_weights, threads=threads, progress=progress)
 
 
 @dataclass(frozen=True)
@@ -982,7 +1159,7 @@ def _nanmean(a: np.ndarray) -> float:
 
 
 def cross_validate(data_coords, data_values, model, *, method: str = "ordinary", mean: float = 0.0,
-                   neighbourhood: Neighbourhood | str = Neighbourhood(), hole_ids=None,
+                   drift=None, neighbourhood: Neighbourhood | str = Neighbourhood(), hole_ids=None,
                    sample_ids: Sequence | None = None, leave_out: str = "sample",
                    regularization: float | None = None, threads: int = 1,
                    progress: Progress | None = None) -> CrossValidationResult:
@@ -993,6 +1170,9 @@ def cross_validate(data_coords, data_values, model, *, method: str = "ordinary",
     data_coords, data_values, model, method, mean, neighbourhood, hole_ids, regularization, threads, \
 progress
         As for :func:`krige`.
+    drift : (n,) array_like, optional
+        The external drift at the samples (``method="external_drift"``); each
+        left-out sample is kriged with its own drift value as the target's.
     sample_ids : sequence, optional
         Labels for the table (default: ``hole#row`` or the row number).
     leave_out : {"sample", "hole"}
@@ -1006,7 +1186,7 @@ progress
     Notes
     -----
     With ``neighbourhood="global"`` no system is refactored: with ``B`` the
-    inverse of the (ordinary: bordered) data covariance matrix and ``r = B z``,
+    inverse of the (ordinary, external drift: bordered) data covariance matrix and ``r = B z``,
     the left-out errors are ``-(B_GG)^-1 r_G`` and their covariance
     ``(B_GG)^-1`` for each left-out group ``G`` (Dubrule, 1983, Cross validation
     of kriging in a unique neighborhood, Mathematical Geology 15(6), 687-699).
@@ -1023,7 +1203,7 @@ progress
     >>> cv.error.shape, sorted(cv.summary())[:2]
     ((30,), ['below_min_samples', 'correlation'])
     """
-    ordinary = _check_method(method)
+    mode = _check_method(method)
     if leave_out not in ("sample", "hole"):
         raise ValueError(f"leave_out must be 'sample' or 'hole', got {leave_out!r}")
     if leave_out == "hole" and hole_ids is None:
@@ -1032,12 +1212,13 @@ progress
     d = np.asarray(data_coords).shape[-1]
     xyz, z = _check_data(data_coords, data_values)
     n = xyz.shape[0]
+    drifts = _check_drift(mode, drift, drift, n, n)
     labels = _sample_labels(n, sample_ids, hole_ids)
     if isinstance(neighbourhood, str):
         if neighbourhood != "global":
             raise ValueError(f"neighbourhood must be a Neighbourhood or 'global', got {neighbourhood!r}")
-        est, var = _loo_global(xyz, z, model, ordinary, float(mean), regularization, labels,
-                               hole_ids if leave_out == "hole" else None)
+        est, var = _loo_global(xyz, z, model, mode, float(mean), regularization, labels,
+                               hole_ids if leave_out == "hole" else None, drifts[0])
         if progress is not None:
             progress(n, n, "kriging nodes")
         n_used = np.full(n, n - 1, dtype=np.int64)
@@ -1046,26 +1227,32 @@ progress
             n_used = (n - counts[inverse.ravel()]).astype(np.int64)
     else:
         search = DataSearch(xyz[:, :d], neighbourhood, model, hole_ids)
-        res = _krige_local(search, z, xyz, model, ordinary, float(mean), regularization, labels, False,
+        res = _krige_local(search, z, xyz, model, mode, float(mean), regularization, labels, False,
                            progress, np.arange(n), search.holes if leave_out == "hole" else None,
-                           _check_threads(threads))
+                           _check_threads(threads), drifts)
         if res.n_regularized:
             log.warning("cross-validation: %d local system(s) were singular and were regularized with %g x "
                         "sill on the diagonal", res.n_regularized, regularization)
         est, var, n_used = res.estimate, res.variance, res.n_used
     short = 0 if isinstance(neighbourhood, str) else res.n_short  # a global system holds every sample
     return CrossValidationResult(xyz[:, :d].copy(), z.copy(), est, var, n_used,
-                                 [labels(i) for i in range(n)], "ordinary" if ordinary else "simple",
-                                 leave_out, model.text(d), n_short=short)
+                                 [labels(i) for i in range(n)], METHODS[mode], leave_out, model.text(d),
+                                 n_short=short)
 
 
-def _loo_global(xyz, z, model, ordinary, mean, regularization, labels, hole_ids):
+def _loo_global(xyz, z, model, mode, mean, regularization, labels, hole_ids, drift=None):
     from scipy.linalg import cho_solve
 
     n = xyz.shape[0]
     factor, _ = _factor_global(xyz, model, regularization, labels)
     kinv = cho_solve((factor, True), np.eye(n))
-    if ordinary:
+    if mode == 2:
+        # the same for the drift functions F = [1, s]: K^-1 - K^-1 F (F' K^-1 F)^-1 F' K^-1
+        f = np.column_stack([np.ones(n), drift - drift.mean()])
+        kf = kinv @ f
+        b = kinv - kf @ np.linalg.solve(f.T @ kf, kf.T)
+        resid = b @ z
+    elif mode == 1:
         # inverse of the bordered matrix [[K, 1], [1', 0]], top-left block, by the Schur complement
         k1 = kinv.sum(axis=1)
         b = kinv - np.outer(k1, k1) / k1.sum()

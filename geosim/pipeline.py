@@ -39,6 +39,8 @@ import logging
 import os
 import time
 from collections.abc import Callable, Mapping
+from contextlib import nullcontext
+from dataclasses import replace
 from pathlib import Path
 from typing import Any
 
@@ -135,8 +137,9 @@ def given_model(spec: RunSpec, data: PreparedData | None = None):
         where = dict(file=spec.name, field="variogram.structures")
     else:
         return default_template(data if data is not None else prepare_data(spec))
-    if not vg["fit"] and spec["mean.trend"] is None and spec["mean.file"] is None:  # residuals have less
-        from .inputchecks import check_score_sill
+    from .secondary import uses_drift
+    if not vg["fit"] and spec["mean.trend"] is None and spec["mean.file"] is None and not uses_drift(spec):
+        from .inputchecks import check_score_sill  # residuals from a mean or a drift have less
         check_score_sill(model, **where)
     return model
 
@@ -158,7 +161,9 @@ def preflight(spec: RunSpec, data: PreparedData, grid) -> list[str]:
         coords3 = np.zeros((len(data.coords), 3))
         coords3[:, : data.coords.shape[1]] = data.coords
         free = grid.n_active - len(coincident_nodes(coords3, grid)[0])
-        secondary = grid.n_active if spec["secondary.file"] and spec["secondary.correlation"] != 0 else 0
+        from .secondary import uses_drift
+        collocated = spec["secondary.file"] and spec["secondary.correlation"] != 0 and not uses_drift(spec)
+        secondary = grid.n_active if collocated else 0
         check_size(len(data.values) + secondary + free, file=spec.name, field="simulation.engine")
     reach = max(model.max_range, min(grid.cell))
     return check_conditioning(data.samples, grid, reach, spec_file=spec.name)
@@ -187,12 +192,18 @@ def variogram_model(spec: RunSpec, data: PreparedData | None = None, *, out_dir:
     else:
         data = data if data is not None else prepare_data(spec, progress)
         template = given_model(spec, data)
-        from .secondary import fit_total_sill
+        from .secondary import drift_fit, fit_total_sill, secondary_grid, uses_drift
         from .variogram.fitting import fit_model
-        experimental = experimental_variograms(spec, data, progress)
+        fitted, total_sill = data, fit_total_sill(spec, data.weights, data.mean)
+        if uses_drift(spec):  # the variogram of the residuals from the drift
+            secondary = secondary_grid(spec, data.samples, data.scores, make_grid(spec, data))
+            residuals, drift = drift_fit(secondary, data.scores, data.weights)
+            fitted = replace(data, scores=residuals)
+            if total_sill == 1.0:
+                total_sill = drift["residual_variance"]
+        experimental = experimental_variograms(spec, fitted, progress)
         try:
-            fit = fit_model(experimental, template, weighting=vg["weighting"],
-                            total_sill=fit_total_sill(spec, data.weights, data.mean))
+            fit = fit_model(experimental, template, weighting=vg["weighting"], total_sill=total_sill)
         except InputError as exc:
             raise InputError(f"the variogram cannot be fitted: {exc.message}", file=spec.name, field="variogram",
                              fix="choose variogram.lag and lag_count so that more lags hold pairs, or give a "
@@ -221,17 +232,21 @@ def cross_validate(spec: RunSpec, data: PreparedData | None = None, model=None, 
     With ``out_dir``, writes ``cross_validation.csv`` (both scales side by side) and
     ``cross_validation.png`` when ``outputs.plots`` is on.
     """
-    from dataclasses import replace
-
     from .kriging import cross_validate as leave_one_out
+    from .secondary import drift_errors, secondary_grid, uses_drift
     from .simulation.runner import await_compiled
     data = data if data is not None else prepare_data(spec, progress)
     model = _model(spec, data, model, progress)
+    method, drift = spec["simulation.kriging"], {}
+    if uses_drift(spec):  # the secondary at the samples as the drift
+        secondary = secondary_grid(spec, data.samples, data.scores, make_grid(spec, data))
+        method, drift = "external_drift", {"drift": secondary.at_data}
     await_compiled("kriging")  # a first run's kriging kernels, being compiled ahead
-    result = leave_one_out(data.coords, data.scores, model, method=spec["simulation.kriging"], mean=0.0,
-                           neighbourhood=neighbourhood(spec), hole_ids=data.samples.hole_ids,
-                           leave_out="hole" if spec.is_drillholes else "sample",
-                           progress=relabel(progress, "cross-validation"))
+    with drift_errors(secondary) if drift else nullcontext():
+        result = leave_one_out(data.coords, data.scores, model, method=method, mean=0.0,
+                               neighbourhood=neighbourhood(spec), hole_ids=data.samples.hole_ids,
+                               leave_out="hole" if spec.is_drillholes else "sample",
+                               progress=relabel(progress, "cross-validation"), **drift)
     result = replace(result, units="normal score", weights=data.weights, scale="normal scores")
     if data.mean is not None:  # the mean at each sample back on the residuals
         result = replace(result, values=data.mean.scores, estimate=result.estimate + data.mean.at_data)
@@ -275,7 +290,10 @@ def estimate(spec: RunSpec, data: PreparedData | None = None, model=None, grid=N
     est = EstimateResult(*maps, n_short=result.n_short,
                          n_unestimated=int(np.count_nonzero(np.isnan(result.estimate))),
                          grid=grid, units=spec["data.units"])
-    if secondary is not None:
+    if secondary is not None and standalone:
+        for note in secondary.notes:
+            log.warning("%s", note)
+    if secondary is not None and secondary.method == "collocated":
         est.spread = spread_comparison(data.transform, scores, variance, result,
                                        None if data.mean is None else data.mean.at_nodes(grid)[grid.mask])
     if out_dir is not None:
@@ -306,7 +324,9 @@ def simulate(spec: RunSpec, data: PreparedData | None = None, model=None, grid=N
     progress : callable, optional
         ``progress(done, total, "realizations")``.
     """
+    from .secondary import refuse_drift_simulation
     from .simulation import simulate as run_engine
+    refuse_drift_simulation(spec, "simulate")
     standalone = data is None
     data = data if data is not None else prepare_data(spec, progress)
     grid = grid if grid is not None else make_grid(spec, data)
@@ -429,6 +449,8 @@ def run_job(spec: RunSpec | str | os.PathLike, out_dir: str | os.PathLike, prepa
     from .simulation.runner import compile_ahead, compile_modules_ahead
     if not isinstance(spec, RunSpec):
         spec = load_spec(spec)
+    from .secondary import refuse_drift_simulation
+    refuse_drift_simulation(spec, "run")
     out_dir = Path(out_dir)
     timings: dict[str, float] = {}
     compile_ahead(spec["simulation.engine"])  # a first run's engine compiles beside the steps before it

@@ -224,8 +224,14 @@ def short_note(short: int, total: int, what: str, spec: RunSpec, unestimated: in
     """One line saying how many kriging searches held fewer than ``search.min_samples`` samples
     and what was done about it."""
     k = spec["search.min_samples"]
+    drift = spec["secondary.file"] is not None and spec["secondary.method"] == "external_drift"
+    if drift:
+        from .kriging import DRIFT_MIN_SAMPLES  # an external drift needs at least 3
+        k = max(k, DRIFT_MIN_SAMPLES)
     if spec["search.widen"]:
         done = f"their search was widened to the nearest {k}"
+    elif drift:
+        done = "kriging with the external drift left them without an estimate"
     elif spec["simulation.kriging"] == "simple":
         done = "simple kriging estimated them from the samples found and the mean"
     else:

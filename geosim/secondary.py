@@ -25,9 +25,26 @@ One method, stated once (the README's "Secondary information" says the same):
   Estimation is collocated simple cokriging, simulation collocated co-simulation,
   both under the Markov model (Almeida and Journel 1994, Mathematical Geology
   26(5)).  Simple kriging only.
+* **Or an external drift** (``[secondary] method = "external_drift"``).  The
+  primary normal score's mean is ``a + b t(u)``, with ``t`` the secondary's normal
+  score (the same transform as above) and ``a``, ``b`` unknown and fitted anew
+  in each neighbourhood by the kriging weights (two constraints: they sum to one
+  and reproduce ``t`` at the target).  On normal scores, both of them, because
+  (1) the run's variogram and the multi-Gaussian back-transform are those of
+  the primary's normal scores, so the estimate and its variance give a
+  conditional distribution in data units like every other estimate of the run,
+  and (2) where primary and secondary scores are bi-Gaussian, as the collocated
+  method assumes, the primary's expectation given the secondary is exactly
+  linear in the secondary's *score*; linear in the secondary's raw values (an
+  apparent resistivity spanning a decade) it rarely is.  The variogram is fitted
+  to the residuals of the declustering-weighted least-squares fit of the drift
+  at the samples; cross-validation and ``geosim estimate`` krige with the drift.
+  Every sample needs a secondary value.  Simulation with an external drift is
+  not offered: ``geosim run`` and ``geosim simulate`` refuse it.
 """
 from __future__ import annotations
 
+import contextlib
 import math
 import os
 from dataclasses import dataclass, field
@@ -38,12 +55,28 @@ import numpy as np
 from .config.runspec import RunSpec
 from .errors import InputError
 
-__all__ = ["LocalMean", "SecondaryGrid", "local_mean", "secondary_grid", "add_mean_then", "uses_secondary_info"]
+__all__ = ["LocalMean", "SecondaryGrid", "local_mean", "secondary_grid", "add_mean_then", "uses_secondary_info",
+           "uses_drift", "refuse_drift_simulation", "drift_fit"]
 
 
 def uses_secondary_info(spec: RunSpec) -> bool:
     """Whether the spec gives a mean or a secondary grid."""
     return spec["mean.trend"] is not None or spec["mean.file"] is not None or spec["secondary.file"] is not None
+
+
+def uses_drift(spec: RunSpec) -> bool:
+    """Whether the spec uses its secondary grid as an external drift."""
+    return spec["secondary.file"] is not None and spec["secondary.method"] == "external_drift"
+
+
+def refuse_drift_simulation(spec: RunSpec, command: str) -> None:
+    """Refuse to simulate a spec that uses an external drift (before anything is written)."""
+    if uses_drift(spec):
+        raise InputError(f'secondary.method = "external_drift" is for estimation: `geosim {command}` cannot simulate '
+                         "with an external drift (its coefficients are fitted in each kriging neighbourhood, which "
+                         "no engine here does)", file=spec.name, field="secondary.method",
+                         fix='use `geosim estimate` and `geosim crossvalidate` with this spec, or set '
+                             'secondary.method = "collocated" to simulate with the secondary')
 
 
 def _where(coords: np.ndarray) -> str:
@@ -297,6 +330,8 @@ class SecondaryGrid:
     min_pairs: int = 0
 
     nodes: int = 0
+    method: str = "collocated"
+    drift: dict | None = None  # external drift: its least-squares fit at the samples (drift_fit)
 
     def engine_options(self, engine: str) -> dict:
         """The options an engine takes for the secondary (the sequential engine: also how many
@@ -308,6 +343,9 @@ class SecondaryGrid:
 
     def report(self) -> dict:
         """The report's ``secondary`` section."""
+        if self.method == "external_drift":
+            return {"file": self.file, "method": DRIFT_METHOD, "transform": self.transform.describe(),
+                    "drift_fit": self.drift, "notes": list(self.notes)}
         out = {"file": self.file,
                "method": "estimate: collocated simple cokriging; simulation: the secondary at the node and at up "
                          f"to {self.nodes} nodes not yet simulated join each node's system (sequential engine), "
@@ -321,6 +359,10 @@ class SecondaryGrid:
             out.update(pairs=self.pairs, min_pairs=self.min_pairs)
         return out
 
+
+DRIFT_METHOD = ("kriging with an external drift: the primary normal score's mean is a + b * (the secondary's "
+                "normal score), a and b unknown and filtered in each neighbourhood; the variogram is the residuals' "
+                "from the declustering-weighted least-squares fit of the drift")
 
 _LAST: dict = {}  # the last secondary grid made: estimate, simulate and the report of one run share it
 
@@ -362,6 +404,17 @@ def _secondary_grid(spec: RunSpec, samples, residuals: np.ndarray, grid) -> Seco
     ok = np.isfinite(at_samples)
     at_data[ok] = transform.transform(at_samples[ok])
     notes += [n for n in more if n not in notes]
+    if sec["method"] == "external_drift":
+        missing = ~np.isfinite(at_data)
+        if missing.any():
+            from .inputchecks import sample_label
+            first = sample_label(samples, int(np.argmax(missing)))
+            raise InputError(f"the secondary grid has no value at {int(missing.sum())} of {at_data.size} samples "
+                             f"(the first: {first[2]} of {os.path.basename(first[0] or '') or 'the data'}); an "
+                             "external drift must be known at every sample", file=path, field="secondary.file",
+                             fix="give a secondary grid that covers every sample, or leave those samples out")
+        notes.append("secondary: used as an external drift (its normal score); every sample has a value")
+        return SecondaryGrid(at_nodes, at_data, math.nan, None, transform, notes, path, 0, 0, "external_drift")
     pairs = None
     rho = sec["correlation"]
     if rho is None:
@@ -374,6 +427,44 @@ def _secondary_grid(spec: RunSpec, samples, residuals: np.ndarray, grid) -> Seco
     else:
         notes.append(f"secondary: correlation {rho:.3f} with the primary normal scores, as given")
     return SecondaryGrid(at_nodes, at_data, float(rho), pairs, transform, notes, path, sec["min_pairs"], sec["nodes"])
+
+
+@contextlib.contextmanager
+def drift_errors(secondary: SecondaryGrid):
+    """Kriging with the secondary as a drift: a drift constant over a neighbourhood is reported against
+    the secondary grid and the keys that change it."""
+    try:
+        yield
+    except InputError as exc:
+        if exc.field != "drift":
+            raise
+        raise InputError(exc.message, file=secondary.file, field="secondary.method",
+                         fix="search more samples (search.max_samples, search ranges), read the grid with "
+                             'resampling = "bilinear" (nearest cells are flat), or use secondary.method = '
+                             '"collocated"') from None
+
+
+def drift_fit(secondary: SecondaryGrid, scores: np.ndarray, weights: np.ndarray | None) -> tuple[np.ndarray, dict]:
+    """Least-squares fit of the drift ``a + b t`` to the primary scores at the samples (weighted by the
+    declustering ``weights``): the residuals, whose variogram the kriging needs, and the fit."""
+    t = secondary.at_data
+    w = np.full(t.shape, 1.0 / t.size) if weights is None else np.asarray(weights) / np.sum(weights)
+    f = np.column_stack([np.ones_like(t), t])
+    a, b = np.linalg.solve(f.T @ (w[:, None] * f), f.T @ (w * scores))
+    residuals = scores - (a + b * t)
+    total = local_variance(scores, weights)
+    fit = {"intercept": float(a), "slope": float(b), "residual_variance": local_variance(residuals, weights),
+           "r_squared": 1.0 - local_variance(residuals, weights) / total if total > 0 else math.nan,
+           "weighted": weights is not None,
+           "basis": "least squares of the primary normal scores on the secondary's, at the samples; the kriging "
+                    "refits a and b in each neighbourhood"}
+    secondary.drift = fit
+    note = (f"external drift: a + b * secondary score fitted to the primary scores at the samples by "
+            f"{'declustering-weighted ' if weights is not None else ''}least squares: a = {a:.3f}, b = {b:.3f}, "
+            f"R^2 = {fit['r_squared']:.3f}; the variogram is fitted to its residuals")
+    if note not in secondary.notes:
+        secondary.notes.append(note)
+    return residuals, fit
 
 
 def fit_total_sill(spec: RunSpec, weights: np.ndarray | None, mean: LocalMean | None) -> float:
@@ -399,7 +490,12 @@ def krige_nodes(data_coords, residuals, grid, model, *, mean: LocalMean | None, 
     """
     from .kriging import collocated_cokrige, krige
     targets = grid.coords()
-    if secondary is None:
+    if secondary is not None and secondary.method == "external_drift":
+        with drift_errors(secondary):
+            result = krige(data_coords, residuals, targets, model, method="external_drift", drift=secondary.at_data,
+                           target_drift=secondary.at_nodes[grid.mask], **options)
+        estimate, variance = result.estimate, result.variance
+    elif secondary is None:
         result = krige(data_coords, residuals, targets, model, method=method, mean=0.0, **options)
         estimate, variance = result.estimate, result.variance
     else:

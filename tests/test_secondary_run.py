@@ -264,3 +264,111 @@ def test_aquifer_survey_run_reports_the_correlation_and_the_shrinking_spread(aqu
     spread = report["estimate"]["secondary_spread"]
     assert spread["shrink_normal_scores"] > 0.05 and spread["shrink_data_units"] > 0.05
     assert "mean_log10_p90_over_p10" in sec["ensemble_spread"]
+
+
+# ---- the secondary as an external drift -------------------------------------------------------
+
+DRIFT = '[secondary]\nfile = "resistivity_survey.tif"\nmethod = "external_drift"\n'
+
+
+def test_external_drift_estimate_and_cross_validation_krige_with_the_secondary_scores(aquifer):
+    from geosim.kriging import cross_validate, krige_external_drift
+    from geosim.secondary import secondary_grid
+    spec = aquifer(DRIFT)
+    data = pipeline.prepare_data(spec)
+    grid = pipeline.make_grid(spec, data)
+    sec = secondary_grid(spec, data.samples, data.scores, grid)
+    assert sec.method == "external_drift" and np.isfinite(sec.at_data).all()
+    # the variogram is fitted to the residuals of the drift: weighted least squares in numpy
+    # (sqrt-weighted rows through numpy.linalg.lstsq), its total sill their declustered variance
+    w = data.weights / data.weights.sum()
+    f = np.column_stack([np.ones(len(data.scores)), sec.at_data])
+    coef = np.linalg.lstsq(f * np.sqrt(w)[:, None], data.scores * np.sqrt(w), rcond=None)[0]
+    resid = data.scores - f @ coef
+    vg = pipeline.variogram_model(spec, data)
+    assert abs(vg.model.sill - float(w @ (resid - w @ resid) ** 2)) < 1e-6 and vg.model.sill < 0.9
+    assert abs(sec.drift["slope"] - coef[1]) < 1e-10 and sec.drift["slope"] > 0  # resistive = permeable
+    # and the experimental variograms are the residuals' (their sample variance, not the scores')
+    assert all(abs(e.variance - np.var(resid, ddof=1)) < 1e-9 for e in vg.experimental)
+    nb = pipeline.neighbourhood(spec)
+    est = pipeline.estimate(spec, data, vg.model, grid)
+    ref = krige_external_drift(data.coords, data.scores, grid.coords(), vg.model, sec.at_data,
+                               sec.at_nodes[grid.mask], neighbourhood=nb)
+    assert np.allclose(est.scores_mean[grid.mask], ref.estimate, atol=1e-12)
+    assert np.allclose(est.scores_variance[grid.mask], ref.variance, atol=1e-12)
+    assert est.spread is None and np.isfinite(est.mean[grid.mask]).all()
+    cv = pipeline.cross_validate(spec, data, vg.model)
+    loo = cross_validate(data.coords, data.scores, vg.model, method="external_drift", drift=sec.at_data,
+                         neighbourhood=nb, hole_ids=data.samples.hole_ids)
+    assert cv.result.method == "external_drift" and np.allclose(cv.result.estimate, loo.estimate, atol=1e-12)
+    # the drift follows the survey: with neighbourhoods of 16 wells, where the drift varies enough to
+    # fit its coefficient, the left-out wells are estimated better than by simple kriging without it
+    # (RMSE of the scores 0.78 against 0.86 on these 100 m nodes; deterministic data, no sampling tolerance)
+    wide, plain = aquifer(DRIFT, **{"search.min_samples": 16}), aquifer(**{"search.min_samples": 16})
+    with_drift = pipeline.cross_validate(wide, data, vg.model).summary["normal_scores"]
+    pd = pipeline.prepare_data(plain)
+    alone = pipeline.cross_validate(plain, pd, pipeline.variogram_model(plain, pd).model).summary["normal_scores"]
+    assert with_drift["rmse"] < alone["rmse"] - 0.05
+
+
+def test_external_drift_refuses_simulation_before_writing_anything(aquifer, tmp_path):
+    spec = aquifer(DRIFT)
+    for call in (lambda: pipeline.run(spec, tmp_path / "run"),
+                 lambda: pipeline.simulate(spec, out_dir=tmp_path / "sim")):
+        with pytest.raises(InputError) as err:
+            call()
+        assert err.value.field == "secondary.method" and "cannot simulate" in str(err.value)
+        assert 'secondary.method = "collocated"' in err.value.fix
+    assert not (tmp_path / "run").exists() and not (tmp_path / "sim").exists()
+
+
+@pytest.mark.parametrize("extra, message", [
+    (DRIFT + "correlation = 0.5\n", 'secondary.correlation: only with secondary.method = "collocated"'),
+    (DRIFT + "[mean]\ntrend = 1\n", 'mean: expected no \\[mean\\] with secondary.method = "external_drift"'),
+    ('[secondary]\nmethod = "external_drift"\n', "secondary.method: only with secondary.file"),
+    ('[secondary]\nfile = "resistivity_survey.tif"\nmethod = "drift"\n', "secondary.method"),
+])
+def test_bad_external_drift_settings_are_spec_errors(aquifer, extra, message):
+    with pytest.raises(SpecError, match=message):
+        aquifer(extra)
+
+
+def test_external_drift_needs_the_secondary_at_every_sample_and_a_varying_one(aquifer):
+    with rasterio.open(AQUIFER / "resistivity_survey.tif") as src:
+        values, t = src.read(1), src.transform
+    spec = aquifer(DRIFT)
+    data = pipeline.prepare_data(spec)
+    grid = pipeline.make_grid(spec, data)
+    # a survey that misses the first well's cell and its neighbours (the domain is covered otherwise)
+    x, y = data.coords[0]
+    col, row = int((x - t.c) / t.a), int((y - t.f) / t.e)
+    holed = values.copy()
+    holed[row - 1:row + 2, col - 1:col + 2] = -9999.0
+    _raster(aquifer.folder / "holed.tif", holed, t.c, t.f, t.a)
+    holed_spec = aquifer(DRIFT.replace("resistivity_survey", "holed"))
+    with pytest.raises(InputError, match="active grid nodes"):  # nodes of the domain in the hole
+        pipeline.cross_validate(holed_spec, data)
+    # the nodes in the hole left out of the grid: the grid is covered, the well is not
+    from geosim.secondary import secondary_grid
+    nodes = grid.coords()
+    near = (np.abs(nodes[:, 0] - x) < 2.5 * t.a) & (np.abs(nodes[:, 1] - y) < 2.5 * t.a)  # the hole and a margin
+    mask = grid.mask.copy()
+    mask[grid.mask] = ~near
+    with pytest.raises(InputError) as err:
+        secondary_grid(holed_spec, data.samples, data.scores, grid.with_mask(mask))
+    text = str(err.value)
+    wc, wr = ((data.coords[:, 0] - t.c) / t.a).astype(int), ((data.coords[:, 1] - t.f) / t.e).astype(int)
+    inside = int(np.sum((np.abs(wc - col) <= 1) & (np.abs(wr - row) <= 1)))  # wells in the hole's cells
+    assert inside > 1 and f"no value at {inside} of 80 samples (the first: row 2 of wells.csv)" in text
+    assert "every sample" in text
+    assert err.value.field == "secondary.file"
+    # the same value at every well: the drift cannot be told from the mean
+    flat = values.copy()  # the survey as it is, except 80 ohm m in every cell holding a well
+    cols = ((data.coords[:, 0] - t.c) / t.a).astype(int)
+    rows = ((data.coords[:, 1] - t.f) / t.e).astype(int)
+    flat[rows, cols] = 80.0
+    _raster(aquifer.folder / "flat.tif", flat, t.c, t.f, t.a)
+    flat_spec = aquifer(DRIFT.replace("resistivity_survey", "flat") + 'resampling = "nearest"\n')
+    with pytest.raises(InputError) as err:
+        pipeline.estimate(flat_spec, data, None, grid)
+    assert "same value" in str(err.value) and err.value.field == "secondary.method"

@@ -435,8 +435,12 @@ SCHEMA: dict[str, dict[str, Key]] = {
                           help="how the file is read at the nodes and samples"),
     },
     "secondary": {
-        "file": Key(_path, help="collocated secondary variable: a raster (2-D) or NetCDF cube (3-D) covering the "
+        "file": Key(_path, help="secondary variable: a raster (2-D) or NetCDF cube (3-D) covering the "
                                 "domain (e.g. a resistivity survey); leave out for none"),
+        "method": Key(_choice("collocated", "external_drift"), default="collocated",
+                      help="collocated: collocated cokriging and co-simulation (Markov model); external_drift: "
+                           "kriging with the secondary's normal score as an external drift (estimate and "
+                           "cross-validation only, no simulation)"),
         "variable": Key(_text, help="the cube's variable (default: its only one)"),
         "resampling": Key(_choice("bilinear", "nearest"), default="bilinear",
                           help="how the file is read at the nodes and samples"),
@@ -880,16 +884,29 @@ def _check_secondary(spec: dict, problems: list[str]) -> None:
     for section, table in (("mean", mean), ("secondary", sec)):
         if table["file"] is None:
             extra = [k for k in ("variable", "correlation") if table.get(k) is not None]
+            extra += ["method"] if table.get("method", "collocated") != "collocated" else []
             if extra:
                 problems.append(f"{section}.{extra[0]}: only with {section}.file, found no file")
     rho = sec["correlation"]
     if rho is not None and not -1.0 < rho < 1.0:
         problems.append(f"secondary.correlation: expected a number strictly between -1 and 1, found {rho:g}")
-    used = mean["trend"] is not None or mean["file"] is not None or sec["file"] is not None
+    drift = sec["file"] is not None and sec["method"] == "external_drift"
+    if drift:
+        # the drift is the mean (fitted in each neighbourhood): no other mean, no given correlation
+        if mean["trend"] is not None or mean["file"] is not None:
+            problems.append('mean: expected no [mean] with secondary.method = "external_drift" (the drift a + b * '
+                            'secondary is the mean), found ' + ("trend" if mean["trend"] is not None else "file"))
+        if rho is not None:
+            problems.append('secondary.correlation: only with secondary.method = "collocated" (an external drift '
+                            f'fits its coefficient in each neighbourhood), found {rho:g}')
+        if spec.get("units") is not None:
+            problems.append('secondary.method: expected "collocated" in a run of several units (it is run whole by '
+                            '`geosim run`, and an external drift is for estimation only), found "external_drift"')
+    used = mean["trend"] is not None or mean["file"] is not None or (sec["file"] is not None and not drift)
     if used and sim["kriging"] != "simple":
         problems.append('simulation.kriging: expected "simple" with a [mean] or [secondary] (the mean must be known '
                         f'at every node), found {sim["kriging"]!r}')
-    if sec["file"] is not None and sim["engine"] not in ("sequential", "exact"):
+    if sec["file"] is not None and not drift and sim["engine"] not in ("sequential", "exact"):
         problems.append(f'simulation.engine: expected "sequential" or "exact" with a [secondary] grid, found '
                         f'{sim["engine"]!r}')
 
