@@ -204,7 +204,8 @@ def _read_cube(path: str, variable: str | None, field: str) -> Layer:
     return Layer(path, crs, tuple(axes), np.ascontiguousarray(values), variable)
 
 
-def layer_values(layer: Layer, points, crs=None, *, method: str = "bilinear") -> tuple[np.ndarray, list[str]]:
+def layer_values(layer: Layer, points, crs=None, *, method: str = "bilinear",
+                 field: str = "file") -> tuple[np.ndarray, list[str]]:
     """The layer's values at ``points``; NaN where the cell a point falls in has no value.
 
     Parameters
@@ -215,6 +216,8 @@ def layer_values(layer: Layer, points, crs=None, *, method: str = "bilinear") ->
     crs : CRS-like, optional
         The points' CRS; they are reprojected to the layer's when the two differ.
     method : {"bilinear", "nearest"}
+    field : str
+        The spec key that named the layer's file, for error messages.
 
     Returns
     -------
@@ -236,7 +239,7 @@ def layer_values(layer: Layer, points, crs=None, *, method: str = "bilinear") ->
     pts = np.atleast_2d(np.asarray(points, dtype=np.float64))
     notes: list[str] = []
     if layer.ndim == 3 and pts.shape[1] < 3:
-        raise InputError("a cube (3-D layer) was given for a 2-D grid", file=layer.path,
+        raise InputError("a cube (3-D layer) was given for a 2-D grid", file=layer.path, field=field,
                          fix="give a map (a single-band raster) for a 2-D run")
     if layer.ndim == 2 and pts.shape[1] == 3:
         notes.append(f"{os.path.basename(layer.path)} is a map: its values are used at every level of the 3-D grid")

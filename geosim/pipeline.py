@@ -222,24 +222,30 @@ def _model(spec: RunSpec, data: PreparedData | None, model, progress):
 # -- kriging -----------------------------------------------------------------------------------
 
 @with_folder_lock
-def cross_validate(spec: RunSpec, data: PreparedData | None = None, model=None, *,
+def cross_validate(spec: RunSpec, data: PreparedData | None = None, model=None, *, secondary=None,
                    out_dir: str | os.PathLike | None = None, overwrite: bool = False,
                    progress: Progress | None = None) -> CrossValidation:
     """Leave-one-out kriging of the normal scores with the spec's neighbourhood (for
     drillholes, every composite of the hole is left out together), and the same
     back-transformed to data units (estimate: the conditional mean).
 
+    With a ``[secondary]`` grid the estimator is the one ``estimate`` uses: collocated simple
+    cokriging with the secondary at the left-out sample (a sample without a secondary value keeps
+    its simple-kriging estimate), or kriging with the external drift.  ``secondary`` (a
+    :class:`geosim.secondary.SecondaryGrid`) is made from the spec when not given.
+
     With ``out_dir``, writes ``cross_validation.csv`` (both scales side by side) and
     ``cross_validation.png`` when ``outputs.plots`` is on.
     """
     from .kriging import cross_validate as leave_one_out
-    from .secondary import drift_errors, secondary_grid, uses_drift
+    from .secondary import collocated_leave_one_out, drift_errors, secondary_grid
     from .simulation.runner import await_compiled
     data = data if data is not None else prepare_data(spec, progress)
     model = _model(spec, data, model, progress)
-    method, drift = spec["simulation.kriging"], {}
-    if uses_drift(spec):  # the secondary at the samples as the drift
+    if secondary is None and spec["secondary.file"] is not None:
         secondary = secondary_grid(spec, data.samples, data.scores, make_grid(spec, data))
+    method, drift = spec["simulation.kriging"], {}
+    if secondary is not None and secondary.method == "external_drift":  # the secondary at the samples
         method, drift = "external_drift", {"drift": secondary.at_data}
     await_compiled("kriging")  # a first run's kriging kernels, being compiled ahead
     with drift_errors(secondary) if drift else nullcontext():
@@ -247,6 +253,8 @@ def cross_validate(spec: RunSpec, data: PreparedData | None = None, model=None, 
                                neighbourhood=neighbourhood(spec), hole_ids=data.samples.hole_ids,
                                leave_out="hole" if spec.is_drillholes else "sample",
                                progress=relabel(progress, "cross-validation"), **drift)
+    if secondary is not None and secondary.method == "collocated":
+        result = collocated_leave_one_out(result, secondary, float(model.sill))
     result = replace(result, units="normal score", weights=data.weights, scale="normal scores")
     if data.mean is not None:  # the mean at each sample back on the residuals
         result = replace(result, values=data.mean.scores, estimate=result.estimate + data.mean.at_data)
@@ -520,6 +528,9 @@ def _run_steps(spec, data, grid, out_dir, resume, progress, timed, timings) -> R
     from .secondary import secondary_grid
     secondary = secondary_grid(spec, data.samples, data.scores, grid)
     notes += secondary.notes if secondary is not None else []
+    if data.mean is not None:  # how a mean grid was read at the nodes (its notes at the samples came first)
+        data.mean.at_nodes(grid)
+        notes += [n for n in data.mean.notes if n not in notes]
     sim = timed("simulation", simulate, spec, data, vg.model, grid, out_dir=out_dir, resume=resume,
                 progress=progress)
     files.update(timed("summaries and report", summarize, spec, out_dir, data=data, model=vg.model, grid=grid,

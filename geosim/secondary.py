@@ -93,7 +93,7 @@ def _read(spec: RunSpec, section: str, points: np.ndarray, crs) -> tuple[np.ndar
     path = str(spec.resolve(spec[f"{section}.file"]))
     bounds = None if crs is None or points.shape[0] == 0 else _bounds_in_layer_crs(path, points, crs)
     layer = read_layer(path, variable=spec[f"{section}.variable"], field=f"{section}.file", bounds=bounds)
-    values, notes = layer_values(layer, points, crs, method=spec[f"{section}.resampling"])
+    values, notes = layer_values(layer, points, crs, method=spec[f"{section}.resampling"], field=f"{section}.file")
     return values, layer, notes
 
 
@@ -465,6 +465,20 @@ def drift_fit(secondary: SecondaryGrid, scores: np.ndarray, weights: np.ndarray 
     if note not in secondary.notes:
         secondary.notes.append(note)
     return residuals, fit
+
+
+def collocated_leave_one_out(result, secondary: SecondaryGrid, sill: float):
+    """A leave-one-out simple kriging of the residual scores turned into collocated cokriging: each
+    left-out sample's moments updated with the secondary at its own location (Markov model,
+    :func:`geosim.kriging.collocated_update`); samples without a secondary value keep theirs."""
+    from dataclasses import replace
+
+    from .kriging import collocated_update
+    known = np.isfinite(secondary.at_data) & np.isfinite(result.estimate)
+    estimate, variance = result.estimate.copy(), result.variance.copy()
+    estimate[known], variance[known], _ = collocated_update(estimate[known], variance[known],
+                                                            secondary.at_data[known], secondary.correlation, sill)
+    return replace(result, estimate=estimate, variance=variance, method="collocated simple cokriging")
 
 
 def fit_total_sill(spec: RunSpec, weights: np.ndarray | None, mean: LocalMean | None) -> float:

@@ -306,7 +306,7 @@ def fit_units(units: UnitsModel, progress=None) -> None:
         p.variogram = _named(p, variogram_model, p.spec, p.data, progress=progress)
         p.model = p.variogram.model
         if p.spec["outputs.cross_validation"]:
-            p.crossval = cross_validate(p.spec, p.data, p.model, progress=progress)
+            p.crossval = cross_validate(p.spec, p.data, p.model, secondary=p.secondary, progress=progress)
 
 
 def pooled_crossval(units: UnitsModel) -> dict | None:

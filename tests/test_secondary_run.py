@@ -372,3 +372,83 @@ def test_external_drift_needs_the_secondary_at_every_sample_and_a_varying_one(aq
     with pytest.raises(InputError) as err:
         pipeline.estimate(flat_spec, data, None, grid)
     assert "same value" in str(err.value) and err.value.field == "secondary.method"
+
+
+def test_grids_of_another_resolution_are_resampled_by_the_stated_method_with_a_note(aquifer, tmp_path):
+    # the survey's 100 m cells read at the nodes of a 50 m grid: the method and both cell sizes are
+    # stated; on a 100 m grid only the method
+    from geosim.secondary import secondary_grid
+    for resampling, how in (("bilinear", "by bilinear interpolation between the four cell centres around each node"),
+                            ("nearest", "by the value of the cell each node falls in")):
+        text = f'[secondary]\nfile = "resistivity_survey.tif"\nresampling = "{resampling}"\n'
+        for cell, extra in (([50.0, 50.0], " (its cells are 100 x 100, the grid's 50 x 50)"), ([100.0, 100.0], "")):
+            spec = aquifer(text, **{"grid.cell": cell})
+            data = pipeline.prepare_data(spec)
+            grid = pipeline.make_grid(spec, data)
+            notes = secondary_grid(spec, data.samples, data.scores, grid).notes
+            size = f"{cell[0]:g} x {cell[1]:g}"
+            note = [n for n in notes if "node centres" in n]
+            assert note and note[0].endswith(f"read at the {grid.n_active:,} node centres of the {size} m grid "
+                                             f"{how}{extra}"), note
+    # a mean grid of 200 m cells on the 100 m grid: the same note, in the mean's notes and the run's
+    _raster(aquifer.folder / "mean.tif", np.full((55, 55), 1e-4), 476000.0, 5722000.0, 200.0)
+    spec = aquifer('[mean]\nfile = "mean.tif"\nresampling = "nearest"\n', **{"outputs.plots": False})
+    result = pipeline.run(spec, tmp_path / "run")
+    note = "by the value of the cell each node falls in (its cells are 200 x 200, the grid's 100 x 100)"
+    assert any(n.endswith(note) for n in result.notes)
+
+
+def test_a_mean_grid_that_misses_samples_is_refused_naming_the_first(aquifer):
+    data = pipeline.prepare_data(aquifer())
+    values = np.full((110, 110), 1e-4)
+    rows = ((5722000.0 - data.coords[:, 1]) // 100).astype(int)
+    cols = ((data.coords[:, 0] - 476000.0) // 100).astype(int)
+    values[rows[4], cols[4]] = -9999.0  # the fifth well's cell (and any other well in it) without a value
+    missing = np.flatnonzero((rows == rows[4]) & (cols == cols[4]))
+    _raster(aquifer.folder / "mean.tif", values, 476000.0, 5722000.0, 100.0)
+    with pytest.raises(InputError) as err:
+        pipeline.prepare_data(aquifer('[mean]\nfile = "mean.tif"\nresampling = "nearest"\n'))
+    text = str(err.value)
+    # wells.csv rows count the header as row 1
+    assert f"the mean grid has no value at {missing.size} of 80 samples (the first: row {missing[0] + 2} of " \
+           "wells.csv)" in text
+    assert err.value.field == "mean.file" and "covers every sample" in err.value.fix
+
+
+def test_cross_validation_with_a_collocated_secondary_is_leave_one_out_collocated_cokriging(aquifer):
+    from geosim.secondary import secondary_grid
+    spec = aquifer('[secondary]\nfile = "resistivity_survey.tif"\n')
+    data = pipeline.prepare_data(spec)
+    grid = pipeline.make_grid(spec, data)
+    model = pipeline.variogram_model(spec, data).model
+    sec = secondary_grid(spec, data.samples, data.scores, grid)
+    cv = pipeline.cross_validate(spec, data, model)
+    assert cv.result.method == "collocated simple cokriging"
+    nb = pipeline.neighbourhood(spec)
+    for i in range(0, 80, 7):  # each left-out well from the others and the survey at the well
+        keep = np.arange(80) != i
+        ref = collocated_cokrige(data.coords[keep], data.scores[keep], data.coords[i:i + 1], model,
+                                 sec.at_data[i:i + 1], sec.correlation, neighbourhood=nb)
+        assert abs(cv.result.estimate[i] - ref.estimate[0]) < 1e-12
+        assert abs(cv.result.variance[i] - ref.variance[0]) < 1e-12
+    # the survey helps the left-out wells too; and a coefficient of 0 is the primary-only table
+    alone = pipeline.cross_validate(aquifer(), data, model)
+    assert cv.summary["normal_scores"]["rmse"] < alone.summary["normal_scores"]["rmse"]
+    zero = pipeline.cross_validate(aquifer('[secondary]\nfile = "resistivity_survey.tif"\ncorrelation = 0.0\n'),
+                                   data, model)
+    assert np.array_equal(zero.result.estimate, alone.result.estimate)
+    assert np.array_equal(zero.result.variance, alone.result.variance)
+
+
+def test_a_cube_given_for_a_2d_run_is_refused_naming_the_key(aquifer):
+    xarray = pytest.importorskip("xarray")
+    pytest.importorskip("netCDF4")
+    x, y = np.arange(476050.0, 487000.0, 100.0), np.arange(5711050.0, 5722000.0, 100.0)
+    ds = xarray.Dataset({"rho": (("z", "y", "x"), np.ones((2, y.size, x.size)))},
+                        coords={"z": [0.0, 10.0], "y": y, "x": x})
+    ds.to_netcdf(aquifer.folder / "survey.nc")
+    spec = aquifer('[secondary]\nfile = "survey.nc"\n')
+    data = pipeline.prepare_data(spec)
+    with pytest.raises(InputError) as err:
+        pipeline.estimate(spec, data, None, pipeline.make_grid(spec, data))
+    assert "2-D grid" in str(err.value) and err.value.field == "secondary.file"
