@@ -14,6 +14,7 @@ from geosim.config.runspec import load_spec
 from geosim.inputs import neighbourhood, sample_ids
 from geosim.secondary import add_mean_then, secondary_grid
 from geosim.simulation import realization_rng
+from geosim.simulation.runner import resolve_engine
 from geosim.simulation.sequential import SequentialEngine
 from test_units_run import _field, _write
 
@@ -43,11 +44,12 @@ def _band(path, band=1):
         return src.read(band)
 
 
-def test_one_unit_run_with_mean_and_secondary_equals_the_one_domain_run(tmp_path, field):
+@pytest.mark.parametrize("engine, cell", [("sequential", 10.0), ("exact", 25.0)])
+def test_one_unit_run_with_mean_and_secondary_equals_the_one_domain_run(tmp_path, field, engine, cell):
     """Every sample and node of one unit: the estimate, the cross-validation, the trend and the
     correlation equal the run without units bit for bit, and a realization is the one-domain
     engine's field for the unit's random stream with the trend added back before the unit's
-    back-transform."""
+    back-transform (the exact engine conditions on the secondary at every node: a coarser grid)."""
     xy, unit, grade = field
     one = np.ones_like(unit)
     codes = np.ones((40, 60), dtype=np.int16)
@@ -56,8 +58,9 @@ def test_one_unit_run_with_mean_and_secondary_equals_the_one_domain_run(tmp_path
     _survey(tmp_path / "u", xy, grade)
     plain = tmp_path / "u" / "plain.toml"
     plain.write_text(path.read_text().split("[units]")[0] + SECONDARY)
-    units_run.run(path, tmp_path / "units")
-    pipeline.run(plain, tmp_path / "one")
+    overrides = {"simulation.engine": engine, "grid.cell": [cell, cell]}
+    units_run.run(load_spec(path, overrides), tmp_path / "units")
+    pipeline.run(load_spec(plain, overrides), tmp_path / "one")
     a, b = tmp_path / "units", tmp_path / "one"
     for band in (1, 2, 3, 4):
         np.testing.assert_array_equal(_band(a / "estimate.tif", band), _band(b / "estimate.tif", band))
@@ -72,15 +75,15 @@ def test_one_unit_run_with_mean_and_secondary_equals_the_one_domain_run(tmp_path
     for scale in ("normal_scores", "data_units"):  # all units pooled: here the one unit
         assert units_report["cross_validation"][scale] == one_report["cross_validation"][scale]
     # realization 0 rebuilt from the one-domain pieces with the unit's stream, SeedSequence(seed, (0, 1))
-    spec = load_spec(plain)
+    spec = load_spec(plain, overrides)
     data = pipeline.prepare_data(spec)
     grid = pipeline.make_grid(spec, data)
     model = pipeline.variogram_model(spec, data).model
     sec = secondary_grid(spec, data.samples, data.scores, grid)
-    engine = SequentialEngine()
-    plan = engine.prepare(data.coords, data.scores, model, grid, neighbourhood=neighbourhood(spec),
-                          sample_ids=sample_ids(data), **sec.engine_options("sequential"))
-    scores = engine.realize(plan, units_run.unit_rng(realization_rng(spec["simulation.seed"], 0), 1))
+    inner = resolve_engine(engine)
+    plan = inner.prepare(data.coords, data.scores, model, grid, neighbourhood=neighbourhood(spec),
+                         sample_ids=sample_ids(data), **sec.engine_options(engine))
+    scores = inner.realize(plan, units_run.unit_rng(realization_rng(spec["simulation.seed"], 0), 1))
     values = add_mean_then(scores[grid.mask], mean=data.mean.at_nodes(grid)[grid.mask],
                            inverse=data.transform.inverse)
     written = _band(a / "realizations" / "r0000.tif")
@@ -120,6 +123,14 @@ def test_each_unit_fits_its_own_trend_and_correlation_and_keeps_a_hard_boundary(
         at_nodes = p.secondary.at_nodes[p.grid.mask]
         assert at_nodes.size == p.grid.n_active and abs(at_nodes.mean()) < 0.01
     assert units.pieces[1].secondary.correlation != pytest.approx(units.pieces[2].secondary.correlation, abs=1e-3)
+    from click.testing import CliRunner
+
+    from geosim_cli.main import cli
+    checked = CliRunner().invoke(cli, ["check", str(path)])
+    assert checked.exit_code == 0, checked.stderr
+    for code, order in ((1, 1), (2, 2)):
+        assert (f"mean: trend of order {order}; secondary correlation "
+                f"{units.pieces[code].secondary.correlation:.3f}") in " ".join(checked.stdout.split())
     units_run.run(spec, tmp_path / "out")
     changed = grade.copy()
     changed[unit == 1] = changed[unit == 1][::-1] * 3.0
