@@ -145,9 +145,9 @@ def input_checksums(spec: RunSpec) -> dict[str, str]:
     return {key: file_sha256(path) for key, path in spec.input_files().items()}
 
 
-def _write_json(path: Path, payload: Mapping, overwrite: bool = True) -> None:
+def _write_json(path: Path, payload: Mapping, overwrite: bool = True, indent: int | None = 1) -> None:
     with atomic_output(path, overwrite=overwrite) as tmp:
-        tmp.write_text(json.dumps(payload, indent=1, default=_plain))  # key order matters for figures
+        tmp.write_text(json.dumps(payload, indent=indent, default=_plain))  # key order matters for figures
 
 
 def _plain(obj):
@@ -267,6 +267,9 @@ class RecordingSink:
 
     def __call__(self, index: int, field: np.ndarray) -> dict:
         record = self.writer(index, field)
+        # one line: json's compiled encoder (an indent takes the Python one, about 10x slower; a record
+        # holds every realization's checks and figures, 0.05 s of CPU each with 3,000 data)
         _write_json(self.state_dir / f"r{int(index):05d}.json",
-                    {"index": int(index), "resume_key": self.resume_key, "seed": self.seed, "record": record})
+                    {"index": int(index), "resume_key": self.resume_key, "seed": self.seed, "record": record},
+                    indent=None)
         return record
