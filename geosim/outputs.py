@@ -421,7 +421,7 @@ def write_summaries(spec: RunSpec, out_dir: Path, data: PreparedData, model, gri
     if out["plots"]:
         # the summary maps of one level of a 3-D grid: the one nearest the samples' mean elevation
         files["plots"] = [str(p) for p in simulation.writer.plots(
-            simulation.records, files["summary"], out["cutoffs"], levels=[_plot_level(data, grid)],
+            simulation.records, files.get("summary", []), out["cutoffs"], levels=[_plot_level(data, grid)],
             log=spec["transform.log"])]
         files["plots"] += [str(p) for p in _support_plots(spec, simulation.writer, simulation.records, out_dir)]
     return close_outputs(spec, grid, out_dir, files, report)

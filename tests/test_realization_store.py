@@ -363,3 +363,17 @@ def test_a_3d_run_of_two_units_writes_its_realizations_into_the_store_with_the_u
         np.testing.assert_allclose(table["mean"], summary["mean"].values[k, len(y) - 1 - r, c], rtol=1e-9)
     if cube == "zarr":
         assert zarr.open_group(str(out / "realizations.zarr"), mode="r").attrs["geosim_complete"] == "yes"
+
+
+def test_a_3d_store_run_with_plots_maps_the_summary_the_store_gave(tmp_path):
+    # a 3-D run with the default cube and no per-level GeoTIFFs has no summary raster: the maps of
+    # its plotted level are drawn from the summary bands the store gave (a run that looked for the
+    # rasters failed at the end, after every realization was written)
+    spec = load_spec(ORE, {**QUICK, "outputs.plots": True})
+    result = geosim.pipeline.run(spec, tmp_path / "out")
+    plots = [Path(p).name for p in result.files["plots"]]
+    assert not result.files.get("summary")
+    maps = [p for p in plots if p[0] == "z" and p[4] == "_"]
+    assert len({p[:4] for p in maps}) == 1 and len(maps) >= 5, plots
+    assert {"histogram_reproduction.png", "variogram_reproduction.png"} <= set(plots)
+    assert all((tmp_path / "out" / p).stat().st_size > 1000 for p in plots)
