@@ -491,7 +491,10 @@ class RealizationStore:
         """
         da = _need("dask.array", "zarr")
         array = _open_group(self.path)[self.name]
-        data = da.from_array(array, chunks=(array.shape[0],) + self.chunks[1:], name=f"geosim-store-{self.name}", lock=False)
+        # one dask chunk holds a stored chunk's cells of every realization: one read of many chunks
+        # instead of a task per chunk (at most 256 x 256 cells per realization)
+        data = da.from_array(array, chunks=(array.shape[0],) + self.chunks[1:], name=f"geosim-store-{self.name}",
+                             lock=False)
         return grid_dataset(self.grid, {self.name: (data, self.long_name, self.units)},
                             realizations=range(array.shape[0]), title="geosim conditional realizations",
                             provenance=self.provenance)
