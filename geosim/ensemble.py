@@ -407,7 +407,10 @@ class RealizationWriter:
         self.store.finish(indices)
         bands = np.full((len(summary_band_names(cutoffs)),) + self.grid.shape, np.nan)
         boxes = cube_boxes(self.grid)
-        for done, (box, b) in enumerate(summarize_windows(self.store.boxes(indices, boxes), cutoffs), start=1):
+        # the workers have ended: the compiled per-node pass runs on a thread per core
+        threads = len(os.sched_getaffinity(0)) if hasattr(os, "sched_getaffinity") else (os.cpu_count() or 1)
+        for done, (box, b) in enumerate(summarize_windows(self.store.boxes(indices, boxes), cutoffs, threads),
+                                        start=1):
             bands[(slice(None),) + box] = b
             if progress is not None:
                 progress(done, len(boxes), "summary")
