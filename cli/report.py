@@ -54,17 +54,29 @@ def decision_text(rows: list[dict], limit: int = 6, units: str = "", metal_unit:
     return "\n".join(lines)
 
 
+def _relative(path: str | Path, out_dir: Path) -> str:
+    try:
+        return str(Path(path).resolve().relative_to(Path(out_dir).resolve()))
+    except ValueError:
+        return str(path)
+
+
 def files_text(files: dict[str, list[str]], out_dir: Path, limit: int = 8) -> str:
+    """The written files, realizations summed up: a store by its path, GeoTIFFs by folder and count."""
     shown = []
     for kind, paths in files.items():
         if kind == "realization_files":
-            shown.append(f"realizations/ ({len(paths)} files)")
+            stores, counts = [], {}
+            for p in dict.fromkeys(paths):  # one entry per store, not one per realization in it
+                if Path(p).is_dir():
+                    stores.append(_relative(p, out_dir))
+                else:
+                    folder = _relative(Path(p).parent, out_dir)
+                    counts[folder] = counts.get(folder, 0) + 1
+            shown += [f"{s} (store)" for s in stores]
+            shown += [f"{folder}/ ({n} file{'s' if n > 1 else ''})" for folder, n in counts.items()]
             continue
-        for p in paths:
-            try:
-                shown.append(str(Path(p).resolve().relative_to(Path(out_dir).resolve())))
-            except ValueError:
-                shown.append(str(p))
+        shown += [_relative(p, out_dir) for p in paths]
     if len(shown) > limit:
         shown = shown[:limit] + [f"... {len(shown) - limit} more"]
     return ", ".join(shown)

@@ -195,3 +195,18 @@ def test_progress_quiet_prints_nothing():
     report(1, 1, "realizations")
     report.note("hello")
     assert out.getvalue() == ""
+
+
+def test_files_line_names_a_store_once_and_counts_geotiffs_per_folder(tmp_path):
+    # a store holds every realization: it is listed once by its path, not counted as one
+    # file per realization; GeoTIFF realizations are counted per folder (common practice, no source)
+    from geosim_cli.report import files_text
+    store = tmp_path / "realizations" / "store.zarr"
+    store.mkdir(parents=True)
+    tifs = [tmp_path / "blocks" / f"r{i:04d}.tif" for i in range(3)]
+    tifs[0].parent.mkdir()
+    for t in tifs:
+        t.write_bytes(b"")
+    text = files_text({"summary": [str(tmp_path / "summary.nc")],
+                       "realization_files": [str(store)] * 4 + [str(t) for t in tifs]}, tmp_path)
+    assert text == "summary.nc, realizations/store.zarr (store), blocks/ (3 files)"
