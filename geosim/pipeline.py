@@ -67,8 +67,8 @@ __all__ = ["PreparedData", "VariogramResult", "CrossValidation", "EstimateResult
            "RunResult", "TransformChain", "RecordingSink", "load_samples", "read_holes", "decluster",
            "fit_transform", "prepare_data", "prepare_samples", "make_grid", "read_domain_geometry", "neighbourhood",
            "experimental_variograms", "variogram_model", "cross_validate", "multigaussian_moments", "estimate",
-           "simulate", "summarize", "run", "open_output", "completed_realizations", "resume_key", "describe_spec",
-           "describe_data", "STATE_DIR"]
+           "simulate", "simulate_into", "summarize", "run", "open_output", "completed_realizations", "resume_key",
+           "describe_spec", "describe_data", "STATE_DIR"]
 
 
 # -- data and grid -------------------------------------------------------------------------------
@@ -343,13 +343,6 @@ def simulate(spec: RunSpec, data: PreparedData | None = None, model=None, grid=N
     model = _model(spec, data, model, progress)
     # reads the query points: bad ones fail before anything is written
     writer = realization_writer(spec, data, model, grid, Path(out_dir))
-    out_dir = make_folder(out_dir)
-    header = open_output(spec, out_dir, overwrite=overwrite, resume=resume)
-    n = spec["simulation.realizations"]
-    kept = completed_realizations(out_dir, header, n) if resume else {}
-    missing = [i for i in range(n) if i not in kept]
-    writer.open_stores(n, kept)  # made here, once, before any worker writes into them
-    sink = RecordingSink(writer, out_dir / STATE_DIR, header["resume_key"], header["seed"])
     sim = spec["simulation"]
     # hole ids only when the search limits samples per hole: a plugin engine need not take them
     options = {"hole_ids": data.samples.hole_ids} if spec["search.max_per_hole"] else {}
@@ -358,12 +351,36 @@ def simulate(spec: RunSpec, data: PreparedData | None = None, model=None, grid=N
         from .secondary import secondary_grid
         secondary = secondary_grid(spec, data.samples, data.scores, grid)
         options.update(secondary.engine_options(sim["engine"]) if secondary is not None else {})
+    return simulate_into(spec, writer, out_dir, lambda **run: run_engine(
+        data.coords, data.scores, model, grid, engine=sim["engine"], neighbourhood=neighbourhood(spec), **run,
+        **options), overwrite=overwrite, resume=resume, progress=progress)
+
+
+def simulate_into(spec: RunSpec, writer, out_dir: str | os.PathLike, engine: Callable, *, overwrite: bool,
+                  resume: bool, progress: Callable | None) -> SimulationResult:
+    """The realizations of ``spec`` that ``out_dir`` does not hold yet, computed and written by ``writer``.
+
+    Opens the run state (:func:`open_output`), keeps the realizations an earlier run
+    completed when ``resume`` (verified by SHA-256), makes the writer's stores once before
+    any worker writes, and calls ``engine(**run)`` with the keywords of
+    :func:`geosim.simulation.simulate` that every run shares (realizations, seed, kriging,
+    workers, cluster, the recording sink, the missing indices, progress, realizations per
+    path) for the missing realizations.  Serves :func:`simulate` and
+    :func:`geosim.units_run.simulate_units`.
+    """
+    out_dir = make_folder(out_dir)
+    header = open_output(spec, out_dir, overwrite=overwrite, resume=resume)
+    n = spec["simulation.realizations"]
+    kept = completed_realizations(out_dir, header, n) if resume else {}
+    missing = [i for i in range(n) if i not in kept]
+    writer.open_stores(n, kept)  # made here, once, before any worker writes into them
+    sink = RecordingSink(writer, out_dir / STATE_DIR, header["resume_key"], header["seed"])
+    sim = spec["simulation"]
     records = dict(kept)
     if missing:
-        new = run_engine(data.coords, data.scores, model, grid, n_realizations=n, seed=sim["seed"],
-                         engine=sim["engine"], neighbourhood=neighbourhood(spec), kriging=sim["kriging"],
-                         workers=sim["workers"], client=sim["cluster"], sink=sink, indices=missing,
-                         progress=progress, realizations_per_path=sim["realizations_per_path"], **options)
+        new = engine(n_realizations=n, seed=sim["seed"], kriging=sim["kriging"], workers=sim["workers"],
+                     client=sim["cluster"], sink=sink, indices=missing, progress=progress,
+                     realizations_per_path=sim["realizations_per_path"])
         records.update(zip(missing, new))
     elif progress is not None:
         progress(n, n, "realizations")

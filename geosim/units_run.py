@@ -59,10 +59,10 @@ from .config.runspec import OVERRIDABLE, RunSpec, has_units, unit_spec, unit_tab
 from .errors import InputError
 from .inputs import load_samples, neighbourhood, read_holes, sample_ids
 from .outputs import metal_unit
-from .pipeline import cross_validate, make_grid, prepare_samples, preflight, variogram_model
+from .pipeline import cross_validate, make_grid, prepare_samples, preflight, simulate_into, variogram_model
 from .progress import relabel
 from .results import PreparedData, RunResult, SimulationResult
-from .runstate import STATE_DIR, RecordingSink, completed_realizations, make_folder, open_output, with_folder_lock
+from .runstate import make_folder, with_folder_lock
 from .units import NODATA, UnitTable, composite_by_unit, node_units, read_unit_intervals, sample_units
 
 __all__ = ["UnitPiece", "UnitsModel", "UnitsEngine", "UnitsPlan", "UnitsBackTransform", "UnitsMeasure",
@@ -548,25 +548,11 @@ def simulate_units(spec: RunSpec, units: UnitsModel, out_dir: str | os.PathLike,
     from .simulation import simulate as run_engine
     out_dir = make_folder(out_dir)
     writer = _writer(spec, units, out_dir)
-    header = open_output(spec, out_dir, overwrite=overwrite, resume=resume)
-    n = spec["simulation.realizations"]
-    kept = completed_realizations(out_dir, header, n) if resume else {}
-    missing = [i for i in range(n) if i not in kept]
-    writer.open_stores(n, kept)  # made here, once, before any worker writes into them
-    sink = RecordingSink(writer, out_dir / STATE_DIR, header["resume_key"], header["seed"])
-    sim = spec["simulation"]
-    records = dict(kept)
-    if missing:
-        everything = units.samples
-        new = run_engine(everything.coords, np.zeros(len(everything)), None, units.modelled_grid,
-                         n_realizations=n, seed=sim["seed"], engine=UnitsEngine(sim["engine"]),
-                         kriging=sim["kriging"], workers=sim["workers"], client=sim["cluster"], sink=sink,
-                         indices=missing, progress=progress, realizations_per_path=sim["realizations_per_path"],
-                         parts=_parts(spec, units), node_codes=units.node_codes)
-        records.update(zip(missing, new))
-    elif progress is not None:
-        progress(n, n, "realizations")
-    return SimulationResult([records[i] for i in range(n)], sorted(kept), missing, writer)
+    everything = units.samples
+    return simulate_into(spec, writer, out_dir, lambda **run: run_engine(
+        everything.coords, np.zeros(len(everything)), None, units.modelled_grid,
+        engine=UnitsEngine(spec["simulation.engine"]), parts=_parts(spec, units), node_codes=units.node_codes,
+        **run), overwrite=overwrite, resume=resume, progress=progress)
 
 
 # -- estimate, summaries and report -------------------------------------------------------------
