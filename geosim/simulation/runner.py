@@ -149,16 +149,11 @@ def compile_ahead(engine):
 
     Returns the started ``subprocess.Popen``, or None when there is nothing to compile.
     """
-    import subprocess
-    import sys
     eng = resolve_engine(engine)
     if not (hasattr(eng, "warm_up") and hasattr(eng, "main_kernel")) or in_numba_cache(eng.main_kernel()):
         return None
     kind = type(eng)
-    code = (f"from geosim.simulation.runner import warm_up_engine; "
-            f"warm_up_engine({os.getpid()}, {kind.__module__!r}, {kind.__qualname__!r})")
-    return subprocess.Popen([sys.executable, "-c", code], stdin=subprocess.DEVNULL, stdout=subprocess.DEVNULL,
-                            stderr=subprocess.DEVNULL)
+    return _start_warm_up([(kind.__module__, kind.__qualname__)])
 
 
 #: The compiling processes this process started, by what they compile (:func:`compile_modules_ahead`).
@@ -176,15 +171,19 @@ def compile_modules_ahead(key: str, modules: Sequence[str], kernel) -> object | 
     compile the same code again.  Like :func:`compile_ahead` the process ends with this
     one and writes nothing but numba's cache.  Returns the ``subprocess.Popen``, or None.
     """
-    import subprocess
-    import sys
     if in_numba_cache(kernel):
         return None
-    calls = "; ".join(f"warm_up_engine({os.getpid()}, {m!r}, None)" for m in modules)
-    proc = subprocess.Popen([sys.executable, "-c", f"from geosim.simulation.runner import warm_up_engine; {calls}"],
-                            stdin=subprocess.DEVNULL, stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL)
-    _AHEAD[key] = proc
+    proc = _AHEAD[key] = _start_warm_up([(m, None) for m in modules])
     return proc
+
+
+def _start_warm_up(targets: Sequence[tuple[str, str | None]]):
+    """A silent process that runs :func:`warm_up_engine` on each ``(module, name)`` in turn."""
+    import subprocess
+    import sys
+    calls = "; ".join(f"warm_up_engine({os.getpid()}, {m!r}, {n!r})" for m, n in targets)
+    return subprocess.Popen([sys.executable, "-c", f"from geosim.simulation.runner import warm_up_engine; {calls}"],
+                            stdin=subprocess.DEVNULL, stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL)
 
 
 def await_compiled(key: str, timeout: float = 300.0) -> None:
