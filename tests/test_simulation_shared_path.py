@@ -97,9 +97,98 @@ def test_members_equal_single_realizations_along_the_same_path(kriging):
     members = engine.realize_batch(plan, path_rng(2, 0), [realization_rng(2, i) for i in range(3)])
     path = plan.free[random_path(plan.levels, path_rng(2, 0))]
     for b, member in enumerate(members):
-        normals = realization_rng(2, b).standard_normal(path.shape[0])
-        (single,) = engine._run(plan, path, normals[:, None], single=True)
+        single = engine._run(plan, path, [realization_rng(2, b)], single=True).reshape(grid.shape)
         np.testing.assert_allclose(member, single, rtol=0, atol=1e-9)
+
+
+def _block_case(kriging="simple", correlation=0.0):
+    """A 3-D block with 40 data, a nested model with a nugget and a spherical structure, and
+    optionally a secondary variable (co-simulation)."""
+    grid = geosim.Grid(0.0, 0.0, (5.0, 5.0, 2.0), (4, 18, 22))
+    model = geosim.Nugget(0.05) + geosim.Spherical(0.95, geosim.Anisotropy((60.0, 30.0, 8.0), azimuth=40.0))
+    rng = np.random.default_rng(8)
+    xyz = rng.uniform([0, 0, 0], [110, 90, 8], (40, 3))
+    secondary = rng.standard_normal(grid.shape) if correlation else None
+    plan = SequentialEngine().prepare(xyz, rng.standard_normal(40), model, grid, kriging=kriging,
+                                      neighbourhood=Neighbourhood(max_samples=16, max_nodes=12),
+                                      secondary=secondary, correlation=correlation)
+    return grid, plan
+
+
+@pytest.mark.parametrize("kriging, correlation", [("simple", 0.0), ("ordinary", 0.0), ("simple", 0.6)])
+def test_each_member_is_bit_identical_to_a_batch_of_itself_alone(kriging, correlation):
+    # Exact: the kernel updates all members neighbour by neighbour, but each member must sum
+    # its own terms in its own order and read only its own values, so member b of a batch of 5
+    # equals, bit for bit, a batch holding that member alone along the same path.
+    _, plan = _block_case(kriging, correlation)
+    engine = SequentialEngine()
+    members = engine.realize_batch(plan, path_rng(6, 0), [realization_rng(6, i) for i in range(5)])
+    assert len(members) == 5
+    for b in (0, 2, 4):
+        (alone,) = engine.realize_batch(plan, path_rng(6, 0), [realization_rng(6, b)])
+        np.testing.assert_array_equal(members[b], alone)
+    assert not np.array_equal(members[0], members[1], equal_nan=True)
+
+
+@pytest.mark.parametrize("batch", [True, False])
+def test_drawing_the_deviates_a_chunk_at_a_time_changes_no_bit(monkeypatch, batch):
+    # The deviates are drawn a chunk of the path at a time to bound memory; a numpy Generator's
+    # standard_normal stream does not depend on how its draws are split, so chunks of 7 nodes
+    # give the fields of one chunk, bit for bit, for a batch and for a single realization.
+    from geosim.simulation import sequential
+    grid, plan = _block_case()
+    engine = SequentialEngine()
+    assert plan.free.size > 7 * 10 and plan.free.size < sequential.PATH_CHUNK
+
+    def run():
+        if batch:
+            return list(engine.realize_batch(plan, path_rng(3, 1), [realization_rng(3, i) for i in range(3)]))
+        return [engine.realize(plan, realization_rng(3, 7))]
+    whole = run()
+    monkeypatch.setattr(sequential, "PATH_CHUNK", 7)
+    for a, b in zip(whole, run(), strict=True):
+        np.testing.assert_array_equal(a, b)
+    assert whole[0].shape == grid.shape and np.isfinite(whole[0]).all()
+
+
+@pytest.mark.parametrize("batch", [True, False])
+def test_a_local_system_that_fails_names_the_same_node_whatever_the_chunks(monkeypatch, batch):
+    # two data at one place make every system holding both singular; the first node on the path
+    # that finds both is named, also when it lies in a later chunk of the path
+    from geosim.simulation import sequential
+    grid = geosim.Grid(0.0, 0.0, (5.0, 5.0), (14, 16))
+    xy = np.array([[71.0, 9.0], [71.0, 9.0], [12.0, 60.0], [40.0, 35.0]])
+    model = geosim.Model([geosim.Spherical(1.0, geosim.Anisotropy.isotropic(30.0))])
+    engine = SequentialEngine()
+    plan = engine.prepare(xy, np.array([0.1, 0.2, -0.3, 0.5]), model, grid, sample_ids=["A", "B", "C", "D"],
+                          neighbourhood=Neighbourhood(max_samples=2, max_nodes=4, ranges=(12.0, 12.0)))
+    messages = []
+    for chunk in (sequential.PATH_CHUNK, 5):
+        monkeypatch.setattr(sequential, "PATH_CHUNK", chunk)
+        with pytest.raises(geosim.NotPositiveDefiniteError, match="sample [AB].*sample [AB]") as err:
+            if batch:
+                engine.realize_batch(plan, path_rng(1, 0), [realization_rng(1, 0), realization_rng(1, 1)])
+            else:
+                engine.realize(plan, path_rng(1, 0))  # a single realization draws its path first
+        messages.append(str(err.value))
+    assert messages[0] == messages[1]
+    # the failing node comes late enough on the path to lie beyond the first chunk of 5
+    path = plan.free[random_path(plan.levels, path_rng(1, 0))]
+    both = np.flatnonzero((plan.data_neighbours[path] >= 0).sum(axis=1) == 2)
+    assert both.size and both[0] >= 5
+
+
+def test_members_are_handed_over_as_separate_copies():
+    # a member taken from a batch is its own C-ordered field, not a view of the batch's array,
+    # so a sink may keep or change it and letting it go frees it
+    grid, plan = _block_case()
+    members = SequentialEngine().realize_batch(plan, path_rng(2, 0), [realization_rng(2, i) for i in range(3)])
+    first, again = members[0], members[0]
+    assert first.flags.c_contiguous and first.shape == grid.shape
+    assert not np.shares_memory(first, again) and np.array_equal(first, again)
+    first[0, 0, 0] = 99.0
+    assert members[0][0, 0, 0] != 99.0
+    assert [m.shape for m in members[1:]] == [grid.shape] * 2
 
 
 def test_a_member_depends_only_on_the_seed_and_its_index():
@@ -212,12 +301,12 @@ def test_run_spec_key_and_its_check(tmp_path):
 
 
 def test_auto_shares_paths_on_large_grids_only():
-    # "auto" is 25 from AUTO_SHARED_NODES active nodes with an engine that shares paths, else 1
+    # "auto" is 50 from AUTO_SHARED_NODES active nodes with an engine that shares paths, else 1
     from geosim.simulation.runner import AUTO_PER_PATH, AUTO_SHARED_NODES, per_path_for
     side = int(np.ceil(np.sqrt(AUTO_SHARED_NODES)))
     large = geosim.Grid(0.0, 0.0, (1.0, 1.0), (side, side))
     small = geosim.Grid(0.0, 0.0, (4.0, 4.0), (16, 16))
-    assert per_path_for("auto", large, "sequential") == AUTO_PER_PATH == 25
+    assert per_path_for("auto", large, "sequential") == AUTO_PER_PATH == 50
     assert per_path_for("auto", large, "exact") == 1
     assert per_path_for("auto", small, "sequential") == 1
     assert per_path_for(4, small, "sequential") == 4

@@ -189,11 +189,11 @@ def test_command_line_summary_gives_cross_validation_per_unit_and_in_total(tmp_p
 
 
 def test_auto_shares_paths_in_units_runs_only_with_an_engine_that_can():
-    # "auto": 25 per path on a grid of 250,000 active nodes or more, when the inner engine has batches
+    # "auto": 50 per path on a grid of 250,000 active nodes or more, when the inner engine has batches
     from geosim.grid import Grid
     from geosim.simulation.runner import per_path_for
     large = Grid(0.0, 0.0, (1.0, 1.0), (500, 500))
-    assert per_path_for("auto", large, units_run.UnitsEngine("sequential")) == 25
+    assert per_path_for("auto", large, units_run.UnitsEngine("sequential")) == 50
     assert per_path_for("auto", large, units_run.UnitsEngine("exact")) == 1
     assert not hasattr(units_run.UnitsEngine("exact"), "realize_batch")
     with pytest.raises(Exception, match="cannot share a path"):

@@ -46,13 +46,15 @@ log = logging.getLogger(__name__)
 # per-process state of pool workers, set once by the initializer
 _WORKER: dict = {}
 # memory one realization in flight takes in a worker, per grid node: counted from the arrays
-# the sequential engine and the realization writer hold at once (random path and normal
-# deviates, the float64 field, its data-unit copy and the back-transform's temporaries, the
-# float32 level written), rounded up
+# the sequential engine and the realization writer hold at once (the random path, the float64
+# field and the engine's byte of "simulated" flags, the field handed to the sink, its data-unit
+# copy and the back-transform's temporaries, the float32 level written), rounded up
 REALIZATION_BYTES_PER_NODE = 64
-# and for each further member of a group sharing a path (its column of the float64 field,
-# of the normal deviates, and its float64 field handed to the sink)
-MEMBER_BYTES_PER_NODE = 24
+# and for each further member of a group sharing a path: its column of the group's float64
+# array.  The normal deviates are drawn a chunk of the path at a time (a few tens of MB at
+# most) and each member is copied out of the group's array only when the sink takes it, so
+# nothing else grows with the members.
+MEMBER_BYTES_PER_NODE = 8
 # how often a worker looks for the main process where it cannot wait on a pidfd
 PARENT_POLL_SECONDS = 0.2
 
@@ -84,10 +86,12 @@ def path_rng(seed: int, group: int) -> np.random.Generator:
 #: Active nodes from which ``realizations_per_path="auto"`` lets realizations share paths.
 AUTO_SHARED_NODES = 250_000
 #: Realizations per path that ``"auto"`` gives such grids (a group size the statistical tests check).
-#: Each node's search and factor (about 8 us with 16 data and 16 nodes) are shared by the group and
-#: each member adds about 0.1 us: 0.45 us per node and realization in groups of 25, 0.95 in groups
-#: of 10.  25 also splits 100 realizations evenly over 2 or 4 workers.
-AUTO_PER_PATH = 25
+#: Each node's search, covariances and factor (about 8 CPU us with 16 data and 16 nodes) are
+#: shared by the group and each member adds under 0.1 us: measured on a 400,000-node block model,
+#: about 0.35 CPU us per node and realization in groups of 25 and 0.24 in groups of 50
+#: (tests/benchmarks/bench_blockmodel.py runs the whole job).  50 makes 100 realizations two
+#: groups, one per worker on 2 workers; a group of 50 on a million nodes holds 400 MB.
+AUTO_PER_PATH = 50
 
 
 def per_path_for(value: int | str, grid, engine) -> int:
@@ -103,7 +107,7 @@ def per_path_for(value: int | str, grid, engine) -> int:
     >>> import geosim
     >>> from geosim.simulation.runner import per_path_for
     >>> per_path_for("auto", geosim.Grid(0.0, 0.0, (1.0, 1.0), (1000, 1000)), "sequential")
-    25
+    50
     >>> per_path_for("auto", geosim.Grid(0.0, 0.0, (1.0, 1.0), (100, 100)), "sequential")
     1
     """
@@ -271,10 +275,11 @@ def run_group(engine, prepared, sink, seed: int, indices: list[int], per_path: i
     go_on(indices[0])
     fields = engine.realize_batch(prepared, path_rng(seed, indices[0] // per_path),
                                   [realization_rng(seed, i) for i in indices])
-    for i in indices:
-        field = fields.pop(0)  # hand each field over and let it go before the next one
+    for k, i in enumerate(indices):
         go_on(i)
+        field = fields[k]  # a member's field is copied out when taken: hand each over and let it go
         out.append((i, field if sink is None else sink(i, field)))
+        del field
     return out
 
 
@@ -378,7 +383,7 @@ def simulate(data_coords, data_scores, model, grid, *, n_realizations: int, seed
         path, so the engine's ``realize_batch`` computes each node's kriging weights once
         for all of them (several times faster per realization).  Each is still a valid
         realization that depends only on ``(seed, i)``; 1 (the default) gives every
-        realization its own path; ``"auto"`` is 25 on large grids (:func:`per_path_for`).
+        realization its own path; ``"auto"`` is 50 on large grids (:func:`per_path_for`).
         Part of what is computed: changing it changes the fields.
     **engine_options
         Passed to the engine's ``prepare`` (e.g. ``multigrid``, ``max_size``).

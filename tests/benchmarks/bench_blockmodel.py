@@ -10,7 +10,7 @@ spherical structures), 16 data and 16 previously simulated nodes, no octant sear
 written as a points CSV and a run spec and run through ``geosim.pipeline.run``, the call
 behind ``geosim run`` (spec -> data -> simulation -> summaries -> written outputs;
 cross-validation and the kriging estimate are switched off, plots are on), with 100
-realizations on 2 local workers and the default ``realizations_per_path = "auto"`` (25 on this
+realizations on 2 local workers and the default ``realizations_per_path = "auto"`` (50 on this
 grid).
 
 Figures (wall seconds, so they include the load other jobs put on a shared machine;
@@ -280,7 +280,8 @@ def main():
         fewer = None
         if not args.quick:
             (tmp / "fewer").mkdir()
-            few = max(25 if args.per_path == "auto" else int(args.per_path), n // 5)  # whole path groups
+            from geosim.simulation.runner import AUTO_PER_PATH
+            few = max(AUTO_PER_PATH if args.per_path == "auto" else int(args.per_path), n // 5)  # whole path groups
             fewer = run_case(tmp / "fewer", few, args.per_path, args.workers, tuple(args.shape))
             print(f"  {few} realizations: {fewer['total_s']:.1f} s, peak RSS "
                   f"{fewer['peak_rss_mib']:.0f} MiB ({load()})", flush=True)
