@@ -42,9 +42,9 @@ from .errors import InputError
 from .io import plots as io_plots
 from .io.decision import write_decision_csv
 from .io.cube import CUBE_SUFFIX, RealizationStore
-from .io.geotiff import (GDAL_SETTINGS, as_stored, assemble_realizations, grid_windows, level_grid, level_paths, level_tags,
-                         open_checked, read_realization, read_windows, verify_realization, with_layers, write_raster,
-                         write_windows)
+from .io.geotiff import (GDAL_SETTINGS, STORED_DTYPE, as_stored, assemble_realizations, grid_windows, level_grid,
+                         level_paths, level_tags, open_checked, read_realization, read_windows, verify_realization,
+                         with_layers, write_raster, write_windows)
 from .io.report import file_sha256
 from .summaries import (decision_rows, decision_spread, summarize_windows, summary_band_descriptions,
                         summary_band_names)
@@ -272,17 +272,18 @@ class RealizationWriter:
         scores = np.asarray(field, dtype=np.float64)
         if scores.shape != self.grid.shape:
             raise ValueError(f"realization {index} has shape {scores.shape}, the grid {self.grid.shape}")
-        values = scores.copy()
-        if self.back_transform is not None:
-            inside = ~np.isnan(scores)
-            values[inside] = self.back_transform(scores[inside])
-        # figures and checks see exactly what the raster stores, so a figure recomputed from the
-        # file agrees, also at a cut-off on a plateau of equal values
-        values = as_stored(values)
+        # the float32 values the raster or store holds, one NaN outside the domain; figures and checks
+        # see exactly these (as float64), so a figure recomputed from the file agrees, also at a
+        # cut-off on a plateau of equal values
+        stored = np.full(scores.shape, np.nan, dtype=STORED_DTYPE)
+        inside = ~np.isnan(scores)
+        active = scores[inside]
+        stored[inside] = active if self.back_transform is None else self.back_transform(active)
+        values = stored.astype(np.float64)
         if self.store is not None:  # whole chunks of the one store: no file per realization
             record = {"index": int(index), "files": [], "sha256": [],
                       "store": {"path": os.path.relpath(self.store.path, self.folder),
-                                "sha256": self.store.write(index, values)}}
+                                "sha256": self.store.write(index, stored)}}
         else:
             (self.folder / "realizations").mkdir(parents=True, exist_ok=True)
             target = self.folder / "realizations" / f"r{index:04d}.tif"  # write_raster adds _z000... in 3-D

@@ -397,7 +397,8 @@ class NormalScoreTransform:
         self._check_fitted()
         y = np.asarray(scores, dtype=np.float64)
         shape, y = y.shape, y.ravel()
-        out = np.interp(y, self.scores_, self.values_)
+        from .fieldstats import interp  # numpy's interpolation; compiled for a whole realization
+        out = interp(y, self.scores_, self.values_)
         low = y < self.scores_[0]
         if low.any():
             out[low] = lower_tail(_ndtr(y[low]), *self.tail_parameters()[:4])

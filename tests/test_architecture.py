@@ -25,7 +25,7 @@ LAYERS = [
     ("base", ["geosim", "geosim._forward", "geosim.cautions", "geosim.errors", "geosim.retired", "geosim.progress",
               "geosim.resources", "geosim.plugins", "geosim.io", "geosim.io.atomic"]),
     ("data", ["geosim.grid", "geosim.crs", "geosim.tables", "geosim.vector", "geosim.points", "geosim.drillholes",
-              "geosim.domain", "geosim.declustering", "geosim.transforms", "geosim.moments", "geosim.linalg", "geosim.units",
+              "geosim.domain", "geosim.declustering", "geosim.transforms", "geosim.fieldstats", "geosim.moments", "geosim.linalg", "geosim.units",
               "geosim.logged_units", "geosim.gridvalues"]),
     ("models", ["geosim.variogram.*", "geosim.search", "geosim.kriging", "geosim.trend",
                 "geosim.simulation.*"]),

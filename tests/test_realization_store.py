@@ -162,6 +162,7 @@ def _failing_data_writes(monkeypatch, index: int, ndim: int) -> None:
     disk that fails (or a worker killed) between a realization's chunks and its marker would; the
     store itself is real, only this one failure is injected."""
     real = zarr.Array.__setitem__
+    real_chunks = geosim.io.cube._write_chunks
 
     def failing(self, key, value):
         first = key[0] if isinstance(key, tuple) else key
@@ -169,7 +170,13 @@ def _failing_data_writes(monkeypatch, index: int, ndim: int) -> None:
             raise OSError(f"injected failure writing realization {index}")
         return real(self, key, value)
 
+    def failing_chunks(folder, i, block):  # the store's own chunk writer (zarr's layout, written directly)
+        if block.ndim == ndim - 1 and i == index:
+            raise OSError(f"injected failure writing realization {index}")
+        return real_chunks(folder, i, block)
+
     monkeypatch.setattr(zarr.Array, "__setitem__", failing)
+    monkeypatch.setattr(geosim.io.cube, "_write_chunks", failing_chunks)
 
 
 def test_a_realization_whose_data_write_fails_is_not_marked_complete(tmp_path, monkeypatch):
@@ -377,3 +384,51 @@ def test_a_3d_store_run_with_plots_maps_the_summary_the_store_gave(tmp_path):
     assert len({p[:4] for p in maps}) == 1 and len(maps) >= 5, plots
     assert {"histogram_reproduction.png", "variogram_reproduction.png"} <= set(plots)
     assert all((tmp_path / "out" / p).stat().st_size > 1000 for p in plots)
+
+
+def test_chunks_written_directly_are_the_files_zarr_writes(tmp_path):
+    # edge chunks (90 x 80 nodes in chunks of 64), a level with no active node (a chunk of fill
+    # values only, which zarr does not store) and the completion marker: realization 0 through the
+    # store's own chunk writer, realization 1 the same values through zarr's array assignment
+    field = _fields(1)[0].copy()
+    field[1] = np.nan
+    field[0, :40, :30] = np.nan
+    store = _store(tmp_path / "r.zarr")
+    store.open(2)
+    sha = store.write(0, field)
+    group = zarr.open_group(str(store.path), mode="r+")
+    group["cu_pct"][1] = np.where(np.isnan(field), np.float32(np.nan), field.astype(np.float32))
+    group["realization_complete"][1] = 1
+
+    def chunks(variable, i):
+        root = store.path / variable / "c" / str(i)
+        return {p.relative_to(root).as_posix(): p.read_bytes() for p in sorted(root.rglob("*")) if p.is_file()}
+
+    direct, by_zarr = chunks("cu_pct", 0), chunks("cu_pct", 1)
+    assert sorted(direct) == sorted(by_zarr) == ["0/0/0", "0/0/1", "0/1/0", "0/1/1"]
+    assert direct == by_zarr
+    assert (store.path / "realization_complete" / "c" / "0").read_bytes() == \
+        (store.path / "realization_complete" / "c" / "1").read_bytes()
+    assert store.complete().tolist() == [True, True]
+    back = store.read(0)
+    assert np.array_equal(back, field.astype(np.float32), equal_nan=True)
+    assert sha == _sha(back) == hashlib.sha256(np.where(np.isnan(back), np.float32(np.nan), back).tobytes()).hexdigest()
+    # a chunk of a realization written again over one that became empty is removed, as zarr does
+    field[0] = np.nan
+    store.write(0, field)
+    assert chunks("cu_pct", 0) == {}
+    assert np.isnan(store.read(0)).all()
+
+
+def test_a_store_of_another_layout_is_written_through_zarr(tmp_path):
+    # a store whose codecs the chunk writer does not know (no compression here): zarr writes it
+    store = _store(tmp_path / "r.zarr")
+    group = zarr.open_group(str(store.path), mode="w")
+    group.create_array("cu_pct", shape=(2,) + GRID.shape, chunks=(1, 1, CHUNK, CHUNK), dtype="float32",
+                       fill_value=np.nan, compressors=None)
+    group.create_array("realization_complete", shape=(2,), chunks=(1,), dtype="uint8", fill_value=0)
+    field = _fields(1)[0]
+    assert not geosim.io.cube._write_chunks(store.path / "cu_pct", 0, field.astype(np.float32))
+    store.write(1, field)
+    assert np.array_equal(store.read(1), field.astype(np.float32), equal_nan=True)
+    assert store.complete().tolist() == [False, True]
