@@ -277,8 +277,13 @@ class RealizationWriter:
         # cut-off on a plateau of equal values
         stored = np.full(scores.shape, np.nan, dtype=STORED_DTYPE)
         inside = ~np.isnan(scores)
-        active = scores[inside]
-        stored[inside] = active if self.back_transform is None else self.back_transform(active)
+        whole = bool(inside.all())  # a domain filling the grid: no gathering and scattering
+        active = scores.ravel() if whole else scores[inside]
+        active = active if self.back_transform is None else self.back_transform(active)
+        if whole:
+            stored[...] = active.reshape(scores.shape)
+        else:
+            stored[inside] = active
         values = stored.astype(np.float64)
         if self.store is not None:  # whole chunks of the one store: no file per realization
             record = {"index": int(index), "files": [], "sha256": [],

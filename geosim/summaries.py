@@ -353,8 +353,9 @@ def tonnage_above(grades: np.ndarray, tonnes: np.ndarray, cutoffs: Sequence[floa
     fv, tv = f[inside], tonnes[inside]
     for k, c in enumerate(cut):
         above = fv >= c
-        tonnage[k] = tv[above].sum()
-        metal[k] = (tv[above] * fv[above]).sum()
+        ta = tv[above]
+        tonnage[k] = ta.sum()
+        metal[k] = (ta * fv[above]).sum()
     with np.errstate(invalid="ignore", divide="ignore"):
         mean_grade = np.where(tonnage > 0, metal / np.where(tonnage > 0, tonnage, 1.0), np.nan)
     return {"cutoff": cut, "tonnage": tonnage, "mean_grade": mean_grade, "metal": metal * metal_factor}

@@ -149,3 +149,22 @@ def test_quantiles_are_numpy_quantile_bit_for_bit():
             x = np.round(x, 2) - 0.3  # ties, negative values
         q = PLOT_QUANTILES if case % 4 else np.sort(rng.uniform(0.0, 1.0, 57))
         assert _same_bits(fieldstats.quantiles(x, q), np.quantile(x, q))
+
+
+def test_axis_semivariogram_of_a_complete_field_is_the_same_told_or_found():
+    from geosim.validation import axis_semivariogram
+    rng = np.random.default_rng(23)
+    field = rng.standard_normal((4, 30, 40)).cumsum(axis=2)
+    for axis in range(3):
+        steps = [1, 2, 5, 50]
+        told = axis_semivariogram(field, axis, steps, complete=True)
+        found = axis_semivariogram(field, axis, steps)
+        # the mean of every squared difference at that lag, by numpy, is the reference
+        for k, g, n in zip(steps, *found):
+            if k >= field.shape[axis]:
+                assert np.isnan(g) and n == 0
+                continue
+            n_axis = field.shape[axis]
+            d = np.take(field, np.arange(k, n_axis), axis) - np.take(field, np.arange(n_axis - k), axis)
+            assert g == 0.5 * float(np.mean(d * d)) and n == d.size
+        assert _same_bits(told[0], found[0]) and told[1].tolist() == found[1].tolist()
