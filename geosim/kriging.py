@@ -450,11 +450,18 @@ def _krige_rows(rows, cand, xyz, frame, z, holes, txyz, tframe, excl_index, excl
         for attempt in range(2):
             for p in range(count):
                 ip = sel[p]
-                c[p] = cov_lag(cm, tx - xyz[ip, 0], ty - xyz[ip, 1], tz - xyz[ip, 2])
-                for q in range(p):
-                    iq = sel[q]
-                    a[p, q] = cov_lag(cm, xyz[ip, 0] - xyz[iq, 0], xyz[ip, 1] - xyz[iq, 1],
-                                      xyz[ip, 2] - xyz[iq, 2])
+                # one inlined cov_lag for both the row and the right-hand side (each site costs
+                # compile time on a first run); C(x_p - t) has the bits of C(t - x_p)
+                for q in range(p + 1):
+                    if q < p:
+                        ox, oy, oz = xyz[sel[q], 0], xyz[sel[q], 1], xyz[sel[q], 2]
+                    else:
+                        ox, oy, oz = tx, ty, tz
+                    cpq = cov_lag(cm, xyz[ip, 0] - ox, xyz[ip, 1] - oy, xyz[ip, 2] - oz)
+                    if q < p:
+                        a[p, q] = cpq
+                    else:
+                        c[p] = cpq
                 a[p, p] = c0 * (1.0 + reg) if attempt == 1 else c0
             piv = chol_inplace(a, count, tol)
             if piv < 0:

@@ -237,7 +237,8 @@ def cross_validate(spec: RunSpec, data: PreparedData | None = None, model=None, 
     With ``out_dir``, writes ``cross_validation.csv`` (both scales side by side) and
     ``cross_validation.png`` when ``outputs.plots`` is on.
     """
-    from .kriging import cross_validate as leave_one_out
+    from .kriging import _krige_rows, cross_validate as leave_one_out
+    from .moments import _kernel as moments_kernel
     from .secondary import collocated_leave_one_out, drift_errors, secondary_grid
     from .simulation.runner import await_compiled
     data = data if data is not None else prepare_data(spec, progress)
@@ -247,7 +248,7 @@ def cross_validate(spec: RunSpec, data: PreparedData | None = None, model=None, 
     method, drift = spec["simulation.kriging"], {}
     if secondary is not None and secondary.method == "external_drift":  # the secondary at the samples
         method, drift = "external_drift", {"drift": secondary.at_data}
-    await_compiled("kriging")  # a first run's kriging kernels, being compiled ahead
+    await_compiled("kriging", _krige_rows)  # a first run's kriging kernel, being compiled ahead
     with drift_errors(secondary) if drift else nullcontext():
         result = leave_one_out(data.coords, data.scores, model, method=method, mean=0.0,
                                neighbourhood=neighbourhood(spec), hole_ids=data.samples.hole_ids,
@@ -258,6 +259,7 @@ def cross_validate(spec: RunSpec, data: PreparedData | None = None, model=None, 
     result = replace(result, units="normal score", weights=data.weights, scale="normal scores")
     if data.mean is not None:  # the mean at each sample back on the residuals
         result = replace(result, values=data.mean.scores, estimate=result.estimate + data.mean.at_data)
+    await_compiled("kriging", moments_kernel)  # compiled ahead after the kriging kernel
     in_data = result.in_data_units(data.transform, data.values, units=spec["data.units"])
     cv = CrossValidation(result, {"normal_scores": result.summary(), "data_units": in_data.summary()},
                          data_units=in_data)
@@ -282,8 +284,9 @@ def estimate(spec: RunSpec, data: PreparedData | None = None, model=None, grid=N
     if standalone:
         _preflight_notes(spec, data, grid)
     model = _model(spec, data, model, progress)
+    from .moments import _kernel as moments_kernel
     from .simulation.runner import await_compiled
-    await_compiled("kriging")
+    await_compiled("kriging", moments_kernel)  # the kriging kernel is cached before the moments' one
     secondary = secondary_grid(spec, data.samples, data.scores, grid)
     scores, variance, result = krige_nodes(
         data.coords, data.scores, grid, model, mean=data.mean, secondary=secondary,
@@ -400,6 +403,8 @@ def summarize(spec: RunSpec, out_dir: str | os.PathLike, *, data: PreparedData |
 
     Returns output kind -> list of paths.
     """
+    from .simulation.runner import await_compiled
+    await_compiled("kriging")  # a first run's summary kernel is the last one compiled ahead
     out_dir = Path(out_dir)
     data = data if data is not None else prepare_data(spec, progress)
     model = _model(spec, data, model, progress)
@@ -472,6 +477,7 @@ def run_job(spec: RunSpec | str | os.PathLike, out_dir: str | os.PathLike, prepa
     """
     from .kriging import _krige_rows
     from .simulation.runner import compile_ahead, compile_modules_ahead
+    from .summaries import _node_bands
     if not isinstance(spec, RunSpec):
         spec = load_spec(spec)
     from .secondary import refuse_drift_simulation
@@ -479,8 +485,11 @@ def run_job(spec: RunSpec | str | os.PathLike, out_dir: str | os.PathLike, prepa
     out_dir = Path(out_dir)
     timings: dict[str, float] = {}
     compile_ahead(spec["simulation.engine"])  # a first run's engine compiles beside the steps before it
-    # and so do its kriging and summary kernels, beside data preparation and variogram fitting
-    compile_modules_ahead("kriging", ("geosim.kriging", "geosim.summaries"), _krige_rows)
+    # and so do its kriging kernels (if cross-validation or the estimate is asked for) and its
+    # summary kernel, beside data preparation and variogram fitting
+    kriging = spec["outputs.cross_validation"] or spec["outputs.estimate"]
+    compile_modules_ahead("kriging", ("geosim.kriging",) * kriging + ("geosim.summaries",),
+                          _krige_rows if kriging else _node_bands)
     timed = step_timer(timings)
     prepared, grid, notes = prepare(spec, timed)
     for note in notes:

@@ -131,3 +131,60 @@ def test_kriging_and_summary_kernels_compiled_ahead_are_loaded_by_a_run(tmp_path
     """), cache)
     hits, misses = map(int, out.split())
     assert hits >= 3 and misses == 0
+
+
+def test_a_step_waits_for_its_own_kernel_only(tmp_path):
+    # await_compiled with a kernel returns once that kernel is in the cache, while the process
+    # may still compile the kernels of later steps (it stays registered until it has ended);
+    # without one it waits for the end
+    out = _python(textwrap.dedent("""
+        from geosim.kriging import _krige_rows
+        from geosim.summaries import _node_bands
+        from geosim.simulation.runner import _AHEAD, await_compiled, compile_modules_ahead, in_numba_cache
+        proc = compile_modules_ahead("kriging", ("geosim.kriging", "geosim.summaries"), _krige_rows)
+        await_compiled("kriging", _krige_rows, timeout=540)
+        running = proc.poll() is None
+        print(in_numba_cache(_krige_rows), running, "kriging" in _AHEAD, in_numba_cache(_node_bands))
+        await_compiled("kriging", timeout=540)
+        print(proc.returncode, "kriging" in _AHEAD, in_numba_cache(_node_bands))
+    """), str(tmp_path / "cache"))
+    first, last = [line.split() for line in out.splitlines()]
+    assert first[0] == "True"
+    # the summary kernel takes about a second of CPU after the kriging kernel: still running
+    # then, unless this process was starved for that long (only the registration is checked then)
+    assert first[2] == "True" if first[1] == "True" else first[3] == "True"
+    assert last == ["0", "False", "True"]
+
+
+WORKER_SINK = textwrap.dedent("""
+    from geosim.simulation.sequential import _sgs_kernel
+
+    def kernel_misses(index, field):
+        # runs in the worker: how often this process compiled the kernel instead of loading it
+        return sum(_sgs_kernel.stats.cache_misses.values())
+""")
+
+
+def test_workers_load_the_kernel_being_compiled_ahead_instead_of_compiling_it(tmp_path):
+    # a first run on two local workers: the runner waits for compile_ahead's kernel before it
+    # starts them, so no worker compiles it (a worker that did would count a cache miss), and the
+    # main process neither
+    (tmp_path / "worker_sink.py").write_text(WORKER_SINK)
+    script = textwrap.dedent("""
+        import numpy as np, geosim
+        from geosim.simulation.runner import compile_ahead
+        from geosim.simulation.sequential import _sgs_kernel
+        from worker_sink import kernel_misses
+        assert compile_ahead("sequential") is not None
+        grid = geosim.Grid(0.0, 0.0, (5.0, 5.0), (20, 24))
+        model = geosim.Nugget(0.1) + geosim.Spherical(0.9, geosim.Anisotropy((40.0, 25.0), azimuth=30.0))
+        misses = geosim.simulate(np.array([[32.0, 41.0]]), np.array([0.7]), model, grid, n_realizations=4,
+                                 seed=9, workers=2, sink=kernel_misses,
+                                 neighbourhood=geosim.search.Neighbourhood(max_samples=8, max_nodes=8))
+        print(*misses, sum(_sgs_kernel.stats.cache_misses.values()))
+    """)
+    env = {**os.environ, "NUMBA_CACHE_DIR": str(tmp_path / "cache"), "PYTHONPATH": str(tmp_path)}
+    out = subprocess.run([sys.executable, "-c", script], capture_output=True, text=True, env=env, timeout=600,
+                         cwd=tmp_path)
+    assert out.returncode == 0, out.stderr[-3000:]
+    assert out.stdout.split() == ["0"] * 5

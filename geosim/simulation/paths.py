@@ -11,14 +11,15 @@ from __future__ import annotations
 import math
 
 import numpy as np
-from numba import njit
 
 from ..errors import InputError
 from ..variogram import Anisotropy
-from ..variogram.compiled import cov_lag
+from ..variogram.compiled import cov_matrix_into
 
 #: Most covariance-table entries (float64) kept; beyond this the kernels evaluate the model.
 TABLE_LIMIT = 4_000_000
+# table entries computed per call of the compiled covariance loop (their lags take 24 bytes each)
+TABLE_BLOCK = 65_536
 
 
 def grid_axes(grid) -> tuple[tuple[int, int, int], np.ndarray, np.ndarray]:
@@ -99,17 +100,6 @@ def node_template(grid, search: Anisotropy, *, limit: int = 20_000) -> np.ndarra
     return np.ascontiguousarray(offsets[order][:limit])
 
 
-@njit(cache=True, nogil=True)
-def _fill_table(cm, table, centre, step):
-    nk, ni, nj = table.shape
-    for a in range(nk):
-        dz = (a - centre[0]) * step[2]
-        for b in range(ni):
-            dy = (b - centre[1]) * step[1]
-            for c in range(nj):
-                table[a, b, c] = cov_lag(cm, (c - centre[2]) * step[0], dy, dz)
-
-
 def covariance_table(cm: tuple, offsets: np.ndarray, step: np.ndarray):
     """Covariances at every difference of two template offsets, or None if too large.
 
@@ -122,7 +112,15 @@ def covariance_table(cm: tuple, offsets: np.ndarray, step: np.ndarray):
         return None, np.zeros(3, dtype=np.int64)
     table = np.empty(dims)
     centre = (2 * ext).astype(np.int64)
-    _fill_table(cm, table, centre, np.asarray(step, dtype=np.float64))
+    step = np.asarray(step, dtype=np.float64)
+    # C(lag) as the covariance of each lag with the origin, through the compiled loop every
+    # covariance matrix uses (one kernel less to compile on a first run), in blocks of entries
+    # so that the lags' coordinates stay small beside the table
+    flat, origin = table.reshape(-1, 1), np.zeros((1, 3))
+    for start in range(0, flat.shape[0], TABLE_BLOCK):
+        a, b, c = np.unravel_index(np.arange(start, min(start + TABLE_BLOCK, flat.shape[0])), dims)
+        lags = np.column_stack([(c - centre[2]) * step[0], (b - centre[1]) * step[1], (a - centre[0]) * step[2]])
+        cov_matrix_into(cm, lags, origin, flat[start:start + TABLE_BLOCK])
     return table, centre
 
 

@@ -57,6 +57,8 @@ REALIZATION_BYTES_PER_NODE = 64
 MEMBER_BYTES_PER_NODE = 8
 # how often a worker looks for the main process where it cannot wait on a pidfd
 PARENT_POLL_SECONDS = 0.2
+# how often a step waiting for a kernel being compiled ahead looks into numba's cache
+AHEAD_POLL_SECONDS = 0.05
 
 
 def realization_rng(seed: int, index: int) -> np.random.Generator:
@@ -151,13 +153,18 @@ def compile_ahead(engine):
     whose cache is checked).  The process exits when this one does (:func:`watch_process`)
     and writes nothing but numba's cache.
 
+    :func:`simulate` waits for the engine's main kernel (:func:`await_compiled` under
+    ``"engine"``) before it starts any realization, so that no worker compiles the kernel
+    while this process is still compiling it.
+
     Returns the started ``subprocess.Popen``, or None when there is nothing to compile.
     """
     eng = resolve_engine(engine)
     if not (hasattr(eng, "warm_up") and hasattr(eng, "main_kernel")) or in_numba_cache(eng.main_kernel()):
         return None
     kind = type(eng)
-    return _start_warm_up([(kind.__module__, kind.__qualname__)])
+    proc = _AHEAD["engine"] = _start_warm_up([(kind.__module__, kind.__qualname__)])
+    return proc
 
 
 #: The compiling processes this process started, by what they compile (:func:`compile_modules_ahead`).
@@ -190,19 +197,27 @@ def _start_warm_up(targets: Sequence[tuple[str, str | None]]):
                             stdin=subprocess.DEVNULL, stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL)
 
 
-def await_compiled(key: str, timeout: float = 300.0) -> None:
+def await_compiled(key: str, kernel=None, timeout: float = 300.0) -> None:
     """Wait (at most ``timeout`` s) for the compiling process started under ``key``, if any.
 
     A step that needs kernels being compiled ahead waits instead of compiling them itself;
     a process that failed or is too slow only means the step compiles what is missing.
+    With ``kernel`` (a numba dispatcher) the wait ends as soon as that kernel is in the
+    cache (numba writes a kernel's index file after its code, and after the code of the
+    kernels it calls): the process may still be compiling kernels that later steps need,
+    so it stays registered until it has ended.
     """
-    import subprocess
-    proc = _AHEAD.pop(key, None)
-    if proc is not None:
-        try:
-            proc.wait(timeout=timeout)
-        except subprocess.TimeoutExpired:
-            pass
+    proc = _AHEAD.get(key)
+    if proc is None:
+        return
+    deadline = time.monotonic() + timeout
+    while proc.poll() is None:
+        if kernel is not None and in_numba_cache(kernel):
+            return
+        if time.monotonic() > deadline:
+            break
+        time.sleep(AHEAD_POLL_SECONDS)
+    _AHEAD.pop(key, None)
 
 
 def warm_up_engine(main_pid: int, module: str, name: str | None) -> None:
@@ -424,6 +439,8 @@ def simulate(data_coords, data_scores, model, grid, *, n_realizations: int, seed
         return []
     prepared = eng.prepare(data_coords, data_scores, model, grid, neighbourhood=neighbourhood,
                            kriging=kriging, **engine_options)
+    # a first run's kernel may still be compiling in compile_ahead's process: load it, not compile it again
+    await_compiled("engine", eng.main_kernel() if hasattr(eng, "main_kernel") else None)
     groups = _groups(todo, per_path)
     if client is not None:
         results = _run_dask(client, eng, prepared, sink, seed, groups, per_path, progress)

@@ -35,8 +35,8 @@ from numba import njit
 from ..errors import InputError, NotPositiveDefiniteError
 from ..linalg import backward_t_inplace, chol_partial
 from ..search import DataSearch, Neighbourhood, search_ellipsoid
-from ..variogram.compiled import ZERO_LAG2, analytic_correlation, cov_lag, tabulated_correlation
 from ..variogram.codes import CUBIC, NUGGET, SPHERICAL, TABULATED
+from ..variogram.compiled import ZERO_LAG2, analytic_correlation, cov_lag, cov_matrix_into, tabulated_correlation
 from .paths import covariance_table, grid_axes, node_template, offset_lags, path_levels, random_path
 from .validate import COINCIDENT_REL_TOL, check_inputs, coincident_nodes, collocated_inputs, complement, data_labels
 
@@ -285,16 +285,12 @@ class MemberFields(Sequence):
 DATA_COV_LIMIT = 2048
 
 
-@njit(cache=True, nogil=True)
 def _data_covariances(cm, coords3):
-    n = coords3.shape[0]
-    out = np.empty((n, n))
-    for i in range(n):
-        for j in range(i + 1):
-            c = cov_lag(cm, coords3[i, 0] - coords3[j, 0], coords3[i, 1] - coords3[j, 1],
-                        coords3[i, 2] - coords3[j, 2])
-            out[i, j] = c
-            out[j, i] = c
+    # the compiled loop every covariance matrix uses: C(a - b) and C(b - a) have the same bits
+    # (each lag's terms only change sign), so the matrix is exactly symmetric, and a first run
+    # compiles one kernel less
+    out = np.empty((coords3.shape[0], coords3.shape[0]))
+    cov_matrix_into(cm, np.ascontiguousarray(coords3), np.ascontiguousarray(coords3), out)
     return out
 
 
