@@ -100,3 +100,33 @@ def test_a_table_given_by_columns_reads_as_the_same_table_given_by_rows(tmp_path
     assert len(lines) == 24 and lines[4].startswith(",") and lines[12].startswith(",")  # NaN, inf: empty
     with pytest.raises(ValueError, match="unequal length"):
         write_csv_table(tmp_path / "bad.csv", cols, {**by_columns, "n": np.arange(3.0)}, title="t")
+
+
+def test_a_table_of_numbers_has_the_cells_of_the_row_by_row_table_and_reads_back_exactly(tmp_path, monkeypatch):
+    # number columns are formatted by one template per slice of rows, and columns with few distinct
+    # values once per value: every kind of column a block model has, slices of 50 over 230 rows
+    import geosim.io.csvw
+    monkeypatch.setattr(geosim.io.csvw, "_ROWS_AT_ONCE", 50)
+    rng = np.random.default_rng(3)
+    n = 230
+    grade = rng.lognormal(-0.9, 2.0, n).astype(np.float32)  # float32 as the stored realizations
+    std = rng.standard_normal(n) * 1e4
+    std[[7, 60, 61]] = np.nan, np.inf, -np.inf  # missing cells in a column of many values
+    data = {"x": np.repeat([641005.0, 641015.0, -0.0, 5e-324], [100, 60, 40, 30]),  # few distinct values
+            "dx": np.full(n, 10.0),
+            "grade": grade, "std": std,
+            "prob": rng.integers(0, 101, n) / 100.0,  # fractions of 100 realizations
+            "units": np.where(np.arange(n) % 3 == 0, np.nan, np.arange(n) % 4).astype(float),
+            "count": np.floor(rng.standard_normal(n) * 50)}
+    cols = [Column(k, k) for k in data if k != "count"] + [Column("count", "count", "integer")]
+    write_csv_table(tmp_path / "columns.csv", cols, data, title="t")
+    rows = list(zip(*(data[c.name].tolist() for c in cols)))
+    write_csv_table(tmp_path / "rows.csv", cols, rows, title="t")
+    assert (tmp_path / "columns.csv").read_text() == (tmp_path / "rows.csv").read_text()
+    back = pd.read_csv(tmp_path / "columns.csv")
+    assert back["grade"].to_numpy().astype(np.float32).tobytes() == grade.tobytes()  # 10 digits: float32 exact
+    np.testing.assert_array_equal(back["x"], data["x"])
+    np.testing.assert_array_equal(back["prob"], data["prob"])
+    assert back["std"].isna().to_numpy()[[7, 60, 61]].all() and back["std"].isna().sum() == 3
+    assert back["units"].isna().sum() == len(range(0, n, 3))
+    np.testing.assert_array_equal(back["count"], data["count"])
