@@ -60,7 +60,22 @@ def test_summary_cube_opens_in_xarray_with_the_grid_coordinates(ore_run):
     np.testing.assert_array_equal(np.isfinite(ds["mean"].values), grid.mask)
     enc = ds["mean"].encoding
     assert enc["zlib"] and enc["chunksizes"][0] == 1  # chunked by level and compressed
+    assert enc["complevel"] == 4 and enc["shuffle"]
     ds.close()
+
+
+def test_the_realization_cube_is_compressed_at_zlib_level_1_and_holds_the_stored_values(ore_run):
+    # simulated float32 noise compresses little at any zlib level: the realization cube uses the cheapest
+    spec, result, out = ore_run
+    var = geosim.outputs.variable_name(spec["data.value"])
+    levels = sorted(out.glob("realizations_z*.tif"))
+    with open_cube(out / "realizations.nc") as ds:
+        enc = ds[var].encoding
+        assert enc["zlib"] and enc["complevel"] == 1 and enc["shuffle"]
+        assert enc["chunksizes"][:2] == (1, 1) and ds[var].dtype == np.float32
+        for k in (0, 12):
+            with rasterio.open(levels[k]) as level:
+                np.testing.assert_array_equal(ds[var].values[:, k], level.read()[:3])
 
 
 @pytest.mark.parametrize("kind, tif, variable", [("summary", "summary", "mean"), ("estimate", "estimate", "mean"),

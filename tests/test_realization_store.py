@@ -249,6 +249,7 @@ def test_dask_workers_fill_one_store_that_equals_the_serial_one(tmp_path):
         assert (tmp_path / "dask" / "netcdf" / name).read_bytes() == (tmp_path / "serial" / "netcdf" / name).read_bytes()
     with xr.open_dataset(tmp_path / "dask" / "netcdf" / "realizations.nc") as ds:
         np.testing.assert_array_equal(ds["cu_pct"].values, reference)
+        assert ds["cu_pct"].encoding["complevel"] == 1  # noise compresses little: the cheapest level
 
 
 def _records(out: Path) -> dict[int, dict]:
