@@ -40,6 +40,7 @@ import numpy as np
 
 from .errors import InputError
 from .io import plots as io_plots
+from .io.atomic import check_writable
 from .io.decision import write_decision_csv
 from .io.cube import CUBE_SUFFIX, RealizationStore
 from .io.geotiff import (GDAL_SETTINGS, STORED_DTYPE, as_stored, assemble_realizations, grid_windows, level_grid,
@@ -244,6 +245,12 @@ class RealizationWriter:
             self.store = RealizationStore(where, grid, name=variable, long_name=self.long_name, units=units,
                                           provenance=self.tags, run_key=run_key)
         self.summary = None  # the summary bands (float32 values) once finish computed them from the store
+        self._writing = None  # (process pool, future) of a realization cube still being written
+
+    def __getstate__(self) -> dict:
+        state = dict(self.__dict__)
+        state["_writing"] = None  # a pool and its future do not travel
+        return state
 
     @property
     def layer_variables(self) -> dict[str, tuple[np.ndarray, str, str]]:
@@ -307,7 +314,7 @@ class RealizationWriter:
 
     def finish(self, records: Sequence[Mapping], *, cutoffs: Sequence[float] = (),
                stack: bool = True, keep_realization_files: bool = True, plots: bool = False,
-               progress: Callable[[int, int, str], None] | None = None) -> dict[str, list[str]]:
+               progress: Callable[[int, int, str], None] | None = None, wait: bool = True) -> dict[str, list[str]]:
         """Assemble the multiband realization COG(s), the summary raster(s) and decision CSVs.
 
         Parameters
@@ -329,6 +336,12 @@ class RealizationWriter:
             ``measure`` is a :class:`geosim.validation.RunChecks`,
             ``variogram_reproduction.png`` and ``histogram_reproduction.png``.
         progress : callable, optional
+        wait : bool
+            Return once every file is written.  The NetCDF realization cube is written by
+            a process of its own (read from the store and compressed beside the summary
+            pass, tables and plots of this one); with False, ``finish`` may return before
+            it is done, so it overlaps the caller's work too, and the caller calls
+            :meth:`wait` before it uses or removes the realization store.
 
         Returns
         -------
@@ -347,8 +360,53 @@ class RealizationWriter:
         out: dict[str, list[str]] = {
             "realization_files": [str(self.folder / f) for r in records for f, _ in record_files(r)]
             + [str(s.path) for s in self.stores(staging=True)]}
+        try:
+            out.update(self._assemble(records, cutoffs, stack, plots, progress))
+            if not keep_realization_files or wait:
+                self.wait()
+        except BaseException:
+            self.wait(raise_error=False)  # nothing goes on writing after a failure
+            raise
+        if not keep_realization_files:
+            remove_outputs(out.pop("realization_files"))
+        return out
+
+    def wait(self, *, raise_error: bool = True) -> None:
+        """Wait for the realization cube ``finish`` has written in a process of its own; re-raise its error."""
+        writing, self._writing = self._writing, None
+        if writing is not None:
+            pool, future = writing
+            error = future.exception()
+            pool.shutdown()
+            if error is not None and raise_error:
+                raise error
+
+    def _write_netcdf_aside(self, target: Path, layers: Mapping[str, tuple]) -> None:
+        """Start writing the NetCDF realization cube from the finished store in a process of its own.
+
+        A process, not a thread: HDF5 is not safe for threads, and a file handle that another
+        thread lets go (a dataset collected as garbage) would reach it unlocked.  The process
+        forks from the workers' server (the start method of :mod:`geosim.simulation.runner`) and ends
+        at once when this one does, as the workers do.
+        """
+        from concurrent.futures import ProcessPoolExecutor
+
+        from .simulation.runner import _pool_context, watch_process
+        pool = ProcessPoolExecutor(1, mp_context=_pool_context("geosim.io.cube"), initializer=watch_process,
+                                   initargs=(os.getpid(),))
+        try:
+            self._writing = (pool, pool.submit(self.store.to_netcdf, target, layers=layers,
+                                               overwrite=self.overwrite))
+        except BaseException:
+            pool.shutdown(cancel_futures=True)
+            raise
+
+    def _assemble(self, records, cutoffs, stack, plots, progress) -> dict[str, list[str]]:
+        """What :meth:`finish` makes, except the removal of the realization files."""
         import rasterio
 
+        indices = [r["index"] for r in records]
+        out: dict[str, list[str]] = {}
         with rasterio.Env(**GDAL_SETTINGS):  # no folder listing on each of the many opens below
             if self.store is not None:
                 out.update(self._assemble_store(indices, cutoffs, stack, progress))
@@ -369,8 +427,6 @@ class RealizationWriter:
                                 stack=stack, plots=plots, progress=progress))
         if self.ranking is not None:
             out.update(self.ranking(self, records))
-        if not keep_realization_files:
-            remove_outputs(out.pop("realization_files"))
         return out
 
     def _assemble_geotiffs(self, records, cutoffs, stack, progress) -> dict[str, list[str]]:
@@ -411,6 +467,13 @@ class RealizationWriter:
 
         from .io.cube import add_layers, cube_boxes, summary_dataset, write_cube
         self.store.finish(indices)
+        suffix = CUBE_SUFFIX[self.cube]
+        layers = self.layer_variables
+        out: dict[str, list[str]] = {}
+        if self.cube == "netcdf":
+            target = check_writable(self.folder / "realizations.nc", self.overwrite)  # refused here, not later
+            self._write_netcdf_aside(target, layers)
+            out["realizations_cube"] = [str(target)]
         bands = np.full((len(summary_band_names(cutoffs)),) + self.grid.shape, np.nan)
         boxes = cube_boxes(self.grid)
         # the workers have ended: the compiled per-node pass runs on a thread per core
@@ -421,7 +484,6 @@ class RealizationWriter:
             if progress is not None:
                 progress(done, len(boxes), "summary")
         self.summary = bands = as_stored(bands)
-        out: dict[str, list[str]] = {}
         if self.level_geotiffs and stack:
             for k in range(self.grid.nz if self.grid.ndim == 3 else 1):
                 target = level_paths(self.folder / "realizations.tif", self.grid)[k]
@@ -435,14 +497,9 @@ class RealizationWriter:
                 self.folder / "summary.tif", np.concatenate([bands] + [a[None] for a, _, _ in self.layers]),
                 self.grid, tags=self.tags, overwrite=self.overwrite,
                 descriptions=summary_band_descriptions(cutoffs, self.units) + [(d, u) for _, d, u in self.layers])]
-        suffix = CUBE_SUFFIX[self.cube]
-        layers = self.layer_variables
         out["summary_cube"] = [str(write_cube(self.folder / f"summary{suffix}", add_layers(summary_dataset(
             self.grid, bands, cutoffs, units=self.units, provenance=self.tags), layers), overwrite=self.overwrite))]
-        if self.cube == "netcdf":
-            out["realizations_cube"] = [str(self.store.to_netcdf(self.folder / "realizations.nc", layers=layers,
-                                                                 overwrite=self.overwrite))]
-        else:
+        if self.cube != "netcdf":
             self.store.add_layers(layers)
             out["realizations_cube"] = [str(self.store.path)]
         out.update(self._tables(indices, cutoffs, bands, lambda j: self.store.read(indices[j])))
@@ -471,7 +528,7 @@ class RealizationWriter:
 
     def plots(self, records: Sequence[Mapping], summaries: Sequence[str | os.PathLike],
               cutoffs: Sequence[float] = (), *, levels: Sequence[int] | None = None,
-              log: bool = False) -> list[Path]:
+              log: bool = False, validation: Mapping | None = None) -> list[Path]:
         """Draw the ensemble's PNGs into the folder (:mod:`geosim.io.plots`).
 
         Parameters
@@ -487,6 +544,8 @@ class RealizationWriter:
             Levels whose summary is mapped (prefixed ``z000_``... for 3-D grids); all by default.
         log : bool
             Map values on a logarithmic colour scale.
+        validation : mapping, optional
+            :meth:`validation` of ``records``, when the caller has it already.
 
         Returns
         -------
@@ -509,7 +568,7 @@ class RealizationWriter:
             prefix = "" if self.grid.ndim == 2 else f"z{k:03d}_"
             out += io_plots.plot_summary_maps(summary, g2, self.folder, units=self.units, prefix=prefix, log=log,
                                               overwrite=self.overwrite)
-        section = self.validation(records)
+        section = self.validation(records) if validation is None else validation
         if section is not None:
             samples = [r["checks"].get("quantiles") for r in records]
             if self.measure.data_values is not None and all(q is not None for q in samples):

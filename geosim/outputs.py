@@ -397,33 +397,41 @@ def write_summaries(spec: RunSpec, out_dir: Path, data: PreparedData, model, gri
     from .simulation.runner import per_path_for
     n = spec["simulation.realizations"]
     out = spec["outputs"]
+    # the NetCDF realization cube may still be written (by a process of its own) while the report and
+    # plots are made
     files = simulation.writer.finish(simulation.records, cutoffs=out["cutoffs"], stack=True,
-                                     keep_realization_files=True, progress=relabel(progress, "summary windows"))
-    report = _provenance(spec, data, model)  # the report gives run_spec_sha256 beside the spec itself
-    report.update({"title": spec["title"], "run_spec": spec.name, "run_spec_sha256": spec.sha256,
-                   "parameters": spec.to_dict(), "samples": int(len(data.values)), "notes": list(data.notes),
-                   "grid": {"shape": list(grid.shape), "cell": list(grid.cell), "active_nodes": grid.n_active,
-                            "crs": grid.crs.to_string() if grid.crs is not None else None},
-                   "realizations": {"count": n, "kept_from_earlier_run": simulation.kept,
-                                    "per_path": per_path_for(spec["simulation.realizations_per_path"], grid,
-                                                             spec["simulation.engine"])}})
-    validation = simulation.writer.validation(simulation.records)
-    if validation is not None:
-        report["validation"] = validation
-    support = _support_report(simulation.writer, simulation.records)
-    if support:
-        report["change_of_support"] = support
-    from .secondary import report_sections
-    summary = simulation.writer.summary  # the bands, when the realizations are in a store
-    report.update(report_sections(spec, data, grid, files.get("summary", ()) if summary is None else summary))
-    if extra:
-        report.update(extra)
-    if out["plots"]:
-        # the summary maps of one level of a 3-D grid: the one nearest the samples' mean elevation
-        files["plots"] = [str(p) for p in simulation.writer.plots(
-            simulation.records, files.get("summary", []), out["cutoffs"], levels=[_plot_level(data, grid)],
-            log=spec["transform.log"])]
-        files["plots"] += [str(p) for p in _support_plots(spec, simulation.writer, simulation.records, out_dir)]
+                                     keep_realization_files=True, progress=relabel(progress, "summary windows"),
+                                     wait=False)
+    try:
+        report = _provenance(spec, data, model)  # the report gives run_spec_sha256 beside the spec itself
+        report.update({"title": spec["title"], "run_spec": spec.name, "run_spec_sha256": spec.sha256,
+                       "parameters": spec.to_dict(), "samples": int(len(data.values)), "notes": list(data.notes),
+                       "grid": {"shape": list(grid.shape), "cell": list(grid.cell), "active_nodes": grid.n_active,
+                                "crs": grid.crs.to_string() if grid.crs is not None else None},
+                       "realizations": {"count": n, "kept_from_earlier_run": simulation.kept,
+                                        "per_path": per_path_for(spec["simulation.realizations_per_path"], grid,
+                                                                 spec["simulation.engine"])}})
+        validation = simulation.writer.validation(simulation.records)
+        if validation is not None:
+            report["validation"] = validation
+        support = _support_report(simulation.writer, simulation.records)
+        if support:
+            report["change_of_support"] = support
+        from .secondary import report_sections
+        summary = simulation.writer.summary  # the bands, when the realizations are in a store
+        report.update(report_sections(spec, data, grid, files.get("summary", ()) if summary is None else summary))
+        if extra:
+            report.update(extra)
+        if out["plots"]:
+            # the summary maps of one level of a 3-D grid: the one nearest the samples' mean elevation
+            files["plots"] = [str(p) for p in simulation.writer.plots(
+                simulation.records, files.get("summary", []), out["cutoffs"], levels=[_plot_level(data, grid)],
+                log=spec["transform.log"], validation=validation)]
+            files["plots"] += [str(p) for p in _support_plots(spec, simulation.writer, simulation.records, out_dir)]
+    except BaseException:
+        simulation.writer.wait(raise_error=False)  # nothing goes on writing after a failure
+        raise
+    simulation.writer.wait()
     return close_outputs(spec, grid, out_dir, files, report)
 
 
