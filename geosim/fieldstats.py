@@ -63,7 +63,7 @@ def _locate(v, xp, start, lo, scale):
 
 
 @njit(cache=True, nogil=True)
-def _interp_loop(x, xp, fp, start, lo, scale, out):
+def _interp_loop(x, xp, fp, slopes, start, lo, scale, out):
     last = xp.size - 1
     for i in range(x.size):
         v = x[i]
@@ -79,7 +79,7 @@ def _interp_loop(x, xp, fp, start, lo, scale, out):
                 out[i] = fp[j]
             else:
                 # numpy's arithmetic and its fallbacks where one direction gives NaN
-                slope = (fp[j + 1] - fp[j]) / (xp[j + 1] - xp[j])
+                slope = slopes[j]
                 r = slope * (v - xp[j]) + fp[j]
                 if r != r:
                     r = slope * (v - xp[j + 1]) + fp[j + 1]
@@ -128,7 +128,9 @@ def interp(x, xp: np.ndarray, fp: np.ndarray) -> np.ndarray:
         raise ValueError(f"xp and fp must have the same length, got {xp.size} and {fp.size}")
     start, lo, scale = _buckets(xp)
     out = np.empty_like(x)
-    _interp_loop(x, xp, fp, start, lo, scale, out)
+    with np.errstate(divide="ignore", invalid="ignore"):  # numpy's slopes, also where knots repeat
+        slopes = (fp[1:] - fp[:-1]) / (xp[1:] - xp[:-1])
+    _interp_loop(x, xp, fp, slopes, start, lo, scale, out)
     return out
 
 
@@ -313,3 +315,14 @@ def quantiles(x: np.ndarray, q: np.ndarray) -> np.ndarray:
     np.subtract(b, diff * (1 - gamma), out=out, where=gamma >= 0.5)
     return out
 
+
+
+def warm_up() -> None:
+    """Compile the loops (numba's cache keeps them) on tiny inputs of the types every run passes, for a
+    compiling process ahead of the workers (:func:`geosim.simulation.runner.compile_modules_ahead`)."""
+    xp = np.array([0.0, 1.0, 2.0])
+    x = np.array([-1.0, 0.5, 1.0, 3.0, np.nan])
+    start, lo, scale = _buckets(xp)
+    _interp_loop(x, xp, xp, np.ones(2), start, lo, scale, np.empty_like(x))
+    _count_loop(x, xp, start, lo, scale, np.zeros(4, dtype=np.int64), np.zeros(3, dtype=np.int64))
+    _select_loop(xp, np.array([0, 2], dtype=np.int64), _SHIFTS, np.empty(2, dtype=np.uint64))

@@ -168,3 +168,16 @@ def test_axis_semivariogram_of_a_complete_field_is_the_same_told_or_found():
             d = np.take(field, np.arange(k, n_axis), axis) - np.take(field, np.arange(n_axis - k), axis)
             assert g == 0.5 * float(np.mean(d * d)) and n == d.size
         assert _same_bits(told[0], found[0]) and told[1].tolist() == found[1].tolist()
+
+
+def test_warm_up_compiles_the_loops_the_lookups_then_use():
+    fieldstats.warm_up()
+    for loop in (fieldstats._interp_loop, fieldstats._count_loop, fieldstats._select_loop):
+        assert len(loop.signatures) == 1
+    x = np.random.default_rng(1).standard_normal(BIG)
+    k = np.sort(x[:100])
+    fieldstats.interp(x, k, k)
+    fieldstats.knot_counts(x, k)
+    fieldstats.quantiles(x, np.array([0.1, 0.9]))
+    for loop in (fieldstats._interp_loop, fieldstats._count_loop, fieldstats._select_loop):
+        assert len(loop.signatures) == 1  # no second specialization: warm_up passed the real types

@@ -330,6 +330,7 @@ def _write_chunks(folder: Path, index: int, block: np.ndarray) -> bool:
     zstd; a chunk holding only the fill value is not stored (zarr's default,
     ``write_empty_chunks = False``).  Each chunk file is replaced atomically, as zarr does.
     """
+    import contextlib
     import json
     import uuid
     try:
@@ -343,28 +344,34 @@ def _write_chunks(folder: Path, index: int, block: np.ndarray) -> bool:
     fill = meta.get("fill_value")
     fill = np.nan if fill == "NaN" else fill
     counts = [-(-n // c) for n, c in zip(block.shape, chunk[1:])]
+    token = uuid.uuid4().hex  # one per call: the chunk names already differ
     for pos in np.ndindex(*counts):
         box = tuple(slice(p * c, min((p + 1) * c, n)) for p, c, n in zip(pos, chunk[1:], block.shape))
         part = block[box]
-        key = folder.joinpath("c", str(int(index)), *map(str, pos))
+        key = os.path.join(folder, "c", str(int(index)), *map(str, pos))
         if (np.isnan(part).all() if fill is np.nan else (part == fill).all()):
-            key.unlink(missing_ok=True)
+            with contextlib.suppress(FileNotFoundError):
+                os.unlink(key)
             continue
         if part.shape != chunk[1:]:  # an edge chunk: padded to the whole chunk with the fill value
             whole = np.full(chunk[1:], fill, dtype=block.dtype)
             whole[tuple(slice(0, n) for n in part.shape)] = part
             part = whole
         data = codec.encode(np.ascontiguousarray(part, dtype=block.dtype.newbyteorder("<")))
-        partial = key.with_name(f".{key.name}.{uuid.uuid4().hex}.partial")
+        head, name = os.path.split(key)
+        partial = os.path.join(head, f".{name}.{token}.partial")
         try:
             try:
-                partial.write_bytes(data)
+                f = open(partial, "wb")
             except FileNotFoundError:  # the chunk's folder is made by its first write
-                key.parent.mkdir(parents=True, exist_ok=True)
-                partial.write_bytes(data)
+                os.makedirs(head, exist_ok=True)
+                f = open(partial, "wb")
+            with f:
+                f.write(data)
             os.replace(partial, key)
         except BaseException:
-            partial.unlink(missing_ok=True)
+            with contextlib.suppress(FileNotFoundError):
+                os.unlink(partial)
             raise
     return True
 

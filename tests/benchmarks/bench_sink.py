@@ -16,7 +16,10 @@ Figures: ``sink_us_per_node_realization`` (wall) and ``sink_cpu_us_per_node_real
 (CPU seconds of this process, which other jobs on a shared machine do not inflate), and
 the same per part of the sink (back-transform, store write, figures, checks, record:
 ``parts_us_per_node_realization``, cumulative times from cProfile over the same calls made
-again; the profiler adds a little of its own).  With ``--profile`` the listing is printed too.  ``uptime`` load
+again, in CPU seconds of this process; the profiler adds a little of its own).  With ``--profile`` the
+listing is printed too.  With ``--codecs`` the chunks of the stored realizations are compressed again with
+the store's codec (zstd at zarr's default level) and with cheaper ones, and the encode and decode CPU time
+per node and the compressed size are printed (``codecs`` in the JSON line).  ``uptime`` load
 averages are printed beside the figures.
 """
 from __future__ import annotations
@@ -76,12 +79,37 @@ def parts(stats: pstats.Stats, seconds_to_us: float) -> dict:
     return out
 
 
+def codecs(store, count: int) -> dict:
+    """Encode and decode CPU ns per node and compressed size (share of raw) of the first ``count``
+    stored realizations' chunks (one level each) with the store's codec and cheaper ones."""
+    from numcodecs import Blosc, Zstd
+    chunks = [np.ascontiguousarray(level) for i in range(count) for level in store.read(i).reshape(
+        (-1,) + store.grid.shape[-2:])]
+    nodes = sum(c.size for c in chunks)
+    out = {}
+    for name, codec in [("zstd level 0 (zarr's default, the store's)", Zstd(level=0)), ("zstd level 1", Zstd(level=1)),
+                        ("blosc lz4 + shuffle", Blosc(cname="lz4", clevel=5, shuffle=Blosc.SHUFFLE))]:
+        codec.encode(chunks[0])
+        t = time.process_time()
+        encoded = [codec.encode(c) for c in chunks]
+        encode = time.process_time() - t
+        t = time.process_time()
+        for e in encoded:
+            codec.decode(e)
+        decode = time.process_time() - t
+        out[name] = {"encode_ns_per_node": round(encode * 1e9 / nodes, 1), "decode_ns_per_node": round(
+            decode * 1e9 / nodes, 1), "size_of_raw": round(sum(len(e) for e in encoded) / (4 * nodes), 3)}
+        print(f"  {name}: {out[name]}", flush=True)
+    return out
+
+
 def main():
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     parser.add_argument("--shape", type=int, nargs=3, default=(20, 100, 200), metavar=("NZ", "NY", "NX"))
     parser.add_argument("--calls", type=int, default=20, help="sink calls timed (realization indices 0..calls-1)")
     parser.add_argument("--members", type=int, default=4, help="distinct realizations the calls cycle through")
     parser.add_argument("--profile", action="store_true", help="print the cProfile listing of the calls")
+    parser.add_argument("--codecs", action="store_true", help="compare store codecs on the stored chunks")
     args = parser.parse_args()
     tmp = Path(tempfile.mkdtemp(prefix="geosim-bench-sink-"))
     try:
@@ -102,7 +130,7 @@ def main():
               f"per node and realization ({block.load()})", flush=True)
         # the same calls again under cProfile, for the parts (the profiler adds its own overhead)
         writer.open_stores(args.calls)
-        profile = cProfile.Profile()
+        profile = cProfile.Profile(time.process_time)  # CPU seconds: other jobs on the machine do not inflate them
         profile.enable()
         for i in range(args.calls):
             sink(i, fields[i % len(fields)])
@@ -111,6 +139,8 @@ def main():
         result["parts_us_per_node_realization"] = parts(stats, per)
         if args.profile:
             stats.sort_stats("tottime").print_stats(25)
+        if args.codecs:
+            result["codecs"] = codecs(writer.store, min(args.calls, 4))
         result["load"] = block.load()
         print(json.dumps(result))
     finally:
