@@ -500,10 +500,13 @@ class RealizationStore:
         shutil.rmtree(self.path, ignore_errors=True)
         self.path.parent.mkdir(parents=True, exist_ok=True)
         da = _need("dask.array", "zarr")
-        data = da.zeros((n,) + tuple(self.grid.shape), chunks=self.chunks, dtype=np.float32)
+        # lazy arrays that are never computed: only the metadata is written, so one dask chunk
+        # each (the store's chunks are set by the encoding) spares building a graph of a task per
+        # stored chunk, seconds on a large grid
+        data = da.zeros((n,) + tuple(self.grid.shape), chunks=-1, dtype=np.float32)
         ds = grid_dataset(self.grid, {self.name: (data, self.long_name, self.units)}, realizations=range(n),
                           title="geosim conditional realizations", provenance=self.provenance)
-        ds[MARKER] = (("realization",), da.zeros(n, chunks=1, dtype=np.uint8),
+        ds[MARKER] = (("realization",), da.zeros(n, chunks=-1, dtype=np.uint8),
                       {"long_name": "realization written completely (its chunks are all in the store)",
                        "flag_values": np.array([0, 1], dtype=np.uint8), "flag_meanings": "no yes"})
         ds.attrs.update({COMPLETE_ATTR: "no", RUN_KEY_ATTR: self.run_key, VARIABLE_ATTR: self.name})
@@ -511,7 +514,7 @@ class RealizationStore:
         encoding[self.name]["chunks"] = self.chunks
         encoding[MARKER] = {"chunks": (1,), "_FillValue": None}
         with _local_dask():
-            ds.to_zarr(self.path, mode="w", compute=False, encoding=encoding, consolidated=False)
+            ds.to_zarr(self.path, mode="w", compute=False, encoding=encoding, consolidated=False, safe_chunks=False)
 
     def write(self, index: int, values: np.ndarray) -> str:
         """Write realization ``index`` (its whole chunks), then mark it complete; returns its SHA-256.
