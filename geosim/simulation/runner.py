@@ -163,11 +163,11 @@ def compile_ahead(engine):
     if not (hasattr(eng, "warm_up") and hasattr(eng, "main_kernel")) or in_numba_cache(eng.main_kernel()):
         return None
     kind = type(eng)
-    proc = _AHEAD["engine"] = _start_warm_up([(kind.__module__, kind.__qualname__)])
-    return proc
+    return _start_warm_up("engine", [(kind.__module__, kind.__qualname__)])
 
 
-#: The compiling processes this process started, by what they compile (:func:`compile_modules_ahead`).
+#: The compiling processes this process started, by what they compile (:func:`compile_ahead`,
+#: :func:`compile_modules_ahead`).
 _AHEAD: dict[str, object] = {}
 
 
@@ -184,17 +184,19 @@ def compile_modules_ahead(key: str, modules: Sequence[str], kernel) -> object | 
     """
     if in_numba_cache(kernel):
         return None
-    proc = _AHEAD[key] = _start_warm_up([(m, None) for m in modules])
-    return proc
+    return _start_warm_up(key, [(m, None) for m in modules])
 
 
-def _start_warm_up(targets: Sequence[tuple[str, str | None]]):
-    """A silent process that runs :func:`warm_up_engine` on each ``(module, name)`` in turn."""
+def _start_warm_up(key: str, targets: Sequence[tuple[str, str | None]]):
+    """A silent process that runs :func:`warm_up_engine` on each ``(module, name)`` in turn, registered
+    in :data:`_AHEAD` under ``key`` for :func:`await_compiled`."""
     import subprocess
     import sys
     calls = "; ".join(f"warm_up_engine({os.getpid()}, {m!r}, {n!r})" for m, n in targets)
-    return subprocess.Popen([sys.executable, "-c", f"from geosim.simulation.runner import warm_up_engine; {calls}"],
-                            stdin=subprocess.DEVNULL, stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL)
+    proc = _AHEAD[key] = subprocess.Popen(
+        [sys.executable, "-c", f"from geosim.simulation.runner import warm_up_engine; {calls}"],
+        stdin=subprocess.DEVNULL, stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL)
+    return proc
 
 
 def await_compiled(key: str, kernel=None, timeout: float = 300.0) -> None:
