@@ -321,7 +321,7 @@ class DataSearch:
                 progress(min(m, start + block), m, what)
 
     def query(self, targets, *, exclude_index: Sequence[int] | None = None,
-              exclude_hole: Sequence[int] | None = None) -> tuple[np.ndarray, np.ndarray]:
+              exclude_hole: Sequence[int] | None = None, workers: int = 1) -> tuple[np.ndarray, np.ndarray]:
         """Selected samples for each target.
 
         Parameters
@@ -331,6 +331,8 @@ class DataSearch:
             A sample index to leave out per target (-1 for none).
         exclude_hole : (m,) int array_like, optional
             A hole code (see :attr:`holes`) to leave out per target (-1 for none).
+        workers : int
+            Threads sharing the tree query (-1: all cores); the selection is the same.
 
         Returns
         -------
@@ -350,7 +352,7 @@ class DataSearch:
             return _select_rows(rows, cand, self.frame, self.holes, tframe, excl_idx, excl_hole,
                                 nb.max_samples, nb.sectors, nb.sector_limit, nb.hole_limit, index, count)
 
-        self.run(tframe, step, exclusions=exclude_index is not None or exclude_hole is not None)
+        self.run(tframe, step, exclusions=exclude_index is not None or exclude_hole is not None, workers=workers)
         return index, count
 
 

@@ -16,8 +16,8 @@ def _brute(coords, target, nb, ell, holes=None, exclude=-1):
                                       exclude=exclude)
 
 
-def _check_all(search, targets, nb, ell, holes=None, exclude=None):
-    idx, count = search.query(targets, exclude_index=exclude)
+def _check_all(search, targets, nb, ell, holes=None, exclude=None, workers=1):
+    idx, count = search.query(targets, exclude_index=exclude, workers=workers)
     for i, t in enumerate(targets):
         want = _brute(search.xyz[:, :targets.shape[1]], t, nb, ell, holes,
                       -1 if exclude is None else exclude[i])
@@ -79,6 +79,19 @@ def test_octants_in_3d_and_no_octants_in_2d():
                Anisotropy((60.0, 40.0, 20.0), 20.0, 10.0))
     with pytest.raises(ValueError, match="3-D"):
         DataSearch(pts[:, :2], nb)
+
+
+def test_threads_sharing_the_tree_query_select_the_same_samples():
+    # the engine's one search over all nodes runs with every core (workers=-1): still brute force's choice
+    rng = np.random.default_rng(21)
+    pts = rng.uniform(0, 100, size=(300, 3))
+    holes = rng.integers(0, 12, size=300).astype(str)
+    nb = Neighbourhood(max_samples=16, ranges=(60.0, 40.0, 20.0), azimuth=20.0, dip=10.0, sectors=8,
+                       max_per_hole=3)
+    s = DataSearch(pts, nb, hole_ids=holes)
+    targets = rng.uniform(20, 80, size=(40, 3))
+    for workers in (2, -1):
+        _check_all(s, targets, nb, Anisotropy((60.0, 40.0, 20.0), 20.0, 10.0), holes, workers=workers)
 
 
 def test_per_hole_limit_fetches_more_candidates_when_needed():

@@ -304,7 +304,8 @@ def _data_neighbours(coords: np.ndarray, node_coords: np.ndarray, nb: Neighbourh
     """Data selected for each active node by :class:`geosim.search.DataSearch` (int32, -1 padded).
 
     The search (ellipsoid, sectors, per-hole limits) is the one kriging uses; it runs once
-    per run, in blocks of nodes to bound the memory of the query.
+    per run, before the workers start, in blocks of nodes to bound the memory of the query,
+    with every core sharing the tree query.
     """
     if coords.shape[0] == 0:
         return np.full((node_coords.shape[0], 0), -1, dtype=np.int32)
@@ -314,7 +315,7 @@ def _data_neighbours(coords: np.ndarray, node_coords: np.ndarray, nb: Neighbourh
         raise InputError(str(err), field="neighbourhood", fix="adjust the neighbourhood or pass hole_ids=") from None
     out = np.empty((node_coords.shape[0], nb.max_samples), dtype=np.int32)
     for start in range(0, node_coords.shape[0], block):
-        out[start:start + block] = search.query(node_coords[start:start + block])[0]
+        out[start:start + block] = search.query(node_coords[start:start + block], workers=-1)[0]
     used = int((out >= 0).sum(axis=1).max()) if out.size else 0
     return np.ascontiguousarray(out[:, :used])
 
