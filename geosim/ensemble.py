@@ -199,6 +199,9 @@ class RealizationWriter:
         ``grid`` with the summary.
     table_realizations : bool
         Add one column per realization to those tables.
+    cube_complevel : int
+        zlib level (0-9) of the NetCDF realization cube; 0, the default, stores it
+        uncompressed (:data:`geosim.io.cube.REALIZATION_COMPLEVEL`).
 
     Notes
     -----
@@ -217,7 +220,7 @@ class RealizationWriter:
                  layers: Sequence[tuple[np.ndarray, str, str]] = (), cube: str | None = None,
                  level_geotiffs: bool = True, variable: str = "value", long_name: str | None = None,
                  tables: Sequence[str] = (), table_realizations: bool = False,
-                 store: str | os.PathLike | None = None, run_key: str = ""):
+                 store: str | os.PathLike | None = None, run_key: str = "", cube_complevel: int = 0):
         self.folder = Path(folder)
         self.grid = grid
         self.tags = dict(tags or {})
@@ -239,6 +242,9 @@ class RealizationWriter:
         self.long_name = long_name or f"{variable}{u}, conditional realization"
         self.tables = tuple(tables)
         self.table_realizations = table_realizations
+        if not (isinstance(cube_complevel, int) and 0 <= cube_complevel <= 9):
+            raise ValueError(f"cube_complevel must be a zlib level 0-9, got {cube_complevel!r}")
+        self.cube_complevel = cube_complevel
         self.store = None
         if cube is not None:
             where = store or self.folder / ("realizations.zarr" if cube == "zarr" else "realizations/store.zarr")
@@ -274,6 +280,23 @@ class RealizationWriter:
         :meth:`geosim.io.cube.RealizationStore.open`."""
         for store in self.stores():
             store.open(n_realizations, keep=kept)
+
+    def finish_modules(self, plots: bool = False) -> list[str]:
+        """The optional libraries :meth:`finish` imports (rasters, cubes, tables and, with ``plots``,
+        figures), those of the derived writers included: a caller imports them while the workers
+        simulate (:func:`geosim.simulation.runner.import_ahead`)."""
+        modules = ["rasterio"]
+        if self.cube is not None:
+            modules += ["zarr", "dask.array", "xarray"] + (["netCDF4"] if self.cube == "netcdf" else [])
+        if ".parquet" in self.tables:
+            modules.append("pyarrow.parquet")
+        if plots:
+            modules += ["matplotlib.figure", "matplotlib.backends.backend_agg", "matplotlib.colors",
+                        "matplotlib.patches", "matplotlib.patheffects"]
+        for d in self.derived:
+            if hasattr(d, "writer"):
+                modules += [m for m in d.writer.finish_modules(plots) if m not in modules]
+        return modules
 
     def __call__(self, index: int, field: np.ndarray) -> dict:
         scores = np.asarray(field, dtype=np.float64)
@@ -391,12 +414,12 @@ class RealizationWriter:
         """
         from concurrent.futures import ProcessPoolExecutor
 
-        from .simulation.runner import _pool_context, watch_process
-        pool = ProcessPoolExecutor(1, mp_context=_pool_context("geosim.io.cube"), initializer=watch_process,
+        from .simulation.runner import pool_context, watch_process
+        pool = ProcessPoolExecutor(1, mp_context=pool_context("geosim.io.cube"), initializer=watch_process,
                                    initargs=(os.getpid(),))
         try:
             self._writing = (pool, pool.submit(self.store.to_netcdf, target, layers=layers,
-                                               overwrite=self.overwrite))
+                                               overwrite=self.overwrite, complevel=self.cube_complevel))
         except BaseException:
             pool.shutdown(cancel_futures=True)
             raise

@@ -245,7 +245,8 @@ def _cube_options(spec: RunSpec, sim_grid, grid, what: str) -> dict[str, Any]:
     return {"cube": cube_format(spec, sim_grid), "level_geotiffs": level_geotiffs(spec, sim_grid),
             "variable": variable_name(spec["data.value"]), "long_name": f"{spec['data.value']}{u}, {what}",
             "tables": block_model_formats(spec, sim_grid),
-            "table_realizations": spec["outputs.block_model_realizations"], "run_key": resume_key(spec)}
+            "table_realizations": spec["outputs.block_model_realizations"], "run_key": resume_key(spec),
+            "cube_complevel": spec["outputs.realization_cube_zlib"]}
 
 
 def _layout(spec: RunSpec, grid, section: str, key: str):

@@ -381,6 +381,9 @@ def simulate_into(spec: RunSpec, writer, out_dir: str | os.PathLike, engine: Cal
     sim = spec["simulation"]
     records = dict(kept)
     if missing:
+        if hasattr(writer, "finish_modules"):  # imported while this process waits for the workers
+            from .simulation.runner import import_ahead
+            import_ahead(writer.finish_modules(spec["outputs.plots"]))
         new = engine(n_realizations=n, seed=sim["seed"], kriging=sim["kriging"], workers=sim["workers"],
                      client=sim["cluster"], sink=sink, indices=missing, progress=progress,
                      realizations_per_path=sim["realizations_per_path"])

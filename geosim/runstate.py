@@ -46,8 +46,9 @@ __all__ = ["STATE_DIR", "resume_key", "with_folder_lock", "make_folder", "claim_
 
 STATE_DIR = "run-state"
 _STATE_FORMAT = 1
-# keys a resumed run may change: realization i depends only on the seed and i
-_RESUMABLE_CHANGES = ("simulation.realizations",)
+# keys a resumed run may change: realization i depends only on the seed and i, and the realization
+# cube's compression changes how the finished realizations are stored, not what they are
+_RESUMABLE_CHANGES = ("simulation.realizations", "outputs.realization_cube_zlib")
 
 
 def with_folder_lock(step):

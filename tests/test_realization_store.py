@@ -97,6 +97,35 @@ def test_the_store_has_the_cube_layout_and_one_chunk_per_realization_and_level(t
     ds.close()
 
 
+def test_the_netcdf_cube_is_uncompressed_by_default_and_compressed_at_the_asked_zlib_level(tmp_path):
+    # both files hold exactly the stored float32 values; only the storage (and the note saying it) differs
+    store = _store(tmp_path / "r.zarr")
+    store.open(2)
+    fields = _fields(2)
+    for i, f in enumerate(fields):
+        store.write(i, f)
+    store.finish([0, 1])
+    plain, packed = store.to_netcdf(tmp_path / "plain.nc"), store.to_netcdf(tmp_path / "packed.nc", complevel=1)
+    with xr.open_dataset(plain) as a, xr.open_dataset(packed) as b:
+        for ds in (a, b):
+            np.testing.assert_array_equal(ds["cu_pct"].values, np.asarray(fields, dtype=np.float32))
+        assert not a["cu_pct"].encoding["zlib"] and not a["cu_pct"].encoding["shuffle"]
+        assert b["cu_pct"].encoding["zlib"] and b["cu_pct"].encoding["complevel"] == 1 and b["cu_pct"].encoding["shuffle"]
+        assert a.attrs["geosim_storage"].endswith(", uncompressed")
+        assert b.attrs["geosim_storage"].endswith(", zlib level 1 with byte shuffle")
+        assert a["cu_pct"].encoding["chunksizes"] == b["cu_pct"].encoding["chunksizes"] == (1, 1, 90, 80)
+
+
+def test_the_realization_cube_zlib_key_reaches_the_writer_and_a_bad_level_names_the_key(tmp_path):
+    spec = load_spec(ORE, overrides={**QUICK, "outputs.realization_cube_zlib": 3})
+    grid = geosim.pipeline.make_grid(spec, geosim.pipeline.prepare_data(spec))
+    assert geosim.outputs._cube_options(spec, grid, grid, "x")["cube_complevel"] == 3
+    with pytest.raises(InputError, match=r"outputs\.realization_cube_zlib.*integer >= 0 and <= 9"):
+        load_spec(ORE, overrides={**QUICK, "outputs.realization_cube_zlib": 12})
+    with pytest.raises(ValueError, match="zlib level 0-9"):
+        RealizationWriter(tmp_path, GRID, cube="netcdf", cube_complevel=10)
+
+
 def test_an_unfinished_store_is_refused_and_marks_what_is_complete(tmp_path):
     store = _store(tmp_path / "r.zarr")
     with pytest.raises(ValueError, match="not open"):  # a worker never creates the store itself
@@ -249,7 +278,7 @@ def test_dask_workers_fill_one_store_that_equals_the_serial_one(tmp_path):
         assert (tmp_path / "dask" / "netcdf" / name).read_bytes() == (tmp_path / "serial" / "netcdf" / name).read_bytes()
     with xr.open_dataset(tmp_path / "dask" / "netcdf" / "realizations.nc") as ds:
         np.testing.assert_array_equal(ds["cu_pct"].values, reference)
-        assert ds["cu_pct"].encoding["complevel"] == 1  # noise compresses little: the cheapest level
+        assert not ds["cu_pct"].encoding["zlib"]  # noise compresses little: stored uncompressed
 
 
 def _records(out: Path) -> dict[int, dict]:

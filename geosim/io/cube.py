@@ -14,9 +14,10 @@ laid out as the CF conventions (version 1.8) describe:
   names it in ``grid_mapping``;
 * per variable ``long_name`` and ``units``; NaN (``_FillValue``) outside the domain;
   float32, chunked (one realization and level per chunk at most 512 x 512
-  nodes) and compressed (zlib with byte shuffle in NetCDF: level 4, level 1 for
-  the realization cube, whose simulated noise compresses little at any level;
-  the store's default codec in Zarr);
+  nodes) and compressed (zlib with byte shuffle in NetCDF, level 4; the store's
+  default codec in Zarr), except the NetCDF realization cube: uncompressed unless
+  a zlib level is asked for (its simulated noise compresses little), and its
+  ``geosim_storage`` attribute says which;
 * global attributes ``Conventions = "CF-1.8"``, ``title``, ``source``
   (geosim and its version), ``comment`` (the caution), and the run's
   provenance (:func:`geosim.io.report.provenance`) each as ``geosim_<key>``.
@@ -44,10 +45,12 @@ __all__ = ["CF_VERSION", "CUBE_SUFFIX", "grid_coords", "grid_dataset", "summary_
 CF_VERSION = "CF-1.8"
 GRID_MAPPING = "spatial_ref"
 CHUNK_XY = 512
-#: zlib level of NetCDF cubes, and of the NetCDF realization cube: float32 simulation noise compresses
-#: little at any level (1 million nodes x 100 realizations: 331 MB at level 1 against 325 MB at 4, out
-#: of 400 MB), and level 1 costs about 2 s less CPU there
-COMPLEVEL, REALIZATION_COMPLEVEL = 4, 1
+#: zlib level of NetCDF cubes, and of the NetCDF realization cube (0: uncompressed).  Float32 simulation
+#: noise compresses little at any level: 1 million nodes x 100 realizations take 400 MB uncompressed,
+#: 331 MB at level 1 (348 MB without the byte shuffle) and 325 MB at level 4, and writing the cube
+#: from the realization store took 2.4 s of CPU uncompressed against 9.5 s at level 1
+#: (tests/benchmarks/bench_blockmodel.py's case).  A cube a fifth larger written four times faster.
+COMPLEVEL, REALIZATION_COMPLEVEL = 4, 0
 #: the file suffix of each cube format
 CUBE_SUFFIX = {"netcdf": ".nc", "zarr": ".zarr"}
 
@@ -156,7 +159,9 @@ def _encoding(ds, netcdf: bool, complevel: int = COMPLEVEL) -> dict:
         chunks = tuple(1 if d in ("realization", "z") else min(CHUNK_XY, n) for d, n in zip(var.dims, var.shape))
         enc: dict[str, Any] = {"dtype": "float32", "_FillValue": np.float32(np.nan)}
         if netcdf:
-            enc.update({"zlib": True, "complevel": complevel, "shuffle": True, "chunksizes": chunks})
+            enc.update({"zlib": complevel > 0, "shuffle": complevel > 0, "chunksizes": chunks})
+            if complevel > 0:
+                enc["complevel"] = complevel
         else:
             enc["chunks"] = chunks
         out[name] = enc
@@ -180,7 +185,8 @@ def write_netcdf(path: str | os.PathLike, ds, *, overwrite: bool = False, comple
     """Write a dataset of :func:`grid_dataset` as NetCDF-4 (classic data model off), atomically.
 
     Dask-backed variables are computed and written chunk by chunk, so a
-    realization cube never sits in memory whole; ``complevel`` is the zlib level.
+    realization cube never sits in memory whole; ``complevel`` is the zlib level (with byte
+    shuffle), 0 for none.
     """
     _need("netCDF4", "cube")
     with atomic_output(path, overwrite) as tmp, _local_dask():
@@ -598,11 +604,13 @@ class RealizationStore:
                             provenance=self.provenance)
 
     def to_netcdf(self, path: str | os.PathLike, *, layers: Mapping[str, tuple] | None = None,
-                  overwrite: bool = False) -> Path:
+                  overwrite: bool = False, complevel: int = REALIZATION_COMPLEVEL) -> Path:
         """Write the finished store as the NetCDF realization cube (chunk by chunk), atomically, with
-        ``layers`` added (:func:`add_layers`)."""
+        ``layers`` added (:func:`add_layers`); ``complevel`` is the zlib level, 0 (the default) for
+        an uncompressed cube, as the ``geosim_storage`` attribute says."""
         with self.dataset() as ds:
-            return write_netcdf(path, add_layers(ds, layers), overwrite=overwrite, complevel=REALIZATION_COMPLEVEL)
+            ds.attrs["geosim_storage"] = storage_note(complevel)
+            return write_netcdf(path, add_layers(ds, layers), overwrite=overwrite, complevel=complevel)
 
     def add_layers(self, layers: Mapping[str, tuple] | None) -> None:
         """Add fixed grid variables (:func:`add_layers`: ``name -> (array, long_name, units)``) to the store."""
@@ -619,6 +627,12 @@ class RealizationStore:
         """Delete the store."""
         import shutil
         shutil.rmtree(self.path, ignore_errors=True)
+
+
+def storage_note(complevel: int) -> str:
+    """How a NetCDF realization cube's values are stored, for its ``geosim_storage`` attribute."""
+    codec = f"zlib level {complevel} with byte shuffle" if complevel > 0 else "uncompressed"
+    return f"float32, one chunk per realization and level (at most {CHUNK_XY} x {CHUNK_XY} nodes), {codec}"
 
 
 def write_cube(path: str | os.PathLike, ds, *, overwrite: bool = False) -> Path:

@@ -509,7 +509,29 @@ def fitting_workers(grid, prepared, n_workers: int, available: int | None = None
     return n_workers
 
 
-def _pool_context(*modules):
+def import_ahead(modules: Iterable[str]) -> threading.Thread:
+    """Import ``modules`` on a daemon thread of this process, and return the thread.
+
+    While the workers simulate, the main process only waits for their results; what the
+    steps after the simulation will import (the cube, raster and figure libraries, a few
+    seconds of CPU on a first import) is imported then instead of after the workers end.
+    A module that fails to import is skipped: the step that needs it reports the error.
+    """
+    import importlib
+
+    def run():
+        for name in modules:
+            try:
+                importlib.import_module(name)
+            except Exception:  # noqa: BLE001 - the step that needs it says what is missing
+                log.debug("importing %s ahead failed", name, exc_info=True)
+
+    thread = threading.Thread(target=run, name="geosim-import-ahead", daemon=True)
+    thread.start()
+    return thread
+
+
+def pool_context(*modules):
     """A start method that is safe with threads (BLAS, numba, Dask) in this process.
 
     "forkserver" where available: workers fork from a clean server process that has
@@ -528,7 +550,7 @@ def _pool_context(*modules):
 
 def _run_pool(n_workers, eng, prepared, sink, seed, groups, per_path, progress) -> dict:
     from concurrent.futures import ProcessPoolExecutor, as_completed
-    ctx = _pool_context(type(eng).__module__, type(sink).__module__ if sink is not None else None)
+    ctx = pool_context(type(eng).__module__, type(sink).__module__ if sink is not None else None)
     with ProcessPoolExecutor(n_workers, mp_context=ctx, initializer=_pool_init,
                              initargs=(os.getpid(), eng, prepared, sink)) as pool:
         futures = [pool.submit(_pool_task, seed, g, per_path) for g in groups]
