@@ -7,7 +7,7 @@ collocated simple cokriging under the Markov model (:func:`collocated_cokrige`,
 (:func:`krige_external_drift`: the mean ``a + b s(u)`` of unknown ``a``, ``b``).
 
 Every local system is the covariance matrix ``K`` of the selected samples,
-factored ``K = L L^T`` by the compiled :func:`geosim.linalg.chol_inplace`.  One
+factored ``K = L L^T`` by the compiled :func:`geosim.linalg.chol_partial` (all pivots).  One
 factor serves the weights and the variance:
 
 * simple kriging (known mean ``m``): ``y = L^-1 c``, variance ``C(0) - y.y``,
@@ -43,7 +43,7 @@ import numpy as np
 from numba import njit
 
 from .errors import InputError, NotPositiveDefiniteError
-from .linalg import backward_t_inplace, chol_inplace, forward_inplace
+from .linalg import backward_t_inplace, chol_partial, forward_inplace
 from .search import DataSearch, Neighbourhood, as_xyz, exclusion_arrays, select_neighbours
 from .moments import multigaussian_moments
 from .variogram.compiled import cov_lag
@@ -463,7 +463,8 @@ def _krige_rows(rows, cand, xyz, frame, z, holes, txyz, tframe, excl_index, excl
                     else:
                         c[p] = cpq
                 a[p, p] = c0 * (1.0 + reg) if attempt == 1 else c0
-            piv = chol_inplace(a, count, tol)
+            # the engine's factorization itself, so that a first run compiles it once for both
+            piv = chol_partial(a, count, count, tol)
             if piv < 0:
                 if attempt == 1:
                     n_reg[r] = 1

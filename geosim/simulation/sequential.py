@@ -466,22 +466,31 @@ def _sgs_kernel(field, done, active_flat, path, normals, shape3, origin, step, o
                     else:
                         a[r, s] += sj * analytic_correlation(code, h)
         # data-data entries from the data's matrix, node-node entries from the offsets' table;
-        # the formula where these are missing.  One call site for each use of cov_lag: every
-        # site is inlined, and each one added about a second of compiling on a first run.
+        # the formula where these are missing.  One call site of cov_lag for the row and the
+        # right-hand side (s = r + 1, the node itself at lag rel[r] - 0.0, the bits of rel[r]):
+        # every site is inlined, and each one costs about a second of compiling on a first run.
         for r in range(m):
             node_row = r >= nd
-            if node_row and use_table:
-                base = table_zero + lin[r]
-                rhs[r] = table[base]
-            else:
-                rhs[r] = cov_lag(cm, rel[r, 0], rel[r, 1], rel[r, 2])
-            for s in range(nd if node_row else 0, r + 1):
-                if node_row and use_table:
+            tab = node_row and use_table
+            for s in range(nd if node_row else 0, r + 2):
+                if s > r:
+                    if tab:
+                        rhs[r] = table[table_zero + lin[r]]
+                        continue
+                    ox = oy = oz = 0.0
+                elif tab:
                     a[r, s] = table[table_zero + lin[r] - lin[s]]
+                    continue
                 elif not node_row and use_data_cov:
                     a[r, s] = data_cov[ids[r], ids[s]]
+                    continue
                 else:
-                    a[r, s] = cov_lag(cm, rel[r, 0] - rel[s, 0], rel[r, 1] - rel[s, 1], rel[r, 2] - rel[s, 2])
+                    ox, oy, oz = rel[s, 0], rel[s, 1], rel[s, 2]
+                cv = cov_lag(cm, rel[r, 0] - ox, rel[r, 1] - oy, rel[r, 2] - oz)
+                if s > r:
+                    rhs[r] = cv
+                else:
+                    a[r, s] = cv
             if r >= ms:
                 a[r, r] += sec_noise / (sec_b * sec_b)  # the measurement's own noise
         mean = 0.0

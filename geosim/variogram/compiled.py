@@ -15,13 +15,15 @@ from .codes import CUBIC, EXPONENTIAL, GAUSSIAN, NUGGET, SPHERICAL, TABULATED
 ZERO_LAG2 = 1e-18  # squared metres: lags shorter than 1 nm are "the same place"
 
 
-@njit(cache=True, nogil=True, inline="always")
+# not inline="always": scalars only, so a call costs no reference counting and LLVM inlines it
+# into the callers' loops anyway, while numba's inlining copied its IR into every site (a tenth
+# of the engine kernel's IR, compiled again in each kernel on a first run)
+@njit(cache=True, nogil=True)
 def analytic_correlation(code, r):
     """Unit correlation of a built-in closed-form structure at reduced distance ``r``.
 
     Spherical, exponential, gaussian and cubic; 0.0 for any other code (the nugget and
-    tabulated structures are handled by the callers).  Scalars only, so that inlining it
-    into a loop adds no reference counting.
+    tabulated structures are handled by the callers).
     """
     if code == SPHERICAL:
         if r < 1.0:
