@@ -201,6 +201,9 @@ def variogram_model(spec: RunSpec, data: PreparedData | None = None, *, out_dir:
             fitted = replace(data, scores=residuals)
             if total_sill == 1.0:
                 total_sill = drift["residual_variance"]
+        from .simulation.runner import await_compiled
+        from .variogram.pairs import accumulate_directional
+        await_compiled("engine", accumulate_directional)  # a first run's pair loop, being compiled ahead
         experimental = experimental_variograms(spec, fitted, progress)
         try:
             fit = fit_model(experimental, template, weighting=vg["weighting"], total_sill=total_sill)
@@ -481,13 +484,17 @@ def run_job(spec: RunSpec | str | os.PathLike, out_dir: str | os.PathLike, prepa
     from .kriging import _krige_rows
     from .simulation.runner import compile_ahead, compile_modules_ahead
     from .summaries import _node_bands
+    from .variogram.pairs import accumulate_directional
     if not isinstance(spec, RunSpec):
         spec = load_spec(spec)
     from .secondary import refuse_drift_simulation
     refuse_drift_simulation(spec, "run")
     out_dir = Path(out_dir)
     timings: dict[str, float] = {}
-    compile_ahead(spec["simulation.engine"])  # a first run's engine compiles beside the steps before it
+    # a first run's engine compiles beside the steps before it, after the variogram pair loop
+    # when a fit needs it (within seconds, long before the engine's kernel is)
+    compile_ahead(spec["simulation.engine"],
+                  [("geosim.variogram.experimental", accumulate_directional)] if spec["variogram.fit"] else [])
     # and so do its kriging kernels (if cross-validation or the estimate is asked for) and its
     # summary kernel, beside data preparation and variogram fitting
     kriging = spec["outputs.cross_validation"] or spec["outputs.estimate"]

@@ -9,8 +9,11 @@ import subprocess
 import sys
 import textwrap
 import time
+from pathlib import Path
 
 import pytest
+
+AQUIFER = Path(__file__).resolve().parents[1] / "sample_fields" / "alluvial_aquifer" / "run.toml"
 
 SIMULATE = textwrap.dedent("""
     import numpy as np, geosim
@@ -188,3 +191,63 @@ def test_workers_load_the_kernel_being_compiled_ahead_instead_of_compiling_it(tm
                          cwd=tmp_path)
     assert out.returncode == 0, out.stderr[-3000:]
     assert out.stdout.split() == ["0"] * 5
+
+
+def test_kernels_a_run_needs_first_are_compiled_before_the_engine(tmp_path):
+    # compile_ahead's "first" modules warm up before the engine; a step waiting for the pair loop
+    # returns once it is cached, and variograms of other data and dimension then load it; with
+    # everything cached nothing is started
+    out = _python(textwrap.dedent("""
+        import numpy as np, geosim
+        from geosim.simulation.runner import await_compiled, compile_ahead, in_numba_cache
+        from geosim.variogram.experimental import downhole_variogram, experimental_variogram
+        from geosim.variogram.pairs import accumulate_directional as pairs
+        first = [("geosim.variogram.experimental", pairs)]
+        proc = compile_ahead("sequential", first)
+        await_compiled("engine", pairs, timeout=540)
+        print(proc is not None, in_numba_cache(pairs))
+        rng = np.random.default_rng(4)
+        xyz = rng.uniform(0.0, 200.0, (40, 3))
+        experimental_variogram(xyz[:, :2], rng.standard_normal(40), lag=20.0, nlags=6)
+        downhole_variogram(xyz, rng.standard_normal(40), np.repeat(np.arange(8), 5), lag=20.0, nlags=6,
+                           estimator="cressie-hawkins")
+        print(sum(pairs.stats.cache_hits.values()), sum(pairs.stats.cache_misses.values()))
+        print(proc.wait(timeout=540), compile_ahead("sequential", first))
+    """), str(tmp_path / "cache"))
+    started, loaded, ended = [line.split() for line in out.splitlines()]
+    assert started == ["True", "True"]
+    assert int(loaded[0]) >= 1 and loaded[1] == "0"  # loaded once (one signature), compiled never
+    assert ended == ["0", "None"]
+
+
+FIRST_RUN = textwrap.dedent("""
+    import sys
+    import geosim.pipeline
+    from geosim.config.runspec import load_spec
+    from geosim.kriging import _krige_rows
+    from geosim.moments import _kernel
+    from geosim.simulation.sequential import _sgs_kernel
+    from geosim.summaries import _node_bands
+    from geosim.variogram.pairs import accumulate_directional
+    spec = load_spec(sys.argv[1], {"simulation.realizations": 2, "grid.cell": [100.0, 100.0],
+                                   "simulation.workers": 1, "outputs.plots": False})
+    assert spec["variogram.fit"] and spec["outputs.cross_validation"] and spec["outputs.estimate"]
+    geosim.pipeline.run(spec, sys.argv[2])
+    for d in (accumulate_directional, _krige_rows, _kernel, _sgs_kernel, _node_bands):
+        print(d.__name__, sum(d.stats.cache_hits.values()), sum(d.stats.cache_misses.values()))
+""")
+
+
+def test_the_main_process_of_a_first_run_compiles_none_of_the_kernels_compiled_ahead(tmp_path):
+    # a first run (empty cache) with a variogram fit, cross-validation, an estimate, a simulation
+    # in this process and summaries: every step waits for its kernel from the compiling processes
+    # (the pair loop, kriging, moments, engine, summaries) and loads it; one the main process
+    # compiled itself would count a cache miss
+    env = {**os.environ, "NUMBA_CACHE_DIR": str(tmp_path / "cache")}
+    out = subprocess.run([sys.executable, "-c", FIRST_RUN, str(AQUIFER), str(tmp_path / "run")], capture_output=True,
+                         text=True, env=env, timeout=600, cwd=tmp_path)
+    assert out.returncode == 0, out.stderr[-3000:]
+    counts = {name: (int(hits), int(misses)) for name, hits, misses in map(str.split, out.stdout.splitlines())}
+    assert counts == {name: (counts[name][0], 0) for name in
+                      ("accumulate_directional", "_krige_rows", "_kernel", "_sgs_kernel", "_node_bands")}
+    assert all(hits >= 1 for hits, _ in counts.values())

@@ -142,16 +142,20 @@ def in_numba_cache(dispatcher) -> bool:
         return True
 
 
-def compile_ahead(engine):
+def compile_ahead(engine, first: Sequence[tuple[str, object]] = ()):
     """Start compiling an engine's kernels into numba's cache in another process, if they are not there.
 
     On the first run after an install the sequential engine's kernel takes several seconds to
     compile.  Started at the beginning of a run, the compiling runs beside the data
-    preparation, cross-validation and kriging (which compile their own kernels in this
-    process), and the workers later load the code from the cache.  An engine takes part with
-    ``warm_up()`` (a tiny run through its kernels) and ``main_kernel()`` (the dispatcher
-    whose cache is checked).  The process exits when this one does (:func:`watch_process`)
-    and writes nothing but numba's cache.
+    preparation, cross-validation and kriging, and the workers later load the code from the
+    cache.  An engine takes part with ``warm_up()`` (a tiny run through its kernels) and
+    ``main_kernel()`` (the dispatcher whose cache is checked).  The process exits when this
+    one does (:func:`watch_process`) and writes nothing but numba's cache.
+
+    ``first``: ``(module, kernel)`` pairs whose module's ``warm_up()`` runs before the engine's,
+    each only when its kernel is not cached: kernels this process needs before the engine's
+    (a run puts the variogram pair loop here, needed within seconds, while the engine's
+    kernel is needed only at the simulation).
 
     :func:`simulate` waits for the engine's main kernel (:func:`await_compiled` under
     ``"engine"``) before it starts any realization, so that no worker compiles the kernel
@@ -160,10 +164,11 @@ def compile_ahead(engine):
     Returns the started ``subprocess.Popen``, or None when there is nothing to compile.
     """
     eng = resolve_engine(engine)
-    if not (hasattr(eng, "warm_up") and hasattr(eng, "main_kernel")) or in_numba_cache(eng.main_kernel()):
-        return None
-    kind = type(eng)
-    return _start_warm_up("engine", [(kind.__module__, kind.__qualname__)])
+    targets = [(module, None) for module, kernel in first if not in_numba_cache(kernel)]
+    if hasattr(eng, "warm_up") and hasattr(eng, "main_kernel") and not in_numba_cache(eng.main_kernel()):
+        kind = type(eng)
+        targets.append((kind.__module__, kind.__qualname__))
+    return _start_warm_up("engine", targets) if targets else None
 
 
 #: The compiling processes this process started, by what they compile (:func:`compile_ahead`,

@@ -392,6 +392,13 @@ def variogram_map(coords, values, *, cell: float, ncells: int, min_pairs: int = 
 
 # internals --------------------------------------------------------------------
 
+def warm_up() -> None:
+    """Compile the directional pair loop (numba's cache keeps it) through a tiny variogram with
+    the argument types of every real one (:func:`geosim.simulation.runner.compile_ahead`)."""
+    x = np.arange(4.0)
+    experimental_variogram(np.column_stack([x, x]), x, lag=1.0, nlags=2)
+
+
 def _prepare(coords, values, estimator):
     if estimator not in ESTIMATORS:
         raise ValueError(f"estimator must be one of {ESTIMATORS}, got {estimator!r}")
