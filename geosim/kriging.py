@@ -422,9 +422,9 @@ def _krige_rows(rows, cand, xyz, frame, z, holes, txyz, tframe, excl_index, excl
     y1 = np.empty(k)
     ys = np.empty(k)
     sel = np.empty(k, dtype=np.int64)
-    sector_count = np.zeros(8, dtype=np.int64)
-    hole_buf = np.zeros(k, dtype=np.int64)
-    hole_count = np.zeros(k, dtype=np.int64)
+    sector_count = np.empty(8, dtype=np.int64)  # scratch that select_neighbours resets
+    hole_buf = np.empty(k, dtype=np.int64)
+    hole_count = np.empty(k, dtype=np.int64)
     keep = wts.shape[0] > 0
     for i in range(rows.shape[0]):
         r = rows[i]

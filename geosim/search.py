@@ -452,10 +452,12 @@ def select_neighbours(cand, frame, holes, tu, tv, tw, excl_index, excl_hole, max
 @njit(cache=True, nogil=True)
 def _select_rows(rows, cand, frame, holes, tframe, excl_index, excl_hole, max_samples, sectors,
                  sector_limit, hole_limit, index, count):
-    more = np.zeros(rows.shape[0], dtype=np.bool_)
-    sector_count = np.zeros(8, dtype=np.int64)
-    hole_buf = np.zeros(max_samples, dtype=np.int64)
-    hole_count = np.zeros(max_samples, dtype=np.int64)
+    # np.empty, not np.zeros: every entry of more is set below and the scratch arrays are reset by
+    # select_neighbours, and each np.zeros variant compiles a helper of its own on a first run
+    more = np.empty(rows.shape[0], dtype=np.bool_)
+    sector_count = np.empty(8, dtype=np.int64)
+    hole_buf = np.empty(max_samples, dtype=np.int64)
+    hole_count = np.empty(max_samples, dtype=np.int64)
     for i in range(rows.shape[0]):
         r = rows[i]
         c, need = select_neighbours(cand[i], frame, holes, tframe[r, 0], tframe[r, 1], tframe[r, 2],
