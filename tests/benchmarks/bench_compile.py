@@ -6,7 +6,7 @@ Two parts, each in fresh processes with an empty numba cache (``NUMBA_CACHE_DIR`
 at a new folder), because a cache filled once makes every later figure a load time:
 
 * **Kernels**: the warm-ups a first run starts ahead (the sequential engine's, then the
-  kriging and summary modules'), in one process; numba's compile events
+  kriging and summary modules', the variogram pair loop's), in one process; numba's compile events
   (``numba.core.event``, "numba:compile") give the thread CPU seconds of each top-level
   kernel's compile, callees included.  ``--repeats`` fresh processes; the minimum per kernel
   is reported (other jobs on a shared machine only add to CPU time).
@@ -79,7 +79,8 @@ if _folder:
 '''
 
 WARM_UPS = ("from geosim.simulation.sequential import SequentialEngine; import geosim.kriging, geosim.summaries; "
-            "SequentialEngine().warm_up(); geosim.kriging.warm_up(); geosim.summaries.warm_up()")
+            "import geosim.variogram.experimental; SequentialEngine().warm_up(); geosim.kriging.warm_up(); "
+            "geosim.summaries.warm_up(); geosim.variogram.experimental.warm_up()")
 
 
 def load() -> str:
@@ -119,8 +120,8 @@ def kernels(repeats: int) -> dict[str, float]:
 
 def role(argv: str) -> str:
     """Which process of a run this was, from its command line (``sys.orig_argv``)."""
-    if "warm_up_engine" in argv:
-        return "ahead: modules" if ", None)" in argv else "ahead: engine"
+    if "warm_up_engine" in argv:  # the engine's process names the engine class: (pid, 'module', 'Class')
+        return "ahead: engine" if "', '" in argv else "ahead: modules"
     if "forkserver" in argv or "spawn_main" in argv:
         return "pool worker"
     return "main" if " run " in f" {argv} " else "other"
