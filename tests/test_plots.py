@@ -129,18 +129,48 @@ def _sheet_maps(g):
             dict(values=1e5 * values, title="tonnes", units="t")]
 
 
-@pytest.mark.parametrize("mask_half", [False, True])
-def test_a_reused_map_sheet_draws_each_map_as_a_new_one(tmp_path, mask_half):
-    # one sheet redrawn for every map must give, pixel for pixel, what a new sheet gives for that map:
-    # nothing of an earlier map (colours, scale, colour bar ticks, title) may stay behind
+# a matplotlib style with ticks inside and a grid: their lines then lie on the map, which a sheet's
+# save draws over what it keeps from its first draw, so MapSheet turns them off
+INWARD = {"xtick.direction": "in", "ytick.direction": "in", "axes.grid": True}
+
+
+@pytest.mark.parametrize("mask_half, style", [(False, {}), (True, {}), (False, INWARD)])
+def test_a_reused_map_sheet_draws_each_map_as_a_new_one(tmp_path, mask_half, style):
+    # one sheet redrawn for every map (saving only what changes over what its first save kept) must
+    # give, pixel for pixel, the whole draw of a new figure for that map: nothing of an earlier map
+    # (colours, scale, colour bar ticks, title) may stay behind, nothing of the frame be missing
     g = _grid(mask_half)
-    sheet = MapSheet(g)
-    for i, kw in enumerate(_sheet_maps(g)):
-        sheet.draw(**kw)
-        reused = sheet.save(tmp_path / f"reused{i}.png")
-        fresh = plot_map(kw.pop("values"), g, tmp_path / f"fresh{i}.png", **kw)
-        assert np.array_equal(_pixels(reused), _pixels(fresh)), kw["title"]
-        assert _caution(reused) == CAUTION
+    with matplotlib.rc_context(style):
+        sheet = MapSheet(g)
+        for i, kw in enumerate(_sheet_maps(g)):
+            sheet.draw(**kw)
+            reused = sheet.save(tmp_path / f"reused{i}.png")
+            fresh = plot_map(kw.pop("values"), g, tmp_path / f"fresh{i}.png", **kw)
+            assert np.array_equal(_pixels(reused), _pixels(fresh)), kw["title"]
+            assert _caution(reused) == CAUTION
+            with Image.open(reused) as a, Image.open(fresh) as b:
+                assert a.info["dpi"] == b.info["dpi"] and a.size == b.size
+
+
+def test_summary_maps_equal_single_maps(tmp_path):
+    # the maps of a run (one sheet) against each band drawn alone by plot_map, log colours included
+    g = _grid(True)
+    s = summarize_ensemble(np.random.default_rng(6).lognormal(size=(8, *g.shape)), [1.0, 2.5])
+    u = "(g/t)"
+    alone = {"mean.png": ("mean", f"Mean of realizations {u}", "viridis", None, None, "g/t"),
+             "std.png": ("std", f"Standard deviation of realizations {u}", "cividis", None, None, "g/t"),
+             "p10.png": ("P10", f"P10: 10% of realizations fall below {u}", "viridis", None, None, "g/t"),
+             "p90.png": ("P90", f"P90: 90% of realizations fall below {u}", "viridis", None, None, "g/t"),
+             "prob_above_1.png": ("P(>1)", "Probability above 1 g/t", "cividis", 0.0, 1.0, "probability (0-1)"),
+             "prob_above_2.5.png": ("P(>2.5)", "Probability above 2.5 g/t", "cividis", 0.0, 1.0,
+                                    "probability (0-1)")}
+    run = plot_summary_maps(s, g, tmp_path, units="g/t", prefix="run_", log=True)
+    assert sorted(p.name for p in run) == sorted(f"run_{name}" for name in alone)
+    for p in run:
+        band, title, cmap, vmin, vmax, units = alone[p.name[4:]]
+        single = plot_map(s[band], g, tmp_path / p.name[4:], title=title, units=units, cmap=cmap, vmin=vmin,
+                          vmax=vmax, log=not band.startswith("P(>"))
+        assert np.array_equal(_pixels(p), _pixels(single)), p.name
 
 
 def test_summary_maps_colour_each_band_by_its_own_scale(tmp_path):

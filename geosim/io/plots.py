@@ -106,19 +106,23 @@ def _footnote(fig) -> None:
     fig.text(0.01, 0.008, FOOTNOTE, fontsize=6.5, color="0.35", ha="left", va="bottom")
 
 
+def _png_options() -> dict:
+    """The PNG writing options of every figure: the caution in the ``Description`` chunk, zlib level."""
+    import geosim
+    return {"metadata": {"Description": CAUTION, "Software": f"geosim {geosim.__version__}"},
+            "pil_kwargs": {"compress_level": PNG_COMPRESSION}}
+
+
 def _save(fig, path, overwrite: bool, footnote: bool = True) -> Path:
     """Write ``fig`` as a PNG (one draw: no layout engine on geosim's own figures), the caution in
     its ``Description`` chunk; ``footnote`` adds the footnote (room for it below the axes)."""
-    import geosim
     if footnote:
         engine = fig.get_layout_engine()
         if engine is not None:
             engine.set(rect=(0.0, 0.035, 1.0, 0.965))  # room for the footnote below the axes
         _footnote(fig)
     with atomic_output(path, overwrite) as tmp:
-        fig.savefig(tmp, format="png", metadata={"Description": CAUTION,
-                                                 "Software": f"geosim {geosim.__version__}"},
-                    pil_kwargs={"compress_level": PNG_COMPRESSION})
+        fig.savefig(tmp, format="png", dpi="figure", **_png_options())
     return Path(path)
 
 
@@ -175,7 +179,10 @@ def _map_axes(ax, grid) -> None:
     """Labels, ticks and scale bar of a map axes: what all maps of one grid share."""
     ax.set_aspect("equal")
     ax.ticklabel_format(useOffset=False, style="plain")
-    ax.tick_params(axis="both", labelsize=8)
+    # ticks outside and no grid whatever the matplotlib style: nothing of the axes but the frame and
+    # the scale bar lies on the map, which MapSheet.save draws over the rest
+    ax.tick_params(axis="both", labelsize=8, direction="out")
+    ax.grid(False)
     ax.set_xlabel("Easting (m)")
     ax.set_ylabel("Northing (m)")
     _scale_bar(ax, grid)
@@ -234,6 +241,13 @@ class MapSheet:
                             0.9 * h / height))
         self.bar = fig.colorbar(self.image, cax=bar)
         _footnote(fig)
+        self._shared = None  # the pixels all maps share, kept by the first save
+
+    def _layers(self) -> list:
+        """What :meth:`save` draws for each map, in drawing order: the map, the frame and scale
+        bar over it (by z-order, as the axes draws them), the title and the colour bar."""
+        over = sorted([*self.ax.spines.values(), *self.ax.patches, *self.ax.texts], key=lambda a: a.get_zorder())
+        return [self.image, *over, self.ax.title, self.bar.ax]
 
     def _place(self, width, height, ratio, left, bottom):
         """Put the map axes at ``left``, ``bottom`` inches, as large as fits at equal scale."""
@@ -256,8 +270,35 @@ class MapSheet:
         return self.figure
 
     def save(self, path: str | os.PathLike, overwrite: bool = False) -> Path:
-        """Write the sheet as it is drawn to ``path`` (PNG, atomically, caution chunk)."""
-        return _save(self.figure, path, overwrite, footnote=False)
+        """Write the sheet as it is drawn to ``path`` (PNG, atomically, caution chunk).
+
+        The first save draws and keeps the pixels all maps of the sheet share (axes, tick
+        labels, axis labels, footnote); every save draws only :meth:`_layers` over them,
+        which gives the image a whole draw gives, in about half the time.
+        """
+        from matplotlib.image import imsave
+        canvas = self.figure.canvas
+        layers = self._layers()
+        if self._shared is None:
+            title = self.ax.title.get_text()
+            hidden = [a for a in layers if a is not self.ax.title]
+            for a in hidden:
+                a.set_visible(False)
+            self.ax.title.set_text("")  # (a hidden title would be moved up as if it had no height)
+            try:
+                canvas.draw()
+            finally:
+                for a in hidden:
+                    a.set_visible(True)
+                self.ax.title.set_text(title)
+            self._shared = canvas.copy_from_bbox(self.figure.bbox)
+        canvas.restore_region(self._shared)
+        renderer = canvas.get_renderer()
+        for a in layers:
+            a.draw(renderer)
+        with atomic_output(path, overwrite) as tmp:
+            imsave(tmp, canvas.buffer_rgba(), format="png", dpi=self.figure.dpi, **_png_options())
+        return Path(path)
 
 
 def plot_map(values: np.ndarray, grid, path: str | os.PathLike | None = None, *, title: str, units: str = "",
@@ -293,7 +334,7 @@ def plot_map(values: np.ndarray, grid, path: str | os.PathLike | None = None, *,
     if ax is None:
         sheet = MapSheet(grid)
         fig = sheet.draw(values, title=title, units=units, cmap=cmap, vmin=vmin, vmax=vmax, log=log)
-        return fig if path is None else sheet.save(path, overwrite)
+        return fig if path is None else _save(fig, path, overwrite, footnote=False)
     a, colours, norm = _map_values(values, grid, cmap, vmin, vmax, log)
     im = ax.imshow(a, extent=(grid.xmin, grid.xmax, grid.ymin, grid.ymax), origin="upper", cmap=colours,
                    norm=norm, interpolation="nearest")
