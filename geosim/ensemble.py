@@ -251,11 +251,11 @@ class RealizationWriter:
             self.store = RealizationStore(where, grid, name=variable, long_name=self.long_name, units=units,
                                           provenance=self.tags, run_key=run_key)
         self.summary = None  # the summary bands (float32 values) once finish computed them from the store
-        self._writing = None  # (process pool, future) of a realization cube still being written
+        self._writing = None  # (process pool, futures) of files still being written by processes of their own
 
     def __getstate__(self) -> dict:
         state = dict(self.__dict__)
-        state["_writing"] = None  # a pool and its future do not travel
+        state["_writing"] = None  # a pool and its futures do not travel
         return state
 
     @property
@@ -360,11 +360,12 @@ class RealizationWriter:
             ``variogram_reproduction.png`` and ``histogram_reproduction.png``.
         progress : callable, optional
         wait : bool
-            Return once every file is written.  The NetCDF realization cube is written by
-            a process of its own (read from the store and compressed beside the summary
-            pass, tables and plots of this one); with False, ``finish`` may return before
-            it is done, so it overlaps the caller's work too, and the caller calls
-            :meth:`wait` before it uses or removes the realization store.
+            Return once every file is written.  The NetCDF realization cube and the
+            block-model tables of a realization store are written by processes of their own
+            (read from the store beside the summary pass, summary cube and plots of this
+            one); with False, ``finish`` may return before they are done, so they overlap
+            the caller's work too, and the caller calls :meth:`wait` before it uses them or
+            removes the realization store.
 
         Returns
         -------
@@ -395,34 +396,36 @@ class RealizationWriter:
         return out
 
     def wait(self, *, raise_error: bool = True) -> None:
-        """Wait for the realization cube ``finish`` has written in a process of its own; re-raise its error."""
+        """Wait for the files ``finish`` has written in processes of its own (the NetCDF realization
+        cube, the block-model tables); re-raise the first error."""
         writing, self._writing = self._writing, None
         if writing is not None:
-            pool, future = writing
-            error = future.exception()
+            pool, futures = writing
+            errors = [f.exception() for f in futures]
             pool.shutdown()
+            error = next((e for e in errors if e is not None), None)
             if error is not None and raise_error:
                 raise error
 
-    def _write_netcdf_aside(self, target: Path, layers: Mapping[str, tuple]) -> None:
-        """Start writing the NetCDF realization cube from the finished store in a process of its own.
+    def _aside(self, func: Callable, *args, **kwargs) -> None:
+        """Start ``func(*args, **kwargs)`` in a process of its own; :meth:`wait` collects it.
 
-        A process, not a thread: HDF5 is not safe for threads, and a file handle that another
-        thread lets go (a dataset collected as garbage) would reach it unlocked.  The process
-        forks from the workers' server (the start method of :mod:`geosim.simulation.runner`) and ends
-        at once when this one does, as the workers do.
+        After the workers end both cores are free, and the two long writes made from the
+        finished store (the NetCDF realization cube, the block-model tables) each run in a
+        process beside this one's summary cube, decision tables and figures.  Processes, not
+        threads: HDF5 is not safe for threads (a file handle another thread lets go would reach
+        it unlocked), and formatting a table's numbers holds the GIL.  They fork from the
+        workers' server (:func:`geosim.simulation.runner.pool_context`) and end at once when
+        this process does, as the workers do.
         """
         from concurrent.futures import ProcessPoolExecutor
 
         from .simulation.runner import pool_context, watch_process
-        pool = ProcessPoolExecutor(1, mp_context=pool_context("geosim.io.cube"), initializer=watch_process,
-                                   initargs=(os.getpid(),))
-        try:
-            self._writing = (pool, pool.submit(self.store.to_netcdf, target, layers=layers,
-                                               overwrite=self.overwrite, complevel=self.cube_complevel))
-        except BaseException:
-            pool.shutdown(cancel_futures=True)
-            raise
+        if self._writing is None:
+            self._writing = (ProcessPoolExecutor(2, mp_context=pool_context("geosim.ensemble"),
+                                                 initializer=watch_process, initargs=(os.getpid(),)), [])
+        pool, futures = self._writing
+        futures.append(pool.submit(func, *args, **kwargs))
 
     def _assemble(self, records, cutoffs, stack, plots, progress) -> dict[str, list[str]]:
         """What :meth:`finish` makes, except the removal of the realization files."""
@@ -495,7 +498,8 @@ class RealizationWriter:
         out: dict[str, list[str]] = {}
         if self.cube == "netcdf":
             target = check_writable(self.folder / "realizations.nc", self.overwrite)  # refused here, not later
-            self._write_netcdf_aside(target, layers)
+            self._aside(self.store.to_netcdf, target, layers=layers, overwrite=self.overwrite,
+                        complevel=self.cube_complevel)
             out["realizations_cube"] = [str(target)]
         bands = np.full((len(summary_band_names(cutoffs)),) + self.grid.shape, np.nan)
         boxes = cube_boxes(self.grid)
@@ -507,6 +511,7 @@ class RealizationWriter:
             if progress is not None:
                 progress(done, len(boxes), "summary")
         self.summary = bands = as_stored(bands)
+        tables = self._tables(indices, cutoffs, bands)  # in a process of its own, from here on
         if self.level_geotiffs and stack:
             for k in range(self.grid.nz if self.grid.ndim == 3 else 1):
                 target = level_paths(self.folder / "realizations.tif", self.grid)[k]
@@ -525,22 +530,40 @@ class RealizationWriter:
         if self.cube != "netcdf":
             self.store.add_layers(layers)
             out["realizations_cube"] = [str(self.store.path)]
-        out.update(self._tables(indices, cutoffs, bands, lambda j: self.store.read(indices[j])))
+        out.update(tables)
         return out
 
-    def _tables(self, indices, cutoffs, bands, reader: Callable[[int], np.ndarray]) -> dict[str, list[str]]:
+    def _tables(self, indices, cutoffs, bands, reader: Callable[[int], np.ndarray] | None = None
+                ) -> dict[str, list[str]]:
         """The block-model tables (with ``tables``) of the summary ``bands``; ``reader(j)`` gives the j-th
-        realization for the realization columns."""
+        realization for the realization columns.  Without ``reader`` the realizations are read from
+        the store, and the tables are written in a process of their own (:meth:`_aside`), refused
+        here if they exist."""
         if not self.tables:
             return {}
+        from .io.csvw import sidecar_path
+        paths = [self.folder / f"block_model{s}" for s in self.tables]
+        if reader is None:
+            for p in paths:
+                check_writable(p, self.overwrite)
+                if p.suffix == ".csv":
+                    check_writable(sidecar_path(p), self.overwrite)
+            self._aside(self._write_tables, paths, indices, cutoffs, bands)
+        else:
+            self._write_tables(paths, indices, cutoffs, bands, reader)
+        return {"block_model": [str(p) for p in paths]}
+
+    def _write_tables(self, paths: Sequence[Path], indices, cutoffs, bands,
+                      reader: Callable[[int], np.ndarray] | None = None) -> None:
+        """Write the block-model tables ``paths`` (:meth:`_tables`)."""
         from .io.cube import summary_table_columns, write_block_model
         table = summary_table_columns(bands, cutoffs, self.units, self.layer_variables)
         if self.table_realizations:
             for j, i in enumerate(indices):
-                table[f"r{i:04d}"] = (np.asarray(reader(j), dtype=np.float64), f"realization {i}", self.units)
-        return {"block_model": [str(write_block_model(self.folder / f"block_model{s}", self.grid, table,
-                                                      provenance=self.tags, overwrite=self.overwrite))
-                                for s in self.tables]}
+                values = self.store.read(i) if reader is None else reader(j)
+                table[f"r{i:04d}"] = (np.asarray(values, dtype=np.float64), f"realization {i}", self.units)
+        for p in paths:
+            write_block_model(p, self.grid, table, provenance=self.tags, overwrite=self.overwrite)
 
     def validation(self, records: Sequence[Mapping]) -> dict | None:
         """The run report's ``validation`` section from the records' measurements (None without ``measure``)."""

@@ -14,7 +14,8 @@ from geosim.io.csvw import read_csv_metadata
 from geosim.io.decision import write_decision_csv
 from geosim.io.geotiff import write_raster
 from geosim.summaries import (decision_rows, decision_spread, fraction_above, fraction_below, grade_tonnage,
-                              summarize_ensemble, summary_band_names)
+                              summarize_ensemble, summarize_windows, summary_band_names,
+                              summary_bands)
 
 
 def _ensemble(n=9, shape=(37, 53), seed=3):
@@ -58,6 +59,38 @@ def test_summary_bands_match_numpy_and_keep_the_mask():
         np.testing.assert_allclose(s[f"P(>{c:g})"][mask], (v > c).sum(0) / v.shape[0])
     for band in s.values():
         assert np.isnan(band[~mask]).all()
+
+
+@pytest.mark.parametrize("n", [1, 2, 3, 4, 7, 10, 11, 50, 100, 101, 257])
+def test_quantiles_by_selection_equal_numpy_exactly_with_ties_and_any_ensemble_size(n):
+    # the kernel selects the two order statistics of each quantile instead of sorting; numpy's
+    # "linear" method interpolates with the same formula, so the bands are the same numbers bit for
+    # bit: continuous values, heavy ties (one decimal), a constant node, already sorted and reversed
+    rng = np.random.default_rng(n)
+    nodes = 600
+    v = rng.standard_normal((n, nodes))
+    v[:, 200:400] = np.round(v[:, 200:400], 1)
+    v[:, 400] = 2.5
+    v[:, 401] = np.arange(n)
+    v[:, 402] = -np.arange(n)
+    v[:, 403:420] = rng.integers(0, 3, size=(n, 17))
+    bands = summary_bands(v, [0.0], threads=2)
+    for b, p in enumerate((10, 50, 90)):
+        np.testing.assert_array_equal(bands[2 + b], np.percentile(v, p, axis=0))
+
+
+def test_summary_windows_of_100_realizations_equal_numpy_on_every_node():
+    # the store's pass: boxes of 100 lognormal realizations (whose quantile positions 9.9, 49.5 and 89.1
+    # interpolate between two order statistics) on two threads, against numpy's percentiles and moments
+    rng = np.random.default_rng(2026)
+    stack = rng.lognormal(-0.5, 0.8, size=(100, 3, 40, 50)).astype(np.float32)
+    stack[:, :, :5, :7] = np.nan
+    boxes = [((k,), stack[:, k]) for k in range(3)]
+    for (k,), bands in summarize_windows(boxes, [0.3, 1.0], threads=2):
+        v = stack[:, k].astype(np.float64)
+        np.testing.assert_array_equal(bands[2:5], np.percentile(v, [10, 50, 90], axis=0))
+        np.testing.assert_allclose(bands[0], v.mean(0), rtol=1e-12)
+        np.testing.assert_array_equal(bands[6], (v > 1.0).sum(0) / 100.0 + 0 * v[0])
 
 
 def test_mask_must_be_shared_by_all_realizations():
