@@ -462,3 +462,28 @@ def test_a_store_of_another_layout_is_written_through_zarr(tmp_path):
     store.write(1, field)
     assert np.array_equal(store.read(1), field.astype(np.float32), equal_nan=True)
     assert store.complete().tolist() == [False, True]
+
+
+def test_boxes_read_chunk_by_chunk_equal_zarr_reads(tmp_path):
+    # the direct chunk reader against zarr's own: boxes across chunk edges (64-cell chunks on a
+    # 90 x 80 level), a level of NaN only (chunks zarr does not store), indices out of order
+    store = _store(tmp_path / "r.zarr")
+    store.open(4)
+    fields = [np.asarray(f, dtype=np.float32).copy() for f in _fields(3)]
+    fields[1][1] = np.nan
+    for i, f in zip((0, 1, 3), fields):
+        store.write(i, f)
+    assert not (store.path / "cu_pct" / "c" / "1" / "1").exists()  # no chunk of the fill value only
+    boxes = [(slice(0, 2), slice(0, 90), slice(0, 80)), (slice(1, 2), slice(60, 70), slice(50, 79)),
+             (slice(0, 1), slice(63, 65), slice(0, 1)), (slice(0, 2), slice(0, 64), slice(64, 80))]
+    for indices in ([0, 1, 3], [3, 0], [2]):
+        for box in boxes:
+            got = store.box(indices, box)
+            want = store.box(indices, box, zarr_only=True)
+            assert got.dtype == want.dtype == np.float32 and got.shape == want.shape
+            np.testing.assert_array_equal(got, want)
+    np.testing.assert_array_equal(store.box([1], boxes[0])[0], fields[1])
+    assert np.isnan(store.box([2], boxes[0])).all()  # never written: the fill value
+    (box, got), _ = list(store.boxes([3, 1], boxes[1:3]))
+    assert box == boxes[1]
+    np.testing.assert_array_equal(got, np.stack([fields[2], fields[1]])[(slice(None),) + boxes[1]])
