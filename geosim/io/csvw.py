@@ -30,7 +30,6 @@ from __future__ import annotations
 
 import contextlib
 import csv
-import io
 import json
 import math
 import os
@@ -238,39 +237,46 @@ def write_csv_table(path: str | os.PathLike, columns: Sequence[Column],
     names = [c.name for c in columns]
     if len(set(names)) != len(names):
         raise ValueError(f"duplicate column names in {names}")
-    buf = io.StringIO()
-    w = csv.writer(buf, lineterminator="\n")
-    w.writerow(names)
-    if isinstance(rows, Mapping):
-        data = [rows[c.name] for c in columns]
-        lengths = {len(d) for d in data}
-        if len(lengths) > 1:
-            raise ValueError(f"columns of unequal length: {dict(zip(names, map(len, data)))}")
-        # a slice of rows at a time: the text of whole columns of a million-block model would
-        # hold a Python string per value (about 60 bytes each, a gigabyte for 14 columns)
-        n = lengths.pop() if lengths else 0
-        numbers = all(c.datatype != "string" for c in columns)  # no cell needs quoting
-        for start in range(0, n, _ROWS_AT_ONCE):
-            chunk = [d[start:start + _ROWS_AT_ONCE] for d in data]
-            if numbers:
-                buf.write(_number_rows(columns, chunk))
-            else:
-                w.writerows(zip(*(c.cells(d) for c, d in zip(columns, chunk))))
-    else:
+    by_columns = isinstance(rows, Mapping)
+    if by_columns:
+        rows = [rows[c.name] for c in columns]
+        if len({len(d) for d in rows}) > 1:
+            raise ValueError(f"columns of unequal length: {dict(zip(names, map(len, rows)))}")
+    meta = _metadata(path, columns, title, dict(provenance or {}), notes, primary_key)
+    text = json.dumps(meta, indent=2, ensure_ascii=False) + "\n"
+    # both temporaries are complete before either is moved into place; the rows go into the
+    # temporary as they are formatted (the text of a million-block model is over 100 MB)
+    with contextlib.ExitStack() as stack:
+        tmp_side = stack.enter_context(atomic_output(side, overwrite))
+        tmp_csv = stack.enter_context(atomic_output(path, overwrite))
+        with open(tmp_csv, "w", encoding="utf-8", newline="") as f:
+            _write_rows(f, columns, rows, by_columns)
+        tmp_side.write_text(text, encoding="utf-8")
+    return path
+
+
+def _write_rows(f, columns: Sequence[Column], rows, by_columns: bool) -> None:
+    """The header and the rows of :func:`write_csv_table` into the text file ``f``: ``rows`` one
+    sequence per column (``by_columns``) or one per row."""
+    w = csv.writer(f, lineterminator="\n")
+    w.writerow([c.name for c in columns])
+    if not by_columns:
         for r, row in enumerate(rows):
             row = list(row)
             if len(row) != len(columns):
                 raise ValueError(f"row {r} has {len(row)} values for {len(columns)} columns")
             w.writerow([c.cell(v) for c, v in zip(columns, row)])
-    meta = _metadata(path, columns, title, dict(provenance or {}), notes, primary_key)
-    text = json.dumps(meta, indent=2, ensure_ascii=False) + "\n"
-    # both temporaries are complete before either is moved into place
-    with contextlib.ExitStack() as stack:
-        tmp_side = stack.enter_context(atomic_output(side, overwrite))
-        tmp_csv = stack.enter_context(atomic_output(path, overwrite))
-        tmp_csv.write_text(buf.getvalue(), encoding="utf-8")
-        tmp_side.write_text(text, encoding="utf-8")
-    return path
+        return
+    # a slice of rows at a time: the text of whole columns of a million-block model would
+    # hold a Python string per value (about 60 bytes each, a gigabyte for 14 columns)
+    n = len(rows[0]) if rows else 0
+    numbers = all(c.datatype != "string" for c in columns)  # no cell needs quoting
+    for start in range(0, n, _ROWS_AT_ONCE):
+        chunk = [d[start:start + _ROWS_AT_ONCE] for d in rows]
+        if numbers:
+            f.write(_number_rows(columns, chunk))
+        else:
+            w.writerows(zip(*(c.cells(d) for c, d in zip(columns, chunk))))
 
 
 def read_csv_metadata(path: str | os.PathLike) -> dict:
