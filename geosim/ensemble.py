@@ -360,10 +360,9 @@ class RealizationWriter:
             ``variogram_reproduction.png`` and ``histogram_reproduction.png``.
         progress : callable, optional
         wait : bool
-            Return once every file is written.  The NetCDF realization cube and the
-            block-model tables of a realization store are written by processes of their own
-            (read from the store beside the summary pass, summary cube and plots of this
-            one); with False, ``finish`` may return before they are done, so they overlap
+            Return once every file is written.  The NetCDF realization cube, the summary
+            cube and the block-model tables of a realization store are written by processes
+            of their own (beside the summary pass and plots of this one); with False, ``finish`` may return before they are done, so they overlap
             the caller's work too, and the caller calls :meth:`wait` before it uses them or
             removes the realization store.
 
@@ -410,9 +409,9 @@ class RealizationWriter:
     def _aside(self, func: Callable, *args, **kwargs) -> None:
         """Start ``func(*args, **kwargs)`` in a process of its own; :meth:`wait` collects it.
 
-        After the workers end both cores are free, and the two long writes made from the
-        finished store (the NetCDF realization cube, the block-model tables) each run in a
-        process beside this one's summary cube, decision tables and figures.  Processes, not
+        After the workers end both cores are free, and the writes made from the finished store
+        and its summary (the NetCDF realization cube, the summary cube, the block-model tables)
+        run in two processes beside this one's decision tables and figures.  Processes, not
         threads: HDF5 is not safe for threads (a file handle another thread lets go would reach
         it unlocked), and formatting a table's numbers holds the GIL.  They fork from the
         workers' server (:func:`geosim.simulation.runner.pool_context`) and end at once when
@@ -491,7 +490,7 @@ class RealizationWriter:
         """
         import functools
 
-        from .io.cube import add_layers, cube_boxes, summary_dataset, write_cube
+        from .io.cube import cube_boxes, write_summary_cube
         self.store.finish(indices)
         suffix = CUBE_SUFFIX[self.cube]
         layers = self.layer_variables
@@ -525,8 +524,12 @@ class RealizationWriter:
                 self.folder / "summary.tif", np.concatenate([bands] + [a[None] for a, _, _ in self.layers]),
                 self.grid, tags=self.tags, overwrite=self.overwrite,
                 descriptions=summary_band_descriptions(cutoffs, self.units) + [(d, u) for _, d, u in self.layers])]
-        out["summary_cube"] = [str(write_cube(self.folder / f"summary{suffix}", add_layers(summary_dataset(
-            self.grid, bands, cutoffs, units=self.units, provenance=self.tags), layers), overwrite=self.overwrite))]
+        target = self.folder / f"summary{suffix}"
+        if self.cube == "netcdf":
+            check_writable(target, self.overwrite)  # refused here, not in the process that writes it
+        self._aside(write_summary_cube, target, self.grid, bands, cutoffs, units=self.units, provenance=self.tags,
+                    layers=layers, overwrite=self.overwrite)
+        out["summary_cube"] = [str(target)]
         if self.cube != "netcdf":
             self.store.add_layers(layers)
             out["realizations_cube"] = [str(self.store.path)]

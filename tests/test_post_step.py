@@ -84,6 +84,12 @@ def test_tables_written_in_a_process_of_their_own_equal_the_ones_written_here(tm
             import pyarrow.parquet as pq
             assert pq.read_table(got).equals(pq.read_table(ref))
             assert pq.read_schema(got).metadata == pq.read_schema(ref).metadata
+    # the summary cube, written by the same processes, is the file written here from the same bands
+    from geosim.io.cube import write_summary_cube
+    ref = write_summary_cube(tmp_path / "ref" / "summary.nc", GRID, as_stored(summary_bands(np.stack(stored), CUTOFFS)),
+                             CUTOFFS, units="g/t", provenance=TAGS)
+    assert files["summary_cube"] == [str(tmp_path / "run" / "summary.nc")]
+    assert (tmp_path / "run" / "summary.nc").read_bytes() == ref.read_bytes()
     # the realization columns really are the realizations: the rows of the active nodes by z, then
     # y ascending (the grid's rows run north to south), then x
     csv = np.genfromtxt(tmp_path / "run" / "block_model.csv", delimiter=",", names=True)

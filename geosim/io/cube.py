@@ -37,8 +37,8 @@ from ..cautions import CAUTION
 from ..errors import InputError
 from .atomic import atomic_output
 
-__all__ = ["CF_VERSION", "CUBE_SUFFIX", "grid_coords", "grid_dataset", "summary_dataset", "add_layers",
-           "write_cube", "cube_boxes", "write_netcdf", "write_zarr", "open_cube",
+__all__ = ["CF_VERSION", "CUBE_SUFFIX", "grid_coords", "grid_dataset", "summary_dataset", "write_summary_cube",
+           "add_layers", "write_cube", "cube_boxes", "write_netcdf", "write_zarr", "open_cube",
            "RealizationStore", "realization_sha256", "stored_realization_ok", "block_model_table",
            "write_block_model", "summary_table_columns"]
 
@@ -267,6 +267,15 @@ def summary_dataset(grid, bands: np.ndarray, cutoffs: Sequence[float], *, units:
         ds["prob_above"] = (("cutoff",) + spatial, prob[0],
                             {"long_name": prob[1], "units": prob[2], "grid_mapping": GRID_MAPPING})
     return ds
+
+
+def write_summary_cube(path: str | os.PathLike, grid, bands: np.ndarray, cutoffs: Sequence[float], *,
+                       units: str = "", provenance: Mapping[str, str] | None = None,
+                       layers: Mapping[str, tuple] | None = None, overwrite: bool = False) -> Path:
+    """Write the summary cube (:func:`summary_dataset` of ``bands`` with ``layers``, :func:`add_layers`)
+    as NetCDF or Zarr, by the path's suffix (:func:`write_cube`)."""
+    ds = add_layers(summary_dataset(grid, bands, cutoffs, units=units, provenance=provenance), layers)
+    return write_cube(path, ds, overwrite=overwrite)
 
 
 def add_layers(ds, layers: Mapping[str, tuple] | None):
