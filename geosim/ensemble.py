@@ -362,9 +362,10 @@ class RealizationWriter:
         wait : bool
             Return once every file is written.  The NetCDF realization cube, the summary
             cube and the block-model tables of a realization store are written by processes
-            of their own (beside the summary pass and plots of this one); with False, ``finish`` may return before they are done, so they overlap
-            the caller's work too, and the caller calls :meth:`wait` before it uses them or
-            removes the realization store.
+            of their own (beside the summary pass and plots of this one); with False,
+            ``finish`` may return before they are done, so they overlap the caller's work
+            too, and the caller calls :meth:`wait` before it uses them or removes the
+            realization store.
 
         Returns
         -------
@@ -396,7 +397,7 @@ class RealizationWriter:
 
     def wait(self, *, raise_error: bool = True) -> None:
         """Wait for the files ``finish`` has written in processes of its own (the NetCDF realization
-        cube, the block-model tables); re-raise the first error."""
+        cube, the summary cube, the block-model tables); re-raise the first error."""
         writing, self._writing = self._writing, None
         if writing is not None:
             pool, futures = writing

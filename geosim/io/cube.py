@@ -639,8 +639,11 @@ class RealizationStore:
         return hashlib.sha256(a).hexdigest()
 
     def read(self, index: int) -> np.ndarray:
-        """Realization ``index`` as stored (float32, ``grid.shape``)."""
-        return np.asarray(_open_group(self.path)[self.name][int(index)])
+        """Realization ``index`` as stored (float32, ``grid.shape``), read as :meth:`box` reads.
+
+        Only the array's own files are read (not the store's root metadata, which
+        :meth:`add_layers` may be rewriting meanwhile)."""
+        return self.box([int(index)], tuple(slice(0, n) for n in self.grid.shape))[0]
 
     def complete(self) -> np.ndarray:
         """Per realization: whether it was written completely (empty when there is no store)."""
