@@ -282,10 +282,10 @@ class RealizationWriter:
             store.open(n_realizations, keep=kept)
 
     def finish_modules(self, plots: bool = False) -> list[str]:
-        """The optional libraries :meth:`finish` imports (rasters, cubes, tables and, with ``plots``,
-        figures), those of the derived writers included: a caller imports them while the workers
+        """The libraries :meth:`finish` and :meth:`validation` import (rasters, cubes, tables, the
+        checks' statistics and, with ``plots``, figures), those of the derived writers included: a caller imports them while the workers
         simulate (:func:`geosim.simulation.runner.import_ahead`)."""
-        modules = ["rasterio"]
+        modules = ["rasterio"] + (["scipy.stats"] if self.measure is not None else [])  # the checks' tolerances
         if self.cube is not None:
             modules += ["zarr", "dask.array", "xarray"] + (["netCDF4"] if self.cube == "netcdf" else [])
         if ".parquet" in self.tables:

@@ -36,6 +36,7 @@ def test_finish_modules_name_what_the_writer_will_import(tmp_path):
                  "matplotlib.backends.backend_agg"):
         assert name in modules
     assert "netCDF4" not in RealizationWriter(tmp_path / "c", GRID, cube="zarr").finish_modules()
+    assert "scipy.stats" in RealizationWriter(tmp_path / "d", GRID, measure=lambda s, v: {}).finish_modules()
     # every name is a module that exists (a misspelt one would be skipped silently at run time)
     import importlib.util
     for name in modules:
