@@ -316,7 +316,6 @@ def quantiles(x: np.ndarray, q: np.ndarray) -> np.ndarray:
     return out
 
 
-
 def warm_up() -> None:
     """Compile the loops (numba's cache keeps them) on tiny inputs of the types every run passes, for a
     compiling process ahead of the workers (:func:`geosim.simulation.runner.compile_modules_ahead`)."""
