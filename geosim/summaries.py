@@ -36,6 +36,7 @@ writes the tables.
 """
 from __future__ import annotations
 
+import functools
 import math
 from collections.abc import Iterable, Iterator, Mapping, Sequence
 from typing import Any
@@ -82,147 +83,167 @@ def summary_band_descriptions(cutoffs: Sequence[float] = (), units: str = "") ->
     return out
 
 
-#: Nodes per chunk of the compiled statistics (the chunk is transposed so each node's values are contiguous).
-_CHUNK = 2048
+#: Nodes summarized side by side by the compiled statistics (:func:`_node_bands`): each step of the
+#: sorting network works on one row of this many nodes, a loop the compiler turns into vector
+#: instructions.
+_LANES = 256
 
 
 def summary_bands(stack: np.ndarray, cutoffs: Sequence[float] = (), threads: int = 1) -> np.ndarray:
     """Summary bands of a stack ``(n_real, ...)``; returns ``(n_bands, ...)`` float64.
 
     Bands in :func:`summary_band_names` order.  Every realization must share the
-    domain mask (NaN at the same nodes).  One compiled pass per node
-    (:func:`_node_bands`) in double precision from the stored values; ``threads``
-    split the nodes.
+    domain mask (NaN at the same nodes).  One compiled pass (:func:`_node_bands`) in
+    double precision from the stored values: float32 stacks (what the files and the
+    realization store hold) are read as they are and widened value by value (exactly),
+    anything else is taken as float64; ``threads`` split the nodes.
     """
     stack = np.asarray(stack)
     shape = stack.shape[1:]
-    # float64 always: one compiled specialization (float32 files are widened exactly)
-    flat = np.ascontiguousarray(stack.reshape(stack.shape[0], -1), dtype=np.float64)
+    dtype = np.float32 if stack.dtype == np.float32 else np.float64
+    flat = np.ascontiguousarray(stack.reshape(stack.shape[0], -1), dtype=dtype)
     out = np.empty((5 + len(cutoffs), flat.shape[1]))
     cut = np.asarray(cutoffs, dtype=np.float64)
     probs = np.asarray(SUMMARY_PERCENTILES, dtype=np.float64) / 100.0
+    pairs = sorting_network(flat.shape[0])
     m = flat.shape[1]
-    bounds = np.linspace(0, m, max(1, min(int(threads), m // _CHUNK + 1)) + 1).astype(np.int64)
+    bounds = np.linspace(0, m, max(1, min(int(threads), m // _LANES + 1)) + 1).astype(np.int64)
     if len(bounds) > 2:
         from concurrent.futures import ThreadPoolExecutor
         with ThreadPoolExecutor(len(bounds) - 1) as pool:
-            bad = list(pool.map(lambda k: _node_bands(flat, cut, probs, out, bounds[k], bounds[k + 1]),
+            bad = list(pool.map(lambda k: _node_bands(flat, cut, probs, pairs, out, bounds[k], bounds[k + 1]),
                                 range(len(bounds) - 1)))
     else:
-        bad = [_node_bands(flat, cut, probs, out, 0, m)]
+        bad = [_node_bands(flat, cut, probs, pairs, out, 0, m)]
     if any(b >= 0 for b in bad):
         raise ValueError("some nodes are NaN in some realizations but not in others; every realization "
                          "must share the domain mask")
     return out.reshape((out.shape[0],) + shape)
 
 
+@functools.lru_cache(maxsize=8)
+def sorting_network(n: int) -> np.ndarray:
+    """The compare-exchange pairs ``(i, j)``, ``i < j``, of Batcher's odd-even merge sort of ``n`` keys
+    (K. E. Batcher 1968, "Sorting networks and their applications", AFIPS Spring Joint Computer
+    Conference 32, 307-314), as an ``(m, 2)`` int64 array in the order they are applied.
+
+    The network of the next power of two with every pair reaching past ``n - 1`` left out (as if
+    the missing keys were larger than all others, which such a pair never moves).  A network
+    sorts every input exactly when it sorts every input of zeros and ones (Knuth, The Art of
+    Computer Programming 3, section 5.3.4, the zero-one principle), which the tests check.
+
+    Examples
+    --------
+    >>> import geosim.summaries
+    >>> geosim.summaries.sorting_network(3).tolist()
+    [[0, 1], [0, 2], [1, 2]]
+    """
+    pairs = []
+    p = 1
+    while p < n:
+        k = p
+        while k >= 1:
+            for j in range(k % p, n - k, 2 * k):
+                for i in range(min(k - 1, n - j - k - 1) + 1):
+                    if (i + j) // (2 * p) == (i + j + k) // (2 * p):
+                        pairs.append((i + j, i + j + k))
+            k //= 2
+        p *= 2
+    out = np.array(pairs, dtype=np.int64).reshape(-1, 2)
+    out.flags.writeable = False  # shared by every call through the cache
+    return out
+
+
 @njit(cache=True, nogil=True)
-def _node_bands(vals, cutoffs, probs, out, start, stop):  # pragma: no cover - compiled
+def _node_bands(vals, cutoffs, probs, pairs, out, start, stop):  # pragma: no cover - compiled
     """Bands of nodes ``start .. stop-1`` of ``vals (n_real, nodes)`` into ``out``; -1, or a node with some NaN.
 
-    Per node: mean, standard deviation (divisor n, two passes), quantiles of the sorted
-    values by Hyndman and Fan's definition 7 with numpy's interpolation
-    (``a + (b - a) g``, or ``b - (b - a)(1 - g)`` for ``g >= 0.5``), and the fraction
-    strictly above each cut-off.
+    Per node: mean, standard deviation (divisor n, two passes), both summed in float64 over the
+    realizations in index order; the fraction strictly above each cut-off; quantiles of the
+    sorted values by Hyndman and Fan's definition 7 with numpy's interpolation (``a + (b - a) g``,
+    or ``b - (b - a)(1 - g)`` for ``g >= 0.5``).  :data:`_LANES` nodes at a time are copied side by
+    side (row ``i`` holds realization ``i`` of each) and sorted together by the compare-exchange
+    ``pairs`` (:func:`sorting_network`): no branch depends on the values, so every row operation
+    is a vector minimum and maximum.  The sort is in the values' own precision (the order of
+    float32 values is that of their float64 widenings), the arithmetic in float64.
     """
     n = vals.shape[0]
     nc = cutoffs.shape[0]
-    buf = np.empty((_CHUNK, n))
-    for j0 in range(start, stop, _CHUNK):
-        j1 = min(j0 + _CHUNK, stop)
+    buf = np.empty((n, _LANES), dtype=vals.dtype)
+    total = np.empty(_LANES)
+    mean = np.empty(_LANES)
+    ss = np.empty(_LANES)
+    nan = np.empty(_LANES, dtype=np.int64)
+    above = np.empty(_LANES, dtype=np.int64)
+    for j0 in range(start, stop, _LANES):
+        w = min(_LANES, stop - j0)
         for i in range(n):
-            for j in range(j0, j1):
-                buf[j - j0, i] = vals[i, j]
-        for j in range(j0, j1):
-            row = buf[j - j0]
-            nan = 0
-            total = 0.0
-            for i in range(n):
-                x = row[i]
+            row = buf[i]
+            for k in range(w):
+                row[k] = vals[i, j0 + k]
+            for k in range(w, _LANES):  # idle lanes of the last group: any number will do
+                row[k] = 0.0
+        total[:] = 0.0
+        nan[:] = 0
+        for i in range(n):
+            row = buf[i]
+            for k in range(_LANES):
+                x = np.float64(row[k])
                 if x != x:
-                    nan += 1
+                    nan[k] += 1
                 else:
-                    total += x
-            if nan == n:
+                    total[k] += x
+        for k in range(_LANES):
+            mean[k] = total[k] / n
+        ss[:] = 0.0
+        for i in range(n):
+            row = buf[i]
+            for k in range(_LANES):
+                ss[k] += (np.float64(row[k]) - mean[k]) ** 2
+        for k in range(w):
+            if nan[k] == n:
                 for b in range(5 + nc):
-                    out[b, j] = np.nan
-                continue
-            if nan > 0:
-                return j
-            mean = total / n
-            ss = 0.0
+                    out[b, j0 + k] = np.nan
+            elif nan[k] > 0:
+                return j0 + k
+            else:
+                out[0, j0 + k] = mean[k]
+                out[1, j0 + k] = math.sqrt(ss[k] / n)
+        for c in range(nc):
+            above[:] = 0
             for i in range(n):
-                ss += (row[i] - mean) ** 2
-            out[0, j] = mean
-            out[1, j] = math.sqrt(ss / n)
-            for c in range(nc):
-                above = 0
-                for i in range(n):
-                    if row[i] > cutoffs[c]:
-                        above += 1
-                out[5 + c, j] = above / n
-            # the order statistics at lo and lo + 1 of each quantile, by selection (no full sort):
-            # once the lo-th is in place nothing before it is larger, and the next is the
-            # smallest after it; ascending quantiles each select in what lies after the last
-            left = 0
-            for q in range(probs.shape[0]):
-                pos = (n - 1) * probs[q]
-                lo = int(math.floor(pos))
-                g = pos - lo
-                if lo < left:
-                    left = 0
-                _select(row, lo, left, n - 1)
-                left = lo
-                a = row[lo]
-                b = a
-                if lo + 1 < n:
-                    b = row[lo + 1]
-                    for i in range(lo + 2, n):
-                        if row[i] < b:
-                            b = row[i]
-                out[2 + q, j] = b - (b - a) * (1.0 - g) if g >= 0.5 else a + (b - a) * g
+                row = buf[i]
+                for k in range(_LANES):
+                    if row[k] > cutoffs[c]:
+                        above[k] += 1
+            for k in range(w):
+                if nan[k] == 0:
+                    out[5 + c, j0 + k] = above[k] / n
+        for p in range(pairs.shape[0]):
+            lo_row = buf[pairs[p, 0]]
+            hi_row = buf[pairs[p, 1]]
+            for k in range(_LANES):
+                x = lo_row[k]
+                y = hi_row[k]
+                lo_row[k] = min(x, y)
+                hi_row[k] = max(x, y)
+        for q in range(probs.shape[0]):
+            pos = (n - 1) * probs[q]
+            lo = int(math.floor(pos))
+            g = pos - lo
+            hi = min(lo + 1, n - 1)
+            for k in range(w):
+                if nan[k] == 0:
+                    a = np.float64(buf[lo, k])
+                    b = np.float64(buf[hi, k])
+                    out[2 + q, j0 + k] = b - (b - a) * (1.0 - g) if g >= 0.5 else a + (b - a) * g
     return -1
 
 
-@njit(cache=True, nogil=True)
-def _select(a, k, lo, hi):  # pragma: no cover - compiled
-    """Reorder ``a[lo..hi]`` (no NaN) so that ``a[k]`` holds the value it would hold sorted, with no
-    larger value before it and no smaller one after it: Hoare's selection ("FIND", Hoare 1961,
-    Communications of the ACM 4(7), 321-322; from memory) with a median-of-three pivot.  For the
-    three quantiles of 100 realizations about 40 % less CPU than the full sort it replaced."""
-    while hi > lo:
-        mid = (lo + hi) >> 1
-        if a[mid] < a[lo]:
-            a[mid], a[lo] = a[lo], a[mid]
-        if a[hi] < a[lo]:
-            a[hi], a[lo] = a[lo], a[hi]
-        if a[hi] < a[mid]:
-            a[hi], a[mid] = a[mid], a[hi]
-        pivot = a[mid]
-        i = lo
-        j = hi
-        while i <= j:
-            while a[i] < pivot:
-                i += 1
-            while a[j] > pivot:
-                j -= 1
-            if i <= j:
-                a[i], a[j] = a[j], a[i]
-                i += 1
-                j -= 1
-        # a[lo..j] <= pivot <= a[i..hi]; anything between i and j equals the pivot
-        if k <= j:
-            hi = j
-        elif k >= i:
-            lo = i
-        else:
-            return
-
-
 def warm_up() -> None:
-    """Compile the summary kernel (numba's cache keeps it): the float64 pass every stack takes
-    (:func:`geosim.simulation.runner.compile_modules_ahead`)."""
-    summary_bands(np.arange(6.0).reshape(3, 2), [0.5])
+    """Compile the summary kernel (numba's cache keeps it): the float32 pass of the stacks read from
+    files and realization stores (:func:`geosim.simulation.runner.compile_modules_ahead`)."""
+    summary_bands(np.arange(6.0, dtype=np.float32).reshape(3, 2), [0.5])
 
 
 def summarize_ensemble(fields: np.ndarray | Sequence[np.ndarray],

@@ -14,7 +14,7 @@ from geosim.io.csvw import read_csv_metadata
 from geosim.io.decision import write_decision_csv
 from geosim.io.geotiff import write_raster
 from geosim.summaries import (decision_rows, decision_spread, fraction_above, fraction_below, grade_tonnage,
-                              summarize_ensemble, summarize_windows, summary_band_names,
+                              sorting_network, summarize_ensemble, summarize_windows, summary_band_names,
                               summary_bands)
 
 
@@ -77,6 +77,55 @@ def test_quantiles_by_selection_equal_numpy_exactly_with_ties_and_any_ensemble_s
     bands = summary_bands(v, [0.0], threads=2)
     for b, p in enumerate((10, 50, 90)):
         np.testing.assert_array_equal(bands[2 + b], np.percentile(v, p, axis=0))
+
+
+def _apply_network(pairs, keys):
+    """Apply compare-exchange ``pairs`` to the last axis of ``keys`` with numpy (independent of the kernel)."""
+    keys = keys.copy()
+    for i, j in pairs:
+        a, b = keys[..., i].copy(), keys[..., j].copy()
+        keys[..., i], keys[..., j] = np.minimum(a, b), np.maximum(a, b)
+    return keys
+
+
+@pytest.mark.parametrize("n", range(1, 15))
+def test_sorting_network_sorts_every_input_of_zeros_and_ones(n):
+    # the zero-one principle (Knuth, TAOCP 3, 5.3.4): a comparator network sorts every input when it
+    # sorts all 2**n inputs of zeros and ones; checked exhaustively for up to 14 keys
+    pairs = sorting_network(n)
+    assert ((pairs[:, 0] < pairs[:, 1]) & (pairs[:, 1] < n)).all() if len(pairs) else n == 1
+    bits = ((np.arange(2 ** n)[:, None] >> np.arange(n)) & 1).astype(np.int8)
+    np.testing.assert_array_equal(_apply_network(pairs, bits), np.sort(bits, axis=1))
+
+
+@pytest.mark.parametrize("n", [15, 16, 17, 31, 50, 100, 101, 128, 200, 257])
+def test_sorting_network_sorts_random_keys_and_has_batchers_size(n):
+    # random keys with ties; Batcher's merge sort of 2**t keys has (t**2 - t + 4) 2**(t-2) - 1
+    # comparators (Knuth, TAOCP 3, 5.3.4, eq. (9); from memory), and a network of n keys no more
+    rng = np.random.default_rng(n)
+    keys = rng.integers(0, n // 3 + 2, size=(200, n))
+    np.testing.assert_array_equal(_apply_network(sorting_network(n), keys), np.sort(keys, axis=1))
+    t = int(np.ceil(np.log2(n)))
+    batcher = (t * t - t + 4) * 2 ** (t - 2) - 1
+    assert len(sorting_network(n)) <= batcher
+    if n == 2 ** t:
+        assert len(sorting_network(n)) == batcher
+
+
+def test_summary_bands_of_float32_stacks_are_those_of_their_float64_widening():
+    # stores and files hold float32; the kernel reads them as they are, and every band is the same
+    # number as from the widened float64 stack (and numpy's), on nodes that are not a multiple of the
+    # kernel's lanes apart, on one thread and on three
+    rng = np.random.default_rng(7)
+    stack = rng.lognormal(-0.5, 0.8, size=(37, 2, 701)).astype(np.float32)
+    stack[:, 1, 650:] = np.nan
+    wide = stack.astype(np.float64)
+    for threads in (1, 3):
+        a = summary_bands(stack, [0.3, 1.0], threads)
+        b = summary_bands(wide, [0.3, 1.0], threads)
+        np.testing.assert_array_equal(a, b)
+    np.testing.assert_array_equal(a[2:5, 0], np.percentile(wide[:, 0], [10, 50, 90], axis=0))
+    assert np.isnan(a[:, 1, 650:]).all() and not np.isnan(a[:, 1, :650]).any()
 
 
 def test_summary_windows_of_100_realizations_equal_numpy_on_every_node():
