@@ -425,7 +425,7 @@ def _chunk_reader(folder: Path, dtype) -> Callable[[Sequence[int], tuple[slice, 
         spans = [range(*s.indices(n)) for s, n in zip(box, shape[1:])]
         if any(r.step != 1 for r in spans):
             raise ValueError(f"boxes are read with unit steps, got {box}")
-        out = np.full((len(indices),) + tuple(len(r) for r in spans), fill, dtype=dtype)
+        out = np.empty((len(indices),) + tuple(len(r) for r in spans), dtype=dtype)  # every cell is set below
         firsts = [r.start // c for r, c in zip(spans, chunk[1:])]
         lasts = [(r.stop - 1) // c if len(r) else r.start // c - 1 for r, c in zip(spans, chunk[1:])]
         for pos in np.ndindex(*[b - a + 1 for a, b in zip(firsts, lasts)]):
@@ -439,8 +439,9 @@ def _chunk_reader(folder: Path, dtype) -> Callable[[Sequence[int], tuple[slice, 
                 try:
                     with open(os.path.join(folder, "c", str(int(i)), *map(str, pos)), "rb") as f:
                         data = f.read()
-                except FileNotFoundError:
-                    continue  # a chunk of the fill value only
+                except FileNotFoundError:  # a chunk of the fill value only
+                    out[(k,) + where] = fill
+                    continue
                 values = np.frombuffer(codec.decode(data), dtype=stored).reshape(chunk[1:])
                 out[(k,) + where] = values[inner]
         return out
