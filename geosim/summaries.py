@@ -94,14 +94,19 @@ def summary_bands(stack: np.ndarray, cutoffs: Sequence[float] = (), threads: int
 
     Bands in :func:`summary_band_names` order.  Every realization must share the
     domain mask (NaN at the same nodes).  One compiled pass (:func:`_node_bands`) in
-    double precision from the stored values: float32 stacks (what the files and the
-    realization store hold) are read as they are and widened value by value (exactly),
-    anything else is taken as float64; ``threads`` split the nodes.
+    double precision from the stored values: float32 values (what the files and the
+    realization store hold, also when given as float64) are read as float32 and widened
+    value by value (exactly), anything else as float64; ``threads`` split the nodes.
     """
     stack = np.asarray(stack)
     shape = stack.shape[1:]
-    dtype = np.float32 if stack.dtype == np.float32 else np.float64
-    flat = np.ascontiguousarray(stack.reshape(stack.shape[0], -1), dtype=dtype)
+    flat = stack.reshape(stack.shape[0], -1)
+    if flat.dtype != np.float32:
+        flat = np.asarray(flat, dtype=np.float64)
+        narrow = flat.astype(np.float32)
+        if np.array_equal(narrow, flat, equal_nan=True):  # float32 values: the same bands, one compiled kernel
+            flat = narrow
+    flat = np.ascontiguousarray(flat)
     out = np.empty((5 + len(cutoffs), flat.shape[1]))
     cut = np.asarray(cutoffs, dtype=np.float64)
     probs = np.asarray(SUMMARY_PERCENTILES, dtype=np.float64) / 100.0

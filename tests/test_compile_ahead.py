@@ -128,7 +128,8 @@ def test_kriging_and_summary_kernels_compiled_ahead_are_loaded_by_a_run(tmp_path
             cv = geosim.kriging.cross_validate(xyz, z, model, method=method, neighbourhood=nb)
         t = NormalScoreTransform().fit(np.exp(z))
         cv.in_data_units(t, np.exp(z))
-        geosim.summaries.summary_bands(rng.standard_normal((7, 3, 4)), [0.1, 0.2])
+        # float32, as a run's files and realization store hold them
+        geosim.summaries.summary_bands(rng.standard_normal((7, 3, 4)).astype(np.float32), [0.1, 0.2])
         d = [_krige_rows, _kernel, _node_bands]
         print(sum(sum(f.stats.cache_hits.values()) for f in d), sum(sum(f.stats.cache_misses.values()) for f in d))
     """), cache)

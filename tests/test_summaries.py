@@ -113,9 +113,9 @@ def test_sorting_network_sorts_random_keys_and_has_batchers_size(n):
 
 
 def test_summary_bands_of_float32_stacks_are_those_of_their_float64_widening():
-    # stores and files hold float32; the kernel reads them as they are, and every band is the same
-    # number as from the widened float64 stack (and numpy's), on nodes that are not a multiple of the
-    # kernel's lanes apart, on one thread and on three
+    # stores and files hold float32; the kernel reads them as they are (and float64 stacks of float32
+    # values as float32), and every band is the same number as numpy's from the widened stack, on
+    # nodes that are not a multiple of the kernel's lanes apart, on one thread and on three
     rng = np.random.default_rng(7)
     stack = rng.lognormal(-0.5, 0.8, size=(37, 2, 701)).astype(np.float32)
     stack[:, 1, 650:] = np.nan
@@ -125,6 +125,7 @@ def test_summary_bands_of_float32_stacks_are_those_of_their_float64_widening():
         b = summary_bands(wide, [0.3, 1.0], threads)
         np.testing.assert_array_equal(a, b)
     np.testing.assert_array_equal(a[2:5, 0], np.percentile(wide[:, 0], [10, 50, 90], axis=0))
+    np.testing.assert_array_equal(a[6, 0], (wide[:, 0] > 1.0).sum(0) / 37)
     assert np.isnan(a[:, 1, 650:]).all() and not np.isnan(a[:, 1, :650]).any()
 
 
