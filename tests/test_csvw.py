@@ -130,3 +130,52 @@ def test_a_table_of_numbers_has_the_cells_of_the_row_by_row_table_and_reads_back
     assert back["std"].isna().to_numpy()[[7, 60, 61]].all() and back["std"].isna().sum() == 3
     assert back["units"].isna().sum() == len(range(0, n, 3))
     np.testing.assert_array_equal(back["count"], data["count"])
+
+
+def test_float32_cells_are_pythons_own_formatting_of_every_kind_of_value():
+    # the column formatter computes the ten significant digits of float32 values by exact float64
+    # arithmetic; Python's correctly rounded format(v, ".10g") (David Gay's dtoa, round half to even)
+    # is the reference: values across 24 decades of both signs, powers of ten and their float32
+    # neighbours, exact ties at the eleventh digit (odd multiples of 2**-13 and below), values
+    # that round up to the next power of ten, zeros, float64 values and non-finite ones
+    from geosim.io.csvw import _float32_g10
+    rng = np.random.default_rng(11)
+    spread = rng.uniform(-12, 12, 200_000)
+    values = [(np.sign(rng.standard_normal(spread.size)) * 10.0 ** spread).astype(np.float32)]
+    tens = (10.0 ** np.arange(-5, 12)).astype(np.float32)
+    values += [tens, np.nextafter(tens, np.float32(np.inf)), np.nextafter(tens, np.float32(0))]
+    ties = np.array([m / 2.0 ** s for s in range(1, 40) for m in range(1, 600, 2)])
+    values += [ties[ties.astype(np.float32) == ties].astype(np.float32)]
+    values += [np.array([9 / 8192, 9.99999999e-4, 9999999999.0, 0.0, -0.0, 123456789.0], dtype=np.float32)]
+    a = np.concatenate([v.astype(np.float64) for v in values])
+    a = np.concatenate([a, -a, rng.standard_normal(1000) * 1e3, [np.nan, np.inf, -np.inf, 1e300, 5e-324]])
+    column = Column("v", "v")
+    cells = _float32_g10(a, column)
+    got = [bytes(row[row != 0]).decode() for row in cells]
+    expected = [format(v, ".10g") if np.isfinite(v) else "" for v in a.tolist()]
+    assert got == expected
+    assert got[-5:] == ["", "", "", "1e+300", "4.940656458e-324"]
+    assert format(9 / 8192, ".10g") == "0.001098632812"  # a tie at the eleventh digit, rounded to even
+
+
+def test_a_block_model_of_float32_columns_reads_as_the_row_by_row_table(tmp_path, monkeypatch):
+    # the block model's own columns: coordinates, sizes, float32 statistics of many values (some out
+    # of the fixed-notation range, some missing) and probabilities; slices of 1,000 rows
+    import geosim.io.csvw
+    monkeypatch.setattr(geosim.io.csvw, "_ROWS_AT_ONCE", 1000)
+    rng = np.random.default_rng(5)
+    n = 4321
+    stats = rng.lognormal(-1.0, 3.0, (3, n)).astype(np.float32)
+    stats[0, 17] = np.nan
+    stats[1, :40] = -stats[1, :40]
+    data = {"x": 641005.0 + 10 * (np.arange(n) % 200), "y": 7512005.0 + 10 * (np.arange(n) // 200),
+            "dx": np.full(n, 10.0), "mean": stats[0], "std": stats[1], "P10": stats[2],
+            "prob": (rng.integers(0, 101, n) / 100).astype(np.float32)}
+    cols = [Column(k, k) for k in data]
+    write_csv_table(tmp_path / "columns.csv", cols, data, title="t")
+    rows = list(zip(*(data[c.name].tolist() for c in cols)))
+    write_csv_table(tmp_path / "rows.csv", cols, rows, title="t")
+    assert (tmp_path / "columns.csv").read_bytes() == (tmp_path / "rows.csv").read_bytes()
+    back = pd.read_csv(tmp_path / "columns.csv")
+    assert back["std"].to_numpy().astype(np.float32).tobytes() == stats[1].tobytes()
+    assert back["mean"].isna().sum() == 1
