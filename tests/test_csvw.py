@@ -168,6 +168,7 @@ def test_a_block_model_of_float32_columns_reads_as_the_row_by_row_table(tmp_path
     stats = rng.lognormal(-1.0, 3.0, (3, n)).astype(np.float32)
     stats[0, 17] = np.nan
     stats[1, :40] = -stats[1, :40]
+    stats[2, :6] = [10.0, 100.0, 2500.0, 1e9, 123456789.0, 0.5]  # zeros before the point stay
     data = {"x": 641005.0 + 10 * (np.arange(n) % 200), "y": 7512005.0 + 10 * (np.arange(n) // 200),
             "dx": np.full(n, 10.0), "mean": stats[0], "std": stats[1], "P10": stats[2],
             "prob": (rng.integers(0, 101, n) / 100).astype(np.float32)}
