@@ -237,3 +237,25 @@ def test_zarr_cube_from_a_dask_cluster_equals_the_serial_netcdf(ore_run, tmp_pat
         np.testing.assert_array_equal(got[name].values, want[name].values)
         assert got[name].attrs["units"] == want[name].attrs["units"]
         np.testing.assert_array_equal(got.x.values, want.x.values)
+
+
+@pytest.mark.parametrize("shape", [(7, 9), (3, 7, 9), (1, 1), (2, 1, 5)])
+def test_block_model_rows_are_the_active_nodes_sorted_by_z_y_x(shape):
+    # the rows come from the row-reversed grid (no sort); the reference sorts the active nodes'
+    # centres with numpy's lexsort, z first, and gathers every column by that order
+    from geosim.io.cube import block_model_table
+    rng = np.random.default_rng(len(shape) * 10 + shape[-1])
+    cell = (10.0, 5.0, 2.5)[:len(shape)]
+    grid = geosim.Grid(1000.0, 2000.0, cell, shape, zmin=100.0 if len(shape) == 3 else 0.0)
+    grid = grid.with_mask(rng.random(shape) > 0.3)
+    values = {"a": (rng.standard_normal(shape), "a", ""), "b": (rng.standard_normal(shape).astype(np.float32), "b", "m")}
+    columns, data = block_model_table(grid, values)
+    xyz = grid.coords()
+    order = np.lexsort(tuple(xyz[:, a] for a in range(grid.ndim)))
+    assert [c.name for c in columns] == list(data)
+    for a, name in enumerate("xyz"[:grid.ndim]):
+        np.testing.assert_array_equal(data[name], xyz[order, a])
+    for name, (v, _, _) in values.items():
+        assert data[name].dtype == v.dtype
+        np.testing.assert_array_equal(data[name], v[grid.mask][order])
+    np.testing.assert_array_equal(data["dx"], np.full(len(order), cell[0]))

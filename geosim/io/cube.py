@@ -806,18 +806,25 @@ def block_model_table(grid, variables: Mapping[str, tuple[np.ndarray, str, str]]
 
     ``variables`` maps a column name to ``(array of grid.shape, description, unit)``.
     Returns ``(columns, data)`` with ``data`` a dict of 1-D arrays in row order.
+
+    The grid's levels run up and its columns east, its rows south (north-up): the rows in
+    reverse are the table's order, so every column is one pass over the row-reversed arrays
+    (no sort of a million coordinates).
     """
-    xyz = grid.coords()
-    order = np.lexsort(tuple(xyz[:, a] for a in range(grid.ndim)))  # last key (z, or y) sorts first
-    data = {"x": xyz[order, 0], "y": xyz[order, 1]}
+    def rows_up(a: np.ndarray) -> np.ndarray:
+        return np.asarray(a)[..., ::-1, :]
+
+    inside = rows_up(grid.mask)
+    axes = grid.axes()
+    spatial = {"x": axes[-1], "y": axes[-2][:, None]}
     if grid.ndim == 3:
-        data["z"] = xyz[order, 2]
-    n = len(order)
+        spatial["z"] = axes[0][:, None, None]
+    data = {name: rows_up(np.broadcast_to(axis, grid.shape))[inside] for name, axis in spatial.items()}
+    n = len(data["x"])
     for a, name in enumerate(("dx", "dy", "dz")[:grid.ndim]):
         data[name] = np.full(n, grid.cell[a])
-    mask = grid.mask
     for name, (values, _, _) in variables.items():
-        data[name] = np.asarray(values)[mask][order]
+        data[name] = rows_up(values)[inside]
     columns = block_model_columns(grid, [(k, d, u) for k, (_, d, u) in variables.items()])
     return columns, data
 
