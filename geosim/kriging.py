@@ -32,6 +32,7 @@ error names the samples.  ``regularization=eps`` retries such a system with
 """
 from __future__ import annotations
 
+import functools
 import math
 import logging
 from collections.abc import Callable, Sequence
@@ -306,15 +307,17 @@ def _krige_local(search: DataSearch, z, txyz, model, mode, mean, regularization,
     short = np.zeros(m, dtype=np.bool_)
     drift, tdrift, drift_tol = drifts if drifts is not None else (np.empty(0), np.empty(0), 0.0)
     fewest = max(nb.min_samples, DRIFT_MIN_SAMPLES) if mode == 2 else nb.min_samples
+    kernel = krige_rows(mode)
 
     def part(rows, cand, first, limit):
         # each thread writes its own targets' outputs and has its own failure record
         more = np.zeros(rows.shape[0], dtype=np.bool_)
         fail_info = np.zeros(2)
         fail_nbr = np.full(k, -1, dtype=np.int64)
-        failed = _krige_rows(rows, cand, search.xyz, search.frame, z, search.holes, txyz, tframe, excl_i,
-                             excl_h, cm, mode, mean, drift, tdrift, drift_tol, c0, limit, fewest, nb.widen, first, short, nb.sectors, nb.sector_limit, nb.hole_limit, tol, reg, est,
-                             var, n_used, n_reg, more, wts, nbr, fail_info, fail_nbr)
+        failed = kernel(rows, cand, search.xyz, search.frame, z, search.holes, txyz, tframe, excl_i, excl_h, cm,
+                        mean, drift, tdrift, drift_tol, c0, limit, fewest, nb.widen, first, short, nb.sectors,
+                        nb.sector_limit, nb.hole_limit, tol, reg, est, var, n_used, n_reg, more, wts, nbr, fail_info,
+                        fail_nbr)
         if failed >= 0 and fail_info[0] < 0:
             _raise_constant_drift(int(rows[failed]), txyz, fail_nbr, fail_info[1], labels, excl_index is not None)
         if failed >= 0:
@@ -346,16 +349,15 @@ def _krige_local(search: DataSearch, z, txyz, model, mode, mean, regularization,
                          wts if return_weights else None, nbr if return_weights else None, int(short.sum()))
 
 
-def warm_up() -> None:
-    """Compile the local kriging kernels and the multi-Gaussian moments (numba's cache keeps
-    them) through tiny runs: simple and ordinary kriging, cross-validation, and the data-unit
-    moments of a normal score transform, alone and after a log.
+def warm_up(methods: Sequence[str] = ("simple", "ordinary")) -> None:
+    """Compile the local kriging kernels of ``methods`` (numba's cache keeps them) through tiny
+    runs: kriging and cross-validation with each method.
 
     The argument types are those of every real run, so the cached code is the code a run
-    loads (:func:`geosim.simulation.runner.compile_ahead` calls this in another process
-    when a run starts on an empty cache).
+    loads (:func:`geosim.simulation.runner.compile_modules_ahead` calls this in another process
+    when a run starts on an empty cache, with the one method the run uses; the data-unit
+    moments compile in :func:`geosim.moments.warm_up`).
     """
-    from .transforms import LogTransform, NormalScoreTransform, TransformChain
     from .variogram.anisotropy import Anisotropy
     from .variogram.structures import Nugget, Spherical
     rng = np.random.default_rng(0)
@@ -363,12 +365,11 @@ def warm_up() -> None:
     z = rng.lognormal(0.0, 1.0, 12)
     model = Nugget(0.1) + Spherical(0.9, Anisotropy((60.0, 60.0, 60.0)))
     nb = Neighbourhood(max_samples=6, min_samples=1)
-    for method in ("simple", "ordinary"):
-        krige(xy, z, xy[:3] + 1.0, model, method=method, neighbourhood=nb)
-        cross_validate(xy, z, model, method=method, neighbourhood=nb)
-    for transform in (NormalScoreTransform(), TransformChain([LogTransform(), NormalScoreTransform()])):
-        transform.fit(z)
-        multigaussian_moments(transform, np.zeros(3), np.full(3, 0.5))
+    for method in methods:
+        drift = xy[:, 0] if method == "external_drift" else None
+        krige(xy, z, xy[:3] + 1.0, model, method=method, neighbourhood=nb, drift=drift,
+              target_drift=None if drift is None else drift[:3] + 1.0)
+        cross_validate(xy, z, model, method=method, neighbourhood=nb, drift=drift)
 
 
 def _raise_constant_drift(target, txyz, sel, value, labels, left_out: bool):
@@ -404,160 +405,177 @@ def _raise_singular(target, txyz, xyz, sel, pivot, value, labels, model, reg, co
     raise NotPositiveDefiniteError(pivot, value, ids, context + detail)
 
 
-@njit(cache=True, nogil=True)
-def _krige_rows(rows, cand, xyz, frame, z, holes, txyz, tframe, excl_index, excl_hole, cm, mode,
-                mean, drift, tdrift, drift_tol, c0, max_samples, min_samples, widen, first, short, sectors,
-                sector_limit, hole_limit, tol, reg, est, var, n_used, n_reg, more, wts, nbr, fail_info, fail_nbr):
-    """Select, build, factor and solve for each target in ``rows``; -1 or the failing row position.
+def kernel_of(method: str):
+    """The compiled local kriging kernel of ``method`` ("simple", "ordinary", "external_drift")."""
+    return krige_rows(_check_method(method))
 
-    ``mode``: 0 simple, 1 ordinary, 2 external drift (``drift`` at the samples, ``tdrift`` at the
-    targets; a neighbourhood whose drift spans no more than ``drift_tol`` fails with
-    ``fail_info[0] = -1``).  ``first``: the pass inside the search ellipsoid, which marks targets
-    with fewer than ``min_samples`` in ``short`` (and leaves them for the widened pass when ``widen``).
+
+@functools.cache
+def krige_rows(mode: int):
+    """The compiled local kriging kernel of ``mode`` (0 simple, 1 ordinary, 2 external drift).
+
+    The mode is a constant of the kernel's closure, so numba drops the code of the other
+    modes before typing it: a first run compiles only the estimator it uses, about a fifth
+    less than all three (numba's cache keeps each mode under its own name).
     """
     ordinary = mode >= 1
-    k = max_samples
-    a = np.empty((k, k))
-    c = np.empty(k)
-    y1 = np.empty(k)
-    ys = np.empty(k)
-    sel = np.empty(k, dtype=np.int64)
-    sector_count = np.empty(8, dtype=np.int64)  # scratch that select_neighbours resets
-    hole_buf = np.empty(k, dtype=np.int64)
-    hole_count = np.empty(k, dtype=np.int64)
-    keep = wts.shape[0] > 0
-    for i in range(rows.shape[0]):
-        r = rows[i]
-        count, need = select_neighbours(cand[i], frame, holes, tframe[r, 0], tframe[r, 1],
-                                        tframe[r, 2], excl_index[r], excl_hole[r], k, sectors,
-                                        sector_limit, hole_limit, sel, sector_count, hole_buf, hole_count)
-        more[i] = need
-        if need:
-            continue
-        n_used[r] = count
-        if first and count < min_samples:
-            short[r] = True
-            if widen:
+
+    def _krige_rows(rows, cand, xyz, frame, z, holes, txyz, tframe, excl_index, excl_hole, cm, mean, drift,
+                    tdrift, drift_tol, c0, max_samples, min_samples, widen, first, short, sectors, sector_limit,
+                    hole_limit, tol, reg, est, var, n_used, n_reg, more, wts, nbr, fail_info, fail_nbr):
+        """Select, build, factor and solve for each target in ``rows``; -1 or the failing row position.
+
+        ``mode``: 0 simple, 1 ordinary, 2 external drift (``drift`` at the samples, ``tdrift`` at the
+        targets; a neighbourhood whose drift spans no more than ``drift_tol`` fails with
+        ``fail_info[0] = -1``).  ``first``: the pass inside the search ellipsoid, which marks targets
+        with fewer than ``min_samples`` in ``short`` (and leaves them for the widened pass when ``widen``).
+        """
+        k = max_samples
+        a = np.empty((k, k))
+        c = np.empty(k)
+        y1 = np.empty(k)
+        ys = np.empty(k)
+        sel = np.empty(k, dtype=np.int64)
+        sector_count = np.empty(8, dtype=np.int64)  # scratch that select_neighbours resets
+        hole_buf = np.empty(k, dtype=np.int64)
+        hole_count = np.empty(k, dtype=np.int64)
+        keep = wts.shape[0] > 0
+        for i in range(rows.shape[0]):
+            r = rows[i]
+            count, need = select_neighbours(cand[i], frame, holes, tframe[r, 0], tframe[r, 1],
+                                            tframe[r, 2], excl_index[r], excl_hole[r], k, sectors,
+                                            sector_limit, hole_limit, sel, sector_count, hole_buf, hole_count)
+            more[i] = need
+            if need:
                 continue
-        if count == 0 or (ordinary and count < min_samples):
-            # simple kriging without data is the known mean with the full variance
-            est[r] = np.nan if ordinary else mean
-            var[r] = np.nan if ordinary else c0
-            continue
-        tx = txyz[r, 0]
-        ty = txyz[r, 1]
-        tz = txyz[r, 2]
-        for attempt in range(2):
-            for p in range(count):
-                ip = sel[p]
-                # one inlined cov_lag for both the row and the right-hand side (each site costs
-                # compile time on a first run); C(x_p - t) has the bits of C(t - x_p)
-                for q in range(p + 1):
-                    if q < p:
-                        ox, oy, oz = xyz[sel[q], 0], xyz[sel[q], 1], xyz[sel[q], 2]
-                    else:
-                        ox, oy, oz = tx, ty, tz
-                    cpq = cov_lag(cm, xyz[ip, 0] - ox, xyz[ip, 1] - oy, xyz[ip, 2] - oz)
-                    if q < p:
-                        a[p, q] = cpq
-                    else:
-                        c[p] = cpq
-                a[p, p] = c0 * (1.0 + reg) if attempt == 1 else c0
-            # the engine's factorization itself, so that a first run compiles it once for both
-            piv = chol_partial(a, count, count, tol)
-            if piv < 0:
-                if attempt == 1:
-                    n_reg[r] = 1
-                break
-            if attempt == 1 or reg <= 0.0:
-                fail_info[0] = piv
-                fail_info[1] = a[piv, piv]
+            n_used[r] = count
+            if first and count < min_samples:
+                short[r] = True
+                if widen:
+                    continue
+            if count == 0 or (ordinary and count < min_samples):
+                # simple kriging without data is the known mean with the full variance
+                est[r] = np.nan if ordinary else mean
+                var[r] = np.nan if ordinary else c0
+                continue
+            tx = txyz[r, 0]
+            ty = txyz[r, 1]
+            tz = txyz[r, 2]
+            for attempt in range(2):
                 for p in range(count):
-                    fail_nbr[p] = sel[p]
-                for p in range(count, k):
-                    fail_nbr[p] = -1
-                return i
-        forward_inplace(a, count, c)
-        ycyc = 0.0
-        for p in range(count):
-            ycyc += c[p] * c[p]
-        if mode == 2:
-            # drift centred on the neighbourhood's mean: the same system (the constant is a drift
-            # function too), without the cancellation of a large offset
-            sm = 0.0
+                    ip = sel[p]
+                    # one inlined cov_lag for both the row and the right-hand side (each site costs
+                    # compile time on a first run); C(x_p - t) has the bits of C(t - x_p)
+                    for q in range(p + 1):
+                        if q < p:
+                            ox, oy, oz = xyz[sel[q], 0], xyz[sel[q], 1], xyz[sel[q], 2]
+                        else:
+                            ox, oy, oz = tx, ty, tz
+                        cpq = cov_lag(cm, xyz[ip, 0] - ox, xyz[ip, 1] - oy, xyz[ip, 2] - oz)
+                        if q < p:
+                            a[p, q] = cpq
+                        else:
+                            c[p] = cpq
+                    a[p, p] = c0 * (1.0 + reg) if attempt == 1 else c0
+                # the engine's factorization itself, so that a first run compiles it once for both
+                piv = chol_partial(a, count, count, tol)
+                if piv < 0:
+                    if attempt == 1:
+                        n_reg[r] = 1
+                    break
+                if attempt == 1 or reg <= 0.0:
+                    fail_info[0] = piv
+                    fail_info[1] = a[piv, piv]
+                    for p in range(count):
+                        fail_nbr[p] = sel[p]
+                    for p in range(count, k):
+                        fail_nbr[p] = -1
+                    return i
+            forward_inplace(a, count, c)
+            ycyc = 0.0
             for p in range(count):
-                sm += drift[sel[p]]
-            sm /= count
-            lo = np.inf
-            hi = -np.inf
-            for p in range(count):
-                ys[p] = drift[sel[p]] - sm
-                lo = min(lo, ys[p])
-                hi = max(hi, ys[p])
-                y1[p] = 1.0
-            s11 = sss = 1.0
-            s1s = det = r1 = rs = 0.0
-            if hi - lo > drift_tol:
+                ycyc += c[p] * c[p]
+            if mode == 2:
+                # drift centred on the neighbourhood's mean: the same system (the constant is a drift
+                # function too), without the cancellation of a large offset
+                sm = 0.0
+                for p in range(count):
+                    sm += drift[sel[p]]
+                sm /= count
+                lo = np.inf
+                hi = -np.inf
+                for p in range(count):
+                    ys[p] = drift[sel[p]] - sm
+                    lo = min(lo, ys[p])
+                    hi = max(hi, ys[p])
+                    y1[p] = 1.0
+                s11 = sss = 1.0
+                s1s = det = r1 = rs = 0.0
+                if hi - lo > drift_tol:
+                    forward_inplace(a, count, y1)
+                    forward_inplace(a, count, ys)
+                    s11 = s1s = sss = 0.0
+                    r1 = -1.0
+                    rs = sm - tdrift[r]
+                    for p in range(count):
+                        s11 += y1[p] * y1[p]
+                        s1s += y1[p] * ys[p]
+                        sss += ys[p] * ys[p]
+                        r1 += y1[p] * c[p]
+                        rs += ys[p] * c[p]
+                    det = s11 * sss - s1s * s1s
+                if hi - lo <= drift_tol or det <= PIVOT_RTOL * s11 * sss:
+                    fail_info[0] = -1.0
+                    fail_info[1] = sm
+                    for p in range(count):
+                        fail_nbr[p] = sel[p]
+                    for p in range(count, k):
+                        fail_nbr[p] = -1
+                    return i
+                # Lagrange multipliers (F' K^-1 F)^-1 (F' K^-1 c - f0), F = [1, s]
+                mu1 = (sss * r1 - s1s * rs) / det
+                mus = (s11 * rs - s1s * r1) / det
+                v = c0 - ycyc + r1 * mu1 + rs * mus
+                for p in range(count):
+                    c[p] -= mu1 * y1[p] + mus * ys[p]
+            elif ordinary:
+                for p in range(count):
+                    y1[p] = 1.0
                 forward_inplace(a, count, y1)
-                forward_inplace(a, count, ys)
-                s11 = s1s = sss = 0.0
-                r1 = -1.0
-                rs = sm - tdrift[r]
+                s11 = 0.0
+                s1c = 0.0
                 for p in range(count):
                     s11 += y1[p] * y1[p]
-                    s1s += y1[p] * ys[p]
-                    sss += ys[p] * ys[p]
-                    r1 += y1[p] * c[p]
-                    rs += ys[p] * c[p]
-                det = s11 * sss - s1s * s1s
-            if hi - lo <= drift_tol or det <= PIVOT_RTOL * s11 * sss:
-                fail_info[0] = -1.0
-                fail_info[1] = sm
+                    s1c += y1[p] * c[p]
+                mu = (s1c - 1.0) / s11
+                v = c0 - ycyc + (s1c - 1.0) * (s1c - 1.0) / s11
                 for p in range(count):
-                    fail_nbr[p] = sel[p]
+                    c[p] -= mu * y1[p]
+            else:
+                v = c0 - ycyc
+            backward_t_inplace(a, count, c)
+            e = 0.0
+            if ordinary:
+                for p in range(count):
+                    e += c[p] * z[sel[p]]
+            else:
+                for p in range(count):
+                    e += c[p] * (z[sel[p]] - mean)
+                e += mean
+            est[r] = e
+            var[r] = v if v > 0.0 else 0.0
+            if keep:
+                for p in range(count):
+                    wts[r, p] = c[p]
+                    nbr[r, p] = sel[p]
                 for p in range(count, k):
-                    fail_nbr[p] = -1
-                return i
-            # Lagrange multipliers (F' K^-1 F)^-1 (F' K^-1 c - f0), F = [1, s]
-            mu1 = (sss * r1 - s1s * rs) / det
-            mus = (s11 * rs - s1s * r1) / det
-            v = c0 - ycyc + r1 * mu1 + rs * mus
-            for p in range(count):
-                c[p] -= mu1 * y1[p] + mus * ys[p]
-        elif ordinary:
-            for p in range(count):
-                y1[p] = 1.0
-            forward_inplace(a, count, y1)
-            s11 = 0.0
-            s1c = 0.0
-            for p in range(count):
-                s11 += y1[p] * y1[p]
-                s1c += y1[p] * c[p]
-            mu = (s1c - 1.0) / s11
-            v = c0 - ycyc + (s1c - 1.0) * (s1c - 1.0) / s11
-            for p in range(count):
-                c[p] -= mu * y1[p]
-        else:
-            v = c0 - ycyc
-        backward_t_inplace(a, count, c)
-        e = 0.0
-        if ordinary:
-            for p in range(count):
-                e += c[p] * z[sel[p]]
-        else:
-            for p in range(count):
-                e += c[p] * (z[sel[p]] - mean)
-            e += mean
-        est[r] = e
-        var[r] = v if v > 0.0 else 0.0
-        if keep:
-            for p in range(count):
-                wts[r, p] = c[p]
-                nbr[r, p] = sel[p]
-            for p in range(count, k):
-                wts[r, p] = 0.0
-                nbr[r, p] = -1
-    return -1
+                    wts[r, p] = 0.0
+                    nbr[r, p] = -1
+        return -1
+    _krige_rows.__qualname__ = f"_krige_rows_{mode}"
+    return njit(cache=True, nogil=True)(_krige_rows)
+
+
 
 
 def _factor_global(xyz, model, regularization, labels):

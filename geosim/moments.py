@@ -352,3 +352,14 @@ def multigaussian_moments(transform, mean, variance) -> tuple[np.ndarray, np.nda
             got_mean[spread], got_var[spread] = _piecewise_moments(transform, *form, m[spread], s[spread])
     out_mean[ok], out_var[ok] = got_mean, got_var
     return out_mean, out_var
+
+
+def warm_up() -> None:
+    """Compile the moments' kernel (numba's cache keeps it) through the data-unit moments of a
+    normal score transform, alone and after a log: the argument types of every real run
+    (:func:`geosim.simulation.runner.compile_modules_ahead` calls this in another process when a
+    run that cross-validates or estimates starts on an empty cache)."""
+    z = np.random.default_rng(0).lognormal(0.0, 1.0, 12)
+    for transform in (NormalScoreTransform(), TransformChain([LogTransform(), NormalScoreTransform()])):
+        transform.fit(z)
+        multigaussian_moments(transform, np.zeros(3), np.full(3, 0.5))

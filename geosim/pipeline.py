@@ -203,7 +203,7 @@ def variogram_model(spec: RunSpec, data: PreparedData | None = None, *, out_dir:
                 total_sill = drift["residual_variance"]
         from .simulation.runner import await_compiled
         from .variogram.pairs import accumulate_directional
-        await_compiled("engine", accumulate_directional)  # a first run's pair loop, being compiled ahead
+        await_compiled("modules", accumulate_directional)  # a first run's pair loop, being compiled ahead
         experimental = experimental_variograms(spec, fitted, progress)
         try:
             fit = fit_model(experimental, template, weighting=vg["weighting"], total_sill=total_sill)
@@ -240,7 +240,7 @@ def cross_validate(spec: RunSpec, data: PreparedData | None = None, model=None, 
     With ``out_dir``, writes ``cross_validation.csv`` (both scales side by side) and
     ``cross_validation.png`` when ``outputs.plots`` is on.
     """
-    from .kriging import _krige_rows, cross_validate as leave_one_out
+    from .kriging import cross_validate as leave_one_out, kernel_of
     from .moments import _kernel as moments_kernel
     from .secondary import collocated_leave_one_out, drift_errors, secondary_grid
     from .simulation.runner import await_compiled
@@ -251,7 +251,7 @@ def cross_validate(spec: RunSpec, data: PreparedData | None = None, model=None, 
     method, drift = spec["simulation.kriging"], {}
     if secondary is not None and secondary.method == "external_drift":  # the secondary at the samples
         method, drift = "external_drift", {"drift": secondary.at_data}
-    await_compiled("kriging", _krige_rows)  # a first run's kriging kernel, being compiled ahead
+    await_compiled("modules", kernel_of(method))  # a first run's kriging kernel, being compiled ahead
     with drift_errors(secondary) if drift else nullcontext():
         result = leave_one_out(data.coords, data.scores, model, method=method, mean=0.0,
                                neighbourhood=neighbourhood(spec), hole_ids=data.samples.hole_ids,
@@ -262,7 +262,7 @@ def cross_validate(spec: RunSpec, data: PreparedData | None = None, model=None, 
     result = replace(result, units="normal score", weights=data.weights, scale="normal scores")
     if data.mean is not None:  # the mean at each sample back on the residuals
         result = replace(result, values=data.mean.scores, estimate=result.estimate + data.mean.at_data)
-    await_compiled("kriging", moments_kernel)  # compiled ahead after the kriging kernel
+    await_compiled("modules", moments_kernel)  # compiled ahead after the kriging kernel
     in_data = result.in_data_units(data.transform, data.values, units=spec["data.units"])
     cv = CrossValidation(result, {"normal_scores": result.summary(), "data_units": in_data.summary()},
                          data_units=in_data)
@@ -289,7 +289,7 @@ def estimate(spec: RunSpec, data: PreparedData | None = None, model=None, grid=N
     model = _model(spec, data, model, progress)
     from .moments import _kernel as moments_kernel
     from .simulation.runner import await_compiled
-    await_compiled("kriging", moments_kernel)  # the kriging kernel is cached before the moments' one
+    await_compiled("modules", moments_kernel)  # the kriging kernel is cached before the moments' one
     secondary = secondary_grid(spec, data.samples, data.scores, grid)
     scores, variance, result = krige_nodes(
         data.coords, data.scores, grid, model, mean=data.mean, secondary=secondary,
@@ -410,7 +410,8 @@ def summarize(spec: RunSpec, out_dir: str | os.PathLike, *, data: PreparedData |
     Returns output kind -> list of paths.
     """
     from .simulation.runner import await_compiled
-    await_compiled("kriging")  # a first run's summary kernel is the last one compiled ahead
+    from .summaries import _node_bands
+    await_compiled("engine", _node_bands)  # a large first run's summary kernel, compiled after the engine's
     out_dir = Path(out_dir)
     data = data if data is not None else prepare_data(spec, progress)
     model = _model(spec, data, model, progress)
@@ -481,9 +482,10 @@ def run_job(spec: RunSpec | str | os.PathLike, out_dir: str | os.PathLike, prepa
     claims ``out_dir`` (:func:`run_in_folder`) and returns ``steps(spec, prepared, grid,
     out_dir, timed, timings)``.  ``timed(name, func, *args)`` is :func:`step_timer`'s.
     """
-    from .kriging import _krige_rows
-    from .simulation.runner import compile_ahead, compile_modules_ahead
-    from .summaries import _node_bands
+    from .kriging import kernel_of
+    from .moments import _kernel as moments_kernel
+    from .simulation.runner import compile_ahead, compile_modules_ahead, end_ahead
+    from .summaries import COMPILED_BANDS_FROM, _node_bands
     from .variogram.pairs import accumulate_directional
     if not isinstance(spec, RunSpec):
         spec = load_spec(spec)
@@ -491,23 +493,45 @@ def run_job(spec: RunSpec | str | os.PathLike, out_dir: str | os.PathLike, prepa
     refuse_drift_simulation(spec, "run")
     out_dir = Path(out_dir)
     timings: dict[str, float] = {}
-    # a first run's engine compiles beside the steps before it, after the variogram pair loop
-    # when a fit needs it (within seconds, long before the engine's kernel is)
-    compile_ahead(spec["simulation.engine"],
-                  [("geosim.variogram.experimental", accumulate_directional)] if spec["variogram.fit"] else [])
-    # and so do its kriging kernels (if cross-validation or the estimate is asked for) and its
-    # summary kernel, beside data preparation and variogram fitting
+    # a first run compiles ahead in two processes, each kernel ready before the step that needs it:
+    # the variogram pair loop (needed within seconds), then the kriging kernel of cross-validation
+    # and the estimate; and the data-unit moments (needed after the kriging), then the engine's
+    # kernel of this run once its grid is known (whether realizations share paths), and the
+    # summary kernel when the run is large enough for it to pay (smaller ones use numpy)
+    ahead = [("geosim.variogram.experimental", accumulate_directional, {})] if spec["variogram.fit"] else []
     kriging = spec["outputs.cross_validation"] or spec["outputs.estimate"]
-    compile_modules_ahead("kriging", ("geosim.kriging",) * kriging + ("geosim.summaries",),
-                          _krige_rows if kriging else _node_bands)
+    if kriging:
+        method = spec["simulation.kriging"]
+        ahead.append(("geosim.kriging", kernel_of(method), {"methods": (method,)}))
+    compile_modules_ahead("modules", ahead)
+    compile_modules_ahead("engine", [("geosim.moments", moments_kernel, {})] if kriging else [], more=True)
     timed = step_timer(timings)
-    prepared, grid, notes = prepare(spec, timed)
+    try:
+        prepared, grid, notes = prepare(spec, timed)
+    except BaseException:
+        end_ahead("engine")  # nothing more comes: the process ends after the moments
+        raise
+    large = grid.n_active * spec["simulation.realizations"] >= COMPILED_BANDS_FROM
+    compile_ahead(spec["simulation.engine"], engine_needs(spec, grid),
+                  [("geosim.summaries", _node_bands)] if large else [])
     for note in notes:
         log.info("%s", note)
     support_sinks(spec, grid, out_dir, {})  # bad query points or ranking region fail before the folder is claimed
     log.info("%r", grid)
     return run_in_folder(spec, out_dir, overwrite, resume,
                          lambda: steps(spec, prepared, grid, out_dir, timed, timings))
+
+
+def engine_needs(spec: RunSpec, grid) -> dict[str, object]:
+    """The options of the spec's run on ``grid`` that select the engine kernel's variant
+    (:func:`geosim.simulation.runner.compile_ahead`): the kriging, whether realizations share
+    paths, and whether a collocated secondary joins (a correlation estimated from the data
+    counts as one)."""
+    from .simulation.runner import per_path_for
+    sim = spec["simulation"]
+    return {"kriging": sim["kriging"],
+            "shared_path": per_path_for(sim["realizations_per_path"], grid, sim["engine"]) > 1,
+            "secondary": spec["secondary.file"] is not None and spec["secondary.correlation"] != 0.0}
 
 
 def step_timer(timings: dict[str, float]) -> Callable:

@@ -87,9 +87,15 @@ def summary_band_descriptions(cutoffs: Sequence[float] = (), units: str = "") ->
 #: sorting network works on one row of this many nodes, a loop the compiler turns into vector
 #: instructions.
 _LANES = 256
+#: Values (nodes x realizations) from which a stack's bands are worth compiling :func:`_node_bands`
+#: for: below, numpy gives the same bits without the 1.2-1.9 s of CPU the kernel takes to compile on a
+#: first run, at most about 50 ms more per pass than the compiled kernel; runs of at least this many
+#: values compile it ahead (:func:`geosim.pipeline.run_job`).
+COMPILED_BANDS_FROM = 1 << 20
 
 
-def summary_bands(stack: np.ndarray, cutoffs: Sequence[float] = (), threads: int = 1) -> np.ndarray:
+def summary_bands(stack: np.ndarray, cutoffs: Sequence[float] = (), threads: int = 1,
+                  compiled: bool | None = None) -> np.ndarray:
     """Summary bands of a stack ``(n_real, ...)``; returns ``(n_bands, ...)`` float64.
 
     Bands in :func:`summary_band_names` order.  Every realization must share the
@@ -97,18 +103,40 @@ def summary_bands(stack: np.ndarray, cutoffs: Sequence[float] = (), threads: int
     double precision from the stored values: float32 values (what the files and the
     realization store hold, also when given as float64) are read as float32 and widened
     value by value (exactly), anything else as float64; ``threads`` split the nodes.
+    ``compiled`` None takes that pass when it is compiled already (in this process or
+    numba's cache) or the stack holds at least :data:`COMPILED_BANDS_FROM` values, and
+    otherwise numpy's reductions and ``numpy.percentile``, which give the same bits
+    (tested); True or False forces one.
     """
     stack = np.asarray(stack)
     shape = stack.shape[1:]
     flat = stack.reshape(stack.shape[0], -1)
+    out = np.empty((5 + len(cutoffs), flat.shape[1]))
+    cut = np.asarray(cutoffs, dtype=np.float64)
+    if compiled is None:
+        compiled = flat.size >= COMPILED_BANDS_FROM or _bands_compiled()
+    bad = _compiled_bands(flat, cut, out, threads) if compiled else _numpy_bands(flat, cut, out)
+    if bad:
+        raise ValueError("some nodes are NaN in some realizations but not in others; every realization "
+                         "must share the domain mask")
+    return out.reshape((out.shape[0],) + shape)
+
+
+def _bands_compiled() -> bool:
+    """Whether :func:`_node_bands` runs without compiling: loaded in this process or in numba's cache."""
+    from .simulation.runner import in_numba_cache
+    return bool(_node_bands.signatures) or in_numba_cache(_node_bands)
+
+
+def _compiled_bands(flat: np.ndarray, cut: np.ndarray, out: np.ndarray, threads: int) -> bool:
+    """:func:`_node_bands` over all nodes of ``flat`` into ``out``, split over ``threads``; whether a
+    node is partly NaN."""
     if flat.dtype != np.float32:
         flat = np.asarray(flat, dtype=np.float64)
         narrow = flat.astype(np.float32)
         if np.array_equal(narrow, flat, equal_nan=True):  # float32 values: the same bands, one compiled kernel
             flat = narrow
     flat = np.ascontiguousarray(flat)
-    out = np.empty((5 + len(cutoffs), flat.shape[1]))
-    cut = np.asarray(cutoffs, dtype=np.float64)
     probs = np.asarray(SUMMARY_PERCENTILES, dtype=np.float64) / 100.0
     pairs = sorting_network(flat.shape[0])
     m = flat.shape[1]
@@ -120,10 +148,27 @@ def summary_bands(stack: np.ndarray, cutoffs: Sequence[float] = (), threads: int
                                 range(len(bounds) - 1)))
     else:
         bad = [_node_bands(flat, cut, probs, pairs, out, 0, m)]
-    if any(b >= 0 for b in bad):
-        raise ValueError("some nodes are NaN in some realizations but not in others; every realization "
-                         "must share the domain mask")
-    return out.reshape((out.shape[0],) + shape)
+    return any(b >= 0 for b in bad)
+
+
+def _numpy_bands(flat: np.ndarray, cut: np.ndarray, out: np.ndarray) -> bool:
+    """The bands of :func:`_node_bands` by numpy, bit for bit, into ``out``: sums over the realization
+    axis in float64 add the rows in order (as the kernel does), and ``numpy.percentile`` is the
+    definition the kernel follows (its order is that of the float64 widenings); whether a node is
+    partly NaN."""
+    flat = np.asarray(flat, dtype=np.float64)
+    n = flat.shape[0]
+    nan = np.isnan(flat)
+    outside = nan.all(axis=0)
+    if (nan.any(axis=0) & ~outside).any():
+        return True
+    out[0] = flat.sum(axis=0) / n
+    out[1] = np.sqrt(((flat - out[0]) ** 2).sum(axis=0) / n)
+    out[2:5] = np.percentile(flat, SUMMARY_PERCENTILES, axis=0)
+    for c in range(cut.shape[0]):
+        out[5 + c] = (flat > cut[c]).sum(axis=0) / n
+    out[:, outside] = np.nan
+    return False
 
 
 @functools.lru_cache(maxsize=8)
@@ -247,8 +292,9 @@ def _node_bands(vals, cutoffs, probs, pairs, out, start, stop):  # pragma: no co
 
 def warm_up() -> None:
     """Compile the summary kernel (numba's cache keeps it): the float32 pass of the stacks read from
-    files and realization stores (:func:`geosim.simulation.runner.compile_modules_ahead`)."""
-    summary_bands(np.arange(6.0, dtype=np.float32).reshape(3, 2), [0.5])
+    files and realization stores (:func:`geosim.simulation.runner.compile_ahead`, for runs of at least
+    :data:`COMPILED_BANDS_FROM` values)."""
+    summary_bands(np.arange(6.0, dtype=np.float32).reshape(3, 2), [0.5], compiled=True)
 
 
 def summarize_ensemble(fields: np.ndarray | Sequence[np.ndarray],

@@ -74,7 +74,7 @@ def test_quantiles_by_selection_equal_numpy_exactly_with_ties_and_any_ensemble_s
     v[:, 401] = np.arange(n)
     v[:, 402] = -np.arange(n)
     v[:, 403:420] = rng.integers(0, 3, size=(n, 17))
-    bands = summary_bands(v, [0.0], threads=2)
+    bands = summary_bands(v, [0.0], threads=2, compiled=True)
     for b, p in enumerate((10, 50, 90)):
         np.testing.assert_array_equal(bands[2 + b], np.percentile(v, p, axis=0))
 
@@ -121,12 +121,50 @@ def test_summary_bands_of_float32_stacks_are_those_of_their_float64_widening():
     stack[:, 1, 650:] = np.nan
     wide = stack.astype(np.float64)
     for threads in (1, 3):
-        a = summary_bands(stack, [0.3, 1.0], threads)
-        b = summary_bands(wide, [0.3, 1.0], threads)
+        a = summary_bands(stack, [0.3, 1.0], threads, compiled=True)
+        b = summary_bands(wide, [0.3, 1.0], threads, compiled=True)
         np.testing.assert_array_equal(a, b)
     np.testing.assert_array_equal(a[2:5, 0], np.percentile(wide[:, 0], [10, 50, 90], axis=0))
     np.testing.assert_array_equal(a[6, 0], (wide[:, 0] > 1.0).sum(0) / 37)
     assert np.isnan(a[:, 1, 650:]).all() and not np.isnan(a[:, 1, :650]).any()
+
+
+@pytest.mark.parametrize("dtype", [np.float64, np.float32])
+@pytest.mark.parametrize("n", [1, 2, 3, 7, 20, 100, 101])
+def test_the_compiled_pass_and_numpy_give_the_same_bits(n, dtype):
+    # small stacks take numpy's reductions and percentiles, large ones (or any once the kernel is
+    # compiled) the compiled pass: every band must be the same number either way, with ties, a
+    # constant node, nodes outside the domain (NaN in every realization) and lognormal values
+    # (whose sums round differently in another order), on one thread and two, for float64 values
+    # and float32 ones (the kernel's float32 specialization)
+    rng = np.random.default_rng(100 + n)
+    v = rng.lognormal(0.0, 1.5, (n, 5000)).astype(dtype)
+    v[:, :300] = np.nan
+    v[:, 300:1300] = np.round(v[:, 300:1300], 1)
+    v[:, 1300] = 0.7
+    cut = [0.1, 1.0, 1.0000001, 10.0]
+    ref = summary_bands(v.reshape(n, 50, 100), cut, compiled=False)
+    for threads in (1, 2):
+        got = summary_bands(v.reshape(n, 50, 100), cut, threads=threads, compiled=True)
+        np.testing.assert_array_equal(got, ref)
+    assert np.isnan(ref[:, 0, :100]).all() and not np.isnan(ref[:, 10:]).any()
+
+
+def test_summary_bands_take_the_compiled_pass_from_a_size_on_or_once_it_is_compiled(monkeypatch):
+    import geosim.summaries as summaries
+    calls = []
+    real = summaries._compiled_bands
+    monkeypatch.setattr(summaries, "_compiled_bands", lambda *a: calls.append(1) or real(*a))
+    monkeypatch.setattr(summaries, "_bands_compiled", lambda: False)  # as on a first run
+    summary_bands(np.ones((4, 10)))
+    assert calls == []
+    monkeypatch.setattr(summaries, "COMPILED_BANDS_FROM", 40)
+    summary_bands(np.ones((4, 10)))
+    assert calls == [1]
+    monkeypatch.setattr(summaries, "COMPILED_BANDS_FROM", 1 << 22)
+    monkeypatch.setattr(summaries, "_bands_compiled", lambda: True)
+    summary_bands(np.ones((4, 10)))
+    assert calls == [1, 1]
 
 
 def test_summary_windows_of_100_realizations_equal_numpy_on_every_node():
@@ -143,11 +181,12 @@ def test_summary_windows_of_100_realizations_equal_numpy_on_every_node():
         np.testing.assert_array_equal(bands[6], (v > 1.0).sum(0) / 100.0 + 0 * v[0])
 
 
-def test_mask_must_be_shared_by_all_realizations():
+@pytest.mark.parametrize("compiled", [True, False])
+def test_mask_must_be_shared_by_all_realizations(compiled):
     stack, _ = _ensemble(n=3)
     stack[1, 10, 10] = np.nan
     with pytest.raises(ValueError, match="domain mask"):
-        summarize_ensemble(stack)
+        summary_bands(stack, compiled=compiled)
 
 
 @pytest.mark.parametrize("window", [None, 50, 97])

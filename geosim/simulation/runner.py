@@ -33,7 +33,7 @@ import os
 import select
 import threading
 import time
-from collections.abc import Callable, Iterable, Sequence
+from collections.abc import Callable, Iterable, Mapping, Sequence
 
 import numpy as np
 
@@ -142,20 +142,21 @@ def in_numba_cache(dispatcher) -> bool:
         return True
 
 
-def compile_ahead(engine, first: Sequence[tuple[str, object]] = ()):
+def compile_ahead(engine, needs: Mapping[str, object] | None = None,
+                  after: Sequence[tuple[str, object]] = ()):
     """Start compiling an engine's kernels into numba's cache in another process, if they are not there.
 
     On the first run after an install the sequential engine's kernel takes several seconds to
-    compile.  Started at the beginning of a run, the compiling runs beside the data
-    preparation, cross-validation and kriging, and the workers later load the code from the
-    cache.  An engine takes part with ``warm_up()`` (a tiny run through its kernels) and
-    ``main_kernel()`` (the dispatcher whose cache is checked).  The process exits when this
-    one does (:func:`watch_process`) and writes nothing but numba's cache.
+    compile.  Started once the run's grid is known, the compiling runs beside variogram
+    fitting, cross-validation and kriging, and the workers later load the code from the
+    cache.  An engine takes part with ``warm_up(**needs)`` (a tiny run through its kernels)
+    and ``main_kernel(**needs)`` (the dispatcher whose cache is checked); ``needs`` name the
+    options of the run that select the kernel's variant (the sequential engine: ``kriging``,
+    ``shared_path``, ``secondary``), and only those an engine's methods accept are passed.  The
+    process exits when this one does (:func:`watch_process`) and writes nothing but numba's cache.
 
-    ``first``: ``(module, kernel)`` pairs whose module's ``warm_up()`` runs before the engine's,
-    each only when its kernel is not cached: kernels this process needs before the engine's
-    (a run puts the variogram pair loop here, needed within seconds, while the engine's
-    kernel is needed only at the simulation).
+    ``after``: ``(module, kernel)`` pairs whose module's ``warm_up()`` runs after the engine's,
+    each only when its kernel is not cached (a large run puts the summary kernel here).
 
     :func:`simulate` waits for the engine's main kernel (:func:`await_compiled` under
     ``"engine"``) before it starts any realization, so that no worker compiles the kernel
@@ -164,11 +165,23 @@ def compile_ahead(engine, first: Sequence[tuple[str, object]] = ()):
     Returns the started ``subprocess.Popen``, or None when there is nothing to compile.
     """
     eng = resolve_engine(engine)
-    targets = [(module, None) for module, kernel in first if not in_numba_cache(kernel)]
-    if hasattr(eng, "warm_up") and hasattr(eng, "main_kernel") and not in_numba_cache(eng.main_kernel()):
-        kind = type(eng)
-        targets.append((kind.__module__, kind.__qualname__))
-    return _start_warm_up("engine", targets) if targets else None
+    targets = []
+    if hasattr(eng, "warm_up") and hasattr(eng, "main_kernel"):
+        needs = _accepted(eng.warm_up, needs or {})
+        if not in_numba_cache(eng.main_kernel(**_accepted(eng.main_kernel, needs))):
+            kind = type(eng)
+            targets.append((kind.__module__, kind.__qualname__, needs))
+    targets += [(module, None, {}) for module, kernel in after if not in_numba_cache(kernel)]
+    return _hand_over("engine", targets)
+
+
+def _accepted(method, keywords: Mapping[str, object]) -> dict:
+    """The ``keywords`` that ``method`` takes (an engine of a plugin need not know the run's needs)."""
+    import inspect
+    params = inspect.signature(method).parameters
+    if any(p.kind is p.VAR_KEYWORD for p in params.values()):
+        return dict(keywords)
+    return {k: v for k, v in keywords.items() if k in params}
 
 
 #: The compiling processes this process started, by what they compile (:func:`compile_ahead`,
@@ -176,32 +189,67 @@ def compile_ahead(engine, first: Sequence[tuple[str, object]] = ()):
 _AHEAD: dict[str, object] = {}
 
 
-def compile_modules_ahead(key: str, modules: Sequence[str], kernel) -> object | None:
-    """Start compiling kernels into numba's cache in another process, if ``kernel`` is not there.
+def compile_modules_ahead(key: str, targets: Sequence[tuple[str, object, Mapping[str, object]]], *,
+                          more: bool = False) -> object | None:
+    """Start compiling kernels into numba's cache in another process, if they are not there.
 
-    The process imports each of ``modules`` and calls its ``warm_up()`` (tiny runs through
-    its kernels with a real run's argument types), in order.  A first run starts one for
-    the kriging kernels (cross-validation and the estimate, about 7 s of CPU) and the
-    summaries' kernel when it begins, so they compile beside data preparation and
-    variogram fitting; :func:`await_compiled` then lets a step wait for it rather than
-    compile the same code again.  Like :func:`compile_ahead` the process ends with this
-    one and writes nothing but numba's cache.  Returns the ``subprocess.Popen``, or None.
+    ``targets``: ``(module, kernel, keywords)``; the process imports each module whose
+    ``kernel`` is not cached and calls its ``warm_up(**keywords)`` (tiny runs through its
+    kernels with a real run's argument types), in order.  A first run starts one for the
+    variogram pair loop and the kriging kernels (cross-validation and the estimate) when it
+    begins, and one for the data-unit moments that goes on with the engine's kernel once the
+    grid is known (``more``: the process then waits for what :func:`compile_ahead` hands it
+    under the same ``key``).  So they compile beside data preparation and variogram fitting;
+    :func:`await_compiled` then lets a step wait for its kernel rather than compile the same
+    code again.  Like :func:`compile_ahead` the process ends with this one and writes nothing
+    but numba's cache.  Returns the ``subprocess.Popen``, or None when everything is cached
+    (nothing is started then, even with ``more``).
     """
-    if in_numba_cache(kernel):
-        return None
-    return _start_warm_up(key, [(m, None) for m in modules])
+    todo = [(module, None, dict(keywords)) for module, kernel, keywords in targets if not in_numba_cache(kernel)]
+    return _start_warm_up(key, todo, more) if todo else None
 
 
-def _start_warm_up(key: str, targets: Sequence[tuple[str, str | None]]):
-    """A silent process that runs :func:`warm_up_engine` on each ``(module, name)`` in turn, registered
-    in :data:`_AHEAD` under ``key`` for :func:`await_compiled`."""
+def _start_warm_up(key: str, targets: Sequence[tuple[str, str | None, Mapping[str, object]]], more: bool = False):
+    """A silent process that runs :func:`warm_up_engine` on each ``(module, name, keywords)`` in turn,
+    registered in :data:`_AHEAD` under ``key`` for :func:`await_compiled`; with ``more`` it then
+    reads further targets from its stdin (:func:`_hand_over`) until that is closed."""
     import subprocess
     import sys
-    calls = "; ".join(f"warm_up_engine({os.getpid()}, {m!r}, {n!r})" for m, n in targets)
+    pid = os.getpid()
+    calls = [f"warm_up_engine({pid}, {m!r}, {n!r}, {dict(k)!r})" for m, n, k in targets]
+    calls += [f"warm_up_more({pid})"] if more else []
     proc = _AHEAD[key] = subprocess.Popen(
-        [sys.executable, "-c", f"from geosim.simulation.runner import warm_up_engine; {calls}"],
-        stdin=subprocess.DEVNULL, stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL)
+        [sys.executable, "-c", "from geosim.simulation.runner import warm_up_engine, warm_up_more; " + "; ".join(calls)],
+        stdin=subprocess.PIPE if more else subprocess.DEVNULL, stdout=subprocess.DEVNULL,
+        stderr=subprocess.DEVNULL, text=more or None)
     return proc
+
+
+def _hand_over(key: str, targets: Sequence[tuple[str, str | None, Mapping[str, object]]]):
+    """Give ``targets`` to the process under ``key`` that waits for more (and close its stdin, so it
+    ends after them), or start one for them.  Returns the process, or None with nothing to compile."""
+    import json
+    proc = _AHEAD.get(key)
+    if proc is not None and proc.stdin is not None and not proc.stdin.closed:
+        try:
+            for module, name, keywords in targets:
+                proc.stdin.write(json.dumps([module, name, dict(keywords)]) + "\n")
+            proc.stdin.close()
+            return proc
+        except OSError:  # it has ended (it failed, or watched a process that is gone): start another
+            pass
+    return _start_warm_up(key, targets) if targets else None
+
+
+def end_ahead(key: str) -> None:
+    """Tell the process under ``key`` that waits for more (:func:`compile_modules_ahead`) that
+    nothing more comes: it ends after what it has."""
+    proc = _AHEAD.get(key)
+    if proc is not None and proc.stdin is not None and not proc.stdin.closed:
+        try:
+            proc.stdin.close()
+        except OSError:
+            pass
 
 
 def await_compiled(key: str, kernel=None, timeout: float = 300.0) -> None:
@@ -227,13 +275,23 @@ def await_compiled(key: str, kernel=None, timeout: float = 300.0) -> None:
     _AHEAD.pop(key, None)
 
 
-def warm_up_engine(main_pid: int, module: str, name: str | None) -> None:
+def warm_up_engine(main_pid: int, module: str, name: str | None, keywords: Mapping[str, object] | None = None
+                   ) -> None:
     """The body of :func:`compile_ahead`'s process: compile the engine class ``module.name`` (with
-    ``name`` None, the module's own ``warm_up()``)."""
+    ``name`` None, the module's own ``warm_up()``), passing ``keywords`` to ``warm_up``."""
     import importlib
     watch_process(main_pid)
     target = importlib.import_module(module)
-    (target.warm_up if name is None else getattr(target, name)().warm_up)()
+    (target.warm_up if name is None else getattr(target, name)().warm_up)(**(keywords or {}))
+
+
+def warm_up_more(main_pid: int) -> None:
+    """The rest of a compiling process started with ``more``: :func:`warm_up_engine` for each
+    ``[module, name, keywords]`` line of its stdin, until that is closed."""
+    import json
+    import sys
+    for line in sys.stdin:
+        warm_up_engine(main_pid, *json.loads(line))
 
 
 def watch_process(pid: int, interval: float = PARENT_POLL_SECONDS) -> threading.Thread:
@@ -447,7 +505,13 @@ def simulate(data_coords, data_scores, model, grid, *, n_realizations: int, seed
     prepared = eng.prepare(data_coords, data_scores, model, grid, neighbourhood=neighbourhood,
                            kriging=kriging, **engine_options)
     # a first run's kernel may still be compiling in compile_ahead's process: load it, not compile it again
-    await_compiled("engine", eng.main_kernel() if hasattr(eng, "main_kernel") else None)
+    if hasattr(eng, "main_kernel"):
+        needs = {"kriging": kriging, "shared_path": per_path > 1,
+                 "secondary": engine_options.get("secondary") is not None
+                 and engine_options.get("correlation", 0.0) != 0.0}
+        await_compiled("engine", eng.main_kernel(**_accepted(eng.main_kernel, needs)))
+    else:
+        await_compiled("engine")
     groups = _groups(todo, per_path)
     if client is not None:
         results = _run_dask(client, eng, prepared, sink, seed, groups, per_path, progress)

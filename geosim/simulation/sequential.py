@@ -25,6 +25,7 @@ simulation (from memory); multi-grid paths are common practice, no source.
 """
 from __future__ import annotations
 
+import functools
 import math
 from collections.abc import Sequence
 from dataclasses import dataclass, field, replace
@@ -176,25 +177,31 @@ class SequentialEngine:
             secondary=sec.ravel() if b != 0.0 else np.zeros(0), secondary_b=b, secondary_noise=noise,
             secondary_nodes=int(secondary_nodes) if b != 0.0 else 0)
 
-    def main_kernel(self):
-        """The numba dispatcher that costs the most to compile (:func:`geosim.simulation.runner.compile_ahead`)."""
-        return _sgs_kernel
+    def main_kernel(self, *, kriging: str = "simple", shared_path: bool = False, secondary: bool = False):
+        """The numba dispatcher that costs the most to compile (:func:`geosim.simulation.runner.compile_ahead`):
+        the kernel of a run with ``kriging``, paths shared by realizations or not, and a collocated
+        secondary or not (:func:`sgs_kernel`)."""
+        return sgs_kernel(not shared_path, kriging == "ordinary", secondary)
 
-    def warm_up(self) -> None:
-        """Compile the engine's kernels (numba's cache keeps them) through a tiny 3-D run.
+    def warm_up(self, *, kriging: str = "simple", shared_path: bool = False, secondary: bool = False) -> None:
+        """Compile the kernels of a run with these options (numba's cache keeps them) through a tiny 3-D run.
 
         Every kernel sees the argument types a real run gives it, so the cached code is
-        the code a run loads, whatever its grid, model or neighbourhood.
+        the code a run loads, whatever its grid, model or neighbourhood.  Only the variant
+        of :meth:`main_kernel` the options name is compiled.
         """
         from ..grid import Grid
         from ..variogram.anisotropy import Anisotropy
         from ..variogram.structures import Nugget, Spherical
         grid = Grid(0.0, 0.0, (1.0, 1.0, 1.0), (2, 3, 3))
         model = Nugget(0.1) + Spherical(0.9, Anisotropy((4.0, 4.0, 4.0)))
-        plan = self.prepare(np.array([[0.3, 0.4, 0.5]]), np.array([0.5]), model, grid,
-                            neighbourhood=Neighbourhood(max_samples=4, max_nodes=4))
-        self.realize(plan, np.random.default_rng(0))
-        self.realize_batch(plan, np.random.default_rng(1), [np.random.default_rng(2), np.random.default_rng(3)])
+        extra = {"secondary": np.zeros(grid.shape), "correlation": 0.5} if secondary else {}
+        plan = self.prepare(np.array([[0.3, 0.4, 0.5]]), np.array([0.5]), model, grid, kriging=kriging,
+                            neighbourhood=Neighbourhood(max_samples=4, max_nodes=4), **extra)
+        if shared_path:
+            self.realize_batch(plan, np.random.default_rng(1), [np.random.default_rng(2), np.random.default_rng(3)])
+        else:
+            self.realize(plan, np.random.default_rng(0))
 
     def realize(self, plan: SequentialPlan, rng: np.random.Generator) -> np.ndarray:
         """One realization: normal scores of ``grid.shape``, NaN outside the mask."""
@@ -235,17 +242,18 @@ class SequentialEngine:
         a = np.zeros((kmax + 3, kmax + 3))  # the system bordered by up to three rows
         normals = np.empty((min(PATH_CHUNK, path.shape[0]), len(rngs)))
         shape3 = np.array(plan.shape3, dtype=np.int64)
+        kernel = sgs_kernel(single, plan.ordinary, plan.secondary.shape[0] > 0)
         for start in range(0, path.shape[0], PATH_CHUNK):
             part = path[start:start + PATH_CHUNK]
             draws = normals[:part.shape[0]]
             for b, rng in enumerate(rngs):
                 draws[:, b] = rng.standard_normal(part.shape[0])
-            status = _sgs_kernel(field, done, plan.active_flat, part, draws, shape3,
-                                 plan.origin, plan.step, plan.offsets, plan.lags, plan.table, plan.table_lin,
-                                 plan.table_zero, plan.use_table, plan.data_cov,
-                                 plan.data_coords, plan.data_scores, plan.data_neighbours, plan.cm,
-                                 plan.max_nodes, plan.ordinary, plan.tol, plan.nugget_node_data, single, a, ids,
-                                 fail, plan.secondary, plan.secondary_b, plan.secondary_noise, plan.secondary_nodes)
+            status = kernel(field, done, plan.active_flat, part, draws, shape3,
+                            plan.origin, plan.step, plan.offsets, plan.lags, plan.table, plan.table_lin,
+                            plan.table_zero, plan.use_table, plan.data_cov,
+                            plan.data_coords, plan.data_scores, plan.data_neighbours, plan.cm,
+                            plan.max_nodes, plan.tol, plan.nugget_node_data, a, ids,
+                            fail, plan.secondary, plan.secondary_b, plan.secondary_noise, plan.secondary_nodes)
             if status >= 0:
                 fail[0] += start
                 raise _pivot_error(plan, path, a, ids, fail)
@@ -320,263 +328,276 @@ def _data_neighbours(coords: np.ndarray, node_coords: np.ndarray, nb: Neighbourh
     return np.ascontiguousarray(out[:, :used])
 
 
-@njit(cache=True, nogil=True)
-def _sgs_kernel(field, done, active_flat, path, normals, shape3, origin, step, offsets, lags, table, table_lin,
-                table_zero, use_table, data_cov, dcoords, dscores, dnbr, cm, max_nodes, ordinary, tol,
-                nugget_node_data, single, a, ids, fail, sec, sec_b, sec_noise, sec_max):
-    """Simulate every node of ``path`` into ``field`` (flat nodes x members, NaN = not yet simulated).
+@functools.cache
+def sgs_kernel(single: bool, ordinary: bool, secondary: bool):
+    """The compiled kernel for one member or a batch sharing the path, simple or ordinary kriging,
+    with or without a collocated secondary.
 
-    The members (columns of ``field`` and ``normals``) share the path.  ``single`` (one
-    member) borders the factored system with the values; otherwise the weights are
-    solved for once per node and applied to each member, so that a member's bits do
-    not depend on how many others are computed with it.
-
-    With a secondary (``sec`` not empty: its score at every flat node, NaN outside the
-    domain), the secondary values ``s`` of up to ``sec_max`` nodes not yet simulated, met
-    while scanning the template, join the system as noisy measurements of the primary,
-    ``s / b = y + e / b`` (covariances of the primary, plus ``(1 - rho^2) / b^2`` on their
-    own diagonal), and the simple-kriging moments are then updated with the collocated value
-    (Markov model, see :func:`geosim.kriging.collocated_update`): gain
-    ``g = b v / (b^2 v + 1 - rho^2)``, mean ``(1 - g b) y + g s``, variance ``(1 - g b) v``.
-
-    Returns -1, or the path position where a local covariance matrix failed to factor
-    (then ``fail = [position, pivot, n_data, n_total]`` and ``ids`` holds the data ids
-    followed by the template indices of the node neighbours).
+    The three are constants of the kernel's closure, so numba drops the code of the options a
+    run does not use before typing it: a first run compiles about a fifth less, once per
+    variant it uses (numba's cache keeps each variant under its own name).
     """
-    nz, ny, nx = shape3[0], shape3[1], shape3[2]
-    nt = offsets.shape[0]
-    kd = dnbr.shape[1]
-    kmax = a.shape[0]
-    rhs = np.empty(kmax)
-    zv = np.empty(kmax)
-    rel = np.empty((kmax, 3))  # conditioning points relative to the node being simulated
-    lin = np.empty(kmax, dtype=np.int64)
-    use_data_cov = data_cov.shape[0] > 0
-    codes, sills, mats, params, tables, steps = cm
-    nugget = 0.0
-    c0 = 0.0  # cov_lag at lag zero, summed in its order (a tabulated structure's first entry)
-    for jj in range(codes.shape[0]):
-        c0 += sills[jj] * tables[jj, 0] if codes[jj] == TABULATED else sills[jj]
-        if codes[jj] == NUGGET:
-            nugget += sills[jj]
-    tr = np.empty((kd, 3))  # the data's positions in one structure's reduced coordinates
-    nb = field.shape[1]  # realizations sharing this path
-    acc = np.empty(nb)
-    lin_node = np.empty(kmax, dtype=np.int64)  # flat index of each simulated neighbour
-    wts = np.empty(kmax)
-    sec_t = np.empty(max(sec_max, 1), dtype=np.int64)
-    sec_node = np.empty(max(sec_max, 1), dtype=np.int64)
-    for p in range(path.shape[0]):
-        pos = path[p]
-        flat = active_flat[pos]
-        k = flat // (ny * nx)
-        rem = flat - k * ny * nx
-        i = rem // nx
-        j = rem - i * nx
-        x = origin[0] + j * step[0]
-        y = origin[1] + i * step[1]
-        z = origin[2] + k * step[2]
-        m = 0
-        for q in range(kd):
-            d = dnbr[pos, q]
-            if d < 0:
-                break
-            ids[m] = d
-            zv[m] = dscores[d]
-            rel[m, 0] = dcoords[d, 0] - x
-            rel[m, 1] = dcoords[d, 1] - y
-            rel[m, 2] = dcoords[d, 2] - z
-            m += 1
-        nd = m
-        ns = 0  # secondary values of nodes not yet simulated, met on the way
-        if max_nodes > 0 or sec_max > 0:
-            for t in range(nt):
-                kk = k + offsets[t, 0]
-                ii = i + offsets[t, 1]
-                jj = j + offsets[t, 2]
-                if kk < 0 or kk >= nz or ii < 0 or ii >= ny or jj < 0 or jj >= nx:
-                    continue
-                node = (kk * ny + ii) * nx + jj
-                if done[node]:
-                    if m - nd < max_nodes:
-                        ids[m] = t
-                        lin_node[m] = node
-                        lin[m] = table_lin[t]
-                        if single:
-                            zv[m] = field[node, 0]
-                        rel[m, 0] = lags[t, 0]
-                        rel[m, 1] = lags[t, 1]
-                        rel[m, 2] = lags[t, 2]
-                        m += 1
-                        if m - nd == max_nodes:
-                            break
-                elif ns < sec_max and sec[node] == sec[node]:
-                    sec_t[ns] = t
-                    sec_node[ns] = node
-                    ns += 1
-                    if max_nodes == 0 and ns == sec_max:
-                        break
-        ms = m  # rows from ms on are secondary values, as noisy measurements of the primary
-        for q in range(ns):
-            t = sec_t[q]
-            ids[m] = -2 - t
-            lin_node[m] = sec_node[q]
-            lin[m] = table_lin[t]
-            zv[m] = sec[sec_node[q]] / sec_b
-            rel[m, 0] = lags[t, 0]
-            rel[m, 1] = lags[t, 1]
-            rel[m, 2] = lags[t, 2]
-            m += 1
-        # node-to-data covariances one structure at a time, so that the choice of formula is
-        # made once per structure and node rather than per entry (about 1.6 times faster).
-        # Simulated nodes never lie on a datum (such nodes take the datum's score and are not
-        # searched), so the nugget adds nothing here unless cells are tinier than 1e-5 m.
-        for r in range(nd, m):
-            for s in range(nd):
-                a[r, s] = 0.0
-                if nugget_node_data and ((rel[r, 0] - rel[s, 0]) ** 2 + (rel[r, 1] - rel[s, 1]) ** 2
-                                         + (rel[r, 2] - rel[s, 2]) ** 2) <= ZERO_LAG2:
-                    a[r, s] = nugget
+    def _sgs_kernel(field, done, active_flat, path, normals, shape3, origin, step, offsets, lags, table,
+                    table_lin, table_zero, use_table, data_cov, dcoords, dscores, dnbr, cm, max_nodes, tol,
+                    nugget_node_data, a, ids, fail, sec, sec_b, sec_noise, sec_max):
+        """Simulate every node of ``path`` into ``field`` (flat nodes x members, NaN = not yet simulated).
+
+        The members (columns of ``field`` and ``normals``) share the path.  ``single`` (one
+        member) borders the factored system with the values; otherwise the weights are
+        solved for once per node and applied to each member, so that a member's bits do
+        not depend on how many others are computed with it.
+
+        With a secondary (``secondary``; ``sec`` holds its score at every flat node, NaN outside
+        the domain), the secondary values ``s`` of up to ``sec_max`` nodes not yet simulated, met
+        while scanning the template, join the system as noisy measurements of the primary,
+        ``s / b = y + e / b`` (covariances of the primary, plus ``(1 - rho^2) / b^2`` on their
+        own diagonal), and the simple-kriging moments are then updated with the collocated value
+        (Markov model, see :func:`geosim.kriging.collocated_update`): gain
+        ``g = b v / (b^2 v + 1 - rho^2)``, mean ``(1 - g b) y + g s``, variance ``(1 - g b) v``.
+
+        Returns -1, or the path position where a local covariance matrix failed to factor
+        (then ``fail = [position, pivot, n_data, n_total]`` and ``ids`` holds the data ids
+        followed by the template indices of the node neighbours).
+        """
+        nz, ny, nx = shape3[0], shape3[1], shape3[2]
+        nt = offsets.shape[0]
+        kd = dnbr.shape[1]
+        kmax = a.shape[0]
+        rhs = np.empty(kmax)
+        zv = np.empty(kmax)
+        rel = np.empty((kmax, 3))  # conditioning points relative to the node being simulated
+        lin = np.empty(kmax, dtype=np.int64)
+        use_data_cov = data_cov.shape[0] > 0
+        codes, sills, mats, params, tables, steps = cm
+        nugget = 0.0
+        c0 = 0.0  # cov_lag at lag zero, summed in its order (a tabulated structure's first entry)
         for jj in range(codes.shape[0]):
-            code = codes[jj]
-            if code == NUGGET or nd == 0:
-                continue
-            sj = sills[jj]
-            m00, m01, m02 = mats[jj, 0, 0], mats[jj, 0, 1], mats[jj, 0, 2]
-            m10, m11, m12 = mats[jj, 1, 0], mats[jj, 1, 1], mats[jj, 1, 2]
-            m20, m21, m22 = mats[jj, 2, 0], mats[jj, 2, 1], mats[jj, 2, 2]
-            for s in range(nd):
-                tr[s, 0] = m00 * rel[s, 0] + m01 * rel[s, 1] + m02 * rel[s, 2]
-                tr[s, 1] = m10 * rel[s, 0] + m11 * rel[s, 1] + m12 * rel[s, 2]
-                tr[s, 2] = m20 * rel[s, 0] + m21 * rel[s, 1] + m22 * rel[s, 2]
-            # a spherical or cubic structure is exactly 0 from reduced distance 1 on: skip the
-            # square root and the polynomial there (adding 0.0 would change no bit)
-            bounded = code == SPHERICAL or code == CUBIC
+            c0 += sills[jj] * tables[jj, 0] if codes[jj] == TABULATED else sills[jj]
+            if codes[jj] == NUGGET:
+                nugget += sills[jj]
+        tr = np.empty((kd, 3))  # the data's positions in one structure's reduced coordinates
+        nb = field.shape[1]  # realizations sharing this path
+        acc = np.empty(nb)
+        lin_node = np.empty(kmax, dtype=np.int64)  # flat index of each simulated neighbour
+        wts = np.empty(kmax)
+        sec_t = np.empty(max(sec_max, 1), dtype=np.int64)
+        sec_node = np.empty(max(sec_max, 1), dtype=np.int64)
+        for p in range(path.shape[0]):
+            pos = path[p]
+            flat = active_flat[pos]
+            k = flat // (ny * nx)
+            rem = flat - k * ny * nx
+            i = rem // nx
+            j = rem - i * nx
+            x = origin[0] + j * step[0]
+            y = origin[1] + i * step[1]
+            z = origin[2] + k * step[2]
+            m = 0
+            for q in range(kd):
+                d = dnbr[pos, q]
+                if d < 0:
+                    break
+                ids[m] = d
+                zv[m] = dscores[d]
+                rel[m, 0] = dcoords[d, 0] - x
+                rel[m, 1] = dcoords[d, 1] - y
+                rel[m, 2] = dcoords[d, 2] - z
+                m += 1
+            nd = m
+            ns = 0  # secondary values of nodes not yet simulated, met on the way
+            if max_nodes > 0 or (secondary and sec_max > 0):
+                for t in range(nt):
+                    kk = k + offsets[t, 0]
+                    ii = i + offsets[t, 1]
+                    jj = j + offsets[t, 2]
+                    if kk < 0 or kk >= nz or ii < 0 or ii >= ny or jj < 0 or jj >= nx:
+                        continue
+                    node = (kk * ny + ii) * nx + jj
+                    if done[node]:
+                        if m - nd < max_nodes:
+                            ids[m] = t
+                            lin_node[m] = node
+                            lin[m] = table_lin[t]
+                            if single:
+                                zv[m] = field[node, 0]
+                            rel[m, 0] = lags[t, 0]
+                            rel[m, 1] = lags[t, 1]
+                            rel[m, 2] = lags[t, 2]
+                            m += 1
+                            if m - nd == max_nodes:
+                                break
+                    elif secondary and ns < sec_max and sec[node] == sec[node]:
+                        sec_t[ns] = t
+                        sec_node[ns] = node
+                        ns += 1
+                        if max_nodes == 0 and ns == sec_max:
+                            break
+            ms = m  # rows from ms on are secondary values, as noisy measurements of the primary
+            if secondary:
+                for q in range(ns):
+                    t = sec_t[q]
+                    ids[m] = -2 - t
+                    lin_node[m] = sec_node[q]
+                    lin[m] = table_lin[t]
+                    zv[m] = sec[sec_node[q]] / sec_b
+                    rel[m, 0] = lags[t, 0]
+                    rel[m, 1] = lags[t, 1]
+                    rel[m, 2] = lags[t, 2]
+                    m += 1
+            # node-to-data covariances one structure at a time, so that the choice of formula is
+            # made once per structure and node rather than per entry (about 1.6 times faster).
+            # Simulated nodes never lie on a datum (such nodes take the datum's score and are not
+            # searched), so the nugget adds nothing here unless cells are tinier than 1e-5 m.
             for r in range(nd, m):
-                u = m00 * rel[r, 0] + m01 * rel[r, 1] + m02 * rel[r, 2]
-                v = m10 * rel[r, 0] + m11 * rel[r, 1] + m12 * rel[r, 2]
-                w = m20 * rel[r, 0] + m21 * rel[r, 1] + m22 * rel[r, 2]
                 for s in range(nd):
-                    h2 = (tr[s, 0] - u) ** 2 + (tr[s, 1] - v) ** 2 + (tr[s, 2] - w) ** 2
-                    if bounded and h2 >= 1.0:
-                        continue
-                    h = math.sqrt(h2)
-                    if code == TABULATED:
-                        a[r, s] += sj * tabulated_correlation(tables, steps, jj, h)
-                    else:
-                        a[r, s] += sj * analytic_correlation(code, h)
-        # data-data entries from the data's matrix, node-node entries from the offsets' table;
-        # the formula where these are missing.  One call site of cov_lag for the row and the
-        # right-hand side (s = r + 1, the node itself at lag rel[r] - 0.0, the bits of rel[r]):
-        # every site is inlined, and each one costs about a second of compiling on a first run.
-        for r in range(m):
-            node_row = r >= nd
-            tab = node_row and use_table
-            for s in range(nd if node_row else 0, r + 2):
-                if s > r:
-                    if tab:
-                        rhs[r] = table[table_zero + lin[r]]
-                        continue
-                    ox = oy = oz = 0.0
-                elif tab:
-                    a[r, s] = table[table_zero + lin[r] - lin[s]]
+                    a[r, s] = 0.0
+                    if nugget_node_data and ((rel[r, 0] - rel[s, 0]) ** 2 + (rel[r, 1] - rel[s, 1]) ** 2
+                                             + (rel[r, 2] - rel[s, 2]) ** 2) <= ZERO_LAG2:
+                        a[r, s] = nugget
+            for jj in range(codes.shape[0]):
+                code = codes[jj]
+                if code == NUGGET or nd == 0:
                     continue
-                elif not node_row and use_data_cov:
-                    a[r, s] = data_cov[ids[r], ids[s]]
-                    continue
-                else:
-                    ox, oy, oz = rel[s, 0], rel[s, 1], rel[s, 2]
-                cv = cov_lag(cm, rel[r, 0] - ox, rel[r, 1] - oy, rel[r, 2] - oz)
-                if s > r:
-                    rhs[r] = cv
-                else:
-                    a[r, s] = cv
-            if r >= ms:
-                a[r, r] += sec_noise / (sec_b * sec_b)  # the measurement's own noise
-        mean = 0.0
-        var = c0
-        if m > 0:
-            # border the system with the right-hand side, the values of a single realization
-            # (and a row of ones for ordinary kriging): factoring its first m pivots leaves the
-            # variance and the estimate in the trailing block, with no separate triangular
-            # solves.  A batch sharing the path borders no values: its weights are solved for
-            # once below and applied to every member's values.
+                sj = sills[jj]
+                m00, m01, m02 = mats[jj, 0, 0], mats[jj, 0, 1], mats[jj, 0, 2]
+                m10, m11, m12 = mats[jj, 1, 0], mats[jj, 1, 1], mats[jj, 1, 2]
+                m20, m21, m22 = mats[jj, 2, 0], mats[jj, 2, 1], mats[jj, 2, 2]
+                for s in range(nd):
+                    tr[s, 0] = m00 * rel[s, 0] + m01 * rel[s, 1] + m02 * rel[s, 2]
+                    tr[s, 1] = m10 * rel[s, 0] + m11 * rel[s, 1] + m12 * rel[s, 2]
+                    tr[s, 2] = m20 * rel[s, 0] + m21 * rel[s, 1] + m22 * rel[s, 2]
+                # a spherical or cubic structure is exactly 0 from reduced distance 1 on: skip the
+                # square root and the polynomial there (adding 0.0 would change no bit)
+                bounded = code == SPHERICAL or code == CUBIC
+                for r in range(nd, m):
+                    u = m00 * rel[r, 0] + m01 * rel[r, 1] + m02 * rel[r, 2]
+                    v = m10 * rel[r, 0] + m11 * rel[r, 1] + m12 * rel[r, 2]
+                    w = m20 * rel[r, 0] + m21 * rel[r, 1] + m22 * rel[r, 2]
+                    for s in range(nd):
+                        h2 = (tr[s, 0] - u) ** 2 + (tr[s, 1] - v) ** 2 + (tr[s, 2] - w) ** 2
+                        if bounded and h2 >= 1.0:
+                            continue
+                        h = math.sqrt(h2)
+                        if code == TABULATED:
+                            a[r, s] += sj * tabulated_correlation(tables, steps, jj, h)
+                        else:
+                            a[r, s] += sj * analytic_correlation(code, h)
+            # data-data entries from the data's matrix, node-node entries from the offsets' table;
+            # the formula where these are missing.  One call site of cov_lag for the row and the
+            # right-hand side (s = r + 1, the node itself at lag rel[r] - 0.0, the bits of rel[r]):
+            # every site is inlined, and each one costs about a second of compiling on a first run.
             for r in range(m):
-                a[m, r] = rhs[r]
-            a[m, m] = c0
-            order = m + 1
-            if single:
+                node_row = r >= nd
+                tab = node_row and use_table
+                for s in range(nd if node_row else 0, r + 2):
+                    if s > r:
+                        if tab:
+                            rhs[r] = table[table_zero + lin[r]]
+                            continue
+                        ox = oy = oz = 0.0
+                    elif tab:
+                        a[r, s] = table[table_zero + lin[r] - lin[s]]
+                        continue
+                    elif not node_row and use_data_cov:
+                        a[r, s] = data_cov[ids[r], ids[s]]
+                        continue
+                    else:
+                        ox, oy, oz = rel[s, 0], rel[s, 1], rel[s, 2]
+                    cv = cov_lag(cm, rel[r, 0] - ox, rel[r, 1] - oy, rel[r, 2] - oz)
+                    if s > r:
+                        rhs[r] = cv
+                    else:
+                        a[r, s] = cv
+                if secondary and r >= ms:
+                    a[r, r] += sec_noise / (sec_b * sec_b)  # the measurement's own noise
+            mean = 0.0
+            var = c0
+            if m > 0:
+                # border the system with the right-hand side, the values of a single realization
+                # (and a row of ones for ordinary kriging): factoring its first m pivots leaves the
+                # variance and the estimate in the trailing block, with no separate triangular
+                # solves.  A batch sharing the path borders no values: its weights are solved for
+                # once below and applied to every member's values.
                 for r in range(m):
-                    a[order, r] = zv[r]
-                a[order, m] = 0.0
-                a[order, order] = 0.0
-                order += 1
-            one = order
-            if ordinary:
-                for r in range(m):
-                    a[one, r] = 1.0
-                for s in range(m, one + 1):
-                    a[one, s] = 0.0
-                order += 1
-            bad = chol_partial(a, order, m, tol)
-            if bad >= 0:
-                fail[0] = p
-                fail[1] = bad
-                fail[2] = nd
-                fail[3] = m
-                return p
-            var = a[m, m]
-            mu = 0.0
-            if single:
-                mean = -a[m + 1, m]
-            if ordinary:
-                uy = -a[one, m]
-                uu = -a[one, one]
-                mu = (1.0 - uy) / uu
+                    a[m, r] = rhs[r]
+                a[m, m] = c0
+                order = m + 1
                 if single:
-                    mean += mu * -a[one, m + 1]
-                var += (1.0 - uy) * (1.0 - uy) / uu
-            if not single:
-                # weights L^-T (y + mu u): the rows of y = L^-1 c and u = L^-1 1
-                for r in range(m):
-                    wts[r] = a[m, r] + (mu * a[one, r] if ordinary else 0.0)
-                backward_t_inplace(a, m, wts)
-                mean = 0.0
-                for r in range(nd):
-                    mean += wts[r] * zv[r]
-                for r in range(ms, m):
-                    mean += wts[r] * zv[r]
-        if var < 0.0:
-            var = 0.0
-        keep = 1.0
-        pull = 0.0
-        if sec.shape[0] > 0:
-            gain = sec_b * var / (sec_b * sec_b * var + sec_noise)
-            keep = 1.0 - gain * sec_b
-            pull = gain * sec[flat]
-            var *= keep
-        sd = math.sqrt(var)
-        if single:
-            if sec.shape[0] > 0:
-                mean = keep * mean + pull
-            field[flat, 0] = mean + sd * normals[p, 0]
-        else:
-            # neighbour by neighbour over the members: each neighbour's row of members is
-            # contiguous, and each member still sums its terms in the order of the rows
-            for b in range(nb):
-                acc[b] = mean
-            for r in range(nd, ms):
-                wr = wts[r]
-                nr = lin_node[r]
+                    for r in range(m):
+                        a[order, r] = zv[r]
+                    a[order, m] = 0.0
+                    a[order, order] = 0.0
+                    order += 1
+                one = order
+                if ordinary:
+                    for r in range(m):
+                        a[one, r] = 1.0
+                    for s in range(m, one + 1):
+                        a[one, s] = 0.0
+                    order += 1
+                bad = chol_partial(a, order, m, tol)
+                if bad >= 0:
+                    fail[0] = p
+                    fail[1] = bad
+                    fail[2] = nd
+                    fail[3] = m
+                    return p
+                var = a[m, m]
+                mu = 0.0
+                if single:
+                    mean = -a[m + 1, m]
+                if ordinary:
+                    uy = -a[one, m]
+                    uu = -a[one, one]
+                    mu = (1.0 - uy) / uu
+                    if single:
+                        mean += mu * -a[one, m + 1]
+                    var += (1.0 - uy) * (1.0 - uy) / uu
+                if not single:
+                    # weights L^-T (y + mu u): the rows of y = L^-1 c and u = L^-1 1
+                    for r in range(m):
+                        wts[r] = a[m, r] + (mu * a[one, r] if ordinary else 0.0)
+                    backward_t_inplace(a, m, wts)
+                    mean = 0.0
+                    for r in range(nd):
+                        mean += wts[r] * zv[r]
+                    if secondary:
+                        for r in range(ms, m):
+                            mean += wts[r] * zv[r]
+            if var < 0.0:
+                var = 0.0
+            keep = 1.0
+            pull = 0.0
+            if secondary:
+                gain = sec_b * var / (sec_b * sec_b * var + sec_noise)
+                keep = 1.0 - gain * sec_b
+                pull = gain * sec[flat]
+                var *= keep
+            sd = math.sqrt(var)
+            if single:
+                if secondary:
+                    mean = keep * mean + pull
+                field[flat, 0] = mean + sd * normals[p, 0]
+            else:
+                # neighbour by neighbour over the members: each neighbour's row of members is
+                # contiguous, and each member still sums its terms in the order of the rows
                 for b in range(nb):
-                    acc[b] += wr * field[nr, b]
-            if sec.shape[0] > 0:
+                    acc[b] = mean
+                for r in range(nd, ms):
+                    wr = wts[r]
+                    nr = lin_node[r]
+                    for b in range(nb):
+                        acc[b] += wr * field[nr, b]
+                if secondary:
+                    for b in range(nb):
+                        acc[b] = keep * acc[b] + pull
                 for b in range(nb):
-                    acc[b] = keep * acc[b] + pull
-            for b in range(nb):
-                field[flat, b] = acc[b] + sd * normals[p, b]
-        done[flat] = 1
-    return -1
+                    field[flat, b] = acc[b] + sd * normals[p, b]
+            done[flat] = 1
+        return -1
+    _sgs_kernel.__qualname__ = f"_sgs_kernel_{int(single)}{int(ordinary)}{int(secondary)}"
+    return njit(cache=True, nogil=True)(_sgs_kernel)
+
 
 
 def _pivot_error(plan: SequentialPlan, path: np.ndarray, a: np.ndarray, ids: np.ndarray,

@@ -5,8 +5,9 @@ Run:  python tests/benchmarks/bench_compile.py [--repeats 3] [--pairs 3] [--skip
 Two parts, each in fresh processes with an empty numba cache (``NUMBA_CACHE_DIR`` pointing
 at a new folder), because a cache filled once makes every later figure a load time:
 
-* **Kernels**: the warm-ups a first run starts ahead (the sequential engine's, then the
-  kriging and summary modules', the variogram pair loop's), in one process; numba's compile events
+* **Kernels**: the warm-ups a first run of the aquifer demo starts ahead (the sequential engine's
+  simple-kriging single-path kernel, simple kriging, the moments, the variogram pair loop) and the
+  summary kernel of large runs, in one process; numba's compile events
   (``numba.core.event``, "numba:compile") give the thread CPU seconds of each top-level
   kernel's compile, callees included.  ``--repeats`` fresh processes; the minimum per kernel
   is reported (other jobs on a shared machine only add to CPU time).
@@ -78,9 +79,12 @@ if _folder:
     sys.meta_path.insert(0, _AfterNumbaEvents())
 '''
 
-WARM_UPS = ("from geosim.simulation.sequential import SequentialEngine; import geosim.kriging, geosim.summaries; "
-            "import geosim.variogram.experimental; SequentialEngine().warm_up(); geosim.kriging.warm_up(); "
-            "geosim.summaries.warm_up(); geosim.variogram.experimental.warm_up()")
+# what a first run of the aquifer demo compiles ahead (simple kriging, one path per realization), and the
+# summary kernel that runs of at least summaries.COMPILED_BANDS_FROM values compile too
+WARM_UPS = ("from geosim.simulation.sequential import SequentialEngine; import geosim.kriging, geosim.moments; "
+            "import geosim.summaries, geosim.variogram.experimental; SequentialEngine().warm_up(); "
+            "geosim.kriging.warm_up(('simple',)); geosim.moments.warm_up(); geosim.summaries.warm_up(); "
+            "geosim.variogram.experimental.warm_up()")
 
 
 def load() -> str:
@@ -120,8 +124,8 @@ def kernels(repeats: int) -> dict[str, float]:
 
 def role(argv: str) -> str:
     """Which process of a run this was, from its command line (``sys.orig_argv``)."""
-    if "warm_up_engine" in argv:  # the engine's process names the engine class: (pid, 'module', 'Class')
-        return "ahead: engine" if "', '" in argv else "ahead: modules"
+    if "warm_up_engine" in argv:  # the engine's process waits for more, or names the engine class
+        return "ahead: engine" if "warm_up_more" in argv or "SequentialEngine" in argv else "ahead: modules"
     if "forkserver" in argv or "spawn_main" in argv:
         return "pool worker"
     return "main" if " run " in f" {argv} " else "other"

@@ -45,7 +45,7 @@ def main(argv=None):
     engine = SequentialEngine()
     plan = engine.prepare(data.coords, data.scores, pipeline.given_model(spec, data), grid,
                           neighbourhood=pipeline.neighbourhood(spec), hole_ids=data.samples.hole_ids)
-    engine.warm_up()
+    engine.warm_up(shared_path=True)  # the kernel of batches sharing a path
     nodes = grid.n_active
     print(f"{nodes:,} active nodes, {len(data.scores):,} data ({bench_blockmodel.load()})", flush=True)
     figures = {}
