@@ -326,3 +326,31 @@ def test_the_main_process_of_a_first_run_compiles_none_of_the_kernels_compiled_a
     assert counts == {name: (counts[name][0], 0) for name in ("pairs", "kriging", "moments", "engine")}
     assert all(hits >= 1 for hits, _ in counts.values())
     assert not list((tmp_path / "cache").rglob("*_node_bands*"))
+
+
+def test_a_kernel_counts_as_cached_only_once_its_code_is_written(tmp_path):
+    # numba saves a new entry's index before its data file: a step that took the index alone for the
+    # kernel would load in between, miss and compile it itself.  With the data file not (yet) there
+    # the kernel is not cached; once it is, it is, and the code loads (a hit, no miss)
+    out = _python(textwrap.dedent("""
+        import os, subprocess, sys
+        import numpy as np
+        from geosim.linalg import forward_inplace
+        from geosim.simulation.runner import in_numba_cache
+        print(in_numba_cache(forward_inplace))
+        subprocess.run([sys.executable, "-c", "import numpy as np; from geosim.linalg import forward_inplace; "
+                        "forward_inplace(np.eye(2), 2, np.ones(2))"], check=True)
+        cache = forward_inplace._cache._cache_file
+        names = list(cache._load_index().values())
+        print(in_numba_cache(forward_inplace), len(names))
+        hidden = [cache._data_path(n) for n in names]
+        for path in hidden:
+            os.rename(path, path + ".later")
+        print(in_numba_cache(forward_inplace))
+        for path in hidden:
+            os.rename(path + ".later", path)
+        print(in_numba_cache(forward_inplace))
+        forward_inplace(np.eye(3), 3, np.ones(3))
+        print(sum(forward_inplace.stats.cache_hits.values()), sum(forward_inplace.stats.cache_misses.values()))
+    """), str(tmp_path / "cache"))
+    assert [line.split() for line in out.splitlines()] == [["False"], ["True", "1"], ["False"], ["True"], ["1", "0"]]

@@ -135,11 +135,25 @@ def resolve_engine(engine):
 
 
 def in_numba_cache(dispatcher) -> bool:
-    """Whether numba's on-disk cache holds code of ``dispatcher`` (its index file exists)."""
+    """Whether numba's on-disk cache holds code of ``dispatcher`` that a load would find.
+
+    That is an index for the current source whose entries' data files are all written: numba
+    saves a new entry's index before its data, so an index alone may name code not written
+    yet, and a process loading in that moment would compile the kernel itself.  Data files
+    appear whole (written to a temporary name, then renamed).
+    """
     try:
-        return os.path.isfile(dispatcher._cache._cache_file._index_path)
+        cache_file = dispatcher._cache._cache_file
+        index_path = cache_file._index_path
     except AttributeError:  # no cache, or another numba's layout: nothing to gain from compiling ahead
         return True
+    if not os.path.isfile(index_path):
+        return False
+    try:
+        names = list(cache_file._load_index().values())  # {} when it was made from another source
+    except Exception:  # unreadable: as good as absent
+        return False
+    return bool(names) and all(os.path.isfile(cache_file._data_path(name)) for name in names)
 
 
 def compile_ahead(engine, needs: Mapping[str, object] | None = None,
@@ -257,10 +271,10 @@ def await_compiled(key: str, kernel=None, timeout: float = 300.0) -> None:
 
     A step that needs kernels being compiled ahead waits instead of compiling them itself;
     a process that failed or is too slow only means the step compiles what is missing.
-    With ``kernel`` (a numba dispatcher) the wait ends as soon as that kernel is in the
-    cache (numba writes a kernel's index file after its code, and after the code of the
-    kernels it calls): the process may still be compiling kernels that later steps need,
-    so it stays registered until it has ended.
+    With ``kernel`` (a numba dispatcher) the wait ends as soon as that kernel can be loaded
+    from the cache (:func:`in_numba_cache`; numba caches the kernels it calls before it):
+    the process may still be compiling kernels that later steps need, so it stays
+    registered until it has ended.
     """
     proc = _AHEAD.get(key)
     if proc is None:
