@@ -262,7 +262,7 @@ def cross_validate(spec: RunSpec, data: PreparedData | None = None, model=None, 
     result = replace(result, units="normal score", weights=data.weights, scale="normal scores")
     if data.mean is not None:  # the mean at each sample back on the residuals
         result = replace(result, values=data.mean.scores, estimate=result.estimate + data.mean.at_data)
-    await_compiled("modules", moments_kernel)  # compiled ahead after the kriging kernel
+    await_compiled("engine", moments_kernel)  # compiled ahead in the engine's process, before the engine's kernel
     in_data = result.in_data_units(data.transform, data.values, units=spec["data.units"])
     cv = CrossValidation(result, {"normal_scores": result.summary(), "data_units": in_data.summary()},
                          data_units=in_data)
@@ -287,9 +287,12 @@ def estimate(spec: RunSpec, data: PreparedData | None = None, model=None, grid=N
     if standalone:
         _preflight_notes(spec, data, grid)
     model = _model(spec, data, model, progress)
+    from .kriging import kernel_of
     from .moments import _kernel as moments_kernel
     from .simulation.runner import await_compiled
-    await_compiled("modules", moments_kernel)  # the kriging kernel is cached before the moments' one
+    # a first run's kriging kernel and data-unit moments, being compiled ahead in two processes
+    await_compiled("modules", kernel_of(spec["simulation.kriging"]))
+    await_compiled("engine", moments_kernel)
     secondary = secondary_grid(spec, data.samples, data.scores, grid)
     scores, variance, result = krige_nodes(
         data.coords, data.scores, grid, model, mean=data.mean, secondary=secondary,

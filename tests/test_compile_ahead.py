@@ -354,3 +354,22 @@ def test_a_kernel_counts_as_cached_only_once_its_code_is_written(tmp_path):
         print(sum(forward_inplace.stats.cache_hits.values()), sum(forward_inplace.stats.cache_misses.values()))
     """), str(tmp_path / "cache"))
     assert [line.split() for line in out.splitlines()] == [["False"], ["True", "1"], ["False"], ["True"], ["1", "0"]]
+
+
+def test_an_index_left_by_other_source_does_not_count_as_cached(tmp_path):
+    # numba keys an index on its source file's stamp and ignores one from another version of it:
+    # a kernel whose index was written from other source must be compiled ahead again
+    out = _python(textwrap.dedent("""
+        import numpy as np
+        from geosim.linalg import forward_inplace
+        from geosim.simulation.runner import in_numba_cache
+        forward_inplace(np.eye(2), 2, np.ones(2))
+        cache = forward_inplace._cache._cache_file
+        print(in_numba_cache(forward_inplace))
+        overloads, stamp = cache._load_index(), cache._source_stamp
+        cache._source_stamp = (0.0, 0)  # as if saved by an older geosim
+        cache._save_index(overloads)
+        cache._source_stamp = stamp
+        print(in_numba_cache(forward_inplace))
+    """), str(tmp_path / "cache"))
+    assert out.split() == ["True", "False"]
