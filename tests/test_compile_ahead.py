@@ -25,13 +25,15 @@ SIMULATE = textwrap.dedent("""
     geosim.simulate(xyz, scores, model, grid, n_realizations=1, seed=4, workers=1, neighbourhood=nb)
     geosim.simulate(xyz, scores, model, grid, n_realizations=3, seed=4, workers=1, neighbourhood=nb,
                     kriging="ordinary", realizations_per_path=3)
-    for k in (sgs_kernel(True, False, False), sgs_kernel(False, True, False)):
+    geosim.simulate(xyz, scores, model, grid, n_realizations=1, seed=4, workers=1, neighbourhood=nb,
+                    secondary=np.linspace(-1.0, 1.0, grid.mask.size).reshape(grid.shape), correlation=0.5)
+    for k in (sgs_kernel(True, False, False), sgs_kernel(False, True, False), sgs_kernel(True, False, True)):
         print(sum(k.stats.cache_hits.values()), sum(k.stats.cache_misses.values()))
 """)
 
-# the two variants the fixture compiles ahead: a single path with simple kriging (the defaults),
-# and paths shared by realizations with ordinary kriging
-VARIANTS = ({}, {"kriging": "ordinary", "shared_path": True})
+# the variants the fixture compiles ahead: a single path with simple kriging (the defaults), paths
+# shared by realizations with ordinary kriging, and a single path with a collocated secondary
+VARIANTS = ({}, {"kriging": "ordinary", "shared_path": True}, {"secondary": True})
 
 
 def _python(code: str, cache: str, timeout: float = 600) -> str:
@@ -56,22 +58,25 @@ def compiled_ahead(tmp_path_factory):
 
 def test_compile_ahead_fills_the_cache_once_with_the_variants_asked_for(compiled_ahead):
     cache, started = compiled_ahead
-    assert started == ["True", "0"] * 2
+    assert started == ["True", "0"] * 3
     # those variants are cached now (a second call starts nothing), and no other: the kernel of
-    # options no run asked for (ordinary kriging on a single path, a secondary) was not compiled
+    # options no run asked for (ordinary kriging on a single path, a shared path with simple
+    # kriging, a secondary on a shared path) was not compiled
     out = _python(textwrap.dedent(f"""
         from geosim.simulation.runner import compile_ahead, in_numba_cache
         from geosim.simulation.sequential import sgs_kernel
         print(*[compile_ahead("sequential", needs) for needs in {VARIANTS!r}])
         print(*[in_numba_cache(sgs_kernel(*v)) for v in [(True, False, False), (False, True, False),
-                                                       (True, True, False), (True, False, True)]])
+                                                       (True, False, True), (True, True, False),
+                                                       (False, False, False), (False, False, True)]])
     """), cache)
-    assert [line.split() for line in out.splitlines()] == [["None", "None"], ["True", "True", "False", "False"]]
+    assert [line.split() for line in out.splitlines()] == [["None"] * 3, ["True"] * 3 + ["False"] * 3]
 
 
 def test_runs_load_the_kernels_compiled_ahead(compiled_ahead):
-    # 3-D runs with a single path and simple kriging, and with a shared path and ordinary kriging, on
-    # another grid and model than the warm-up's: every call of each variant is a cache hit, none compiles
+    # 3-D runs with a single path and simple kriging, with a shared path and ordinary kriging, and with
+    # a secondary, on another grid and model than the warm-up's: every call of each variant is a cache
+    # hit, none compiles
     cache, _ = compiled_ahead
     for line in _python(SIMULATE, cache).splitlines():
         hits, misses = map(int, line.split())
