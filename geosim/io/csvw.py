@@ -122,8 +122,8 @@ def _number_rows(columns: Sequence[Column], data: Sequence[Sequence[Any]]) -> by
     100 realizations) from the text of each distinct value, a double column of float32 values
     (the stored realizations and their summaries) by :func:`_float32_g10`, anything else from
     :meth:`Column.cells`.  The matrices side by side with the commas and line ends, without their
-    NULs, are the text: no Python string per cell (a million-block table: 7.8 s of CPU with one
-    printf-style template per slice, 3.1 s so, on the same loaded machine).
+    NULs, are the text: no Python string per cell (a million-block model's table: 5.8-6.5 s of CPU
+    with one printf-style template per slice, 2.4-2.8 s so, on the same loaded machine).
     """
     rows = len(data[0]) if data else 0
     parts = []
