@@ -175,12 +175,12 @@ def _numpy_bands(flat: np.ndarray, cut: np.ndarray, out: np.ndarray) -> bool:
 def sorting_network(n: int) -> np.ndarray:
     """The compare-exchange pairs ``(i, j)``, ``i < j``, of Batcher's odd-even merge sort of ``n`` keys
     (K. E. Batcher 1968, "Sorting networks and their applications", AFIPS Spring Joint Computer
-    Conference 32, 307-314), as an ``(m, 2)`` int64 array in the order they are applied.
+    Conference 32, 307-314; from memory), as an ``(m, 2)`` int64 array in the order they are applied.
 
     The network of the next power of two with every pair reaching past ``n - 1`` left out (as if
     the missing keys were larger than all others, which such a pair never moves).  A network
     sorts every input exactly when it sorts every input of zeros and ones (Knuth, The Art of
-    Computer Programming 3, section 5.3.4, the zero-one principle), which the tests check.
+    Computer Programming 3, section 5.3.4, the zero-one principle; from memory), which the tests check.
 
     Examples
     --------
