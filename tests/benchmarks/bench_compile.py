@@ -124,8 +124,8 @@ def kernels(repeats: int) -> dict[str, float]:
 
 def role(argv: str) -> str:
     """Which process of a run this was, from its command line (``sys.orig_argv``)."""
-    if "warm_up_engine" in argv:  # the engine's process waits for more, or names the engine class
-        return "ahead: engine" if "warm_up_more" in argv or "SequentialEngine" in argv else "ahead: modules"
+    if "warm_up_engine" in argv:  # every process imports warm_up_more; the engine's calls it
+        return "ahead: engine" if "warm_up_more(" in argv or "SequentialEngine" in argv else "ahead: modules"
     if "forkserver" in argv or "spawn_main" in argv:
         return "pool worker"
     return "main" if " run " in f" {argv} " else "other"
