@@ -226,17 +226,122 @@ def compile_modules_ahead(key: str, targets: Sequence[tuple[str, object, Mapping
 def _start_warm_up(key: str, targets: Sequence[tuple[str, str | None, Mapping[str, object]]], more: bool = False):
     """A silent process that runs :func:`warm_up_engine` on each ``(module, name, keywords)`` in turn,
     registered in :data:`_AHEAD` under ``key`` for :func:`await_compiled`; with ``more`` it then
-    reads further targets from its stdin (:func:`_hand_over`) until that is closed."""
-    import subprocess
-    import sys
-    pid = os.getpid()
-    calls = [f"warm_up_engine({pid}, {m!r}, {n!r}, {dict(k)!r})" for m, n, k in targets]
-    calls += [f"warm_up_more({pid})"] if more else []
-    proc = _AHEAD[key] = subprocess.Popen(
-        [sys.executable, "-c", "from geosim.simulation.runner import warm_up_engine, warm_up_more; " + "; ".join(calls)],
-        stdin=subprocess.PIPE if more else subprocess.DEVNULL, stdout=subprocess.DEVNULL,
-        stderr=subprocess.DEVNULL, text=more or None)
+    reads further targets from its stdin (:func:`_hand_over`) until that is closed.
+
+    Where it is safe (:func:`_may_fork`) the process is a fork of this one, which starts
+    compiling at once; a fresh interpreter would first spend about 1.1 s of CPU importing
+    numpy, scipy, numba and geosim and setting up numba's compiler, on the 2 cores a first
+    run shares with its own steps.
+    """
+    if _may_fork():
+        proc = _ForkedWarmUp(targets, more)
+    else:
+        import subprocess
+        import sys
+        pid = os.getpid()
+        calls = [f"warm_up_engine({pid}, {m!r}, {n!r}, {dict(k)!r})" for m, n, k in targets]
+        calls += [f"warm_up_more({pid})"] if more else []
+        proc = subprocess.Popen(
+            [sys.executable, "-c", "from geosim.simulation.runner import warm_up_engine, warm_up_more; " + "; ".join(calls)],
+            stdin=subprocess.PIPE if more else subprocess.DEVNULL, stdout=subprocess.DEVNULL,
+            stderr=subprocess.DEVNULL, text=more or None)
+    _AHEAD[key] = proc
     return proc
+
+
+def _may_fork() -> bool:
+    """Whether a compiling process may be a fork of this one: on Linux, and only while this
+    process runs no Python thread but its main one (a fork copies no other thread, and a lock one
+    of them held would stay locked in the child; numpy's BLAS pool is native and fork-aware).
+    ``GEOSIM_COMPILE_FORK=0`` asks for a fresh interpreter always."""
+    import sys
+    return (sys.platform.startswith("linux") and hasattr(os, "fork") and threading.active_count() == 1
+            and os.environ.get("GEOSIM_COMPILE_FORK", "1") != "0")
+
+
+class _ForkedWarmUp:
+    """A compiling process forked from this one, with the part of ``subprocess.Popen`` that
+    :func:`await_compiled`, :func:`_hand_over` and callers use: ``pid``, ``stdin`` (with
+    ``more``; text, one JSON target a line), ``poll()``, ``wait(timeout)``, ``returncode``, ``kill()``."""
+
+    def __init__(self, targets: Sequence[tuple[str, str | None, Mapping[str, object]]], more: bool):
+        import warnings
+        try:
+            # numba's compiler set-up (about 0.25 s of CPU), done once here rather than in each
+            # child; this process pays it anyway when it first loads a kernel from the cache
+            from numba.core.registry import cpu_target
+            cpu_target.target_context.refresh()
+            cpu_target.typing_context.refresh()
+        except Exception:  # noqa: BLE001 - another numba's internals: each child sets itself up
+            pass
+        main_pid = os.getpid()
+        read_end, write_end = os.pipe() if more else (-1, -1)
+        with warnings.catch_warnings():
+            # Python 3.12+ warns of a fork beside any other thread; the only ones here are the idle
+            # workers of numpy's BLAS, which handles a fork itself (see _may_fork)
+            warnings.simplefilter("ignore", DeprecationWarning)
+            pid = os.fork()
+        if pid == 0:
+            _forked_child(main_pid, targets, read_end, write_end)
+        self.pid = pid
+        self.returncode: int | None = None
+        self.stdin = None
+        if more:
+            os.close(read_end)
+            self.stdin = os.fdopen(write_end, "w")
+
+    def poll(self) -> int | None:
+        if self.returncode is None:
+            try:
+                pid, status = os.waitpid(self.pid, os.WNOHANG)
+            except ChildProcessError:  # reaped elsewhere: its code is lost
+                self.returncode = -1
+            else:
+                if pid:
+                    self.returncode = os.waitstatus_to_exitcode(status)
+        return self.returncode
+
+    def wait(self, timeout: float | None = None) -> int:
+        deadline = None if timeout is None else time.monotonic() + timeout
+        while self.poll() is None:
+            if deadline is not None and time.monotonic() > deadline:
+                import subprocess
+                raise subprocess.TimeoutExpired(f"compiling process {self.pid}", timeout)
+            time.sleep(AHEAD_POLL_SECONDS)
+        return self.returncode
+
+    def kill(self) -> None:
+        import signal
+        if self.poll() is None:
+            os.kill(self.pid, signal.SIGKILL)
+
+
+def _forked_child(main_pid: int, targets, read_end: int, write_end: int):
+    """The body of a :class:`_ForkedWarmUp` child; never returns.  It writes nothing but numba's
+    cache and leaves with ``os._exit``: no handler, buffer or ``finally`` of the parent runs here."""
+    code = 1
+    try:
+        import json
+        devnull = os.open(os.devnull, os.O_RDWR)
+        # this copy of the stdin of the parent's other compiling processes becomes /dev/null, or one
+        # that waits for more would wait as long as this process lives; the fd number stays taken,
+        # so no file object of the parent's can close another file opened here under it
+        for fd in [getattr(proc.stdin, "fileno", lambda: -1)() for proc in _AHEAD.values() if proc.stdin is not None]:
+            if fd >= 0:
+                os.dup2(devnull, fd)
+        for fd in (0, 1, 2):
+            os.dup2(devnull, fd)
+        if write_end >= 0:
+            os.close(write_end)
+        for module, name, keywords in targets:
+            warm_up_engine(main_pid, module, name, keywords)
+        if read_end >= 0:
+            with os.fdopen(read_end) as lines:
+                for line in lines:
+                    warm_up_engine(main_pid, *json.loads(line))
+        code = 0
+    finally:
+        os._exit(code)
 
 
 def _hand_over(key: str, targets: Sequence[tuple[str, str | None, Mapping[str, object]]]):
@@ -518,15 +623,19 @@ def simulate(data_coords, data_scores, model, grid, *, n_realizations: int, seed
         return []
     prepared = eng.prepare(data_coords, data_scores, model, grid, neighbourhood=neighbourhood,
                            kriging=kriging, **engine_options)
+    groups = _groups(todo, per_path)
     # a first run's kernel may still be compiling in compile_ahead's process: load it, not compile it again
+    kernel = None
     if hasattr(eng, "main_kernel"):
         needs = {"kriging": kriging, "shared_path": per_path > 1,
                  "secondary": engine_options.get("secondary") is not None
                  and engine_options.get("correlation", 0.0) != 0.0}
-        await_compiled("engine", eng.main_kernel(**_accepted(eng.main_kernel, needs)))
-    else:
-        await_compiled("engine")
-    groups = _groups(todo, per_path)
+        kernel = eng.main_kernel(**_accepted(eng.main_kernel, needs))
+    if "engine" in _AHEAD and client is None and (workers is None or int(workers) > 1) and len(groups) > 1:
+        # while it waits, the pool's server process imports what the workers need (about 1 s of
+        # CPU a local pool costs when it starts); a run whose kernel is cached starts it as before
+        _start_pool_server(pool_context(type(eng).__module__, type(sink).__module__ if sink is not None else None))
+    await_compiled("engine", kernel)
     if client is not None:
         results = _run_dask(client, eng, prepared, sink, seed, groups, per_path, progress)
     else:
@@ -629,6 +738,13 @@ def pool_context(*modules):
     preload = ["geosim.simulation.runner"] + [m for m in modules if m and m.startswith("geosim.")]
     ctx.set_forkserver_preload(preload)
     return ctx
+
+
+def _start_pool_server(ctx) -> None:
+    """Start the server process of a "forkserver" pool context now rather than at the pool's first task."""
+    if ctx.get_start_method() == "forkserver":
+        from multiprocessing import forkserver
+        forkserver.ensure_running()
 
 
 def _run_pool(n_workers, eng, prepared, sink, seed, groups, per_path, progress) -> dict:
