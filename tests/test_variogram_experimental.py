@@ -1,4 +1,8 @@
-"""Experimental variograms against a brute-force double loop and hand-worked cases."""
+"""Experimental variograms against a brute-force double loop and hand-worked cases.
+
+The checks against the double loop run through both pair loops: the compiled kernel and the
+numpy one small data sets take (``pair_loop``); a last group checks the two agree bit for bit.
+"""
 import math
 
 import numpy as np
@@ -6,7 +10,15 @@ import pytest
 
 from geosim.errors import InputError
 from geosim.variogram import (Direction, directional_variograms, downhole_variogram,
-                              experimental_variogram, variogram_map)
+                              experimental_variogram, pairs, variogram_map)
+from geosim.variogram.experimental import _compute
+
+
+@pytest.fixture(params=["compiled", "numpy"])
+def pair_loop(request, monkeypatch):
+    """Every data set through the compiled pair loop, or every one through numpy's."""
+    monkeypatch.setattr(pairs, "NUMPY_PAIRS_MAX", -1 if request.param == "compiled" else 1 << 40)
+    return request.param
 
 
 def brute_force(coords, values, lag, nlags, lag_half_width, direction=None, robust=False, holes=None):
@@ -70,7 +82,7 @@ def data3d():
 ])
 @pytest.mark.parametrize("robust", [False, True])
 @pytest.mark.parametrize("lag_half_width", [None, 9.0])
-def test_matches_brute_force_3d(data3d, direction, robust, lag_half_width):
+def test_matches_brute_force_3d(data3d, direction, robust, lag_half_width, pair_loop):
     coords, values = data3d
     ev = experimental_variogram(coords, values, lag=10.0, nlags=8, lag_half_width=lag_half_width, direction=direction,
                                 estimator="cressie-hawkins" if robust else "matheron")
@@ -83,7 +95,7 @@ def test_matches_brute_force_3d(data3d, direction, robust, lag_half_width):
     assert ev.nsamples == 68
 
 
-def test_directions_in_one_pass_match_single_calls_2d():
+def test_directions_in_one_pass_match_single_calls_2d(pair_loop):
     rng = np.random.default_rng(3)
     xy = rng.uniform(0, 200, (150, 2))
     z = np.sin(xy[:, 0] / 40) + rng.normal(scale=0.2, size=150)
@@ -100,7 +112,7 @@ def test_directions_in_one_pass_match_single_calls_2d():
     assert many[0].dim == 2 and many[0].kind == "omnidirectional" and many[1].kind == "directional"
 
 
-def test_downhole_matches_brute_force_and_axis():
+def test_downhole_matches_brute_force_and_axis(pair_loop):
     rng = np.random.default_rng(5)
     holes, pts = [], []
     for h in range(6):
@@ -123,7 +135,7 @@ def test_downhole_matches_brute_force_and_axis():
     assert ev.direction.dip == pytest.approx(60.0, abs=1e-6)
 
 
-def test_hand_worked_line():
+def test_hand_worked_line(pair_loop):
     # z = x on a line with unit spacing: gamma(k) = k^2 / 2 for the pairs k apart
     x = np.arange(6.0)
     ev = experimental_variogram(np.column_stack([x, 0 * x]), x, lag=2.0, nlags=3, lag_half_width=0.5)
@@ -135,6 +147,11 @@ def test_hand_worked_line():
     np.testing.assert_allclose(ev.gamma[1:], [0.5, 2.0, 4.5])
     np.testing.assert_allclose(ev.lags[1:], [1.0, 2.0, 3.0])
     assert np.isnan(ev.gamma[0]) and np.isnan(ev.lags[0])
+    # lags on the bin edges: [-1, 1), [1, 3), [3, 5) hold the lags 1 and 2 (5 + 4 pairs) and 3 and 4
+    # (3 + 2); none holds a lag of 5
+    ev = experimental_variogram(np.column_stack([x, 0 * x]), x, lag=2.0, nlags=3, lag_half_width=1.0)
+    assert ev.npairs.tolist() == [0, 9, 5]
+    np.testing.assert_allclose(ev.gamma[1:], [(5 * 0.5 + 4 * 2.0) / 9, (3 * 4.5 + 2 * 8.0) / 5])
 
 
 def test_nan_values_are_ignored_like_missing_rows():
@@ -227,3 +244,67 @@ def test_realization_on_a_grid_against_array_shifts():
     # independent, so gamma(k) has relative SE sqrt(2 k / N): 0.047 at k = 1, 0.105 at k = 5; the
     # ratio has about 0.115, and 0.25 is a little over two of those.
     assert a.gamma[5] / a.gamma[1] == pytest.approx(5.0, rel=0.25)
+
+
+def _random_case(rng, trial):
+    """Rows sorted by group then x (as the variogram functions sort them), with ties, coincident
+    points, lags on bin edges, 2-D and 3-D layouts, one to five groups, and one to four directions."""
+    n = int(rng.integers(2, 260))
+    xyz = np.round(rng.uniform(0.0, 500.0, (n, 3)), int(rng.integers(0, 3)))
+    lag = float(rng.uniform(5.0, 60.0))
+    if trial % 4 == 1:  # a lattice with whole-number lags, many of them on bin edges
+        xyz, lag = rng.integers(0, 12, (n, 3)).astype(float), float(rng.integers(1, 4))
+    if trial % 3 == 0:
+        xyz[:, 2] = 0.0
+    groups = rng.integers(0, int(rng.integers(1, 6)), n)
+    order = np.lexsort((xyz[:, 0], groups))
+    xyz, groups = np.ascontiguousarray(xyz[order]), groups[order]
+    ends = np.flatnonzero(np.diff(groups)) + 1
+    group_end = np.repeat(np.append(ends, n), np.diff(np.concatenate([[0], ends, [n]]))).astype(np.int64)
+    rows = [np.array([1.0] + [0.0] * 9 + [-1.0, -1.0, np.inf, np.inf])]
+    for _ in range(int(rng.integers(0, 4))):
+        rows.append(Direction(float(rng.uniform(0, 180)), float(rng.uniform(0, 60)) if trial % 3 else 0.0,
+                              horizontal_half_angle=float(rng.uniform(5, 60)),
+                              vertical_half_angle=float(rng.uniform(5, 60)),
+                              horizontal_max_offset=float(rng.choice([np.inf, 40.0])),
+                              vertical_max_offset=float(rng.choice([np.inf, 10.0])))._row())
+    nlags = int(rng.integers(1, 15))
+    tol = lag * float(rng.choice([0.5, 0.3, 1.2, 2.5]))  # overlapping bins too
+    i0 = int(rng.integers(0, n))
+    return (xyz, rng.standard_normal(n), group_end, i0, int(rng.integers(i0, n + 1)), np.vstack(rows), lag, tol,
+            nlags, (nlags - 1) * lag + tol, bool(rng.integers(0, 2)))
+
+
+def test_numpy_pair_loop_adds_the_kernels_sums_bit_for_bit():
+    # random layouts, row ranges and accumulators that already hold sums (as a chunk's do not, but
+    # the kernel's contract allows): the same bits, which needs the same operations in the same order
+    rng = np.random.default_rng(20261203)
+    for trial in range(80):
+        case = _random_case(rng, trial)
+        start = [rng.standard_normal((case[5].shape[0], case[8])) if trial % 2 else
+                 np.zeros((case[5].shape[0], case[8])) for _ in range(3)]
+        compiled, numpy_ = [a.copy() for a in start], [a.copy() for a in start]
+        pairs.accumulate_directional(*case, *compiled)
+        pairs.accumulate_directional_numpy(*case, *numpy_)
+        for a, b in zip(compiled, numpy_):
+            assert np.array_equal(a, b), trial
+
+
+def test_variograms_of_small_data_sets_take_numpy_with_the_same_result(monkeypatch):
+    # the data sets below have fewer pairs than NUMPY_PAIRS_MAX, so they take numpy's loop; forced
+    # through the kernel they give the same bits, in 2-D and 3-D, by hole and robust
+    rng = np.random.default_rng(8)
+    xyz = rng.uniform(0.0, 300.0, (200, 3))
+    z = rng.standard_normal(200)
+    holes = np.repeat(np.arange(10), 20)
+    assert 200 * 199 // 2 <= pairs.NUMPY_PAIRS_MAX
+    args = [(xyz[:, :2], z, 25.0, 10, None, [None, Direction(30.0), Direction(120.0)], "matheron", None, None),
+            (xyz, z, 25.0, 10, 20.0, [None, Direction(60.0, 20.0)], "cressie-hawkins", None, None),
+            (xyz, z, 10.0, 6, None, [None], "matheron", holes, None)]
+    numpy_ = [_compute(*a) for a in args]
+    monkeypatch.setattr(pairs, "NUMPY_PAIRS_MAX", -1)
+    for a, first in zip(args, numpy_):
+        for one, other in zip(first, _compute(*a)):
+            assert np.array_equal(one.npairs, other.npairs) and one.npairs.sum() > 0
+            assert np.array_equal(one.gamma, other.gamma, equal_nan=True)
+            assert np.array_equal(one.lags, other.lags, equal_nan=True)

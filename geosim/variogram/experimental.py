@@ -392,13 +392,6 @@ def variogram_map(coords, values, *, cell: float, ncells: int, min_pairs: int = 
 
 # internals --------------------------------------------------------------------
 
-def warm_up() -> None:
-    """Compile the directional pair loop (numba's cache keeps it) through a tiny variogram with
-    the argument types of every real one (:func:`geosim.simulation.runner.compile_ahead`)."""
-    x = np.arange(4.0)
-    experimental_variogram(np.column_stack([x, x]), x, lag=1.0, nlags=2)
-
-
 def _prepare(coords, values, estimator):
     if estimator not in ESTIMATORS:
         raise ValueError(f"estimator must be one of {ESTIMATORS}, got {estimator!r}")
@@ -423,7 +416,7 @@ def _prepare(coords, values, estimator):
 
 
 def _compute(coords, values, lag, nlags, lag_half_width, directions, estimator, hole_ids, progress):
-    from .pairs import accumulate_directional
+    from .pairs import NUMPY_PAIRS_MAX, accumulate_directional, accumulate_directional_numpy
 
     xyz, z, dim, keep = _prepare(coords, values, estimator)
     if hole_ids is not None and hole_ids.shape != keep.shape:
@@ -462,10 +455,12 @@ def _compute(coords, values, lag, nlags, lag_half_width, directions, estimator, 
     k = len(directions)
     robust = estimator == "cressie-hawkins"
 
+    # small data sets take numpy's pair loop (the same sums, bit for bit): no compiling on a first run
+    accumulate = accumulate_directional if n * (n - 1) // 2 > NUMPY_PAIRS_MAX else accumulate_directional_numpy
+
     def task(i0, i1):
         acc = np.zeros((3, k, nlags))
-        accumulate_directional(xyz, z, group_end, i0, i1, dirs, lag, half, nlags, dmax, robust,
-                               acc[0], acc[1], acc[2])
+        accumulate(xyz, z, group_end, i0, i1, dirs, lag, half, nlags, dmax, robust, acc[0], acc[1], acc[2])
         return acc
 
     out_n, out_d, out_g = _run_chunks(n, task, (3, k, nlags), progress, "variogram pairs")
