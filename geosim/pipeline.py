@@ -201,9 +201,6 @@ def variogram_model(spec: RunSpec, data: PreparedData | None = None, *, out_dir:
             fitted = replace(data, scores=residuals)
             if total_sill == 1.0:
                 total_sill = drift["residual_variance"]
-        from .simulation.runner import await_compiled
-        from .variogram.pairs import accumulate_directional
-        await_compiled("modules", accumulate_directional)  # a first run's pair loop, being compiled ahead
         experimental = experimental_variograms(spec, fitted, progress)
         try:
             fit = fit_model(experimental, template, weighting=vg["weighting"], total_sill=total_sill)
@@ -241,7 +238,6 @@ def cross_validate(spec: RunSpec, data: PreparedData | None = None, model=None, 
     ``cross_validation.png`` when ``outputs.plots`` is on.
     """
     from .kriging import cross_validate as leave_one_out, kernel_of
-    from .moments import _kernel as moments_kernel
     from .secondary import collocated_leave_one_out, drift_errors, secondary_grid
     from .simulation.runner import await_compiled
     data = data if data is not None else prepare_data(spec, progress)
@@ -251,6 +247,7 @@ def cross_validate(spec: RunSpec, data: PreparedData | None = None, model=None, 
     method, drift = spec["simulation.kriging"], {}
     if secondary is not None and secondary.method == "external_drift":  # the secondary at the samples
         method, drift = "external_drift", {"drift": secondary.at_data}
+    moments_ready()
     await_compiled("modules", kernel_of(method))  # a first run's kriging kernel, being compiled ahead
     with drift_errors(secondary) if drift else nullcontext():
         result = leave_one_out(data.coords, data.scores, model, method=method, mean=0.0,
@@ -262,7 +259,6 @@ def cross_validate(spec: RunSpec, data: PreparedData | None = None, model=None, 
     result = replace(result, units="normal score", weights=data.weights, scale="normal scores")
     if data.mean is not None:  # the mean at each sample back on the residuals
         result = replace(result, values=data.mean.scores, estimate=result.estimate + data.mean.at_data)
-    await_compiled("engine", moments_kernel)  # compiled ahead in the engine's process, before the engine's kernel
     in_data = result.in_data_units(data.transform, data.values, units=spec["data.units"])
     cv = CrossValidation(result, {"normal_scores": result.summary(), "data_units": in_data.summary()},
                          data_units=in_data)
@@ -288,11 +284,9 @@ def estimate(spec: RunSpec, data: PreparedData | None = None, model=None, grid=N
         _preflight_notes(spec, data, grid)
     model = _model(spec, data, model, progress)
     from .kriging import kernel_of
-    from .moments import _kernel as moments_kernel
     from .simulation.runner import await_compiled
-    # a first run's kriging kernel and data-unit moments, being compiled ahead in two processes
-    await_compiled("modules", kernel_of(spec["simulation.kriging"]))
-    await_compiled("engine", moments_kernel)
+    moments_ready()
+    await_compiled("modules", kernel_of(spec["simulation.kriging"]))  # a first run's, being compiled ahead
     secondary = secondary_grid(spec, data.samples, data.scores, grid)
     scores, variance, result = krige_nodes(
         data.coords, data.scores, grid, model, mean=data.mean, secondary=secondary,
@@ -486,10 +480,10 @@ def run_job(spec: RunSpec | str | os.PathLike, out_dir: str | os.PathLike, prepa
     out_dir, timed, timings)``.  ``timed(name, func, *args)`` is :func:`step_timer`'s.
     """
     from .kriging import kernel_of
-    from .moments import _kernel as moments_kernel
-    from .simulation.runner import compile_ahead, compile_modules_ahead, end_ahead
+    from .search import _select_rows
+    from .simulation.runner import compile_ahead, compile_modules_ahead, end_ahead, resolve_engine
+    from .simulation.sequential import SequentialEngine
     from .summaries import COMPILED_BANDS_FROM, _node_bands
-    from .variogram.pairs import accumulate_directional
     if not isinstance(spec, RunSpec):
         spec = load_spec(spec)
     from .secondary import refuse_drift_simulation
@@ -497,22 +491,22 @@ def run_job(spec: RunSpec | str | os.PathLike, out_dir: str | os.PathLike, prepa
     out_dir = Path(out_dir)
     timings: dict[str, float] = {}
     # a first run compiles ahead in two processes, each kernel ready before the step that needs it:
-    # the variogram pair loop (needed within seconds), then the kriging kernel of cross-validation
-    # and the estimate; and the data-unit moments (needed after the kriging), then the engine's
-    # kernel of this run once its grid is known (whether realizations share paths), and the
-    # summary kernel when the run is large enough for it to pay (smaller ones use numpy)
-    ahead = [("geosim.variogram.experimental", accumulate_directional, {})] if spec["variogram.fit"] else []
-    kriging = spec["outputs.cross_validation"] or spec["outputs.estimate"]
-    if kriging:
+    # the kriging kernel of cross-validation and the estimate; and the kernels that prepare every
+    # run of the sequential engine, then the engine's main kernel of this run once its grid is known
+    # (whether realizations share paths), and the summary kernel when the run is large enough for
+    # it to pay (smaller ones use numpy).  This process compiles the data-unit moments itself while
+    # it waits for the kriging kernel (moments_ready), and small data sets' variograms compile nothing
+    if spec["outputs.cross_validation"] or spec["outputs.estimate"]:
         method = spec["simulation.kriging"]
-        ahead.append(("geosim.kriging", kernel_of(method), {"methods": (method,)}))
-    compile_modules_ahead("modules", ahead)
-    compile_modules_ahead("engine", [("geosim.moments", moments_kernel, {})] if kriging else [], more=True)
+        compile_modules_ahead("modules", [("geosim.kriging", kernel_of(method), {"methods": (method,)})])
+    sequential = isinstance(resolve_engine(spec["simulation.engine"]), SequentialEngine)
+    compile_modules_ahead("engine", [("geosim.simulation.sequential", _select_rows, {})] if sequential else [],
+                          more=True)
     timed = step_timer(timings)
     try:
         prepared, grid, notes = prepare(spec, timed)
     except BaseException:
-        end_ahead("engine")  # nothing more comes: the process ends after the moments
+        end_ahead("engine")  # nothing more comes: the process ends after what it has
         raise
     large = grid.n_active * spec["simulation.realizations"] >= COMPILED_BANDS_FROM
     compile_ahead(spec["simulation.engine"], engine_needs(spec, grid),
@@ -523,6 +517,19 @@ def run_job(spec: RunSpec | str | os.PathLike, out_dir: str | os.PathLike, prepa
     log.info("%r", grid)
     return run_in_folder(spec, out_dir, overwrite, resume,
                          lambda: steps(spec, prepared, grid, out_dir, timed, timings))
+
+
+def moments_ready() -> None:
+    """Compile the data-unit moments' kernel into numba's cache if it is not there.
+
+    Cross-validation and the estimate call this before they wait for the kriging kernel: on a
+    first run that kernel is still compiling in another process (:func:`run_job`), and the wait
+    is spent on the moments they need next.  With the kernel cached this does nothing.
+    """
+    from .moments import _kernel, warm_up
+    from .simulation.runner import in_numba_cache
+    if not in_numba_cache(_kernel):
+        warm_up()
 
 
 def engine_needs(spec: RunSpec, grid) -> dict[str, object]:

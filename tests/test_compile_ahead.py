@@ -266,31 +266,26 @@ def test_workers_load_the_kernel_being_compiled_ahead_instead_of_compiling_it(tm
     assert out.stdout.split() == ["0"] * 5
 
 
-def test_the_pair_loop_compiled_ahead_is_loaded_by_variograms(tmp_path):
-    # the run's first compiling process starts with the pair loop; a step waiting for it returns
-    # once it is cached, and variograms of other data and dimension then load it; with everything
-    # cached nothing is started
+def test_variograms_of_small_data_sets_compile_no_pair_loop(tmp_path):
+    # a variogram of a few hundred samples takes numpy's pair loop: nothing is compiled or loaded, so
+    # a first run's variogram step waits for no compiler; a data set with more pairs than
+    # NUMPY_PAIRS_MAX compiles the kernel in the calling process
     out = _python(textwrap.dedent("""
-        import numpy as np, geosim
-        from geosim.simulation.runner import await_compiled, compile_modules_ahead, in_numba_cache
+        import numpy as np
+        from geosim.variogram import pairs
         from geosim.variogram.experimental import downhole_variogram, experimental_variogram
-        from geosim.variogram.pairs import accumulate_directional as pairs
-        first = [("geosim.variogram.experimental", pairs, {})]
-        proc = compile_modules_ahead("modules", first)
-        await_compiled("modules", pairs, timeout=540)
-        print(proc is not None, in_numba_cache(pairs))
         rng = np.random.default_rng(4)
-        xyz = rng.uniform(0.0, 200.0, (40, 3))
-        experimental_variogram(xyz[:, :2], rng.standard_normal(40), lag=20.0, nlags=6)
-        downhole_variogram(xyz, rng.standard_normal(40), np.repeat(np.arange(8), 5), lag=20.0, nlags=6,
+        xyz = rng.uniform(0.0, 200.0, (300, 3))
+        experimental_variogram(xyz[:, :2], rng.standard_normal(300), lag=20.0, nlags=6)
+        downhole_variogram(xyz, rng.standard_normal(300), np.repeat(np.arange(30), 10), lag=20.0, nlags=6,
                            estimator="cressie-hawkins")
-        print(sum(pairs.stats.cache_hits.values()), sum(pairs.stats.cache_misses.values()))
-        print(proc.wait(timeout=540), compile_modules_ahead("modules", first))
+        print(len(pairs.accumulate_directional.signatures))
+        n = 800
+        assert n * (n - 1) // 2 > pairs.NUMPY_PAIRS_MAX
+        experimental_variogram(rng.uniform(0.0, 2000.0, (n, 2)), rng.standard_normal(n), lag=50.0, nlags=6)
+        print(len(pairs.accumulate_directional.signatures), sum(pairs.accumulate_directional.stats.cache_misses.values()))
     """), str(tmp_path / "cache"))
-    started, loaded, ended = [line.split() for line in out.splitlines()]
-    assert started == ["True", "True"]
-    assert int(loaded[0]) >= 1 and loaded[1] == "0"  # loaded once (one signature), compiled never
-    assert ended == ["0", "None"]
+    assert [line.split() for line in out.splitlines()] == [["0"], ["1", "1"]]
 
 
 FIRST_RUN = textwrap.dedent("""
@@ -299,6 +294,7 @@ FIRST_RUN = textwrap.dedent("""
     from geosim.config.runspec import load_spec
     from geosim.kriging import kernel_of
     from geosim.moments import _kernel
+    from geosim.search import _select_rows
     from geosim.simulation.sequential import sgs_kernel
     from geosim.summaries import _node_bands
     from geosim.variogram.pairs import accumulate_directional
@@ -307,7 +303,7 @@ FIRST_RUN = textwrap.dedent("""
     assert spec["variogram.fit"] and spec["outputs.cross_validation"] and spec["outputs.estimate"]
     geosim.pipeline.run(spec, sys.argv[2])
     for name, d in [("pairs", accumulate_directional), ("kriging", kernel_of("simple")), ("moments", _kernel),
-                    ("engine", sgs_kernel(True, False, False)), ("bands", _node_bands)]:
+                    ("engine", sgs_kernel(True, False, False)), ("search", _select_rows), ("bands", _node_bands)]:
         print(name, sum(d.stats.cache_hits.values()), sum(d.stats.cache_misses.values()))
     print("other", *[k.__name__ for k in (kernel_of("ordinary"), sgs_kernel(False, False, False),
                                           sgs_kernel(True, True, False)) if k.signatures])
@@ -316,10 +312,11 @@ FIRST_RUN = textwrap.dedent("""
 
 def test_the_main_process_of_a_first_run_compiles_none_of_the_kernels_compiled_ahead(tmp_path):
     # a first run (empty cache) with a variogram fit, cross-validation, an estimate, a simulation
-    # in this process and summaries: every step waits for its kernel from the compiling processes
-    # (the pair loop, kriging, moments, engine) and loads it; one the main process compiled itself
-    # would count a cache miss.  The run is small: its summaries take numpy's pass, so the summary
-    # kernel is neither compiled ahead nor loaded, and no other variant is touched
+    # in this process and summaries: each step that needs a kernel compiled ahead (kriging; the
+    # engine's search and main kernel) waits for it and loads it, where compiling it itself would
+    # count a cache miss.  The run compiles the moments' kernel itself, once, while it waits for the
+    # kriging kernel.  Its 80 wells take numpy's pair loop and its summaries numpy's pass, so neither
+    # kernel is compiled or loaded, and no other variant is touched
     env = {**os.environ, "NUMBA_CACHE_DIR": str(tmp_path / "cache")}
     out = subprocess.run([sys.executable, "-c", FIRST_RUN, str(AQUIFER), str(tmp_path / "run")], capture_output=True,
                          text=True, env=env, timeout=600, cwd=tmp_path)
@@ -327,10 +324,12 @@ def test_the_main_process_of_a_first_run_compiles_none_of_the_kernels_compiled_a
     lines = out.stdout.splitlines()
     counts = {name: (int(hits), int(misses)) for name, hits, misses in map(str.split, lines[:-1])}
     assert lines[-1].split() == ["other"]
-    assert counts.pop("bands") == (0, 0)
-    assert counts == {name: (counts[name][0], 0) for name in ("pairs", "kriging", "moments", "engine")}
+    assert counts.pop("bands") == (0, 0) and counts.pop("pairs") == (0, 0)
+    assert counts.pop("moments") == (0, 1)
+    assert counts == {name: (counts[name][0], 0) for name in ("kriging", "engine", "search")}
     assert all(hits >= 1 for hits, _ in counts.values())
     assert not list((tmp_path / "cache").rglob("*_node_bands*"))
+    assert not list((tmp_path / "cache").rglob("*accumulate_directional*"))
 
 
 def test_a_kernel_counts_as_cached_only_once_its_code_is_written(tmp_path):
@@ -378,3 +377,65 @@ def test_an_index_left_by_other_source_does_not_count_as_cached(tmp_path):
         print(in_numba_cache(forward_inplace))
     """), str(tmp_path / "cache"))
     assert out.split() == ["True", "False"]
+
+
+def test_compiling_processes_are_forks_unless_another_thread_runs(tmp_path):
+    # a fork of this process starts compiling at once (a fresh interpreter first spends about a
+    # second importing); beside another Python thread, or with GEOSIM_COMPILE_FORK=0, a fresh
+    # interpreter is started instead.  Each way the kernel lands in the cache
+    out = _python(textwrap.dedent("""
+        import os, threading
+        from geosim.kriging import kernel_of
+        from geosim.moments import _kernel
+        from geosim.simulation import runner
+
+        def command_line(pid):
+            with open(f"/proc/{pid}/cmdline", "rb") as f:
+                return f.read()
+
+        own = command_line(os.getpid())
+        procs = [runner.compile_modules_ahead("one", [("geosim.moments", _kernel, {})])]
+        stop = threading.Event()
+        other = threading.Thread(target=stop.wait)
+        other.start()
+        procs.append(runner.compile_modules_ahead("two", [("geosim.kriging", kernel_of("simple"), {"methods": ("simple",)})]))
+        stop.set()
+        other.join()
+        os.environ["GEOSIM_COMPILE_FORK"] = "0"
+        procs.append(runner.compile_modules_ahead("three", [("geosim.kriging", kernel_of("ordinary"),
+                                                              {"methods": ("ordinary",)})]))
+        print(*[command_line(p.pid) == own for p in procs])
+        print(*[p.wait(timeout=540) for p in procs])
+        print(*[runner.in_numba_cache(k) for k in (_kernel, kernel_of("simple"), kernel_of("ordinary"))])
+    """), str(tmp_path / "cache"))
+    assert [line.split() for line in out.splitlines()] == [["True", "False", "False"], ["0"] * 3, ["True"] * 3]
+
+
+def test_a_forked_compiling_process_holds_no_other_ones_stdin(tmp_path):
+    # the process that waits for more ends once its stdin is closed; one forked after it must not
+    # keep a copy of that pipe open, or the first would wait for more as long as the second lives
+    out = _python(textwrap.dedent("""
+        import os, time
+        from geosim.kriging import kernel_of
+        from geosim.moments import _kernel
+        from geosim.simulation import runner
+        waiting = runner.compile_modules_ahead("engine", [("geosim.moments", _kernel, {})], more=True)
+        later = runner.compile_modules_ahead("modules", [("geosim.kriging", kernel_of("simple"), {"methods": ("simple",)})])
+        pipe = f"pipe:[{os.fstat(waiting.stdin.fileno()).st_ino}]"
+
+        def held():  # whether the later process holds the pipe; a fork lets go of it at once
+            try:
+                fds = [os.readlink(f"/proc/{later.pid}/fd/{fd}") for fd in os.listdir(f"/proc/{later.pid}/fd")]
+            except OSError:
+                fds = []
+            # one that ends (it lists no fds, not even its /dev/null stdin) was not seen without the pipe
+            return pipe in fds or not fds or later.poll() is not None
+
+        deadline = time.monotonic() + 20.0
+        while held() and time.monotonic() < deadline:
+            time.sleep(0.01)
+        print(held(), later.poll() is None)
+        runner.end_ahead("engine")
+        print(waiting.wait(timeout=540), later.wait(timeout=540))
+    """), str(tmp_path / "cache"))
+    assert [line.split() for line in out.splitlines()] == [["False", "True"], ["0", "0"]]

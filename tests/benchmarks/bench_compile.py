@@ -5,9 +5,9 @@ Run:  python tests/benchmarks/bench_compile.py [--repeats 3] [--pairs 3] [--skip
 Two parts, each in fresh processes with an empty numba cache (``NUMBA_CACHE_DIR`` pointing
 at a new folder), because a cache filled once makes every later figure a load time:
 
-* **Kernels**: the warm-ups a first run of the aquifer demo starts ahead (the sequential engine's
-  simple-kriging single-path kernel, simple kriging, the moments, the variogram pair loop) and the
-  summary kernel of large runs, in one process; numba's compile events
+* **Kernels**: what a first run of the aquifer demo compiles (the sequential engine's
+  simple-kriging single-path kernel, simple kriging, the moments), the summary kernel and the
+  variogram pair loop that larger runs compile, in one process; numba's compile events
   (``numba.core.event``, "numba:compile") give the thread CPU seconds of each top-level
   kernel's compile, callees included.  ``--repeats`` fresh processes; the minimum per kernel
   is reported (other jobs on a shared machine only add to CPU time).
@@ -41,8 +41,10 @@ import json, os, sys, time
 _folder = os.environ.get("GEOSIM_COMPILE_LOG")
 if _folder:
     import importlib.abc, importlib.util
+    _STARTED_AS = os.getpid()  # a process forked later (a compiling process) has another pid
 
     def _record(entry):
+        entry.update(pid=os.getpid(), forked=os.getpid() != _STARTED_AS)
         with open(os.path.join(_folder, f"{os.getpid()}.jsonl"), "a") as f:
             f.write(json.dumps(entry) + "\\n")
 
@@ -58,7 +60,7 @@ if _folder:
                 cpu = time.thread_time() - open_compiles.pop()
                 func = getattr((ev.data or {}).get("dispatcher"), "py_func", None)
                 if func is not None and not open_compiles:
-                    _record({"kernel": f"{func.__module__}.{func.__qualname__}", "cpu": cpu,
+                    _record({"kernel": f"{func.__module__}.{func.__qualname__}", "cpu": cpu, "t": time.time(),
                              "argv": " ".join(sys.orig_argv[1:])[:300]})
         event.register("numba:compile", Listener())
 
@@ -84,7 +86,9 @@ if _folder:
 WARM_UPS = ("from geosim.simulation.sequential import SequentialEngine; import geosim.kriging, geosim.moments; "
             "import geosim.summaries, geosim.variogram.experimental; SequentialEngine().warm_up(); "
             "geosim.kriging.warm_up(('simple',)); geosim.moments.warm_up(); geosim.summaries.warm_up(); "
-            "geosim.variogram.experimental.warm_up()")
+            "import numpy as np; from geosim.variogram.pairs import accumulate_directional as pairs; "
+            "pairs(np.zeros((2, 3)), np.zeros(2), np.full(2, 2), 0, 2, np.zeros((1, 14)), 1.0, 0.5, 2, 1.0, False, "
+            "*np.zeros((3, 1, 2)))")
 
 
 def load() -> str:
@@ -122,8 +126,15 @@ def kernels(repeats: int) -> dict[str, float]:
     return dict(sorted(best.items(), key=lambda kv: -kv[1]))
 
 
-def role(argv: str) -> str:
-    """Which process of a run this was, from its command line (``sys.orig_argv``)."""
+def role(record: dict, forks: list[int]) -> str:
+    """Which process of a run compiled ``record``: a fork of the main process (the compiling processes
+    where they are forks; ``forks`` numbers them in the order they first compiled), or one known by
+    its command line (``sys.orig_argv``)."""
+    argv = record["argv"]
+    if record.get("forked"):
+        if record["pid"] not in forks:
+            forks.append(record["pid"])
+        return f"ahead: fork {forks.index(record['pid']) + 1}"
     if "warm_up_engine" in argv:  # every process imports warm_up_more; the engine's calls it
         return "ahead: engine" if "warm_up_more(" in argv or "SequentialEngine" in argv else "ahead: modules"
     if "forkserver" in argv or "spawn_main" in argv:
@@ -150,8 +161,9 @@ def cold_runs(pairs: int) -> dict:
             env = environment(folder)
             cold = geosim_run(folder / "cold", env)
             compiled: dict[str, dict[str, float]] = {}
-            for r in records(folder / "log"):
-                where = compiled.setdefault(role(r["argv"]), {})
+            forks: list[int] = []
+            for r in sorted(records(folder / "log"), key=lambda r: r.get("t", 0.0)):
+                where = compiled.setdefault(role(r, forks), {})
                 where[r["kernel"]] = round(where.get(r["kernel"], 0.0) + r["cpu"], 2)
             shutil.rmtree(folder / "log")
             (folder / "log").mkdir()
