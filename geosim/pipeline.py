@@ -480,10 +480,10 @@ def run_job(spec: RunSpec | str | os.PathLike, out_dir: str | os.PathLike, prepa
     out_dir, timed, timings)``.  ``timed(name, func, *args)`` is :func:`step_timer`'s.
     """
     from .kriging import kernel_of
-    from .search import _select_rows
     from .simulation.runner import compile_ahead, compile_modules_ahead, end_ahead, resolve_engine
     from .simulation.sequential import SequentialEngine
     from .summaries import COMPILED_BANDS_FROM, _node_bands
+    from .variogram.compiled import cov_matrix_into
     if not isinstance(spec, RunSpec):
         spec = load_spec(spec)
     from .secondary import refuse_drift_simulation
@@ -491,8 +491,8 @@ def run_job(spec: RunSpec | str | os.PathLike, out_dir: str | os.PathLike, prepa
     out_dir = Path(out_dir)
     timings: dict[str, float] = {}
     # a first run compiles ahead in two processes, each kernel ready before the step that needs it:
-    # the kriging kernel of cross-validation and the estimate; and the kernels that prepare every
-    # run of the sequential engine, then the engine's main kernel of this run once its grid is known
+    # the kriging kernel of cross-validation and the estimate; and the covariance kernel that prepares
+    # every run of the sequential engine, then the engine's main kernel of this run once its grid is known
     # (whether realizations share paths), and the summary kernel when the run is large enough for
     # it to pay (smaller ones use numpy).  This process compiles the data-unit moments itself while
     # it waits for the kriging kernel (moments_ready), and small data sets' variograms compile nothing
@@ -500,7 +500,7 @@ def run_job(spec: RunSpec | str | os.PathLike, out_dir: str | os.PathLike, prepa
         method = spec["simulation.kriging"]
         compile_modules_ahead("modules", [("geosim.kriging", kernel_of(method), {"methods": (method,)})])
     sequential = isinstance(resolve_engine(spec["simulation.engine"]), SequentialEngine)
-    compile_modules_ahead("engine", [("geosim.simulation.sequential", _select_rows, {})] if sequential else [],
+    compile_modules_ahead("engine", [("geosim.simulation.sequential", cov_matrix_into, {})] if sequential else [],
                           more=True)
     timed = step_timer(timings)
     try:

@@ -297,13 +297,15 @@ FIRST_RUN = textwrap.dedent("""
     from geosim.search import _select_rows
     from geosim.simulation.sequential import sgs_kernel
     from geosim.summaries import _node_bands
+    from geosim.variogram.compiled import cov_matrix_into
     from geosim.variogram.pairs import accumulate_directional
     spec = load_spec(sys.argv[1], {"simulation.realizations": 2, "grid.cell": [100.0, 100.0],
                                    "simulation.workers": 1, "outputs.plots": False})
     assert spec["variogram.fit"] and spec["outputs.cross_validation"] and spec["outputs.estimate"]
     geosim.pipeline.run(spec, sys.argv[2])
     for name, d in [("pairs", accumulate_directional), ("kriging", kernel_of("simple")), ("moments", _kernel),
-                    ("engine", sgs_kernel(True, False, False)), ("search", _select_rows), ("bands", _node_bands)]:
+                    ("engine", sgs_kernel(True, False, False)), ("search", _select_rows), ("covariance", cov_matrix_into),
+                    ("bands", _node_bands)]:
         print(name, sum(d.stats.cache_hits.values()), sum(d.stats.cache_misses.values()))
     print("other", *[k.__name__ for k in (kernel_of("ordinary"), sgs_kernel(False, False, False),
                                           sgs_kernel(True, True, False)) if k.signatures])
@@ -313,7 +315,7 @@ FIRST_RUN = textwrap.dedent("""
 def test_the_main_process_of_a_first_run_compiles_none_of_the_kernels_compiled_ahead(tmp_path):
     # a first run (empty cache) with a variogram fit, cross-validation, an estimate, a simulation
     # in this process and summaries: each step that needs a kernel compiled ahead (kriging; the
-    # engine's search and main kernel) waits for it and loads it, where compiling it itself would
+    # engine's covariance, search and main kernel) waits for it and loads it, where compiling it itself would
     # count a cache miss.  The run compiles the moments' kernel itself, once, while it waits for the
     # kriging kernel.  Its 80 wells take numpy's pair loop and its summaries numpy's pass, so neither
     # kernel is compiled or loaded, and no other variant is touched
@@ -326,7 +328,7 @@ def test_the_main_process_of_a_first_run_compiles_none_of_the_kernels_compiled_a
     assert lines[-1].split() == ["other"]
     assert counts.pop("bands") == (0, 0) and counts.pop("pairs") == (0, 0)
     assert counts.pop("moments") == (0, 1)
-    assert counts == {name: (counts[name][0], 0) for name in ("kriging", "engine", "search")}
+    assert counts == {name: (counts[name][0], 0) for name in ("kriging", "engine", "search", "covariance")}
     assert all(hits >= 1 for hits, _ in counts.values())
     assert not list((tmp_path / "cache").rglob("*_node_bands*"))
     assert not list((tmp_path / "cache").rglob("*accumulate_directional*"))

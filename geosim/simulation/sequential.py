@@ -190,7 +190,14 @@ class SequentialEngine:
         the code a run loads, whatever its grid, model or neighbourhood.  Only the variant
         of :meth:`main_kernel` the options name is compiled.
         """
-        plan = _tiny_plan(self, kriging, secondary)
+        from ..grid import Grid
+        from ..variogram.anisotropy import Anisotropy
+        from ..variogram.structures import Nugget, Spherical
+        grid = Grid(0.0, 0.0, (1.0, 1.0, 1.0), (2, 3, 3))
+        model = Nugget(0.1) + Spherical(0.9, Anisotropy((4.0, 4.0, 4.0)))
+        extra = {"secondary": np.zeros(grid.shape), "correlation": 0.5} if secondary else {}
+        plan = self.prepare(np.array([[0.3, 0.4, 0.5]]), np.array([0.5]), model, grid, kriging=kriging,
+                            neighbourhood=Neighbourhood(max_samples=4, max_nodes=4), **extra)
         if shared_path:
             self.realize_batch(plan, np.random.default_rng(1), [np.random.default_rng(2), np.random.default_rng(3)])
         else:
@@ -287,23 +294,16 @@ DATA_COV_LIMIT = 2048
 
 
 def warm_up() -> None:
-    """Compile the kernels that prepare every run of the engine, whatever its options (the
-    covariance table and the data search; numba's cache keeps them), through a tiny plan: a first
-    run compiles them ahead while its grid, which picks the main kernel's variant, is being made
-    (:func:`geosim.simulation.runner.compile_modules_ahead`)."""
-    _tiny_plan(SequentialEngine(), "simple", False)
-
-
-def _tiny_plan(engine: SequentialEngine, kriging: str, secondary: bool) -> SequentialPlan:
-    """The plan of a tiny 3-D run, whose kernels see the argument types of every real one."""
-    from ..grid import Grid
+    """Compile the covariance kernel that prepares every run of the engine, whatever its options
+    (the covariance table and data-data matrix; numba's cache keeps it), with a real run's argument
+    types: a first run compiles it ahead while its grid, which picks the main kernel's variant, is
+    being made (:func:`geosim.simulation.runner.compile_modules_ahead`).  Not the data search: the
+    kriging kernel compiled beside it calls the same neighbour selection and caches it first."""
     from ..variogram.anisotropy import Anisotropy
     from ..variogram.structures import Nugget, Spherical
-    grid = Grid(0.0, 0.0, (1.0, 1.0, 1.0), (2, 3, 3))
-    model = Nugget(0.1) + Spherical(0.9, Anisotropy((4.0, 4.0, 4.0)))
-    extra = {"secondary": np.zeros(grid.shape), "correlation": 0.5} if secondary else {}
-    return engine.prepare(np.array([[0.3, 0.4, 0.5]]), np.array([0.5]), model, grid, kriging=kriging,
-                          neighbourhood=Neighbourhood(max_samples=4, max_nodes=4), **extra)
+    coords = np.zeros((2, 3))
+    cov_matrix_into((Nugget(0.1) + Spherical(0.9, Anisotropy((4.0, 4.0, 4.0)))).compiled(), coords, coords,
+                    np.empty((2, 2)))
 
 
 def _data_covariances(cm, coords3):
