@@ -532,16 +532,25 @@ def moments_ready() -> None:
         warm_up()
 
 
-def engine_needs(spec: RunSpec, grid) -> dict[str, object]:
+def engine_needs(spec: RunSpec, grid) -> list[dict[str, object]]:
     """The options of the spec's run on ``grid`` that select the engine kernel's variant
     (:func:`geosim.simulation.runner.compile_ahead`): the kriging, whether realizations share
     paths, and whether a collocated secondary joins (a correlation estimated from the data
-    counts as one)."""
+    counts as one).  One mapping for each variant the run uses: a run of several units takes
+    each modelled unit's own ``[secondary]``."""
+    from .config.runspec import has_units, unit_spec, unit_table
     from .simulation.runner import per_path_for
     sim = spec["simulation"]
-    return {"kriging": sim["kriging"],
-            "shared_path": per_path_for(sim["realizations_per_path"], grid, sim["engine"]) > 1,
-            "secondary": spec["secondary.file"] is not None and spec["secondary.correlation"] != 0.0}
+    shared = per_path_for(sim["realizations_per_path"], grid, sim["engine"]) > 1
+    views = ([unit_spec(spec, u.name) for u in unit_table(spec).units if u.modelled] if has_units(spec)
+             else [spec])
+    variants: list[dict[str, object]] = []
+    for view in views:
+        variant = {"kriging": sim["kriging"], "shared_path": shared,
+                   "secondary": view["secondary.file"] is not None and view["secondary.correlation"] != 0.0}
+        if variant not in variants:
+            variants.append(variant)
+    return variants
 
 
 def step_timer(timings: dict[str, float]) -> Callable:

@@ -73,6 +73,21 @@ def test_compile_ahead_fills_the_cache_once_with_the_variants_asked_for(compiled
     assert [line.split() for line in out.splitlines()] == [["None"] * 3, ["True"] * 3 + ["False"] * 3]
 
 
+def test_compile_ahead_takes_several_variants_at_once(tmp_path):
+    # a run of several units hands over each variant its units use: one process compiles them in
+    # turn, a variant asked for twice once, and a variant already cached not again
+    out = _python(textwrap.dedent("""
+        from geosim.simulation.runner import compile_ahead, in_numba_cache
+        from geosim.simulation.sequential import sgs_kernel
+        proc = compile_ahead("sequential", [{"secondary": True}, {}, {"secondary": True}])
+        print(proc.wait(timeout=540), in_numba_cache(sgs_kernel(True, False, False)),
+              in_numba_cache(sgs_kernel(True, False, True)), in_numba_cache(sgs_kernel(True, True, False)))
+        print(compile_ahead("sequential", [{}, {"secondary": True}]))
+        print(sum(sgs_kernel(True, False, True).stats.cache_misses.values()))
+    """), str(tmp_path / "cache"))
+    assert [line.split() for line in out.splitlines()] == [["0", "True", "True", "False"], ["None"], ["0"]]
+
+
 def test_runs_load_the_kernels_compiled_ahead(compiled_ahead):
     # 3-D runs with a single path and simple kriging, with a shared path and ordinary kriging, and with
     # a secondary, on another grid and model than the warm-up's: every call of each variant is a cache

@@ -205,3 +205,27 @@ def test_soft_contact_estimate_with_a_trend_is_kriging_of_residuals_worked_out_h
                    neighbourhood=neighbourhood(low.spec))
     written = _band(tmp_path / "out" / "estimate.tif", 3)[units.node_codes == 1]
     np.testing.assert_allclose(written, result.estimate + trend(nodes), rtol=1e-5, atol=1e-5)
+
+
+def test_a_first_run_compiles_ahead_the_engine_variant_of_each_unit(tmp_path, field):
+    """The engine's kernel has a variant with a collocated secondary and one without: a run of
+    several units compiles ahead each variant its modelled units use (a unit's own [secondary]
+    table counts), each once; a unit left unmodelled asks for none."""
+    from geosim.grid import Grid
+    xy, unit, grade = field
+    grid = Grid(0.0, 0.0, (10.0, 10.0), (40, 60))  # small: paths are not shared ("auto")
+
+    def secondaries(folder, extra="", own=None, modelled=(True, True)):
+        path = _write(folder, xy, unit, grade, realizations=2, extra=extra, modelled=modelled)
+        _survey(folder, xy, grade)
+        if own is not None:
+            path.write_text(path.read_text().replace("[unit.high]\ncode = 2", f"[unit.high]\ncode = 2\n{own}"))
+        variants = pipeline.engine_needs(load_spec(path), grid)
+        assert all(v["kriging"] == "simple" and not v["shared_path"] for v in variants)
+        return [v["secondary"] for v in variants]
+
+    assert secondaries(tmp_path / "none") == [False]
+    assert secondaries(tmp_path / "all", SECONDARY) == [True]
+    assert secondaries(tmp_path / "high", own='secondary = { file = "survey.tif" }') == [False, True]
+    assert secondaries(tmp_path / "low", SECONDARY, own="secondary = { correlation = 0.0 }") == [True, False]
+    assert secondaries(tmp_path / "off", own='secondary = { file = "survey.tif" }', modelled=(True, False)) == [False]

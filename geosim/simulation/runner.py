@@ -156,7 +156,7 @@ def in_numba_cache(dispatcher) -> bool:
     return bool(names) and all(os.path.isfile(cache_file._data_path(name)) for name in names)
 
 
-def compile_ahead(engine, needs: Mapping[str, object] | None = None,
+def compile_ahead(engine, needs: Mapping[str, object] | Sequence[Mapping[str, object]] | None = None,
                   after: Sequence[tuple[str, object]] = ()):
     """Start compiling an engine's kernels into numba's cache in another process, if they are not there.
 
@@ -166,8 +166,10 @@ def compile_ahead(engine, needs: Mapping[str, object] | None = None,
     cache.  An engine takes part with ``warm_up(**needs)`` (a tiny run through its kernels)
     and ``main_kernel(**needs)`` (the dispatcher whose cache is checked); ``needs`` name the
     options of the run that select the kernel's variant (the sequential engine: ``kriging``,
-    ``shared_path``, ``secondary``), and only those an engine's methods accept are passed.  The
-    process exits when this one does (:func:`watch_process`) and writes nothing but numba's cache.
+    ``shared_path``, ``secondary``), and only those an engine's methods accept are passed; a
+    sequence of such mappings compiles each variant (a run of several units, some with a
+    collocated secondary).  The process exits when this one does (:func:`watch_process`) and
+    writes nothing but numba's cache.
 
     ``after``: ``(module, kernel)`` pairs whose module's ``warm_up()`` runs after the engine's,
     each only when its kernel is not cached (a large run puts the summary kernel here).
@@ -181,10 +183,12 @@ def compile_ahead(engine, needs: Mapping[str, object] | None = None,
     eng = resolve_engine(engine)
     targets = []
     if hasattr(eng, "warm_up") and hasattr(eng, "main_kernel"):
-        needs = _accepted(eng.warm_up, needs or {})
-        if not in_numba_cache(eng.main_kernel(**_accepted(eng.main_kernel, needs))):
-            kind = type(eng)
-            targets.append((kind.__module__, kind.__qualname__, needs))
+        for variant in [needs or {}] if needs is None or isinstance(needs, Mapping) else needs:
+            variant = _accepted(eng.warm_up, variant)
+            if (not in_numba_cache(eng.main_kernel(**_accepted(eng.main_kernel, variant)))
+                    and all(variant != t[2] for t in targets)):
+                kind = type(eng)
+                targets.append((kind.__module__, kind.__qualname__, variant))
     targets += [(module, None, {}) for module, kernel in after if not in_numba_cache(kernel)]
     return _hand_over("engine", targets)
 
