@@ -456,3 +456,19 @@ def test_a_forked_compiling_process_holds_no_other_ones_stdin(tmp_path):
         print(waiting.wait(timeout=540), later.wait(timeout=540))
     """), str(tmp_path / "cache"))
     assert [line.split() for line in out.splitlines()] == [["False", "True"], ["0", "0"]]
+
+
+def test_a_fork_after_a_finished_handover_still_compiles(tmp_path):
+    # a process that ran twice (two runs in one session) keeps the first run's compiling processes
+    # registered, their stdin closed; a later fork must pass over those and compile its own kernel
+    out = _python(textwrap.dedent("""
+        from geosim.kriging import kernel_of
+        from geosim.moments import _kernel
+        from geosim.simulation import runner
+        waiting = runner.compile_modules_ahead("engine", [("geosim.moments", _kernel, {})], more=True)
+        runner.end_ahead("engine")
+        print(waiting.wait(timeout=540), waiting.stdin.closed, "engine" in runner._AHEAD)
+        later = runner.compile_modules_ahead("modules", [("geosim.kriging", kernel_of("simple"), {"methods": ("simple",)})])
+        print(later.wait(timeout=540), runner.in_numba_cache(kernel_of("simple")))
+    """), str(tmp_path / "cache"))
+    assert [line.split() for line in out.splitlines()] == [["0", "True", "True"], ["0", "True"]]

@@ -330,9 +330,9 @@ def _forked_child(main_pid: int, targets, read_end: int, write_end: int):
         # this copy of the stdin of the parent's other compiling processes becomes /dev/null, or one
         # that waits for more would wait as long as this process lives; the fd number stays taken,
         # so no file object of the parent's can close another file opened here under it
-        for fd in [getattr(proc.stdin, "fileno", lambda: -1)() for proc in _AHEAD.values() if proc.stdin is not None]:
-            if fd >= 0:
-                os.dup2(devnull, fd)
+        for proc in _AHEAD.values():  # a stdin already closed (handed over, or nothing more came) is left be
+            if proc.stdin is not None and not proc.stdin.closed:
+                os.dup2(devnull, proc.stdin.fileno())
         for fd in (0, 1, 2):
             os.dup2(devnull, fd)
         if write_end >= 0:
