@@ -357,8 +357,8 @@ def multigaussian_moments(transform, mean, variance) -> tuple[np.ndarray, np.nda
 def warm_up() -> None:
     """Compile the moments' kernel (numba's cache keeps it) through the data-unit moments of a
     normal score transform, alone and after a log: the argument types of every real run
-    (:func:`geosim.simulation.runner.compile_modules_ahead` calls this in another process when a
-    run that cross-validates or estimates starts on an empty cache)."""
+    (:func:`geosim.pipeline.moments_ready` calls this when a run that cross-validates or estimates
+    finds it not cached, while the kriging kernel compiles in another process)."""
     z = np.random.default_rng(0).lognormal(0.0, 1.0, 12)
     for transform in (NormalScoreTransform(), TransformChain([LogTransform(), NormalScoreTransform()])):
         transform.fit(z)

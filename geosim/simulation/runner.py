@@ -266,7 +266,7 @@ def _may_fork() -> bool:
 class _ForkedWarmUp:
     """A compiling process forked from this one, with the part of ``subprocess.Popen`` that
     :func:`await_compiled`, :func:`_hand_over` and callers use: ``pid``, ``stdin`` (with
-    ``more``; text, one JSON target a line), ``poll()``, ``wait(timeout)``, ``returncode``, ``kill()``."""
+    ``more``; text, one JSON target a line), ``poll()``, ``wait(timeout)`` and ``returncode``."""
 
     def __init__(self, targets: Sequence[tuple[str, str | None, Mapping[str, object]]], more: bool):
         import warnings
@@ -314,18 +314,12 @@ class _ForkedWarmUp:
             time.sleep(AHEAD_POLL_SECONDS)
         return self.returncode
 
-    def kill(self) -> None:
-        import signal
-        if self.poll() is None:
-            os.kill(self.pid, signal.SIGKILL)
-
 
 def _forked_child(main_pid: int, targets, read_end: int, write_end: int):
     """The body of a :class:`_ForkedWarmUp` child; never returns.  It writes nothing but numba's
     cache and leaves with ``os._exit``: no handler, buffer or ``finally`` of the parent runs here."""
     code = 1
     try:
-        import json
         devnull = os.open(os.devnull, os.O_RDWR)
         # this copy of the stdin of the parent's other compiling processes becomes /dev/null, or one
         # that waits for more would wait as long as this process lives; the fd number stays taken,
@@ -341,8 +335,7 @@ def _forked_child(main_pid: int, targets, read_end: int, write_end: int):
             warm_up_engine(main_pid, module, name, keywords)
         if read_end >= 0:
             with os.fdopen(read_end) as lines:
-                for line in lines:
-                    warm_up_engine(main_pid, *json.loads(line))
+                warm_up_more(main_pid, lines)
         code = 0
     finally:
         os._exit(code)
@@ -408,12 +401,13 @@ def warm_up_engine(main_pid: int, module: str, name: str | None, keywords: Mappi
     (target.warm_up if name is None else getattr(target, name)().warm_up)(**(keywords or {}))
 
 
-def warm_up_more(main_pid: int) -> None:
+def warm_up_more(main_pid: int, lines: Iterable[str] | None = None) -> None:
     """The rest of a compiling process started with ``more``: :func:`warm_up_engine` for each
-    ``[module, name, keywords]`` line of its stdin, until that is closed."""
+    ``[module, name, keywords]`` line of ``lines`` (its stdin, or the pipe a forked one reads),
+    until that is closed."""
     import json
     import sys
-    for line in sys.stdin:
+    for line in sys.stdin if lines is None else lines:
         warm_up_engine(main_pid, *json.loads(line))
 
 
@@ -636,8 +630,9 @@ def simulate(data_coords, data_scores, model, grid, *, n_realizations: int, seed
                  and engine_options.get("correlation", 0.0) != 0.0}
         kernel = eng.main_kernel(**_accepted(eng.main_kernel, needs))
     if "engine" in _AHEAD and client is None and (workers is None or int(workers) > 1) and len(groups) > 1:
-        # while it waits, the pool's server process imports what the workers need (about 1 s of
-        # CPU a local pool costs when it starts); a run whose kernel is cached starts it as before
+        # while a first run may still wait for the engine's process, the pool's server imports what
+        # the workers need (about 0.7 s of CPU a local pool costs when it starts); a run that
+        # compiled nothing ahead starts it with the pool, as before
         _start_pool_server(pool_context(type(eng).__module__, type(sink).__module__ if sink is not None else None))
     await_compiled("engine", kernel)
     if client is not None:
