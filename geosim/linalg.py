@@ -160,6 +160,14 @@ def backward_t_inplace(l, n, b):
             b[j] -= row[j] * bi
 
 
+def warm_up() -> None:
+    """Compile the factorization (numba's cache keeps it) with the argument types the kriging and
+    simulation kernels call it with.  A first run compiles it ahead before anything else in the
+    engine's process (:func:`geosim.pipeline.run_job`), so the kriging kernel, compiled at the same
+    time in another process, loads it rather than compiling it too."""
+    chol_partial(np.eye(2), 2, 2, 0.0)
+
+
 # From this order on, cholesky() hands the matrix to LAPACK (scipy).  Measured in
 # tests/benchmarks/bench_kriging.py with single-threaded BLAS (OPENBLAS_NUM_THREADS=1):
 # the compiled tiles were faster up to n = 32 (LAPACK/compiled time 4.5 at 16, 1.6 at

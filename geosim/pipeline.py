@@ -480,6 +480,8 @@ def run_job(spec: RunSpec | str | os.PathLike, out_dir: str | os.PathLike, prepa
     out_dir, timed, timings)``.  ``timed(name, func, *args)`` is :func:`step_timer`'s.
     """
     from .kriging import kernel_of
+    from .linalg import chol_partial
+    from .search import _select_rows
     from .simulation.runner import compile_ahead, compile_modules_ahead, end_ahead, resolve_engine
     from .simulation.sequential import SequentialEngine
     from .summaries import COMPILED_BANDS_FROM, _node_bands
@@ -491,16 +493,23 @@ def run_job(spec: RunSpec | str | os.PathLike, out_dir: str | os.PathLike, prepa
     out_dir = Path(out_dir)
     timings: dict[str, float] = {}
     # a first run compiles ahead in two processes, each kernel ready before the step that needs it:
-    # the kriging kernel of cross-validation and the estimate; and the covariance kernel that prepares
-    # every run of the sequential engine, then the engine's main kernel of this run once its grid is known
+    # the kriging kernel of cross-validation and the estimate, then what prepares a run of the
+    # sequential engine (its data search, which calls the kriging kernel's neighbour selection, and
+    # its covariance kernel); and the engine's main kernel of this run once its grid is known
     # (whether realizations share paths), and the summary kernel when the run is large enough for
-    # it to pay (smaller ones use numpy).  This process compiles the data-unit moments itself while
-    # it waits for the kriging kernel (moments_ready), and small data sets' variograms compile nothing
+    # it to pay (smaller ones use numpy).  The main kernel takes longest, so its process has nothing
+    # else before it but the factorization every kernel calls (so that the kriging kernel finds it
+    # cached rather than compiling it at the same time); without a kriging process it takes what
+    # prepares the engine's run too.  This process compiles the data-unit moments itself while it
+    # waits for the kriging kernel (moments_ready), and small data sets' variograms compile nothing
+    sequential = isinstance(resolve_engine(spec["simulation.engine"]), SequentialEngine)
+    preparing = ([("geosim.search", _select_rows, {}), ("geosim.simulation.sequential", cov_matrix_into, {})]
+                 if sequential else [])
     if spec["outputs.cross_validation"] or spec["outputs.estimate"]:
         method = spec["simulation.kriging"]
-        compile_modules_ahead("modules", [("geosim.kriging", kernel_of(method), {"methods": (method,)})])
-    sequential = isinstance(resolve_engine(spec["simulation.engine"]), SequentialEngine)
-    compile_modules_ahead("engine", [("geosim.simulation.sequential", cov_matrix_into, {})] if sequential else [],
+        compile_modules_ahead("modules", [("geosim.kriging", kernel_of(method), {"methods": (method,)})] + preparing)
+        preparing = []
+    compile_modules_ahead("engine", ([("geosim.linalg", chol_partial, {})] if sequential else []) + preparing,
                           more=True)
     timed = step_timer(timings)
     try:

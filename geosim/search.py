@@ -468,3 +468,13 @@ def _select_rows(rows, cand, frame, holes, tframe, excl_index, excl_hole, max_sa
         for q in range(c, max_samples):
             index[r, q] = -1
     return more
+
+
+def warm_up() -> None:
+    """Compile the data search's kernel (numba's cache keeps it) through a tiny query with a real
+    run's argument types.  A first run compiles it ahead after the kriging kernel, which calls the
+    same neighbour selection (:func:`geosim.pipeline.run_job`): the sequential engine's
+    preparation loads it from the cache."""
+    search = DataSearch(np.array([[0.0, 0.0, 0.0], [1.0, 0.5, 0.25]]),
+                        Neighbourhood(max_samples=2, ranges=(2.0, 2.0, 2.0)))
+    search.query(np.array([[0.5, 0.5, 0.5]]), workers=-1)

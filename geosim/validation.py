@@ -516,6 +516,11 @@ class RunChecks:
         """
         def work():
             try:
+                # a first run's covariance kernel may still be compiling in another process
+                # (geosim.pipeline.run_job): load it once there, rather than compile it again here
+                from .simulation.runner import await_compiled
+                from .variogram.compiled import cov_matrix_into
+                await_compiled("modules", cov_matrix_into)
                 self.moments()
                 for name, steps in self.steps.items():
                     for k in steps:

@@ -308,6 +308,7 @@ FIRST_RUN = textwrap.dedent("""
     import geosim.pipeline
     from geosim.config.runspec import load_spec
     from geosim.kriging import kernel_of
+    from geosim.linalg import chol_partial
     from geosim.moments import _kernel
     from geosim.search import _select_rows
     from geosim.simulation.sequential import sgs_kernel
@@ -322,6 +323,8 @@ FIRST_RUN = textwrap.dedent("""
                     ("engine", sgs_kernel(True, False, False)), ("search", _select_rows), ("covariance", cov_matrix_into),
                     ("bands", _node_bands)]:
         print(name, sum(d.stats.cache_hits.values()), sum(d.stats.cache_misses.values()))
+    print("entries", *[len(d._cache._cache_file._load_index()) for d in (
+        chol_partial, _select_rows, cov_matrix_into, sgs_kernel(True, False, False), kernel_of("simple"))])
     print("other", *[k.__name__ for k in (kernel_of("ordinary"), sgs_kernel(False, False, False),
                                           sgs_kernel(True, True, False)) if k.signatures])
 """)
@@ -339,14 +342,56 @@ def test_the_main_process_of_a_first_run_compiles_none_of_the_kernels_compiled_a
                          text=True, env=env, timeout=600, cwd=tmp_path)
     assert out.returncode == 0, out.stderr[-3000:]
     lines = out.stdout.splitlines()
-    counts = {name: (int(hits), int(misses)) for name, hits, misses in map(str.split, lines[:-1])}
+    counts = {name: (int(hits), int(misses)) for name, hits, misses in map(str.split, lines[:-2])}
     assert lines[-1].split() == ["other"]
+    # one cached specialization each: every process that compiled the shared pieces (the factorization,
+    # the search, the covariance loop) gave them the argument types the others then loaded
+    assert lines[-2].split() == ["entries"] + ["1"] * 5
     assert counts.pop("bands") == (0, 0) and counts.pop("pairs") == (0, 0)
     assert counts.pop("moments") == (0, 1)
     assert counts == {name: (counts[name][0], 0) for name in ("kriging", "engine", "search", "covariance")}
     assert all(hits >= 1 for hits, _ in counts.values())
     assert not list((tmp_path / "cache").rglob("*_node_bands*"))
     assert not list((tmp_path / "cache").rglob("*accumulate_directional*"))
+
+
+def test_pieces_compiled_apart_are_the_ones_the_kernels_and_runs_load(tmp_path):
+    # a first run's engine process compiles the factorization before anything else, then the main
+    # kernel alone; the kriging process compiles what prepares the engine's run (the data search and
+    # the covariance kernel) after the kriging kernel (geosim.pipeline.run_job).  Each warm-up must
+    # compile the code its users load, each here in a process of its own: the kriging kernel compiled
+    # after linalg.warm_up loads the factorization, the engine's own warm-up compiles neither the
+    # search nor the covariance kernel, and a simulation with data and node neighbours after the
+    # search's and covariance's warm-ups loads both
+    cache = str(tmp_path / "cache")
+    _python("from geosim import linalg; linalg.warm_up()", cache)
+    out = _python(textwrap.dedent("""
+        import geosim.kriging
+        from geosim import search
+        from geosim.linalg import chol_partial
+        from geosim.simulation import sequential
+        geosim.kriging.warm_up(("simple",))
+        search.warm_up()
+        sequential.warm_up()
+        print(sum(chol_partial.stats.cache_hits.values()), sum(chol_partial.stats.cache_misses.values()))
+    """), cache)
+    assert out.split() == ["1", "0"]
+    out = _python(textwrap.dedent("""
+        import numpy as np, geosim
+        from geosim.search import _select_rows
+        from geosim.simulation.sequential import SequentialEngine, sgs_kernel
+        from geosim.variogram.compiled import cov_matrix_into
+        SequentialEngine().warm_up()
+        print(len(sgs_kernel(True, False, False).signatures), len(_select_rows.signatures),
+              len(cov_matrix_into.signatures))
+        grid = geosim.Grid(100.0, 200.0, (5.0, 5.0), (10, 12))
+        model = geosim.Nugget(0.05) + geosim.Exponential(0.95, geosim.Anisotropy((40.0, 20.0), azimuth=30.0))
+        geosim.simulate(np.array([[112.0, 222.0], [140.0, 230.0]]), np.array([0.5, -1.0]), model, grid,
+                        n_realizations=1, seed=4, workers=1)
+        for k in (_select_rows, cov_matrix_into):
+            print(sum(k.stats.cache_hits.values()), sum(k.stats.cache_misses.values()))
+    """), cache)
+    assert [line.split() for line in out.splitlines()] == [["1", "0", "0"], ["1", "0"], ["1", "0"]]
 
 
 def test_a_kernel_counts_as_cached_only_once_its_code_is_written(tmp_path):

@@ -104,9 +104,12 @@ def covariance_table(cm: tuple, offsets: np.ndarray, step: np.ndarray):
     """Covariances at every difference of two template offsets, or None if too large.
 
     Returns ``(table, centre)``: ``table[centre + o]`` is the covariance at offset ``o``
-    for every ``o`` in ``[-2 E, 2 E]`` where ``E`` is the template's extent per axis.
+    for every ``o`` in ``[-2 E, 2 E]`` where ``E`` is the template's extent per axis; None
+    for an empty template too (nothing to read).
     """
-    ext = np.abs(offsets).max(axis=0) if len(offsets) else np.zeros(3, dtype=np.int64)
+    if not len(offsets):  # no node neighbours (max_nodes 0): no node-to-node covariance is read
+        return None, np.zeros(3, dtype=np.int64)
+    ext = np.abs(offsets).max(axis=0)
     dims = tuple(int(4 * e + 1) for e in ext)
     if int(np.prod(dims)) > TABLE_LIMIT:
         return None, np.zeros(3, dtype=np.int64)

@@ -619,6 +619,12 @@ def simulate(data_coords, data_scores, model, grid, *, n_realizations: int, seed
                          fix="use 1, or an engine with realize_batch (the sequential engine)")
     if not todo:
         return []
+    # what prepares a first run of the sequential engine, compiled ahead after the kriging kernel
+    # (geosim.pipeline.run_job): the preparation loads it rather than compiling it again
+    from ..search import _select_rows
+    from ..variogram.compiled import cov_matrix_into
+    for kernel in (_select_rows, cov_matrix_into):
+        await_compiled("modules", kernel)
     prepared = eng.prepare(data_coords, data_scores, model, grid, neighbourhood=neighbourhood,
                            kriging=kriging, **engine_options)
     groups = _groups(todo, per_path)

@@ -157,7 +157,7 @@ class SequentialEngine:
             table_lin, table_zero, table = offsets @ strides, int(centre @ strides), table.ravel()
         else:
             table_lin, table_zero, table = np.zeros(len(offsets), dtype=np.int64), 0, np.zeros(1)
-        data_cov = (_data_covariances(cm, coords3) if len(scores) <= DATA_COV_LIMIT else np.zeros((0, 0)))
+        data_cov = (_data_covariances(cm, coords3) if 0 < len(scores) <= DATA_COV_LIMIT else np.zeros((0, 0)))
         active_flat = np.flatnonzero(grid.mask.ravel()).astype(np.int64)
         node_xyz = _active_xyz(active_flat, shape3, origin, step)
         neighbours = _data_neighbours(coords3[:, :grid.ndim], node_xyz[:, :grid.ndim], nb, model, hole_ids)
@@ -184,11 +184,16 @@ class SequentialEngine:
         return sgs_kernel(not shared_path, kriging == "ordinary", secondary)
 
     def warm_up(self, *, kriging: str = "simple", shared_path: bool = False, secondary: bool = False) -> None:
-        """Compile the kernels of a run with these options (numba's cache keeps them) through a tiny 3-D run.
+        """Compile the kernels of a run with these options (numba's cache keeps them) through a tiny
+        unconditional 3-D run.
 
-        Every kernel sees the argument types a real run gives it, so the cached code is
-        the code a run loads, whatever its grid, model or neighbourhood.  Only the variant
-        of :meth:`main_kernel` the options name is compiled.
+        Every kernel sees the argument types a real run gives it (data or none), so the cached
+        code is the code a run loads, whatever its data, grid, model or neighbourhood.  Only the
+        variant of :meth:`main_kernel` the options name is compiled.  Without data or node
+        neighbours the preparation runs neither the data search nor the covariance kernel: a
+        first run compiles those in another process after the kriging kernel
+        (:func:`geosim.search.warm_up`, :func:`warm_up`), so the main kernel, the slowest to
+        compile, starts sooner.
         """
         from ..grid import Grid
         from ..variogram.anisotropy import Anisotropy
@@ -196,8 +201,8 @@ class SequentialEngine:
         grid = Grid(0.0, 0.0, (1.0, 1.0, 1.0), (2, 3, 3))
         model = Nugget(0.1) + Spherical(0.9, Anisotropy((4.0, 4.0, 4.0)))
         extra = {"secondary": np.zeros(grid.shape), "correlation": 0.5} if secondary else {}
-        plan = self.prepare(np.array([[0.3, 0.4, 0.5]]), np.array([0.5]), model, grid, kriging=kriging,
-                            neighbourhood=Neighbourhood(max_samples=4, max_nodes=4), **extra)
+        plan = self.prepare(np.zeros((0, 3)), np.zeros(0), model, grid, kriging=kriging,
+                            neighbourhood=Neighbourhood(max_samples=4, max_nodes=0), **extra)
         if shared_path:
             self.realize_batch(plan, np.random.default_rng(1), [np.random.default_rng(2), np.random.default_rng(3)])
         else:
@@ -296,9 +301,8 @@ DATA_COV_LIMIT = 2048
 def warm_up() -> None:
     """Compile the covariance kernel that prepares every run of the engine, whatever its options
     (the covariance table and data-data matrix; numba's cache keeps it), with a real run's argument
-    types: a first run compiles it ahead while its grid, which picks the main kernel's variant, is
-    being made (:func:`geosim.simulation.runner.compile_modules_ahead`).  Not the data search: the
-    kriging kernel compiled beside it calls the same neighbour selection and caches it first."""
+    types: a first run compiles it ahead after the kriging kernel and the data search
+    (:func:`geosim.pipeline.run_job`)."""
     from ..variogram.anisotropy import Anisotropy
     from ..variogram.structures import Nugget, Spherical
     coords = np.zeros((2, 3))
