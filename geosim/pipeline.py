@@ -247,7 +247,7 @@ def cross_validate(spec: RunSpec, data: PreparedData | None = None, model=None, 
     method, drift = spec["simulation.kriging"], {}
     if secondary is not None and secondary.method == "external_drift":  # the secondary at the samples
         method, drift = "external_drift", {"drift": secondary.at_data}
-    moments_ready()
+    moments_ready(data.transform, len(data.scores))
     await_compiled("modules", kernel_of(method))  # a first run's kriging kernel, being compiled ahead
     with drift_errors(secondary) if drift else nullcontext():
         result = leave_one_out(data.coords, data.scores, model, method=method, mean=0.0,
@@ -285,7 +285,7 @@ def estimate(spec: RunSpec, data: PreparedData | None = None, model=None, grid=N
     model = _model(spec, data, model, progress)
     from .kriging import kernel_of
     from .simulation.runner import await_compiled
-    moments_ready()
+    moments_ready(data.transform, grid.n_active)
     await_compiled("modules", kernel_of(spec["simulation.kriging"]))  # a first run's, being compiled ahead
     secondary = secondary_grid(spec, data.samples, data.scores, grid)
     scores, variance, result = krige_nodes(
@@ -500,8 +500,9 @@ def run_job(spec: RunSpec | str | os.PathLike, out_dir: str | os.PathLike, prepa
     # it to pay (smaller ones use numpy).  The main kernel takes longest, so its process has nothing
     # else before it but the factorization every kernel calls (so that the kriging kernel finds it
     # cached rather than compiling it at the same time); without a kriging process it takes what
-    # prepares the engine's run too.  This process compiles the data-unit moments itself while it
-    # waits for the kriging kernel (moments_ready), and small data sets' variograms compile nothing
+    # prepares the engine's run too.  This process compiles the data-unit moments itself, when the
+    # run is large enough for their kernel, while it waits for the kriging kernel (moments_ready);
+    # small data sets' moments and variograms compile nothing
     sequential = isinstance(resolve_engine(spec["simulation.engine"]), SequentialEngine)
     preparing = ([("geosim.search", _select_rows, {}), ("geosim.simulation.sequential", cov_matrix_into, {})]
                  if sequential else [])
@@ -528,16 +529,18 @@ def run_job(spec: RunSpec | str | os.PathLike, out_dir: str | os.PathLike, prepa
                          lambda: steps(spec, prepared, grid, out_dir, timed, timings))
 
 
-def moments_ready() -> None:
-    """Compile the data-unit moments' kernel into numba's cache if it is not there.
+def moments_ready(transform, n_nodes: int) -> None:
+    """Compile the data-unit moments' kernel into numba's cache if the moments of ``n_nodes``
+    nodes under ``transform`` take it (:func:`geosim.moments.uses_kernel`) and it is not there.
 
     Cross-validation and the estimate call this before they wait for the kriging kernel: on a
     first run that kernel is still compiling in another process (:func:`run_job`), and the wait
-    is spent on the moments they need next.  With the kernel cached this does nothing.
+    is spent on the moments they need next.  With the kernel cached, or a problem small enough
+    for numpy's moments, this does nothing.
     """
-    from .moments import _kernel, warm_up
+    from .moments import _kernel, uses_kernel, warm_up
     from .simulation.runner import in_numba_cache
-    if not in_numba_cache(_kernel):
+    if uses_kernel(transform, n_nodes) and not in_numba_cache(_kernel):
         warm_up()
 
 

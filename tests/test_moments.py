@@ -8,8 +8,17 @@ import pytest
 from scipy import integrate, special
 
 import geosim
+import geosim.moments
 from geosim.moments import multigaussian_moments
 from geosim.transforms import TransformChain
+
+
+@pytest.fixture(autouse=True, params=["numpy", "compiled"])
+def moments_path(request, monkeypatch):
+    """Every check runs through both ways of summing the pieces: numpy's (problems of at most
+    NUMPY_MOMENTS_MAX node-evaluations, these tests' sizes) and the compiled kernel's."""
+    monkeypatch.setattr(geosim.moments, "NUMPY_MOMENTS_MAX", 1 << 62 if request.param == "numpy" else -1)
+    return request.param
 
 # 25 skewed values with ties, and declustering weights of which three are zero, so the
 # score table has repeated scores (zero-width pieces) and flat pieces (ties)
@@ -170,3 +179,37 @@ def test_old_import_path_still_answers_with_a_warning():
     import geosim.transforms
     with pytest.warns(DeprecationWarning, match="geosim.moments.multigaussian_moments"):
         assert geosim.transforms.multigaussian_moments is multigaussian_moments
+
+
+def test_numpy_and_compiled_sums_agree_to_rounding(moments_path):
+    # the same pieces and tail rule summed in two orders, with erfc from scipy and from the C
+    # library: equal to a few ulps of the moments' scale at 2000 random nodes per transform, every
+    # tail kind, with and without a log step (the log-space branch of the scaled masses included:
+    # steep pieces far from the mean), and nodes whose reach takes some pieces and not others
+    if moments_path == "compiled":
+        pytest.skip("one comparison of the two is enough")
+    rng = np.random.default_rng(20261203)
+    m = rng.uniform(-4.0, 4.0, 2000)
+    s = np.exp(rng.uniform(np.log(0.01), np.log(1.5), 2000))
+    for tails, log in CASES:
+        t = _transform(*tails, log)
+        core, log_step = geosim.moments._piecewise_form(t)
+        numpy_mean, numpy_var = geosim.moments._piecewise_moments(t, core, log_step, m, s)
+        kernel_mean, kernel_var = geosim.moments._piecewise_moments(t, core, log_step, m, s, compiled=True)
+        scale = float(np.max(np.abs(kernel_mean)))
+        np.testing.assert_allclose(numpy_mean, kernel_mean, rtol=1e-12, atol=1e-13 * scale)
+        np.testing.assert_allclose(numpy_var, kernel_var, rtol=1e-10, atol=1e-13 * scale * scale)
+
+
+def test_the_size_picks_the_way_and_a_first_run_compiles_nothing_for_small_ones(moments_path):
+    # a few hundred samples' cross-validation and estimate take numpy's sums, a million nodes the
+    # kernel; opaque transforms and a log alone never need it
+    t = _transform("power", 1.5, "pareto", 6.0, False)
+    knots = len(t.steps[-1].scores_) + 2 * geosim.moments.PANELS * geosim.moments.POINTS
+    limit = 1 << 23
+    with pytest.MonkeyPatch.context() as mp:
+        mp.setattr(geosim.moments, "NUMPY_MOMENTS_MAX", limit)
+        assert not geosim.moments.uses_kernel(t, limit // knots)
+        assert geosim.moments.uses_kernel(t, limit // knots + 1)
+        assert not geosim.moments.uses_kernel(geosim.LogTransform(), 10 ** 7)
+        assert not geosim.moments.uses_kernel(type("Opaque", (), {"inverse": staticmethod(np.exp)}), 10 ** 7)
