@@ -266,6 +266,10 @@ class RecordingSink:
         self.resume_key = resume_key
         self.seed = seed
 
+    def pool_modules(self) -> list[str]:
+        """The writer's (:func:`geosim.simulation.runner.pool_context`)."""
+        return list(getattr(self.writer, "pool_modules", lambda: ())())
+
     def __call__(self, index: int, field: np.ndarray) -> dict:
         record = self.writer(index, field)
         # one line: json's compiled encoder (an indent takes the Python one, about 10x slower; a record

@@ -625,9 +625,14 @@ def simulate(data_coords, data_scores, model, grid, *, n_realizations: int, seed
     from ..variogram.compiled import cov_matrix_into
     for kernel in (_select_rows, cov_matrix_into):
         await_compiled("modules", kernel)
+    groups = _groups(todo, per_path)
+    if client is None and (workers is None or int(workers) > 1) and len(groups) > 1:
+        # the local pool's server imports what the processes it forks need (the engine, the sink and
+        # the libraries the sink names: 1-2 s of CPU) while the engine prepares, rather than when the
+        # pool starts; for a first run, also while it waits for the engine's kernel below
+        _start_pool_server(_pool_context(eng, sink))
     prepared = eng.prepare(data_coords, data_scores, model, grid, neighbourhood=neighbourhood,
                            kriging=kriging, **engine_options)
-    groups = _groups(todo, per_path)
     # a first run's kernel may still be compiling in compile_ahead's process: load it, not compile it again
     kernel = None
     if hasattr(eng, "main_kernel"):
@@ -635,11 +640,6 @@ def simulate(data_coords, data_scores, model, grid, *, n_realizations: int, seed
                  "secondary": engine_options.get("secondary") is not None
                  and engine_options.get("correlation", 0.0) != 0.0}
         kernel = eng.main_kernel(**_accepted(eng.main_kernel, needs))
-    if "engine" in _AHEAD and client is None and (workers is None or int(workers) > 1) and len(groups) > 1:
-        # while a first run may still wait for the engine's process, the pool's server imports what
-        # the workers need (about 0.7 s of CPU a local pool costs when it starts); a run that
-        # compiled nothing ahead starts it with the pool, as before
-        _start_pool_server(pool_context(type(eng).__module__, type(sink).__module__ if sink is not None else None))
     await_compiled("engine", kernel)
     if client is not None:
         results = _run_dask(client, eng, prepared, sink, seed, groups, per_path, progress)
@@ -728,21 +728,31 @@ def import_ahead(modules: Iterable[str]) -> threading.Thread:
     return thread
 
 
-def pool_context(*modules):
+def pool_context(*modules, libraries: Sequence[str] = ()):
     """A start method that is safe with threads (BLAS, numba, Dask) in this process.
 
     "forkserver" where available: workers fork from a clean server process that has
     imported geosim's simulation modules once, so each starts in a fraction of the time a
     fresh interpreter ("spawn", the fallback) needs to import numpy, scipy and numba.
+    ``modules``: the modules of the processes' classes, geosim's only (a class of ``__main__``
+    is not importable by name); ``libraries``: further modules, by name, that the processes
+    forked import (a realization writer's, its store and cube libraries), imported once there.
     """
     import multiprocessing
     if "forkserver" not in multiprocessing.get_all_start_methods():
         return multiprocessing.get_context("spawn")
     ctx = multiprocessing.get_context("forkserver")
-    # only modules importable by name; takes effect when the server first starts
+    # takes effect when the server first starts
     preload = ["geosim.simulation.runner"] + [m for m in modules if m and m.startswith("geosim.")]
-    ctx.set_forkserver_preload(preload)
+    ctx.set_forkserver_preload(preload + [m for m in libraries if m not in preload])
     return ctx
+
+
+def _pool_context(eng, sink):
+    """:func:`pool_context` of a local pool running ``eng`` into ``sink``: the sink names further
+    modules with ``pool_modules()`` (:meth:`geosim.ensemble.RealizationWriter.pool_modules`)."""
+    return pool_context(type(eng).__module__, type(sink).__module__ if sink is not None else None,
+                        libraries=list(getattr(sink, "pool_modules", lambda: ())()))
 
 
 def _start_pool_server(ctx) -> None:
@@ -754,7 +764,7 @@ def _start_pool_server(ctx) -> None:
 
 def _run_pool(n_workers, eng, prepared, sink, seed, groups, per_path, progress) -> dict:
     from concurrent.futures import ProcessPoolExecutor, as_completed
-    ctx = pool_context(type(eng).__module__, type(sink).__module__ if sink is not None else None)
+    ctx = _pool_context(eng, sink)
     with ProcessPoolExecutor(n_workers, mp_context=ctx, initializer=_pool_init,
                              initargs=(os.getpid(), eng, prepared, sink)) as pool:
         futures = [pool.submit(_pool_task, seed, g, per_path) for g in groups]
