@@ -254,7 +254,8 @@ def _numpy_kernel(m, s, r, y, v, lam, offset, tails, limits, local, jac, out1, o
             m1 = np.where(use, p1, 0.0).sum(axis=1)
             m2 = np.where(use, p2, 0.0).sum(axis=1)
             for side in range(2):
-                t_from, t_to = limits[start:start + block, 2 * side, None], limits[start:start + block, 2 * side + 1, None]
+                t_from = limits[start:start + block, 2 * side, None]
+                t_to = limits[start:start + block, 2 * side + 1, None]
                 width = (t_to - t_from) / panels
                 # the lower tail's datum is at its upper end, the upper tail's at its lower end
                 tt = t_to - width * local if side == 0 else t_from + width * local
