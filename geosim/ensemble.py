@@ -288,18 +288,20 @@ class RealizationWriter:
         them once while the engine prepares (:func:`geosim.simulation.runner.simulate`), where each
         process forked had imported them itself (about 0.85 s of CPU in the one writing the NetCDF
         cube after the workers)."""
-        modules = ["geosim.ensemble"]
-        if self.cube is not None:
-            modules += ["zarr", "dask.array", "xarray"] + (["netCDF4"] if self.cube == "netcdf" else [])
-        return modules
+        return ["geosim.ensemble"] + self._cube_libraries()
+
+    def _cube_libraries(self) -> list[str]:
+        """The libraries of the realization store and the cubes (none without a cube)."""
+        if self.cube is None:
+            return []
+        return ["zarr", "dask.array", "xarray"] + (["netCDF4"] if self.cube == "netcdf" else [])
 
     def finish_modules(self, plots: bool = False) -> list[str]:
         """The libraries :meth:`finish` and :meth:`validation` import (rasters, cubes, tables, the
         checks' statistics and, with ``plots``, figures), those of the derived writers included: a caller imports them while the workers
         simulate (:func:`geosim.simulation.runner.import_ahead`)."""
         modules = ["rasterio"] + (["scipy.stats"] if self.measure is not None else [])  # the checks' tolerances
-        if self.cube is not None:
-            modules += ["zarr", "dask.array", "xarray"] + (["netCDF4"] if self.cube == "netcdf" else [])
+        modules += self._cube_libraries()
         if ".parquet" in self.tables:
             modules.append("pyarrow.parquet")
         if plots:
