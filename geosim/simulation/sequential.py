@@ -196,12 +196,9 @@ class SequentialEngine:
         compile, starts sooner.
         """
         from ..grid import Grid
-        from ..variogram.anisotropy import Anisotropy
-        from ..variogram.structures import Nugget, Spherical
         grid = Grid(0.0, 0.0, (1.0, 1.0, 1.0), (2, 3, 3))
-        model = Nugget(0.1) + Spherical(0.9, Anisotropy((4.0, 4.0, 4.0)))
         extra = {"secondary": np.zeros(grid.shape), "correlation": 0.5} if secondary else {}
-        plan = self.prepare(np.zeros((0, 3)), np.zeros(0), model, grid, kriging=kriging,
+        plan = self.prepare(np.zeros((0, 3)), np.zeros(0), _warm_up_model(), grid, kriging=kriging,
                             neighbourhood=Neighbourhood(max_samples=4, max_nodes=0), **extra)
         if shared_path:
             self.realize_batch(plan, np.random.default_rng(1), [np.random.default_rng(2), np.random.default_rng(3)])
@@ -303,11 +300,16 @@ def warm_up() -> None:
     (the covariance table and data-data matrix; numba's cache keeps it), with a real run's argument
     types: a first run compiles it ahead after the kriging kernel and the data search
     (:func:`geosim.pipeline.run_job`)."""
+    coords = np.zeros((2, 3))
+    cov_matrix_into(_warm_up_model().compiled(), coords, coords, np.empty((2, 2)))
+
+
+def _warm_up_model():
+    """The model of the warm-up runs: a nugget and a spherical structure, the compiled model's
+    argument types of every real one."""
     from ..variogram.anisotropy import Anisotropy
     from ..variogram.structures import Nugget, Spherical
-    coords = np.zeros((2, 3))
-    cov_matrix_into((Nugget(0.1) + Spherical(0.9, Anisotropy((4.0, 4.0, 4.0)))).compiled(), coords, coords,
-                    np.empty((2, 2)))
+    return Nugget(0.1) + Spherical(0.9, Anisotropy((4.0, 4.0, 4.0)))
 
 
 def _data_covariances(cm, coords3):
