@@ -132,13 +132,15 @@ def test_a_table_of_numbers_has_the_cells_of_the_row_by_row_table_and_reads_back
     np.testing.assert_array_equal(back["count"], data["count"])
 
 
-def test_float32_cells_are_pythons_own_formatting_of_every_kind_of_value():
-    # the column formatter computes the ten significant digits of float32 values by exact float64
-    # arithmetic; Python's correctly rounded format(v, ".10g") (David Gay's dtoa, round half to even)
-    # is the reference: values across 24 decades of both signs, powers of ten and their float32
-    # neighbours, exact ties at the eleventh digit (odd multiples of 2**-13 and below), values
-    # that round up to the next power of ten, zeros, float64 values and non-finite ones
-    from geosim.io.csvw import _float32_g10
+def test_double_cells_are_pythons_own_formatting_of_every_kind_of_value():
+    # the column formatter computes the ten significant digits of float32 values, and of doubles
+    # whose scaled product is exact, by float64 arithmetic; Python's correctly rounded
+    # format(v, ".10g") (David Gay's dtoa, round half to even) is the reference: values across 24
+    # decades of both signs, powers of ten and their float32 neighbours, exact ties at the
+    # eleventh digit (odd multiples of 2**-13 and below), values that round up to the next power
+    # of ten, zeros, doubles of short mantissa (coordinates to 1/64 m, eleven-digit integers),
+    # doubles of full mantissa (Python formats those; near decimal ties too) and non-finite ones
+    from geosim.io.csvw import _double_cells
     rng = np.random.default_rng(11)
     spread = rng.uniform(-12, 12, 200_000)
     values = [(np.sign(rng.standard_normal(spread.size)) * 10.0 ** spread).astype(np.float32)]
@@ -147,15 +149,40 @@ def test_float32_cells_are_pythons_own_formatting_of_every_kind_of_value():
     ties = np.array([m / 2.0 ** s for s in range(1, 40) for m in range(1, 600, 2)])
     values += [ties[ties.astype(np.float32) == ties].astype(np.float32)]
     values += [np.array([9 / 8192, 9.99999999e-4, 9999999999.0, 0.0, -0.0, 123456789.0], dtype=np.float32)]
+    # decimal ties at the eleventh digit as the nearest doubles and their neighbours: their scaled
+    # products are not exact, and rounding the rounded product would miss some of them
+    near = np.concatenate([(rng.integers(10**9, 10**10, 1000) + 0.5) / 10.0**q for q in range(3, 13)])
+    values += [near, np.nextafter(near, 0), np.nextafter(near, np.inf)]
     a = np.concatenate([v.astype(np.float64) for v in values])
-    a = np.concatenate([a, -a, rng.standard_normal(1000) * 1e3, [np.nan, np.inf, -np.inf, 1e300, 5e-324]])
+    short = np.concatenate([7512000.0 + rng.integers(0, 2**16, 5000) / 64, rng.integers(0, 10**11, 2000) / 1.0,
+                            1e9 - rng.integers(0, 50, 50) / 64, np.nextafter(1e10, 0) - np.arange(0, 4096, 512)])
+    a = np.concatenate([a, short, -a, rng.standard_normal(1000) * 1e3, [np.nan, np.inf, -np.inf, 1e300, 5e-324]])
     column = Column("v", "v")
-    cells = _float32_g10(a, column)
+    cells = _double_cells(a, column)
     got = [bytes(row[row != 0]).decode() for row in cells]
     expected = [format(v, ".10g") if np.isfinite(v) else "" for v in a.tolist()]
     assert got == expected
     assert got[-5:] == ["", "", "", "1e+300", "4.940656458e-324"]
     assert format(9 / 8192, ".10g") == "0.001098632812"  # a tie at the eleventh digit, rounded to even
+
+
+def test_the_compiled_cells_take_float32_values_and_short_doubles_and_leave_the_rest_to_python():
+    # which values the compiled formatter writes itself: float32 values and doubles of short mantissa
+    # in 0.001 <= |v| < 1e10 and zeros; full-mantissa doubles (whose scaled product is not exact),
+    # values out of the fixed-notation range and 1e10 - tiny (rounds to exponent notation) are not
+    from geosim.io.numbertext import CELL_WIDTH, g10_cells
+    rng = np.random.default_rng(12)
+    edges = [0.0, -0.0, float(np.float32(0.001)), 9999999999.0]
+    taken = np.concatenate([rng.lognormal(0, 4, 3000).astype(np.float32).astype(np.float64),
+                            641000.0 + rng.integers(0, 2**20, 3000) / 256, edges])
+    taken = taken[(taken == 0) | ((taken >= 1e-3) & (taken < 1e10))]
+    left = np.concatenate([rng.uniform(1, 2, 1000) / 3, [1e-4, 1e10, 9999999999.9, 123.4, 0.1]])
+    for values, slow_expected in ((taken, 0), (-left, left.size)):
+        out = np.zeros((values.size, CELL_WIDTH), dtype=np.uint8)
+        slow = np.zeros(values.size, dtype=np.bool_)
+        assert g10_cells(values, out, slow) == slow_expected == slow.sum()
+        assert not out[slow].any()  # a row left to Python stays NUL, its sign too
+    assert format(9999999999.9, ".10g") == "1e+10"
 
 
 def test_a_block_model_of_float32_columns_reads_as_the_row_by_row_table(tmp_path, monkeypatch):
