@@ -13,11 +13,15 @@ import geosim
 from geosim.ensemble import RealizationWriter
 from geosim.runstate import RecordingSink
 
-# a module that notes which process imports it, and a sink that names it to the pool's server
+# a module that notes which process imports it, and whether numba's compiler is set up there
+# already (its built-in implementations installed), and a sink that names it to the pool's server
 PROBE = textwrap.dedent("""
     import os
+    from numba.core.imputils import builtin_registry
+    from numba.core.registry import cpu_target
+    ready = builtin_registry in cpu_target.target_context._registries
     with open(os.environ["PROBE_LOG"], "a") as f:
-        f.write(f"{os.getpid()}\\n")
+        f.write(f"{os.getpid()} {ready}\\n")
 """)
 PROBE_SINK = textwrap.dedent("""
     import os
@@ -45,7 +49,9 @@ def test_a_writer_names_its_store_and_cube_libraries_and_the_recording_sink_pass
 def test_the_pool_server_imports_what_the_sink_names_once_for_every_worker(tmp_path):
     # a run on two local workers: the server, started before the engine prepares, imports the
     # sink's module once; the workers forked from it find it imported (one line in the log, from the
-    # server's pid), and it takes the geosim modules of the engine and the sink besides
+    # server's pid), and it takes the geosim modules of the engine and the sink besides.  The
+    # server has set numba's compiler up before (pool_server, imported ahead of the sink's module),
+    # so the workers forked from it do not do it each
     (tmp_path / "pool_probe.py").write_text(PROBE)
     (tmp_path / "probe_sink.py").write_text(PROBE_SINK)
     script = textwrap.dedent("""
@@ -67,8 +73,9 @@ def test_the_pool_server_imports_what_the_sink_names_once_for_every_worker(tmp_p
     assert out.returncode == 0, out.stderr[-3000:]
     workers, server, *preload = out.stdout.split()
     assert workers == "2"
-    assert log.read_text().split() == [server]
-    assert preload == ["geosim.simulation.runner", "geosim.simulation.sequential", "pool_probe"]
+    assert log.read_text().split() == [server, "True"]
+    assert preload == ["geosim.simulation.runner", "geosim.simulation.pool_server", "geosim.simulation.sequential",
+                       "pool_probe"]
 
 
 def test_the_preload_keeps_geosim_classes_modules_and_every_library_named_once():
@@ -81,8 +88,24 @@ def test_the_preload_keeps_geosim_classes_modules_and_every_library_named_once()
                            libraries=["geosim.ensemble", "zarr", "geosim.simulation.runner"])
         if ctx.get_start_method() == "forkserver":
             assert forkserver._forkserver._preload_modules == [
-                "geosim.simulation.runner", "geosim.simulation.sequential", "geosim.ensemble", "zarr"]
+                "geosim.simulation.runner", "geosim.simulation.pool_server", "geosim.simulation.sequential",
+                "geosim.ensemble", "zarr"]
         else:
             assert ctx.get_start_method() == "spawn"
     finally:
         forkserver._forkserver._preload_modules = before
+
+
+def test_importing_pool_server_sets_numbas_compiler_up_in_that_process():
+    # in a fresh interpreter: not set up after importing the runner, set up after pool_server
+    script = textwrap.dedent("""
+        from numba.core.imputils import builtin_registry
+        from numba.core.registry import cpu_target
+        import geosim.simulation.runner
+        before = builtin_registry in cpu_target.target_context._registries
+        import geosim.simulation.pool_server
+        print(before, builtin_registry in cpu_target.target_context._registries)
+    """)
+    out = subprocess.run([sys.executable, "-c", script], capture_output=True, text=True, timeout=300)
+    assert out.returncode == 0, out.stderr[-3000:]
+    assert out.stdout.split() == ["False", "True"]

@@ -253,6 +253,17 @@ def _start_warm_up(key: str, targets: Sequence[tuple[str, str | None, Mapping[st
     return proc
 
 
+def set_up_numba() -> None:
+    """Set numba's compiler up in this process now (about 0.25 s of CPU; numba does it at the first
+    kernel a process loads or compiles), so that the processes forked from it start with it."""
+    try:
+        from numba.core.registry import cpu_target
+        cpu_target.target_context.refresh()
+        cpu_target.typing_context.refresh()
+    except Exception:  # noqa: BLE001 - another numba's internals: each process sets itself up
+        pass
+
+
 def _may_fork() -> bool:
     """Whether a compiling process may be a fork of this one: on Linux, and only while this
     process runs no Python thread but its main one (a fork copies no other thread, and a lock one
@@ -270,14 +281,7 @@ class _ForkedWarmUp:
 
     def __init__(self, targets: Sequence[tuple[str, str | None, Mapping[str, object]]], more: bool):
         import warnings
-        try:
-            # numba's compiler set-up (about 0.25 s of CPU), done once here rather than in each
-            # child; this process pays it anyway when it first loads a kernel from the cache
-            from numba.core.registry import cpu_target
-            cpu_target.target_context.refresh()
-            cpu_target.typing_context.refresh()
-        except Exception:  # noqa: BLE001 - another numba's internals: each child sets itself up
-            pass
+        set_up_numba()  # once here rather than in each child; this process pays it anyway at its first kernel
         main_pid = os.getpid()
         read_end, write_end = os.pipe() if more else (-1, -1)
         with warnings.catch_warnings():
@@ -732,8 +736,10 @@ def pool_context(*modules, libraries: Sequence[str] = ()):
     """A start method that is safe with threads (BLAS, numba, Dask) in this process.
 
     "forkserver" where available: workers fork from a clean server process that has
-    imported geosim's simulation modules once, so each starts in a fraction of the time a
-    fresh interpreter ("spawn", the fallback) needs to import numpy, scipy and numba.
+    imported geosim's simulation modules and set numba's compiler up once
+    (:mod:`geosim.simulation.pool_server`), so each starts in a fraction of the time a fresh
+    interpreter ("spawn", the fallback) needs to import numpy, scipy and numba and to load its
+    first kernel.
     ``modules``: the modules of the processes' classes, geosim's only (a class of ``__main__``
     is not importable by name); ``libraries``: further modules, by name, that the processes
     forked import (a realization writer's, its store and cube libraries), imported once there.
@@ -742,8 +748,9 @@ def pool_context(*modules, libraries: Sequence[str] = ()):
     if "forkserver" not in multiprocessing.get_all_start_methods():
         return multiprocessing.get_context("spawn")
     ctx = multiprocessing.get_context("forkserver")
-    # takes effect when the server first starts
-    preload = ["geosim.simulation.runner"] + [m for m in modules if m and m.startswith("geosim.")]
+    # takes effect when the server first starts; pool_server sets numba up there, once
+    preload = ["geosim.simulation.runner", "geosim.simulation.pool_server"]
+    preload += [m for m in modules if m and m.startswith("geosim.")]
     ctx.set_forkserver_preload(preload + [m for m in libraries if m not in preload])
     return ctx
 
