@@ -321,3 +321,35 @@ def test_auto_on_a_small_grid_gives_independent_paths():
     one = geosim.simulate(XY, SCORES, _model(), small, n_realizations=3, seed=5, workers=1, neighbourhood=nb)
     for a, b in zip(auto, one):
         np.testing.assert_array_equal(a, b)
+
+
+def test_fewer_path_groups_than_workers_get_a_note_whose_setting_keeps_them_all_busy():
+    # the note's suggestion, checked with the runner's own grouping over many cases: groups of the
+    # suggested size are at least as many as the workers that can be busy (one realization each)
+    from geosim.simulation.runner import _groups, idle_workers_note
+    for n in range(1, 41):
+        for per in range(2, 45):
+            groups = len(_groups(list(range(n)), per))
+            for workers in range(1, 18):
+                note = idle_workers_note(n, per, groups, workers)
+                busy = min(n, workers)
+                assert (note is not None) == (groups < busy), (n, per, workers)
+                if note:
+                    suggested = int(note.split("realizations_per_path = ")[1].split()[0])
+                    assert len(_groups(list(range(n)), suggested)) >= busy, note
+    assert idle_workers_note(50, 1, 50, 2) is None  # independent paths: one group a realization
+
+
+def test_a_run_with_idle_workers_says_so(caplog):
+    # 4 realizations in one group of 4 on 2 workers: one works, and the run says what would use both
+    grid = geosim.Grid(0.0, 0.0, (8.0, 8.0), (6, 7))
+    opts = dict(n_realizations=4, seed=2, neighbourhood=Neighbourhood(max_samples=6, max_nodes=8))
+    with caplog.at_level("WARNING", logger="geosim"):
+        geosim.simulate(XY, SCORES, _model(), grid, realizations_per_path=4, workers=2, **opts)
+    notes = [r.getMessage() for r in caplog.records if "workers idle" in r.getMessage()]
+    assert notes and "1 group(s)" in notes[0] and "realizations_per_path = 2 would keep 2 busy" in notes[0]
+    caplog.clear()
+    with caplog.at_level("WARNING", logger="geosim"):
+        geosim.simulate(XY, SCORES, _model(), grid, realizations_per_path=4, workers=1, **opts)
+        geosim.simulate(XY, SCORES, _model(), grid, realizations_per_path=2, workers=1, **opts)
+    assert not [r for r in caplog.records if "workers idle" in r.getMessage()]

@@ -649,6 +649,9 @@ def simulate(data_coords, data_scores, model, grid, *, n_realizations: int, seed
         results = _run_dask(client, eng, prepared, sink, seed, groups, per_path, progress)
     else:
         n_workers = (os.cpu_count() or 1) if workers is None else int(workers)
+        note = idle_workers_note(len(todo), per_path, len(groups), n_workers)
+        if note:
+            log.warning("%s", note)
         n_workers = fitting_workers(grid, prepared, max(1, min(n_workers, len(groups))),
                                     members=max(map(len, groups)))
         if n_workers == 1:
@@ -660,6 +663,33 @@ def simulate(data_coords, data_scores, model, grid, *, n_realizations: int, seed
         else:
             results = _run_pool(n_workers, eng, prepared, sink, seed, groups, per_path, progress)
     return [results[i] for i in todo]
+
+
+def idle_workers_note(n_realizations: int, per_path: int, n_groups: int, n_workers: int) -> str | None:
+    """The note (None if there is none) for realizations sharing paths in fewer groups than workers.
+
+    A group sharing one random path runs on one worker, so ``n_groups`` groups keep at most that
+    many workers busy.  The number of realizations a path serves is the user's choice, not the
+    machine's: it decides the realizations (realization ``i`` depends on the seed, ``i`` and
+    ``realizations_per_path``), so a run gives the same fields on any number of workers, and the
+    note says which setting would use them all.
+
+    Examples
+    --------
+    >>> from geosim.simulation.runner import idle_workers_note
+    >>> print(idle_workers_note(50, 50, 1, 2))  # doctest: +NORMALIZE_WHITESPACE
+    50 realizations sharing random paths in groups of 50 make 1 group(s), simulated one a worker:
+    1 of 2 workers idle; realizations_per_path = 25 would keep 2 busy (other realizations, equally likely)
+    >>> idle_workers_note(100, 50, 2, 2) is None
+    True
+    """
+    busy = min(n_workers, n_realizations)  # at most one realization a worker
+    if per_path <= 1 or n_groups >= busy:
+        return None
+    return (f"{n_realizations} realizations sharing random paths in groups of {per_path} make {n_groups} "
+            f"group(s), simulated one a worker: {n_workers - n_groups} of {n_workers} workers idle; "
+            f"realizations_per_path = {n_realizations // busy} would keep {busy} busy "
+            "(other realizations, equally likely)")
 
 
 def plan_bytes(prepared) -> int:
