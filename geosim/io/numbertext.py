@@ -11,6 +11,8 @@ figures) are written without importing numba.
 """
 from __future__ import annotations
 
+import math
+
 import numpy as np
 from numba import njit
 
@@ -21,6 +23,9 @@ CELL_WIDTH = 15
 
 #: Powers of ten 10**0 .. 10**12, all exact in float64.
 _POW10 = 10.0 ** np.arange(13)
+
+#: log10(2), below the true value (0.30102999566398119521...), so the estimate of k never exceeds it.
+_LOG10_2 = 0.30102999566398114
 
 #: 2**27 + 1: Veltkamp's constant, which splits a double into two halves of at most 26 bits.
 _SPLIT = 134217729.0
@@ -50,9 +55,12 @@ def _decimal(w: float, digits: np.ndarray) -> int:
     ``digits``; :data:`_SLOW` unless ``0.001 <= w < 1e10`` and ``w * 10**(9 - k)`` is exact."""
     if not (1e-3 <= w < 1e10):
         return _SLOW
-    k = min(max(int(np.floor(np.log10(w))), -3), 9)
+    # k from the binary exponent (w = f 2**e, 0.5 <= f < 1): log10(w) lies in [(e - 1) log10(2), e log10(2)),
+    # so this k is the decimal exponent or one less, which the test of y mends
+    k = min(max(int(math.floor((math.frexp(w)[1] - 1) * _LOG10_2)), -3), 9)
     y = w * _POW10[9 - k]
-    k += int(y >= 1e10) - int(y < 1e9)  # log10's rounding next to a power of ten
+    if y >= 1e10:
+        k += 1
     p = w * _POW10[9 - k]
     if not (1e9 <= p < 1e10) or _product_error(w, _POW10[9 - k], p) != 0.0:
         return _SLOW
@@ -63,9 +71,12 @@ def _decimal(w: float, digits: np.ndarray) -> int:
         if k > 9:  # 1e10 and above print in exponent notation
             return _SLOW
     m = np.int64(d)
-    for j in range(9, -1, -1):
-        digits[j] = m % 10
-        m //= 10
+    high, low = m // 100_000, m % 100_000  # two halves of five digits: shorter chains of divisions
+    for j in range(4, -1, -1):
+        digits[j] = high % 10
+        high //= 10
+        digits[j + 5] = low % 10
+        low //= 10
     return k
 
 
