@@ -623,18 +623,18 @@ def simulate(data_coords, data_scores, model, grid, *, n_realizations: int, seed
                          fix="use 1, or an engine with realize_batch (the sequential engine)")
     if not todo:
         return []
+    groups = _groups(todo, per_path)
+    if client is None and (workers is None or int(workers) > 1) and len(groups) > 1:
+        # the local pool's server imports what the processes it forks need (the engine, the sink and
+        # the libraries the sink names: 1-2 s of CPU) while the engine prepares, rather than when the
+        # pool starts; for a first run, also while it waits for the kernels below
+        _start_pool_server(_pool_context(eng, sink))
     # what prepares a first run of the sequential engine, compiled ahead after the kriging kernel
     # (geosim.pipeline.run_job): the preparation loads it rather than compiling it again
     from ..search import _select_rows
     from ..variogram.compiled import cov_matrix_into
     for kernel in (_select_rows, cov_matrix_into):
         await_compiled("modules", kernel)
-    groups = _groups(todo, per_path)
-    if client is None and (workers is None or int(workers) > 1) and len(groups) > 1:
-        # the local pool's server imports what the processes it forks need (the engine, the sink and
-        # the libraries the sink names: 1-2 s of CPU) while the engine prepares, rather than when the
-        # pool starts; for a first run, also while it waits for the engine's kernel below
-        _start_pool_server(_pool_context(eng, sink))
     prepared = eng.prepare(data_coords, data_scores, model, grid, neighbourhood=neighbourhood,
                            kriging=kriging, **engine_options)
     # a first run's kernel may still be compiling in compile_ahead's process: load it, not compile it again
