@@ -6,6 +6,7 @@ for Tabular Data"): it finds ``<name>.csv-metadata.json`` by the standard's rule
 parses every cell with the declared datatype and reports cells that do not fit.
 """
 import json
+import math
 
 import numpy as np
 import pytest
@@ -207,3 +208,14 @@ def test_a_block_model_of_float32_columns_reads_as_the_row_by_row_table(tmp_path
     back = pd.read_csv(tmp_path / "columns.csv")
     assert back["std"].to_numpy().astype(np.float32).tobytes() == stats[1].tobytes()
     assert back["mean"].isna().sum() == 1
+
+
+def test_the_decimal_exponents_estimate_from_the_binary_one_is_exact_for_every_double():
+    # _decimal takes floor((e - 1) log10 2) as the first guess of the decimal exponent; with log10(2)
+    # rounded to double it must equal the exact floor for every binary exponent of a double
+    from decimal import Decimal, getcontext
+
+    from geosim.io.numbertext import _LOG10_2
+    getcontext().prec = 50
+    exact = Decimal(2).log10()
+    assert [n for n in range(-1100, 1100) if math.floor(n * _LOG10_2) != math.floor(Decimal(n) * exact)] == []

@@ -24,7 +24,8 @@ CELL_WIDTH = 15
 #: Powers of ten 10**0 .. 10**12, all exact in float64.
 _POW10 = 10.0 ** np.arange(13)
 
-#: log10(2), below the true value (0.30102999566398119521...), so the estimate of k never exceeds it.
+#: log10(2) to double precision: ``floor(n * _LOG10_2)`` equals the exact ``floor(n log10(2))`` for
+#: every binary exponent ``n`` of a double (checked for -1100 <= n < 1100).
 _LOG10_2 = 0.30102999566398114
 
 #: 2**27 + 1: Veltkamp's constant, which splits a double into two halves of at most 26 bits.
