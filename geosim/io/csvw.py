@@ -159,7 +159,8 @@ def _text_matrix(cells: Sequence[str]) -> np.ndarray:
 def _double_cells(a: np.ndarray, column: Column) -> np.ndarray:
     """The cells of a double column (``format(v, ".10g")``, empty when not finite) as a NUL-padded
     uint8 matrix, one row per value: compiled (:func:`geosim.io.numbertext.g10_cells`) where
-    that is exact (every float32 value), by Python otherwise."""
+    that is exact (zeros, and float32 values and short-mantissa doubles from 0.001 to below
+    1e10), by Python otherwise."""
     from .numbertext import CELL_WIDTH, g10_cells
     a = np.ascontiguousarray(a, dtype=np.float64)
     out = np.zeros((a.size, CELL_WIDTH), dtype=np.uint8)
