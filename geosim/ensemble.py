@@ -434,10 +434,10 @@ class RealizationWriter:
         """
         from concurrent.futures import ProcessPoolExecutor
 
-        from .simulation.runner import pool_context, watch_process
+        from .simulation.runner import pool_context
         if self._writing is None:
             self._writing = (ProcessPoolExecutor(2, mp_context=pool_context(libraries=self.pool_modules()),
-                                                 initializer=watch_process, initargs=(os.getpid(),)), [])
+                                                 initializer=start_aside, initargs=(os.getpid(),)), [])
         pool, futures = self._writing
         futures.append(pool.submit(func, *args, **kwargs))
 
@@ -648,6 +648,26 @@ class RealizationWriter:
             out.append(io_plots.plot_decision_spread(figures, self.folder / "decision_spread.png", units=self.units,
                                                      overwrite=self.overwrite))
         return out
+
+
+def start_aside(parent: int) -> None:
+    """Set up a process of :meth:`RealizationWriter._aside`: it ends when process ``parent`` does
+    (:func:`geosim.simulation.runner.watch_process`), and it does not import Dask's distributed
+    scheduler.
+
+    xarray's ``to_netcdf`` asks which Dask scheduler is active, and xarray and Dask find out by
+    importing ``distributed`` when it is installed: about 0.5-0.9 s of CPU in each process that
+    writes a NetCDF cube, at the end of a run when both cores are busy.  These processes compute
+    with Dask's synchronous scheduler only (:func:`geosim.io.cube.write_netcdf`), and no client
+    can be active in them, so the answer without the import is the same ("threaded").  ``None``
+    in ``sys.modules`` makes ``import distributed`` raise ImportError, which both libraries catch
+    as "not installed".  Nothing is changed when ``distributed`` is already imported.
+    """
+    import sys
+
+    from .simulation.runner import watch_process
+    watch_process(parent)
+    sys.modules.setdefault("distributed", None)
 
 
 def _store_windows(indices, grid, windows, *, store: RealizationStore, level: int):

@@ -9,6 +9,8 @@ import subprocess
 import sys
 import textwrap
 
+import numpy as np
+
 import geosim
 from geosim.ensemble import RealizationWriter
 from geosim.runstate import RecordingSink
@@ -109,3 +111,89 @@ def test_importing_pool_server_sets_numbas_compiler_up_in_that_process():
     out = subprocess.run([sys.executable, "-c", script], capture_output=True, text=True, timeout=300)
     assert out.returncode == 0, out.stderr[-3000:]
     assert out.stdout.split() == ["False", "True"]
+
+
+# a module whose function, run in a process of RealizationWriter._aside, writes a summary cube and
+# notes what the process holds of Dask's distributed scheduler afterwards
+ASIDE_PROBE = textwrap.dedent("""
+    import os, sys
+    import numpy as np
+    import geosim
+    from geosim.io.cube import write_summary_cube
+
+    def bands(grid):
+        return np.arange(7 * grid.size, dtype=np.float32).reshape((7,) + grid.shape) / np.float32(50)
+
+    def write_and_note(path):
+        grid = geosim.Grid(0.0, 0.0, (5.0, 5.0, 2.0), (3, 4, 5))
+        write_summary_cube(path, grid, bands(grid), [0.5, 1.0], units="g/t")
+        held = sys.modules.get("distributed", "absent")
+        with open(os.environ["PROBE_LOG"], "a") as f:
+            f.write(f"{os.getpid()} {'blocked' if held is None else held if held == 'absent' else 'imported'}\\n")
+""")
+ASIDE_RUN = textwrap.dedent("""
+    import os, sys
+    import geosim
+    from geosim.ensemble import RealizationWriter, start_aside
+    import aside_probe
+    how, out = sys.argv[1], sys.argv[2]
+    if how == "aside":  # through the writer's own pool, forked from the pool's server
+        writer = RealizationWriter(out + ".folder", geosim.Grid(0.0, 0.0, (5.0, 5.0, 2.0), (3, 4, 5)), cube="netcdf")
+        writer._aside(aside_probe.write_and_note, out)
+        writer.wait()
+    elif how == "start":  # here, after the set-up of such a process
+        start_aside(os.getpid())
+        aside_probe.write_and_note(out)
+    else:  # here, as any process writes
+        aside_probe.write_and_note(out)
+    print(os.getpid())
+""")
+
+
+def _aside_probe(tmp_path, how: str, name: str) -> tuple[str, str, str]:
+    """Run ASIDE_RUN in a fresh interpreter; (its pid, the writing process's pid, what it noted)."""
+    (tmp_path / "aside_probe.py").write_text(ASIDE_PROBE)
+    log = tmp_path / f"{name}.log"
+    env = {**os.environ, "PYTHONPATH": str(tmp_path), "PROBE_LOG": str(log)}
+    out = subprocess.run([sys.executable, "-c", ASIDE_RUN, how, str(tmp_path / f"{name}.nc")],
+                         capture_output=True, text=True, env=env, timeout=600, cwd=tmp_path)
+    assert out.returncode == 0, out.stderr[-3000:]
+    writer, noted = log.read_text().split()
+    return out.stdout.strip(), writer, noted
+
+
+def test_a_process_writing_aside_writes_netcdf_without_importing_dasks_distributed_scheduler(tmp_path):
+    # xarray's to_netcdf imports distributed (installed with the test extras) to ask which scheduler
+    # runs; a process of the writer's pool is set up so that it does not (start_aside), and writes
+    main_pid, writer_pid, noted = _aside_probe(tmp_path, "aside", "aside")
+    assert writer_pid != main_pid
+    assert noted == "blocked"
+    _same_values(tmp_path / "aside.nc")
+
+
+def test_the_cube_written_without_distributed_is_the_cube_written_with_it(tmp_path):
+    # the same summary cube from a process set up by start_aside and from a plain one, which imports
+    # distributed as xarray asks: the same variables, values, encodings and attributes
+    _, _, plain = _aside_probe(tmp_path, "plain", "plain")
+    _, _, started = _aside_probe(tmp_path, "start", "start")
+    assert (plain, started) == ("imported", "blocked")
+    import xarray as xr
+    with xr.open_dataset(tmp_path / "plain.nc", engine="netcdf4") as a, \
+            xr.open_dataset(tmp_path / "start.nc", engine="netcdf4") as b:
+        assert a.identical(b)
+        def encodings(ds):  # how each variable is stored (not the file it came from); repr: NaN fill values
+            return {k: {e: repr(x) for e, x in v.encoding.items() if e != "source"} for k, v in ds.variables.items()}
+        assert encodings(a) == encodings(b)
+        assert encodings(a)["mean"]["zlib"] == "True" and encodings(a)["mean"]["chunksizes"] == "(1, 4, 5)"
+    _same_values(tmp_path / "start.nc")
+
+
+def _same_values(path) -> None:
+    """The cube at ``path`` holds the probe's bands, bit for bit (float32)."""
+    import xarray as xr
+    bands = np.arange(7 * 60, dtype=np.float32).reshape(7, 3, 4, 5) / np.float32(50)
+    with xr.open_dataset(path, engine="netcdf4") as ds:
+        for k, name in enumerate(["mean", "std", "P10", "P50", "P90"]):
+            assert np.array_equal(ds[name].values, bands[k]), name
+        assert np.array_equal(ds["prob_above"].values, bands[5:])
+        assert ds["prob_above"].dims == ("cutoff", "z", "y", "x")
