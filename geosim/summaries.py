@@ -213,13 +213,19 @@ def _node_bands(vals, cutoffs, probs, pairs, out, start, stop):  # pragma: no co
     sorted values by Hyndman and Fan's definition 7 with numpy's interpolation (``a + (b - a) g``,
     or ``b - (b - a)(1 - g)`` for ``g >= 0.5``).  :data:`_LANES` nodes at a time are copied side by
     side (row ``i`` holds realization ``i`` of each) and sorted together by the compare-exchange
-    ``pairs`` (:func:`sorting_network`): no branch depends on the values, so every row operation
-    is a vector minimum and maximum.  The sort is in the values' own precision (the order of
-    float32 values is that of their float64 widenings), the arithmetic in float64.
+    ``pairs`` (:func:`sorting_network`).  No branch depends on the values (counts add comparisons,
+    sums add a selected value), so the compiler turns each loop over the lanes into vector
+    instructions; a compare-exchange is two such loops, the smaller value of each lane into the
+    lower row and the larger into a spare row, then the spare row into the upper row.  (Rows of
+    one buffer may overlap as far as the compiler knows: written in the same loop, they kept it
+    from vector instructions, and the pass took 2.2-2.6 times as long on 100 realizations.)
+    The sort is in the values' own precision (the order of float32 values is that of their
+    float64 widenings), the arithmetic in float64.
     """
     n = vals.shape[0]
     nc = cutoffs.shape[0]
     buf = np.empty((n, _LANES), dtype=vals.dtype)
+    high = np.empty(_LANES, dtype=vals.dtype)
     total = np.empty(_LANES)
     mean = np.empty(_LANES)
     ss = np.empty(_LANES)
@@ -239,10 +245,9 @@ def _node_bands(vals, cutoffs, probs, pairs, out, start, stop):  # pragma: no co
             row = buf[i]
             for k in range(_LANES):
                 x = np.float64(row[k])
-                if x != x:
-                    nan[k] += 1
-                else:
-                    total[k] += x
+                missing = x != x
+                nan[k] += missing
+                total[k] += 0.0 if missing else x
         for k in range(_LANES):
             mean[k] = total[k] / n
         ss[:] = 0.0
@@ -261,11 +266,11 @@ def _node_bands(vals, cutoffs, probs, pairs, out, start, stop):  # pragma: no co
                 out[1, j0 + k] = math.sqrt(ss[k] / n)
         for c in range(nc):
             above[:] = 0
+            cut = cutoffs[c]
             for i in range(n):
                 row = buf[i]
                 for k in range(_LANES):
-                    if row[k] > cutoffs[c]:
-                        above[k] += 1
+                    above[k] += row[k] > cut
             for k in range(w):
                 if nan[k] == 0:
                     out[5 + c, j0 + k] = above[k] / n
@@ -275,8 +280,11 @@ def _node_bands(vals, cutoffs, probs, pairs, out, start, stop):  # pragma: no co
             for k in range(_LANES):
                 x = lo_row[k]
                 y = hi_row[k]
-                lo_row[k] = min(x, y)
-                hi_row[k] = max(x, y)
+                less = x < y
+                high[k] = y if less else x
+                lo_row[k] = x if less else y
+            for k in range(_LANES):
+                hi_row[k] = high[k]
         for q in range(probs.shape[0]):
             pos = (n - 1) * probs[q]
             lo = int(math.floor(pos))
