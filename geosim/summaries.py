@@ -218,7 +218,8 @@ def _node_bands(vals, cutoffs, probs, pairs, out, start, stop):  # pragma: no co
     instructions; a compare-exchange is two such loops, the smaller value of each lane into the
     lower row and the larger into a spare row, then the spare row into the upper row.  (Rows of
     one buffer may overlap as far as the compiler knows: written in the same loop, they kept it
-    from vector instructions, and the pass took 2.2-2.6 times as long on 100 realizations.)
+    from vector instructions.  Written so, and with branches in the counts, the pass took 2.1 s
+    of CPU for 100 realizations of a million nodes, against 0.8 s.)
     The sort is in the values' own precision (the order of float32 values is that of their
     float64 widenings), the arithmetic in float64.
     """
