@@ -57,12 +57,12 @@ def _decimal(w: float, digits: np.ndarray) -> int:
     if not (1e-3 <= w < 1e10):
         return _SLOW
     # k from the binary exponent (w = f 2**e, 0.5 <= f < 1): log10(w) lies in [(e - 1) log10(2), e log10(2)),
-    # so this k is the decimal exponent or one less, which the test of y mends
+    # so this k is the decimal exponent or one less, which the test of p mends
     k = min(max(int(math.floor((math.frexp(w)[1] - 1) * _LOG10_2)), -3), 9)
-    y = w * _POW10[9 - k]
-    if y >= 1e10:
-        k += 1
     p = w * _POW10[9 - k]
+    if p >= 1e10:
+        k += 1
+        p = w * _POW10[9 - k]
     if not (1e9 <= p < 1e10) or _product_error(w, _POW10[9 - k], p) != 0.0:
         return _SLOW
     d = np.rint(p)  # the exact product rounded half to even
