@@ -657,11 +657,12 @@ def start_aside(parent: int) -> None:
 
     xarray's ``to_netcdf`` asks which Dask scheduler is active, and xarray and Dask find out by
     importing ``distributed`` when it is installed: 0.4-0.5 s of CPU in each process that writes
-    a NetCDF cube (on the 1M-node benchmark), at the end of a run when both cores are busy.  These processes compute
-    with Dask's synchronous scheduler only (:func:`geosim.io.cube.write_netcdf`), and no client
-    can be active in them, so the answer without the import is the same ("threaded").  ``None``
-    in ``sys.modules`` makes ``import distributed`` raise ImportError, which both libraries catch
-    as "not installed".  Nothing is changed when ``distributed`` is already imported.
+    a NetCDF cube (on the 1M-node benchmark), at the end of a run when both cores are busy.
+    These processes compute with Dask's synchronous scheduler only
+    (:func:`geosim.io.cube.write_netcdf`), and no client can be active in them, so the answer
+    without the import is the same ("threaded").  ``None`` in ``sys.modules`` makes ``import
+    distributed`` raise ImportError, which both libraries catch as "not installed".  Nothing is
+    changed when ``distributed`` is already imported.
     """
     import sys
 

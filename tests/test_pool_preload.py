@@ -127,9 +127,12 @@ ASIDE_PROBE = textwrap.dedent("""
     def write_and_note(path):
         grid = geosim.Grid(0.0, 0.0, (5.0, 5.0, 2.0), (3, 4, 5))
         write_summary_cube(path, grid, bands(grid), [0.5, 1.0], units="g/t")
-        held = sys.modules.get("distributed", "absent")
+        if "distributed" not in sys.modules:
+            held = "absent"
+        else:
+            held = "blocked" if sys.modules["distributed"] is None else "imported"
         with open(os.environ["PROBE_LOG"], "a") as f:
-            f.write(f"{os.getpid()} {'blocked' if held is None else held if held == 'absent' else 'imported'}\\n")
+            f.write(f"{os.getpid()} {held}\\n")
 """)
 ASIDE_RUN = textwrap.dedent("""
     import os, sys
